@@ -1,0 +1,79 @@
+//! One ranging exchange as recorded: the contract row of `exchanges.csv`.
+//!
+//! Timestamps stay raw (unsigned, possibly wrapped 48-bit picosecond counts) so the file keeps
+//! what the device said; every correction happens in the fitter.
+
+use serde::{Deserialize, Serialize};
+
+/// Status label of an exchange that completed and reported all four timestamps.
+pub const STATUS_OK: &str = "ok";
+
+/// What a ranging device reports for one exchange of a burst.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DeviceExchange {
+    /// Responder (reference) departure time, responder clock, raw counter.
+    pub t1_ps: Option<u64>,
+    /// Initiator (DUT) arrival time, initiator clock, raw counter.
+    pub t2_ps: Option<u64>,
+    /// Initiator (DUT) departure time of the reply, initiator clock, raw counter.
+    pub t3_ps: Option<u64>,
+    /// Responder (reference) arrival time of the reply, responder clock, raw counter.
+    pub t4_ps: Option<u64>,
+    /// Receive gain state the DUT's AGC chose for this exchange.
+    pub dut_gain: Option<u32>,
+    /// Receive level the DUT reported.
+    pub dut_rssi_dbm: Option<f64>,
+    /// Receive gain state of the reference unit, where it reports one.
+    pub ref_gain: Option<u32>,
+    /// `ok` or a short error label (`lost`, `timeout`, …).
+    pub status: String,
+}
+
+/// One row of `exchanges.csv` (contract columns, in contract order).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Exchange {
+    /// Name of the recipe stage that took the exchange.
+    pub stage: String,
+    /// Sweep point index within the stage (one attenuation setting).
+    pub point: u32,
+    /// Burst index within the point.
+    pub burst: u32,
+    /// Exchange index within the burst.
+    pub seq: u32,
+    /// Attenuator setting in dB.
+    pub atten_db: f64,
+    /// Channel center frequency in MHz.
+    pub center_mhz: u32,
+    /// Channel bandwidth in MHz.
+    pub bw_mhz: u32,
+    /// Raw responder departure counter.
+    pub t1_ps: Option<u64>,
+    /// Raw initiator arrival counter.
+    pub t2_ps: Option<u64>,
+    /// Raw initiator departure counter.
+    pub t3_ps: Option<u64>,
+    /// Raw responder arrival counter.
+    pub t4_ps: Option<u64>,
+    /// DUT receive gain state.
+    pub dut_gain: Option<u32>,
+    /// DUT receive level.
+    pub dut_rssi_dbm: Option<f64>,
+    /// Reference receive gain state.
+    pub ref_gain: Option<u32>,
+    /// Temperature at the DUT, where the bench measures one.
+    pub temp_c: Option<f64>,
+    /// `ok` or a short error label.
+    pub status: String,
+}
+
+impl Exchange {
+    /// True when the exchange completed and carries everything the fitter needs.
+    pub fn is_usable(&self) -> bool {
+        self.status == STATUS_OK
+            && self.t1_ps.is_some()
+            && self.t2_ps.is_some()
+            && self.t3_ps.is_some()
+            && self.t4_ps.is_some()
+            && self.dut_gain.is_some()
+    }
+}

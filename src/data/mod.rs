@@ -1,0 +1,5 @@
+//! Records and the files that hold them.
+
+pub mod exchange;
+
+pub use exchange::{DeviceExchange, Exchange, STATUS_OK};

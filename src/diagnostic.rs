@@ -1,0 +1,221 @@
+//! Errors that point into a source file, and their rendering.
+//!
+//! Library code produces [`Diagnostic`]s (or [`KeyError`]s that name a key path and are located
+//! later); only the binary's edge renders them, once, as `file:line:col`, the source line, a caret
+//! under the fault and a hint.
+
+use std::fmt;
+use std::ops::Range;
+use std::path::{Path, PathBuf};
+
+/// A meaning error found after parsing, located by its dotted key path (`sim.dut.jitter_ps`,
+/// `stage.2.atten_db`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct KeyError {
+    /// Dotted key path; array elements are numbered from 0.
+    pub key: String,
+    /// What is wrong.
+    pub message: String,
+    /// What would be right.
+    pub hint: String,
+}
+
+impl KeyError {
+    /// A new key error.
+    pub fn new(
+        key: impl Into<String>,
+        message: impl Into<String>,
+        hint: impl Into<String>,
+    ) -> Self {
+        KeyError {
+            key: key.into(),
+            message: message.into(),
+            hint: hint.into(),
+        }
+    }
+}
+
+/// A file's text, kept so errors can quote it.
+#[derive(Debug, Clone)]
+pub struct SourceFile {
+    /// The path as the user gave it (or a label such as `<built-in sim-demo bench>`).
+    pub path: PathBuf,
+    /// The whole text.
+    pub text: String,
+}
+
+impl SourceFile {
+    /// Wraps text read from `path`.
+    pub fn new(path: impl Into<PathBuf>, text: impl Into<String>) -> Self {
+        SourceFile {
+            path: path.into(),
+            text: text.into(),
+        }
+    }
+
+    /// Byte span of the value at a dotted key path, or of the closest enclosing key that exists.
+    pub fn span_of_key(&self, key: &str) -> Option<Range<usize>> {
+        use toml::de::{DeTable, DeValue};
+        let doc = DeTable::parse(&self.text).ok()?;
+        let mut best: Option<Range<usize>> = None;
+        let mut table = doc.get_ref();
+        let mut array: Option<&toml::de::DeArray> = None;
+        for part in key.split('.') {
+            let value = if let Some(arr) = array.take() {
+                part.parse::<usize>().ok().and_then(|i| arr.get(i))
+            } else {
+                table.get(part)
+            };
+            let Some(value) = value else { break };
+            best = Some(value.span());
+            match value.get_ref() {
+                DeValue::Table(t) => table = t,
+                DeValue::Array(a) => array = Some(a),
+                _ => break,
+            }
+        }
+        best
+    }
+
+    /// Builds a diagnostic for a key error, located in this file.
+    pub fn key_error(&self, e: KeyError) -> Diagnostic {
+        let span = self.span_of_key(&e.key);
+        Diagnostic {
+            message: format!("`{}` {}", e.key, e.message),
+            file: Some(self.clone()),
+            span,
+            hint: Some(e.hint),
+        }
+    }
+
+    /// 1-based line and column of a byte offset.
+    pub fn line_col(&self, offset: usize) -> (usize, usize) {
+        let offset = offset.min(self.text.len());
+        let before = &self.text[..offset];
+        let line = before.matches('\n').count() + 1;
+        let line_start = before.rfind('\n').map_or(0, |i| i + 1);
+        let col = before[line_start..].chars().count() + 1;
+        (line, col)
+    }
+}
+
+/// An error ready to show a user: what, where, and what would be right.
+#[derive(Debug, Clone)]
+pub struct Diagnostic {
+    /// One-line statement of the fault.
+    pub message: String,
+    /// The file it is in, when it is in one.
+    pub file: Option<SourceFile>,
+    /// Byte span within the file.
+    pub span: Option<Range<usize>>,
+    /// What would be right.
+    pub hint: Option<String>,
+}
+
+impl Diagnostic {
+    /// A diagnostic without a location.
+    pub fn plain(message: impl Into<String>) -> Self {
+        Diagnostic {
+            message: message.into(),
+            file: None,
+            span: None,
+            hint: None,
+        }
+    }
+
+    /// Adds a hint.
+    pub fn with_hint(mut self, hint: impl Into<String>) -> Self {
+        self.hint = Some(hint.into());
+        self
+    }
+
+    /// A diagnostic at a span of a file.
+    pub fn at(file: &SourceFile, span: Option<Range<usize>>, message: impl Into<String>) -> Self {
+        Diagnostic {
+            message: message.into(),
+            file: Some(file.clone()),
+            span,
+            hint: None,
+        }
+    }
+
+    /// A diagnostic about a whole file (it could not be read, say).
+    pub fn in_file(path: &Path, message: impl Into<String>) -> Self {
+        Diagnostic {
+            message: message.into(),
+            file: Some(SourceFile::new(path, String::new())),
+            span: None,
+            hint: None,
+        }
+    }
+}
+
+impl fmt::Display for Diagnostic {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        writeln!(f, "error: {}", self.message)?;
+        if let Some(file) = &self.file {
+            match &self.span {
+                Some(span) if !file.text.is_empty() => {
+                    let (line, col) = file.line_col(span.start);
+                    let gutter = line.to_string().len();
+                    writeln!(
+                        f,
+                        "{:gutter$}--> {}:{}:{}",
+                        "",
+                        file.path.display(),
+                        line,
+                        col
+                    )?;
+                    let src = file.text.lines().nth(line - 1).unwrap_or("");
+                    let width = file.text[span.clone()]
+                        .lines()
+                        .next()
+                        .map_or(1, |l| l.chars().count().max(1))
+                        .min(src.chars().count().saturating_sub(col - 1).max(1));
+                    writeln!(f, "{:gutter$} |", "")?;
+                    writeln!(f, "{line} | {src}")?;
+                    writeln!(
+                        f,
+                        "{:gutter$} | {:pad$}{}",
+                        "",
+                        "",
+                        "^".repeat(width),
+                        pad = col - 1
+                    )?;
+                }
+                _ => writeln!(f, " --> {}", file.path.display())?,
+            }
+        }
+        if let Some(hint) = &self.hint {
+            writeln!(f, "  = hint: {hint}")?;
+        }
+        Ok(())
+    }
+}
+
+impl std::error::Error for Diagnostic {}
+
+/// Turns a TOML parse/deserialize error into a diagnostic at its span.
+pub fn from_toml(file: &SourceFile, e: &toml::de::Error) -> Diagnostic {
+    let message = e.message().trim().to_string();
+    let hint = toml_hint(&message);
+    Diagnostic {
+        message,
+        file: Some(file.clone()),
+        span: e.span(),
+        hint,
+    }
+}
+
+fn toml_hint(message: &str) -> Option<String> {
+    if let Some(rest) = message.split("expected one of ").nth(1) {
+        return Some(format!("the keys allowed here are {rest}"));
+    }
+    if message.starts_with("missing field") {
+        return Some("add the key; see README.md for the file format".into());
+    }
+    if message.contains("invalid type") {
+        return Some("check the value's type (number, string, array or table)".into());
+    }
+    None
+}

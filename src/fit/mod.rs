@@ -1,0 +1,1 @@
+//! The fitter: pure functions from recorded exchanges to a calibration table.

@@ -1,0 +1,8 @@
+//! taucal: a declarative test-recipe runner that calibrates the group delay of Wi-Fi ranging
+//! devices per receive gain state, on real or simulated benches.
+
+pub mod bench;
+pub mod data;
+pub mod diagnostic;
+pub mod fit;
+pub mod sim;

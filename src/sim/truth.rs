@@ -1,0 +1,298 @@
+//! The simulated bench's truth, as written in a bench file's `[sim]` table.
+//!
+//! Keys named in design §4 (`seed`, `tx_power_dbm`, `[sim.dut]` delays, thresholds, `clock_ppm`,
+//! `jitter_ps`, `outlier_rate`, `[sim.reference] delay_ps`) are a contract; the rest have
+//! defaults chosen to look like a typical 5 GHz conducted bench.
+
+use crate::bench::PerGain;
+use crate::diagnostic::KeyError;
+use serde::Deserialize;
+
+/// Everything the simulator needs beyond the bench's `[path]`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimTruth {
+    /// Seed of the simulation's random streams (the command line's `--seed` overrides it).
+    #[serde(default = "default_seed")]
+    pub seed: u64,
+    /// Transmit power of both units, dBm at the antenna port.
+    #[serde(default = "default_tx_power")]
+    pub tx_power_dbm: f64,
+    /// The device under test (FTM initiator).
+    pub dut: SimDut,
+    /// The reference unit (FTM responder); its clock is the simulation's timebase.
+    pub reference: SimReference,
+    /// Burst timing.
+    #[serde(default)]
+    pub ftm: SimFtm,
+    /// Attenuator behaviour.
+    #[serde(default)]
+    pub attenuator: SimAttenuator,
+    /// Temperature reported with each exchange; none when absent.
+    #[serde(default)]
+    pub ambient_c: Option<f64>,
+}
+
+/// Truth of the device under test.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimDut {
+    /// Transmit chain group delay.
+    pub tx_delay_ps: f64,
+    /// Receive chain group delay per gain index (0 = lowest gain, for the strongest signals).
+    pub rx_delay_ps: Vec<f64>,
+    /// Receive power at which the AGC steps to the next gain index, strictly descending;
+    /// one fewer than `rx_delay_ps`.
+    #[serde(default)]
+    pub gain_thresholds_dbm: Vec<f64>,
+    /// Width of the AGC's hysteresis band around each threshold.
+    #[serde(default)]
+    pub gain_hysteresis_db: f64,
+    /// DUT clock frequency offset relative to the reference's clock, ppm.
+    #[serde(default)]
+    pub clock_ppm: f64,
+    /// Timing jitter per timestamp at high SNR, 1 sigma.
+    #[serde(default = "default_jitter")]
+    pub jitter_ps: f64,
+    /// Probability that a time of arrival locks to a late path.
+    #[serde(default)]
+    pub outlier_rate: f64,
+    /// Receiver noise figure.
+    #[serde(default = "default_nf")]
+    pub noise_figure_db: f64,
+    /// Gain of the timing estimator over a single-sample SNR (training symbols, subcarriers).
+    #[serde(default = "default_processing_gain")]
+    pub processing_gain_db: f64,
+    /// SNR at which half of the frames are lost.
+    #[serde(default = "default_loss_snr")]
+    pub loss_snr_db: f64,
+    /// RSSI measurement noise, 1 sigma.
+    #[serde(default = "default_rssi_noise")]
+    pub rssi_noise_db: f64,
+    /// Timing error shared by all exchanges of one burst (re-drawn each burst), 1 sigma.
+    #[serde(default = "default_burst_offset")]
+    pub burst_offset_ps: f64,
+}
+
+/// Truth of the reference unit.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimReference {
+    /// True K (TX + RX group delay) of the reference, per its gain index or constant.
+    pub delay_ps: PerGain,
+    /// Receive power thresholds of the reference's AGC (empty: one gain state).
+    #[serde(default)]
+    pub gain_thresholds_dbm: Vec<f64>,
+    /// Timing jitter per timestamp at high SNR, 1 sigma.
+    #[serde(default = "default_jitter")]
+    pub jitter_ps: f64,
+    /// Receiver noise figure.
+    #[serde(default = "default_nf")]
+    pub noise_figure_db: f64,
+}
+
+/// Timing of FTM-like bursts.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimFtm {
+    /// Interval between successive exchanges of a burst.
+    #[serde(default = "default_frame_interval")]
+    pub frame_interval_us: f64,
+    /// Air time of the measurement frame; the turnaround is this plus SIFS.
+    #[serde(default = "default_frame_duration")]
+    pub frame_duration_us: f64,
+    /// Short interframe space (16 µs for OFDM, IEEE 802.11).
+    #[serde(default = "default_sifs")]
+    pub sifs_us: f64,
+    /// Negotiation time before the first exchange of a burst.
+    #[serde(default = "default_burst_setup")]
+    pub burst_setup_ms: f64,
+}
+
+/// Simulated attenuator.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimAttenuator {
+    /// Time a change of setting takes.
+    #[serde(default = "default_switch")]
+    pub switch_ms: f64,
+}
+
+impl Default for SimFtm {
+    fn default() -> Self {
+        SimFtm {
+            frame_interval_us: default_frame_interval(),
+            frame_duration_us: default_frame_duration(),
+            sifs_us: default_sifs(),
+            burst_setup_ms: default_burst_setup(),
+        }
+    }
+}
+
+impl Default for SimAttenuator {
+    fn default() -> Self {
+        SimAttenuator {
+            switch_ms: default_switch(),
+        }
+    }
+}
+
+fn default_seed() -> u64 {
+    1
+}
+fn default_tx_power() -> f64 {
+    15.0
+}
+fn default_jitter() -> f64 {
+    300.0
+}
+fn default_nf() -> f64 {
+    6.0
+}
+fn default_processing_gain() -> f64 {
+    20.0
+}
+fn default_loss_snr() -> f64 {
+    4.0
+}
+fn default_rssi_noise() -> f64 {
+    1.0
+}
+fn default_burst_offset() -> f64 {
+    30.0
+}
+fn default_frame_interval() -> f64 {
+    1000.0
+}
+fn default_frame_duration() -> f64 {
+    44.0
+}
+fn default_sifs() -> f64 {
+    16.0
+}
+fn default_burst_setup() -> f64 {
+    5.0
+}
+fn default_switch() -> f64 {
+    2.0
+}
+
+impl SimTruth {
+    /// The DUT's true K (TX + RX delay) at gain index `gain`.
+    pub fn dut_k_ps(&self, gain: u32) -> Option<f64> {
+        self.dut
+            .rx_delay_ps
+            .get(gain as usize)
+            .map(|rx| rx + self.dut.tx_delay_ps)
+    }
+
+    /// Checks what serde cannot: table lengths, orderings and ranges.
+    pub fn validate(&self) -> Result<(), KeyError> {
+        let d = &self.dut;
+        if d.rx_delay_ps.is_empty() {
+            return Err(KeyError::new(
+                "sim.dut.rx_delay_ps",
+                "needs at least one delay",
+                "give one RX delay in ps per gain index, e.g. [900.0, 1150.0]",
+            ));
+        }
+        if d.gain_thresholds_dbm.len() + 1 != d.rx_delay_ps.len() {
+            return Err(KeyError::new(
+                "sim.dut.gain_thresholds_dbm",
+                format!(
+                    "has {} thresholds for {} gain states",
+                    d.gain_thresholds_dbm.len(),
+                    d.rx_delay_ps.len()
+                ),
+                "N gain states need N-1 thresholds (one per switch point)",
+            ));
+        }
+        descending("sim.dut.gain_thresholds_dbm", &d.gain_thresholds_dbm)?;
+        let r = &self.reference;
+        if r.delay_ps.states() > 1 && r.gain_thresholds_dbm.len() + 1 != r.delay_ps.states() {
+            return Err(KeyError::new(
+                "sim.reference.gain_thresholds_dbm",
+                format!(
+                    "has {} thresholds for {} reference gain states",
+                    r.gain_thresholds_dbm.len(),
+                    r.delay_ps.states()
+                ),
+                "N gain states need N-1 thresholds",
+            ));
+        }
+        descending("sim.reference.gain_thresholds_dbm", &r.gain_thresholds_dbm)?;
+        non_negative("sim.dut.jitter_ps", d.jitter_ps)?;
+        non_negative("sim.dut.gain_hysteresis_db", d.gain_hysteresis_db)?;
+        non_negative("sim.dut.rssi_noise_db", d.rssi_noise_db)?;
+        non_negative("sim.dut.burst_offset_ps", d.burst_offset_ps)?;
+        non_negative("sim.reference.jitter_ps", r.jitter_ps)?;
+        if !(0.0..=0.5).contains(&d.outlier_rate) {
+            return Err(KeyError::new(
+                "sim.dut.outlier_rate",
+                format!(
+                    "{} is not a probability this model supports",
+                    d.outlier_rate
+                ),
+                "use a fraction between 0.0 and 0.5",
+            ));
+        }
+        if !(d.clock_ppm.abs() <= 200.0) {
+            return Err(KeyError::new(
+                "sim.dut.clock_ppm",
+                format!("{} ppm is outside ±200 ppm", d.clock_ppm),
+                "IEEE 802.11 allows ±20 ppm per station (±25 ppm at 2.4 GHz)",
+            ));
+        }
+        let f = &self.ftm;
+        positive("sim.ftm.frame_duration_us", f.frame_duration_us)?;
+        non_negative("sim.ftm.sifs_us", f.sifs_us)?;
+        non_negative("sim.ftm.burst_setup_ms", f.burst_setup_ms)?;
+        non_negative("sim.attenuator.switch_ms", self.attenuator.switch_ms)?;
+        if f.frame_interval_us < f.frame_duration_us + f.sifs_us {
+            return Err(KeyError::new(
+                "sim.ftm.frame_interval_us",
+                format!(
+                    "{} µs is shorter than one exchange ({} µs frame + {} µs SIFS)",
+                    f.frame_interval_us, f.frame_duration_us, f.sifs_us
+                ),
+                "space exchanges by at least frame_duration_us + sifs_us",
+            ));
+        }
+        Ok(())
+    }
+}
+
+fn descending(key: &str, v: &[f64]) -> Result<(), KeyError> {
+    if v.windows(2).any(|w| w[1] >= w[0]) {
+        return Err(KeyError::new(
+            key,
+            "thresholds are not strictly descending",
+            "list switch points from the strongest signal down, e.g. [-30.0, -55.0]",
+        ));
+    }
+    Ok(())
+}
+
+fn non_negative(key: &str, v: f64) -> Result<(), KeyError> {
+    if v.is_finite() && v >= 0.0 {
+        Ok(())
+    } else {
+        Err(KeyError::new(
+            key,
+            format!("{v} is negative or not finite"),
+            "use a value ≥ 0",
+        ))
+    }
+}
+
+fn positive(key: &str, v: f64) -> Result<(), KeyError> {
+    if v.is_finite() && v > 0.0 {
+        Ok(())
+    } else {
+        Err(KeyError::new(
+            key,
+            format!("{v} is not positive"),
+            "use a value > 0",
+        ))
+    }
+}
