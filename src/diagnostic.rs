@@ -219,3 +219,60 @@ fn toml_hint(message: &str) -> Option<String> {
     }
     None
 }
+
+/// The candidate closest to `word` by edit distance, when close enough to be a likely typo.
+pub fn did_you_mean<'a>(word: &str, candidates: impl IntoIterator<Item = &'a str>) -> Option<&'a str> {
+    candidates
+        .into_iter()
+        .map(|c| (edit_distance(word, c), c))
+        .filter(|(d, c)| *d <= (c.chars().count() / 3).max(1))
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, c)| c)
+}
+
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut row: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut diag = row[0];
+        row[0] = i + 1;
+        for (j, cb) in b.iter().enumerate() {
+            let next = (diag + usize::from(ca != *cb)).min(row[j] + 1).min(row[j + 1] + 1);
+            diag = row[j + 1];
+            row[j + 1] = next;
+        }
+    }
+    row[b.len()]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn suggests_close_names_only() {
+        assert_eq!(did_you_mean("burst", ["bursts", "frames"]), Some("bursts"));
+        assert_eq!(did_you_mean("xyz", ["bursts", "frames"]), None);
+    }
+
+    #[test]
+    fn locates_nested_keys() {
+        let f = SourceFile::new("b.toml", "[a]\nx = 1\n\n[[s]]\nk = 2\n[[s]]\nk = 3\n");
+        let span = f.span_of_key("s.1.k").expect("span");
+        assert_eq!(&f.text[span.clone()], "3");
+        assert_eq!(f.line_col(span.start), (7, 5));
+        let span = f.span_of_key("a.missing").expect("falls back to the table");
+        assert_eq!(f.line_col(span.start).0, 1);
+    }
+
+    #[test]
+    fn renders_file_line_caret_and_hint() {
+        let f = SourceFile::new("r.toml", "[x]\nbursts = -1\n");
+        let d = f.key_error(KeyError::new("x.bursts", "must be positive", "use 1 or more"));
+        let text = d.to_string();
+        assert!(text.contains("--> r.toml:2:10"), "{text}");
+        assert!(text.contains("2 | bursts = -1"), "{text}");
+        assert!(text.contains("  |          ^^"), "{text}");
+        assert!(text.contains("hint: use 1 or more"), "{text}");
+    }
+}

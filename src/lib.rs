@@ -5,4 +5,5 @@ pub mod bench;
 pub mod data;
 pub mod diagnostic;
 pub mod fit;
+pub mod recipe;
 pub mod sim;

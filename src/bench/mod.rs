@@ -1,8 +1,10 @@
 //! Bench files: which instrument plays which role, the path's delays and losses, the reference
 //! unit's calibration, and (for a simulated bench) the simulation's truth.
 
+pub mod file;
 pub mod path;
 pub mod per_gain;
 
+pub use file::{AttenuatorFacts, Bench, ReferenceFacts, RoleBinding, UnitFacts};
 pub use path::PathFacts;
 pub use per_gain::PerGain;

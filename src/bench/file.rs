@@ -1,0 +1,331 @@
+//! Reading a bench file: raw TOML structs, then a validated [`Bench`].
+
+use super::{PathFacts, PerGain};
+use crate::diagnostic::{self, Diagnostic, KeyError, SourceFile};
+use crate::sim::SimTruth;
+use serde::Deserialize;
+use std::collections::BTreeMap;
+use std::path::Path;
+
+/// The simulated demo bench, compiled in as the default (same text as `recipes/benches/sim-demo.toml`).
+pub const BUILT_IN_DEMO: &str = include_str!("../../recipes/benches/sim-demo.toml");
+
+/// Label under which the built-in bench appears in messages and manifests.
+pub const BUILT_IN_LABEL: &str = "<built-in sim-demo bench>";
+
+/// The roles a bench can fill.
+pub const ROLES: [&str; 3] = ["attenuator", "dut", "reference"];
+
+/// Drivers available without a driver file: the in-process simulated instruments.
+pub const SIM_DRIVERS: [(&str, &str); 2] = [("attenuator", "sim-attenuator"), ("dut", "sim-ranging")];
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawBench {
+    bench: RawMeta,
+    roles: BTreeMap<String, RoleBinding>,
+    attenuator: AttenuatorFacts,
+    dut: UnitFacts,
+    path: PathFacts,
+    reference: ReferenceFacts,
+    sim: Option<SimTruth>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawMeta {
+    name: String,
+    #[serde(default)]
+    description: String,
+}
+
+/// Which driver plays a role, and where to reach it.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RoleBinding {
+    /// Driver name (`sim-attenuator`, `sim-ranging`, or a driver file's name).
+    pub driver: String,
+    /// Address: `sim:` for the in-process simulated bench.
+    pub address: String,
+}
+
+/// What the bench knows of its step attenuator.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AttenuatorFacts {
+    /// Lowest and highest setting, dB.
+    pub range_db: [f64; 2],
+    /// Smallest step; settings must be multiples of it.
+    pub step_db: f64,
+}
+
+/// Receive-level facts of a radio unit.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct UnitFacts {
+    /// Nominal transmit power at the antenna port.
+    pub tx_power_dbm: f64,
+    /// Highest receive level allowed at the port (damage or saturation limit, with margin).
+    pub max_input_dbm: f64,
+    /// Lowest receive level worth measuring (near sensitivity).
+    pub min_input_dbm: f64,
+}
+
+/// The reference unit: its calibrated K, and its level facts.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReferenceFacts {
+    /// The reference's K as calibrated (constant, or per its reported gain index).
+    pub delay_ps: PerGain,
+    /// Nominal transmit power at the antenna port.
+    pub tx_power_dbm: f64,
+    /// Highest receive level allowed at the port.
+    pub max_input_dbm: f64,
+    /// Lowest receive level worth measuring.
+    pub min_input_dbm: f64,
+}
+
+/// A validated bench.
+#[derive(Debug, Clone)]
+pub struct Bench {
+    /// The file it came from (kept for error messages and hashing).
+    pub source: SourceFile,
+    /// Bench name.
+    pub name: String,
+    /// Free text.
+    pub description: String,
+    /// Role → driver and address.
+    pub roles: BTreeMap<String, RoleBinding>,
+    /// The attenuator's range and step.
+    pub attenuator: AttenuatorFacts,
+    /// The DUT's level facts.
+    pub dut: UnitFacts,
+    /// Cable and fixture delays and losses.
+    pub path: PathFacts,
+    /// The reference unit.
+    pub reference: ReferenceFacts,
+    /// Simulation truth, present on a simulated bench.
+    pub sim: Option<SimTruth>,
+}
+
+impl Bench {
+    /// Reads and validates a bench file.
+    pub fn load(path: &Path) -> Result<Bench, Diagnostic> {
+        let text = std::fs::read_to_string(path).map_err(|e| {
+            Diagnostic::in_file(path, format!("cannot read bench file: {e}"))
+                .with_hint("give the path of a bench TOML file, e.g. recipes/benches/sim-demo.toml")
+        })?;
+        Bench::parse(SourceFile::new(path, text))
+    }
+
+    /// The compiled-in simulated demo bench.
+    pub fn built_in() -> Result<Bench, Diagnostic> {
+        Bench::parse(SourceFile::new(BUILT_IN_LABEL, BUILT_IN_DEMO))
+    }
+
+    /// Parses and validates bench text.
+    pub fn parse(source: SourceFile) -> Result<Bench, Diagnostic> {
+        let raw: RawBench =
+            toml::from_str(&source.text).map_err(|e| diagnostic::from_toml(&source, &e))?;
+        let bench = Bench {
+            name: raw.bench.name,
+            description: raw.bench.description,
+            roles: raw.roles,
+            attenuator: raw.attenuator,
+            dut: raw.dut,
+            path: raw.path,
+            reference: raw.reference,
+            sim: raw.sim,
+            source,
+        };
+        bench.validate().map_err(|e| bench.source.key_error(e))?;
+        Ok(bench)
+    }
+
+    /// True when every role is served by the in-process simulated bench.
+    pub fn is_simulated(&self) -> bool {
+        self.roles.values().all(|r| r.address.starts_with("sim:"))
+    }
+
+    /// Receive level at the DUT with the attenuator at `atten_db`.
+    pub fn dut_rx_dbm(&self, atten_db: f64) -> f64 {
+        self.reference.tx_power_dbm - self.path.fixed_loss_db - atten_db
+    }
+
+    /// Receive level at the reference with the attenuator at `atten_db`.
+    pub fn reference_rx_dbm(&self, atten_db: f64) -> f64 {
+        self.dut.tx_power_dbm - self.path.fixed_loss_db - atten_db
+    }
+
+    /// The attenuation range in which both receivers stay between their minimum and maximum
+    /// input levels and the attenuator can go, snapped inward to its step grid.
+    pub fn usable_atten_db(&self) -> Option<(f64, f64)> {
+        let loss = self.path.fixed_loss_db;
+        let lo = [
+            self.attenuator.range_db[0],
+            self.reference.tx_power_dbm - loss - self.dut.max_input_dbm,
+            self.dut.tx_power_dbm - loss - self.reference.max_input_dbm,
+        ]
+        .into_iter()
+        .fold(f64::MIN, f64::max);
+        let hi = [
+            self.attenuator.range_db[1],
+            self.reference.tx_power_dbm - loss - self.dut.min_input_dbm,
+            self.dut.tx_power_dbm - loss - self.reference.min_input_dbm,
+        ]
+        .into_iter()
+        .fold(f64::MAX, f64::min);
+        let step = self.attenuator.step_db;
+        let (lo, hi) = ((lo / step).ceil() * step, (hi / step).floor() * step);
+        (lo <= hi).then_some((lo, hi))
+    }
+
+    /// Why `atten_db` may not be set on this bench, if it may not: outside the attenuator's
+    /// range or grid, or a receive level above a receiver's maximum input.
+    pub fn refuse_atten(&self, atten_db: f64) -> Option<(String, String)> {
+        let [lo, hi] = self.attenuator.range_db;
+        if !atten_db.is_finite() || atten_db < lo - 1e-9 || atten_db > hi + 1e-9 {
+            return Some((
+                format!("{atten_db} dB is outside the attenuator's range {lo}..{hi} dB"),
+                format!("choose settings between {lo} and {hi} dB"),
+            ));
+        }
+        let steps = atten_db / self.attenuator.step_db;
+        if (steps - steps.round()).abs() > 1e-6 {
+            return Some((
+                format!(
+                    "{atten_db} dB is not on the attenuator's {} dB grid",
+                    self.attenuator.step_db
+                ),
+                format!("use multiples of {} dB", self.attenuator.step_db),
+            ));
+        }
+        let dut = self.dut_rx_dbm(atten_db);
+        if dut > self.dut.max_input_dbm {
+            return Some((
+                format!(
+                    "{atten_db} dB puts {dut:.1} dBm into the DUT, above its max_input_dbm {:.1} dBm",
+                    self.dut.max_input_dbm
+                ),
+                format!(
+                    "RF power above a receiver's limit can destroy it: keep attenuation at or above {:.1} dB",
+                    self.reference.tx_power_dbm - self.path.fixed_loss_db - self.dut.max_input_dbm
+                ),
+            ));
+        }
+        let reference = self.reference_rx_dbm(atten_db);
+        if reference > self.reference.max_input_dbm {
+            return Some((
+                format!(
+                    "{atten_db} dB puts {reference:.1} dBm into the reference unit, above its max_input_dbm {:.1} dBm",
+                    self.reference.max_input_dbm
+                ),
+                format!(
+                    "RF power above a receiver's limit can destroy it: keep attenuation at or above {:.1} dB",
+                    self.dut.tx_power_dbm - self.path.fixed_loss_db - self.reference.max_input_dbm
+                ),
+            ));
+        }
+        None
+    }
+
+    fn validate(&self) -> Result<(), KeyError> {
+        for role in ROLES {
+            let Some(binding) = self.roles.get(role) else {
+                return Err(KeyError::new(
+                    "roles",
+                    format!("has no `{role}` role"),
+                    format!("add `{role} = {{ driver = \"…\", address = \"…\" }}` under [roles]"),
+                ));
+            };
+            if binding.address.starts_with("sim:") {
+                let expected = SIM_DRIVERS
+                    .iter()
+                    .find(|(r, _)| *r == role)
+                    .map_or("sim-ranging", |(_, d)| d);
+                if binding.driver != expected {
+                    return Err(KeyError::new(
+                        format!("roles.{role}.driver"),
+                        format!("`{}` cannot serve the simulated {role}", binding.driver),
+                        format!("on address `sim:` the {role} is driven by `{expected}`"),
+                    ));
+                }
+            } else {
+                return Err(KeyError::new(
+                    format!("roles.{role}.address"),
+                    format!("`{}` is not an address this build can reach", binding.address),
+                    "use `sim:` for the in-process simulated bench",
+                ));
+            }
+        }
+        if let Some(extra) = self.roles.keys().find(|r| !ROLES.contains(&r.as_str())) {
+            return Err(KeyError::new(
+                format!("roles.{extra}"),
+                "is not a role taucal knows",
+                format!("roles are {}", ROLES.join(", ")),
+            ));
+        }
+        if self.is_simulated() && self.sim.is_none() {
+            return Err(KeyError::new(
+                "roles",
+                "use simulated instruments but the file has no [sim] table",
+                "add [sim], [sim.dut] and [sim.reference] with the simulation's truth",
+            ));
+        }
+        let [lo, hi] = self.attenuator.range_db;
+        if !(lo.is_finite() && hi.is_finite() && lo >= 0.0 && lo < hi) {
+            return Err(KeyError::new(
+                "attenuator.range_db",
+                format!("[{lo}, {hi}] is not a range"),
+                "give [lowest, highest] in dB, lowest ≥ 0, e.g. [0.0, 95.0]",
+            ));
+        }
+        if !(self.attenuator.step_db > 0.0 && self.attenuator.step_db <= hi - lo) {
+            return Err(KeyError::new(
+                "attenuator.step_db",
+                format!("{} dB is not a usable step", self.attenuator.step_db),
+                "give the attenuator's smallest step, e.g. 0.25 or 1.0",
+            ));
+        }
+        for (key, v) in [
+            ("path.cable_delay_ps", self.path.cable_delay_ps),
+            ("path.fixed_loss_db", self.path.fixed_loss_db),
+            ("path.atten_delay_ps_per_db", self.path.atten_delay_ps_per_db),
+        ] {
+            if !(v.is_finite() && v >= 0.0) {
+                return Err(KeyError::new(key, format!("{v} is negative or not finite"), "use a value ≥ 0"));
+            }
+        }
+        if self.reference.delay_ps.values().iter().any(|v| !v.is_finite()) {
+            return Err(KeyError::new("reference.delay_ps", "is not finite", "give the calibrated K in ps"));
+        }
+        for (unit, f) in [("dut", &self.dut), ("reference", &self.reference_levels())] {
+            if f.min_input_dbm >= f.max_input_dbm {
+                return Err(KeyError::new(
+                    format!("{unit}.min_input_dbm"),
+                    format!("{} dBm is not below max_input_dbm {} dBm", f.min_input_dbm, f.max_input_dbm),
+                    "the usable receive window runs from min_input_dbm up to max_input_dbm",
+                ));
+            }
+        }
+        if self.usable_atten_db().is_none() {
+            return Err(KeyError::new(
+                "attenuator.range_db",
+                "leaves no setting where both receivers are within their input limits",
+                "check tx_power_dbm, path.fixed_loss_db and the input limits",
+            ));
+        }
+        if let Some(sim) = &self.sim {
+            sim.validate()?;
+        }
+        Ok(())
+    }
+
+    fn reference_levels(&self) -> UnitFacts {
+        UnitFacts {
+            tx_power_dbm: self.reference.tx_power_dbm,
+            max_input_dbm: self.reference.max_input_dbm,
+            min_input_dbm: self.reference.min_input_dbm,
+        }
+    }
+}

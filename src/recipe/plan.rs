@@ -1,0 +1,394 @@
+//! The analysis pass: a raw recipe, its variables and the bench become a typed [`Plan`], or a
+//! [`KeyError`] naming the key at fault. Nothing here touches an instrument.
+
+use super::raw::{RawRecipe, RawStage};
+use super::script_source::ScriptSource;
+use super::vars::Vars;
+use crate::bench::Bench;
+use crate::diagnostic::{Diagnostic, KeyError, SourceFile};
+use std::path::Path;
+
+/// Channel bandwidths taucal accepts, MHz (IEEE 802.11 OFDM channel widths).
+pub const BANDWIDTHS_MHZ: [u32; 5] = [20, 40, 80, 160, 320];
+
+/// Most exchanges in one burst.
+pub const MAX_FRAMES: u32 = 10_000;
+
+/// A radio channel.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+pub struct Channel {
+    /// Center frequency, MHz.
+    pub center_mhz: u32,
+    /// Bandwidth, MHz.
+    pub bw_mhz: u32,
+}
+
+/// A declarative attenuation sweep.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sweep {
+    /// Stage name.
+    pub name: String,
+    /// Channel measured.
+    pub channel: Channel,
+    /// Attenuator settings, in order.
+    pub points_db: Vec<f64>,
+    /// Bursts per point.
+    pub bursts: u32,
+    /// Exchanges per burst.
+    pub frames: u32,
+    /// Wait after each attenuation change.
+    pub settle_ms: f64,
+}
+
+/// A Rhai script stage.
+#[derive(Debug, Clone)]
+pub struct Script {
+    /// Stage name.
+    pub name: String,
+    /// Channel in force when the script starts.
+    pub channel: Channel,
+    /// The code and where it came from.
+    pub source: ScriptSource,
+}
+
+/// One stage of the plan.
+#[derive(Debug, Clone)]
+pub enum Stage {
+    /// Attenuation sweep.
+    Sweep(Sweep),
+    /// Script.
+    Script(Script),
+}
+
+impl Stage {
+    /// The stage's name.
+    pub fn name(&self) -> &str {
+        match self {
+            Stage::Sweep(s) => &s.name,
+            Stage::Script(s) => &s.name,
+        }
+    }
+}
+
+/// Acceptance limits; a run that breaks one exits with status 1.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Acceptance {
+    /// Largest 95 % half-width allowed in a measured cell.
+    pub max_ci95_ps: Option<f64>,
+    /// Fewest distinct DUT gain states the run must measure.
+    pub min_gain_states: Option<u32>,
+}
+
+/// A validated recipe, ready to run on a bench.
+#[derive(Debug, Clone)]
+pub struct Plan {
+    /// Recipe name.
+    pub name: String,
+    /// Free text.
+    pub description: String,
+    /// The recipe file.
+    pub source: SourceFile,
+    /// Variables after `--set`.
+    pub vars: Vars,
+    /// Stages in order.
+    pub stages: Vec<Stage>,
+    /// Acceptance limits.
+    pub accept: Acceptance,
+    /// Fitter rejection threshold, scaled MADs.
+    pub reject_mad: f64,
+}
+
+/// Default rejection threshold (scaled MADs).
+pub const DEFAULT_REJECT_MAD: f64 = 5.0;
+
+pub(super) fn build(
+    raw: RawRecipe,
+    vars: Vars,
+    bench: &Bench,
+    source: &SourceFile,
+    base_dir: &Path,
+) -> Result<Plan, Diagnostic> {
+    let located = |e: KeyError| source.key_error(e);
+    if raw.stage.is_empty() {
+        return Err(Diagnostic::at(source, Some(0..0), "the recipe has no stages")
+            .with_hint("add at least one [[stage]] with kind = \"sweep\" or kind = \"script\""));
+    }
+    let name = raw.recipe.name.trim().to_string();
+    if name.is_empty() || !name.chars().all(|c| c.is_ascii_alphanumeric() || "-_.".contains(c)) {
+        return Err(located(KeyError::new(
+            "recipe.name",
+            format!("\"{name}\" is not a usable name"),
+            "use letters, digits, '-', '_' or '.', e.g. \"rx-gain-sweep\" (it names the run directory)",
+        )));
+    }
+    let mut stages = Vec::with_capacity(raw.stage.len());
+    for (i, st) in raw.stage.iter().enumerate() {
+        let key = format!("stage.{i}");
+        if raw.stage[..i].iter().any(|o| o.name == st.name) {
+            return Err(located(KeyError::new(
+                format!("{key}.name"),
+                format!("\"{}\" names an earlier stage too", st.name),
+                "give every stage its own name",
+            )));
+        }
+        let stage = match st.kind.as_str() {
+            "sweep" => Stage::Sweep(sweep(&key, st, &vars, bench).map_err(located)?),
+            "script" => Stage::Script(script(&key, i, st, &vars, source, base_dir)?),
+            other => {
+                return Err(located(KeyError::new(
+                    format!("{key}.kind"),
+                    format!("\"{other}\" is not a stage kind"),
+                    "stage kinds are \"sweep\" and \"script\"",
+                )))
+            }
+        };
+        stages.push(stage);
+    }
+    let accept = Acceptance {
+        max_ci95_ps: raw
+            .accept
+            .max_ci95_ps
+            .as_ref()
+            .map(|v| positive(&vars, "accept.max_ci95_ps", v))
+            .transpose()
+            .map_err(located)?,
+        min_gain_states: raw
+            .accept
+            .min_gain_states
+            .as_ref()
+            .map(|v| vars.count("accept.min_gain_states", v, 1, 64))
+            .transpose()
+            .map_err(located)?,
+    };
+    let reject_mad = match &raw.fit.reject_mad {
+        Some(v) => {
+            let k = positive(&vars, "fit.reject_mad", v).map_err(located)?;
+            if k < 2.0 {
+                return Err(located(KeyError::new(
+                    "fit.reject_mad",
+                    format!("{k} would reject much of a clean normal sample"),
+                    "use 3.0 or more (5.0 is the default)",
+                )));
+            }
+            k
+        }
+        None => DEFAULT_REJECT_MAD,
+    };
+    Ok(Plan {
+        name,
+        description: raw.recipe.description,
+        source: source.clone(),
+        vars,
+        stages,
+        accept,
+        reject_mad,
+    })
+}
+
+fn positive(vars: &Vars, key: &str, v: &toml::Value) -> Result<f64, KeyError> {
+    let x = vars.number(key, v)?;
+    if x > 0.0 {
+        Ok(x)
+    } else {
+        Err(KeyError::new(key, format!("is {x}"), "give a value greater than 0"))
+    }
+}
+
+fn require<'a>(key: &str, name: &str, v: &'a Option<toml::Value>, hint: &str) -> Result<&'a toml::Value, KeyError> {
+    v.as_ref()
+        .ok_or_else(|| KeyError::new(key, format!("needs `{name}`"), hint.to_string()))
+}
+
+fn channel(key: &str, st: &RawStage, vars: &Vars) -> Result<Channel, KeyError> {
+    let center_key = format!("{key}.center_mhz");
+    let center = require(key, "center_mhz", &st.center_mhz, "add center_mhz = 5180 (or another channel's center in MHz)")?;
+    let center = vars.number(&center_key, center)?;
+    if !(2400.0..=7200.0).contains(&center) || center.fract() != 0.0 {
+        return Err(KeyError::new(
+            center_key,
+            format!("{center} MHz is not a Wi-Fi channel center"),
+            "give a whole number of MHz in the 2.4, 5 or 6 GHz bands, e.g. 2437, 5180, 5955",
+        ));
+    }
+    let bw_key = format!("{key}.bw_mhz");
+    let bw = require(key, "bw_mhz", &st.bw_mhz, "add bw_mhz = 20, 40, 80, 160 or 320")?;
+    let bw = vars.number(&bw_key, bw)?;
+    if !BANDWIDTHS_MHZ.iter().any(|b| f64::from(*b) == bw) {
+        return Err(KeyError::new(bw_key, format!("{bw} MHz is not a channel width"), "use 20, 40, 80, 160 or 320"));
+    }
+    Ok(Channel {
+        center_mhz: center as u32,
+        bw_mhz: bw as u32,
+    })
+}
+
+fn refuse_keys(key: &str, kind: &str, present: &[(&str, bool)]) -> Result<(), KeyError> {
+    match present.iter().find(|(_, p)| *p) {
+        Some((name, _)) => Err(KeyError::new(
+            format!("{key}.{name}"),
+            format!("does not belong in a {kind} stage"),
+            match kind {
+                "sweep" => "a sweep stage takes center_mhz, bw_mhz, atten_db, bursts, frames and settle_ms",
+                _ => "a script stage takes script or file, center_mhz and bw_mhz",
+            },
+        )),
+        None => Ok(()),
+    }
+}
+
+fn sweep(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Sweep, KeyError> {
+    refuse_keys(key, "sweep", &[("script", st.script.is_some()), ("file", st.file.is_some())])?;
+    let channel = channel(key, st, vars)?;
+    let atten_key = format!("{key}.atten_db");
+    let atten = require(
+        key,
+        "atten_db",
+        &st.atten_db,
+        "add atten_db = { from = 20.0, to = 80.0, step = 2.0 }, a list, or { over = \"usable\", step = 2.0 }",
+    )?;
+    let points_db = points(&atten_key, atten, vars, bench)?;
+    let bursts = match &st.bursts {
+        Some(v) => vars.count(&format!("{key}.bursts"), v, 1, 100_000)?,
+        None => 1,
+    };
+    let frames_v = require(key, "frames", &st.frames, "add frames = 16 (exchanges per burst)")?;
+    let frames = vars.count(&format!("{key}.frames"), frames_v, 2, MAX_FRAMES)?;
+    let settle_ms = match &st.settle_ms {
+        Some(v) => {
+            let s = vars.number(&format!("{key}.settle_ms"), v)?;
+            if !(0.0..=3_600_000.0).contains(&s) {
+                return Err(KeyError::new(format!("{key}.settle_ms"), format!("is {s}"), "give 0 to 3600000 ms"));
+            }
+            s
+        }
+        None => 0.0,
+    };
+    Ok(Sweep {
+        name: st.name.clone(),
+        channel,
+        points_db,
+        bursts,
+        frames,
+        settle_ms,
+    })
+}
+
+fn points(key: &str, v: &toml::Value, vars: &Vars, bench: &Bench) -> Result<Vec<f64>, KeyError> {
+    let v = vars.deref(key, v)?;
+    let pts = match v {
+        toml::Value::Array(items) => items
+            .iter()
+            .enumerate()
+            .map(|(i, x)| vars.number(&format!("{key}.{i}"), x))
+            .collect::<Result<Vec<_>, _>>()?,
+        toml::Value::Table(t) => {
+            if let Some(unknown) = t.keys().find(|k| !["from", "to", "step", "over"].contains(&k.as_str())) {
+                return Err(KeyError::new(
+                    format!("{key}.{unknown}"),
+                    "is not a sweep-range key",
+                    "a range is { from, to, step } or { over = \"usable\", step }",
+                ));
+            }
+            let step = match t.get("step") {
+                Some(s) => vars.number(&format!("{key}.step"), s)?,
+                None => return Err(KeyError::new(key, "has no `step`", "add step = 2.0 (dB)")),
+            };
+            let (from, to) = match t.get("over") {
+                Some(over) => {
+                    if vars.deref(key, over)?.as_str() != Some("usable") || t.contains_key("from") || t.contains_key("to") {
+                        return Err(KeyError::new(
+                            format!("{key}.over"),
+                            "must be \"usable\", without from/to",
+                            "{ over = \"usable\", step = 2.0 } sweeps the bench's usable range",
+                        ));
+                    }
+                    bench.usable_atten_db().ok_or_else(|| {
+                        KeyError::new(key, "the bench has no usable attenuation range", "check the bench's input limits")
+                    })?
+                }
+                None => {
+                    let get = |k: &str| match t.get(k) {
+                        Some(x) => vars.number(&format!("{key}.{k}"), x),
+                        None => Err(KeyError::new(key, format!("has no `{k}`"), "a range is { from, to, step }")),
+                    };
+                    (get("from")?, get("to")?)
+                }
+            };
+            let step_ok = step > 0.0 && {
+                let k = step / bench.attenuator.step_db;
+                (k - k.round()).abs() < 1e-6
+            };
+            if !step_ok {
+                return Err(KeyError::new(
+                    format!("{key}.step"),
+                    format!("{step} dB is not a positive multiple of the attenuator's {} dB step", bench.attenuator.step_db),
+                    format!("use a multiple of {} dB", bench.attenuator.step_db),
+                ));
+            }
+            let n = ((to - from) / step + 1e-9).floor();
+            if !(0.0..=100_000.0).contains(&n) {
+                return Err(KeyError::new(
+                    key,
+                    format!("from {from} to {to} by {step} is not an ascending range of at most 100000 points"),
+                    "make `to` ≥ `from`",
+                ));
+            }
+            (0..=n as u32).map(|i| from + f64::from(i) * step).collect()
+        }
+        other => {
+            return Err(KeyError::new(
+                key,
+                format!("is a {}", other.type_str()),
+                "give a list of dB values, { from, to, step }, or { over = \"usable\", step }",
+            ))
+        }
+    };
+    if pts.is_empty() {
+        return Err(KeyError::new(key, "has no points", "give at least one attenuation"));
+    }
+    for p in &pts {
+        if let Some((msg, hint)) = bench.refuse_atten(*p) {
+            return Err(KeyError::new(key, msg, hint));
+        }
+    }
+    Ok(pts)
+}
+
+fn script(
+    key: &str,
+    index: usize,
+    st: &RawStage,
+    vars: &Vars,
+    source: &SourceFile,
+    base_dir: &Path,
+) -> Result<Script, Diagnostic> {
+    let located = |e: KeyError| source.key_error(e);
+    refuse_keys(
+        key,
+        "script",
+        &[
+            ("atten_db", st.atten_db.is_some()),
+            ("bursts", st.bursts.is_some()),
+            ("frames", st.frames.is_some()),
+            ("settle_ms", st.settle_ms.is_some()),
+        ],
+    )
+    .map_err(located)?;
+    let channel = channel(key, st, vars).map_err(located)?;
+    let code = match (&st.script, &st.file) {
+        (Some(_), None) => ScriptSource::inline(source, &format!("stage.{index}.script"))?,
+        (None, Some(file)) => ScriptSource::from_file(base_dir, file, source, &format!("stage.{index}.file"))?,
+        _ => {
+            return Err(located(KeyError::new(
+                key,
+                "needs exactly one of `script` (inline Rhai) and `file` (a .rhai file beside the recipe)",
+                "add script = '''…''' or file = \"scripts/name.rhai\"",
+            )))
+        }
+    };
+    Ok(Script {
+        name: st.name.clone(),
+        channel,
+        source: code,
+    })
+}

@@ -1,0 +1,80 @@
+//! A recipe file as written: serde structs that keep values loose so the analysis pass can say
+//! precisely what is wrong and where.
+
+use serde::Deserialize;
+use std::collections::BTreeMap;
+
+/// The whole recipe file.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawRecipe {
+    /// `[recipe]`: name and description.
+    pub recipe: RawMeta,
+    /// `[vars]`: named values that stages refer to as `"$name"`; `--set` overrides them.
+    #[serde(default)]
+    pub vars: BTreeMap<String, toml::Value>,
+    /// `[fit]`: fitter options.
+    #[serde(default)]
+    pub fit: RawFit,
+    /// `[accept]`: acceptance limits.
+    #[serde(default)]
+    pub accept: RawAccept,
+    /// `[[stage]]`, run in order.
+    #[serde(default)]
+    pub stage: Vec<RawStage>,
+}
+
+/// `[recipe]`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawMeta {
+    /// Short name, used in the run directory's name.
+    pub name: String,
+    /// Free text.
+    #[serde(default)]
+    pub description: String,
+}
+
+/// `[fit]`.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawFit {
+    /// Rejection threshold in scaled MADs.
+    pub reject_mad: Option<toml::Value>,
+}
+
+/// `[accept]`.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawAccept {
+    /// Largest 95 % half-width allowed in any measured cell.
+    pub max_ci95_ps: Option<toml::Value>,
+    /// Fewest distinct DUT gain states the run must measure.
+    pub min_gain_states: Option<toml::Value>,
+}
+
+/// One `[[stage]]`; which keys apply depends on `kind`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawStage {
+    /// Stage name, unique in the recipe.
+    pub name: String,
+    /// `sweep` or `script`.
+    pub kind: String,
+    /// Channel center frequency, MHz.
+    pub center_mhz: Option<toml::Value>,
+    /// Channel bandwidth, MHz.
+    pub bw_mhz: Option<toml::Value>,
+    /// Sweep: the attenuation points.
+    pub atten_db: Option<toml::Value>,
+    /// Sweep: bursts per point.
+    pub bursts: Option<toml::Value>,
+    /// Sweep: exchanges per burst.
+    pub frames: Option<toml::Value>,
+    /// Sweep: wait after each attenuation change, ms.
+    pub settle_ms: Option<toml::Value>,
+    /// Script: inline Rhai source.
+    pub script: Option<String>,
+    /// Script: path of a Rhai file, relative to the recipe.
+    pub file: Option<String>,
+}
