@@ -221,7 +221,10 @@ fn toml_hint(message: &str) -> Option<String> {
 }
 
 /// The candidate closest to `word` by edit distance, when close enough to be a likely typo.
-pub fn did_you_mean<'a>(word: &str, candidates: impl IntoIterator<Item = &'a str>) -> Option<&'a str> {
+pub fn did_you_mean<'a>(
+    word: &str,
+    candidates: impl IntoIterator<Item = &'a str>,
+) -> Option<&'a str> {
     candidates
         .into_iter()
         .map(|c| (edit_distance(word, c), c))
@@ -237,7 +240,9 @@ fn edit_distance(a: &str, b: &str) -> usize {
         let mut diag = row[0];
         row[0] = i + 1;
         for (j, cb) in b.iter().enumerate() {
-            let next = (diag + usize::from(ca != *cb)).min(row[j] + 1).min(row[j + 1] + 1);
+            let next = (diag + usize::from(ca != *cb))
+                .min(row[j] + 1)
+                .min(row[j + 1] + 1);
             diag = row[j + 1];
             row[j + 1] = next;
         }
@@ -268,7 +273,11 @@ mod tests {
     #[test]
     fn renders_file_line_caret_and_hint() {
         let f = SourceFile::new("r.toml", "[x]\nbursts = -1\n");
-        let d = f.key_error(KeyError::new("x.bursts", "must be positive", "use 1 or more"));
+        let d = f.key_error(KeyError::new(
+            "x.bursts",
+            "must be positive",
+            "use 1 or more",
+        ));
         let text = d.to_string();
         assert!(text.contains("--> r.toml:2:10"), "{text}");
         assert!(text.contains("2 | bursts = -1"), "{text}");

@@ -5,5 +5,7 @@ pub mod bench;
 pub mod data;
 pub mod diagnostic;
 pub mod fit;
+pub mod instrument;
 pub mod recipe;
+pub mod runner;
 pub mod sim;

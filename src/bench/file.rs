@@ -17,7 +17,8 @@ pub const BUILT_IN_LABEL: &str = "<built-in sim-demo bench>";
 pub const ROLES: [&str; 3] = ["attenuator", "dut", "reference"];
 
 /// Drivers available without a driver file: the in-process simulated instruments.
-pub const SIM_DRIVERS: [(&str, &str); 2] = [("attenuator", "sim-attenuator"), ("dut", "sim-ranging")];
+pub const SIM_DRIVERS: [(&str, &str); 2] =
+    [("attenuator", "sim-attenuator"), ("dut", "sim-ranging")];
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -253,7 +254,10 @@ impl Bench {
             } else {
                 return Err(KeyError::new(
                     format!("roles.{role}.address"),
-                    format!("`{}` is not an address this build can reach", binding.address),
+                    format!(
+                        "`{}` is not an address this build can reach",
+                        binding.address
+                    ),
                     "use `sim:` for the in-process simulated bench",
                 ));
             }
@@ -290,20 +294,40 @@ impl Bench {
         for (key, v) in [
             ("path.cable_delay_ps", self.path.cable_delay_ps),
             ("path.fixed_loss_db", self.path.fixed_loss_db),
-            ("path.atten_delay_ps_per_db", self.path.atten_delay_ps_per_db),
+            (
+                "path.atten_delay_ps_per_db",
+                self.path.atten_delay_ps_per_db,
+            ),
         ] {
             if !(v.is_finite() && v >= 0.0) {
-                return Err(KeyError::new(key, format!("{v} is negative or not finite"), "use a value ≥ 0"));
+                return Err(KeyError::new(
+                    key,
+                    format!("{v} is negative or not finite"),
+                    "use a value ≥ 0",
+                ));
             }
         }
-        if self.reference.delay_ps.values().iter().any(|v| !v.is_finite()) {
-            return Err(KeyError::new("reference.delay_ps", "is not finite", "give the calibrated K in ps"));
+        if self
+            .reference
+            .delay_ps
+            .values()
+            .iter()
+            .any(|v| !v.is_finite())
+        {
+            return Err(KeyError::new(
+                "reference.delay_ps",
+                "is not finite",
+                "give the calibrated K in ps",
+            ));
         }
         for (unit, f) in [("dut", &self.dut), ("reference", &self.reference_levels())] {
             if f.min_input_dbm >= f.max_input_dbm {
                 return Err(KeyError::new(
                     format!("{unit}.min_input_dbm"),
-                    format!("{} dBm is not below max_input_dbm {} dBm", f.min_input_dbm, f.max_input_dbm),
+                    format!(
+                        "{} dBm is not below max_input_dbm {} dBm",
+                        f.min_input_dbm, f.max_input_dbm
+                    ),
                     "the usable receive window runs from min_input_dbm up to max_input_dbm",
                 ));
             }

@@ -1,5 +1,10 @@
-//! Records and the files that hold them.
+//! Records and the files that hold them: exchanges, the run directory and its manifest.
 
+pub mod csv_io;
 pub mod exchange;
+pub mod manifest;
+pub mod run_dir;
 
+pub use csv_io::{read_exchanges, ExchangeWriter, ReadError, RecordSink, EXCHANGES_HEADER};
 pub use exchange::{DeviceExchange, Exchange, STATUS_OK};
+pub use manifest::{Manifest, RunStatus};

@@ -27,13 +27,22 @@ pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Di
 }
 
 /// Parses and validates recipe text; `base_dir` resolves script files.
-pub fn parse(source: SourceFile, overrides: &[String], bench: &Bench, base_dir: &Path) -> Result<Plan, Diagnostic> {
-    let raw: raw::RawRecipe = toml::from_str(&source.text).map_err(|e| diagnostic::from_toml(&source, &e))?;
+pub fn parse(
+    source: SourceFile,
+    overrides: &[String],
+    bench: &Bench,
+    base_dir: &Path,
+) -> Result<Plan, Diagnostic> {
+    let raw: raw::RawRecipe =
+        toml::from_str(&source.text).map_err(|e| diagnostic::from_toml(&source, &e))?;
     let mut vars = Vars(raw.vars.clone());
     for (name, value) in &vars.0 {
         if !matches!(
             value,
-            toml::Value::Integer(_) | toml::Value::Float(_) | toml::Value::Boolean(_) | toml::Value::String(_)
+            toml::Value::Integer(_)
+                | toml::Value::Float(_)
+                | toml::Value::Boolean(_)
+                | toml::Value::String(_)
         ) {
             return Err(source.key_error(diagnostic::KeyError::new(
                 format!("vars.{name}"),

@@ -110,11 +110,17 @@ pub(super) fn build(
 ) -> Result<Plan, Diagnostic> {
     let located = |e: KeyError| source.key_error(e);
     if raw.stage.is_empty() {
-        return Err(Diagnostic::at(source, Some(0..0), "the recipe has no stages")
-            .with_hint("add at least one [[stage]] with kind = \"sweep\" or kind = \"script\""));
+        return Err(
+            Diagnostic::at(source, Some(0..0), "the recipe has no stages")
+                .with_hint("add at least one [[stage]] with kind = \"sweep\" or kind = \"script\""),
+        );
     }
     let name = raw.recipe.name.trim().to_string();
-    if name.is_empty() || !name.chars().all(|c| c.is_ascii_alphanumeric() || "-_.".contains(c)) {
+    if name.is_empty()
+        || !name
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || "-_.".contains(c))
+    {
         return Err(located(KeyError::new(
             "recipe.name",
             format!("\"{name}\" is not a usable name"),
@@ -190,18 +196,32 @@ fn positive(vars: &Vars, key: &str, v: &toml::Value) -> Result<f64, KeyError> {
     if x > 0.0 {
         Ok(x)
     } else {
-        Err(KeyError::new(key, format!("is {x}"), "give a value greater than 0"))
+        Err(KeyError::new(
+            key,
+            format!("is {x}"),
+            "give a value greater than 0",
+        ))
     }
 }
 
-fn require<'a>(key: &str, name: &str, v: &'a Option<toml::Value>, hint: &str) -> Result<&'a toml::Value, KeyError> {
+fn require<'a>(
+    key: &str,
+    name: &str,
+    v: &'a Option<toml::Value>,
+    hint: &str,
+) -> Result<&'a toml::Value, KeyError> {
     v.as_ref()
         .ok_or_else(|| KeyError::new(key, format!("needs `{name}`"), hint.to_string()))
 }
 
 fn channel(key: &str, st: &RawStage, vars: &Vars) -> Result<Channel, KeyError> {
     let center_key = format!("{key}.center_mhz");
-    let center = require(key, "center_mhz", &st.center_mhz, "add center_mhz = 5180 (or another channel's center in MHz)")?;
+    let center = require(
+        key,
+        "center_mhz",
+        &st.center_mhz,
+        "add center_mhz = 5180 (or another channel's center in MHz)",
+    )?;
     let center = vars.number(&center_key, center)?;
     if !(2400.0..=7200.0).contains(&center) || center.fract() != 0.0 {
         return Err(KeyError::new(
@@ -211,10 +231,19 @@ fn channel(key: &str, st: &RawStage, vars: &Vars) -> Result<Channel, KeyError> {
         ));
     }
     let bw_key = format!("{key}.bw_mhz");
-    let bw = require(key, "bw_mhz", &st.bw_mhz, "add bw_mhz = 20, 40, 80, 160 or 320")?;
+    let bw = require(
+        key,
+        "bw_mhz",
+        &st.bw_mhz,
+        "add bw_mhz = 20, 40, 80, 160 or 320",
+    )?;
     let bw = vars.number(&bw_key, bw)?;
     if !BANDWIDTHS_MHZ.iter().any(|b| f64::from(*b) == bw) {
-        return Err(KeyError::new(bw_key, format!("{bw} MHz is not a channel width"), "use 20, 40, 80, 160 or 320"));
+        return Err(KeyError::new(
+            bw_key,
+            format!("{bw} MHz is not a channel width"),
+            "use 20, 40, 80, 160 or 320",
+        ));
     }
     Ok(Channel {
         center_mhz: center as u32,
@@ -228,7 +257,9 @@ fn refuse_keys(key: &str, kind: &str, present: &[(&str, bool)]) -> Result<(), Ke
             format!("{key}.{name}"),
             format!("does not belong in a {kind} stage"),
             match kind {
-                "sweep" => "a sweep stage takes center_mhz, bw_mhz, atten_db, bursts, frames and settle_ms",
+                "sweep" => {
+                    "a sweep stage takes center_mhz, bw_mhz, atten_db, bursts, frames and settle_ms"
+                }
                 _ => "a script stage takes script or file, center_mhz and bw_mhz",
             },
         )),
@@ -237,7 +268,11 @@ fn refuse_keys(key: &str, kind: &str, present: &[(&str, bool)]) -> Result<(), Ke
 }
 
 fn sweep(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Sweep, KeyError> {
-    refuse_keys(key, "sweep", &[("script", st.script.is_some()), ("file", st.file.is_some())])?;
+    refuse_keys(
+        key,
+        "sweep",
+        &[("script", st.script.is_some()), ("file", st.file.is_some())],
+    )?;
     let channel = channel(key, st, vars)?;
     let atten_key = format!("{key}.atten_db");
     let atten = require(
@@ -251,13 +286,22 @@ fn sweep(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Sweep, 
         Some(v) => vars.count(&format!("{key}.bursts"), v, 1, 100_000)?,
         None => 1,
     };
-    let frames_v = require(key, "frames", &st.frames, "add frames = 16 (exchanges per burst)")?;
+    let frames_v = require(
+        key,
+        "frames",
+        &st.frames,
+        "add frames = 16 (exchanges per burst)",
+    )?;
     let frames = vars.count(&format!("{key}.frames"), frames_v, 2, MAX_FRAMES)?;
     let settle_ms = match &st.settle_ms {
         Some(v) => {
             let s = vars.number(&format!("{key}.settle_ms"), v)?;
             if !(0.0..=3_600_000.0).contains(&s) {
-                return Err(KeyError::new(format!("{key}.settle_ms"), format!("is {s}"), "give 0 to 3600000 ms"));
+                return Err(KeyError::new(
+                    format!("{key}.settle_ms"),
+                    format!("is {s}"),
+                    "give 0 to 3600000 ms",
+                ));
             }
             s
         }
@@ -282,7 +326,10 @@ fn points(key: &str, v: &toml::Value, vars: &Vars, bench: &Bench) -> Result<Vec<
             .map(|(i, x)| vars.number(&format!("{key}.{i}"), x))
             .collect::<Result<Vec<_>, _>>()?,
         toml::Value::Table(t) => {
-            if let Some(unknown) = t.keys().find(|k| !["from", "to", "step", "over"].contains(&k.as_str())) {
+            if let Some(unknown) = t
+                .keys()
+                .find(|k| !["from", "to", "step", "over"].contains(&k.as_str()))
+            {
                 return Err(KeyError::new(
                     format!("{key}.{unknown}"),
                     "is not a sweep-range key",
@@ -295,7 +342,10 @@ fn points(key: &str, v: &toml::Value, vars: &Vars, bench: &Bench) -> Result<Vec<
             };
             let (from, to) = match t.get("over") {
                 Some(over) => {
-                    if vars.deref(key, over)?.as_str() != Some("usable") || t.contains_key("from") || t.contains_key("to") {
+                    if vars.deref(key, over)?.as_str() != Some("usable")
+                        || t.contains_key("from")
+                        || t.contains_key("to")
+                    {
                         return Err(KeyError::new(
                             format!("{key}.over"),
                             "must be \"usable\", without from/to",
@@ -303,13 +353,21 @@ fn points(key: &str, v: &toml::Value, vars: &Vars, bench: &Bench) -> Result<Vec<
                         ));
                     }
                     bench.usable_atten_db().ok_or_else(|| {
-                        KeyError::new(key, "the bench has no usable attenuation range", "check the bench's input limits")
+                        KeyError::new(
+                            key,
+                            "the bench has no usable attenuation range",
+                            "check the bench's input limits",
+                        )
                     })?
                 }
                 None => {
                     let get = |k: &str| match t.get(k) {
                         Some(x) => vars.number(&format!("{key}.{k}"), x),
-                        None => Err(KeyError::new(key, format!("has no `{k}`"), "a range is { from, to, step }")),
+                        None => Err(KeyError::new(
+                            key,
+                            format!("has no `{k}`"),
+                            "a range is { from, to, step }",
+                        )),
                     };
                     (get("from")?, get("to")?)
                 }
@@ -321,7 +379,10 @@ fn points(key: &str, v: &toml::Value, vars: &Vars, bench: &Bench) -> Result<Vec<
             if !step_ok {
                 return Err(KeyError::new(
                     format!("{key}.step"),
-                    format!("{step} dB is not a positive multiple of the attenuator's {} dB step", bench.attenuator.step_db),
+                    format!(
+                        "{step} dB is not a positive multiple of the attenuator's {} dB step",
+                        bench.attenuator.step_db
+                    ),
                     format!("use a multiple of {} dB", bench.attenuator.step_db),
                 ));
             }
@@ -344,7 +405,11 @@ fn points(key: &str, v: &toml::Value, vars: &Vars, bench: &Bench) -> Result<Vec<
         }
     };
     if pts.is_empty() {
-        return Err(KeyError::new(key, "has no points", "give at least one attenuation"));
+        return Err(KeyError::new(
+            key,
+            "has no points",
+            "give at least one attenuation",
+        ));
     }
     for p in &pts {
         if let Some((msg, hint)) = bench.refuse_atten(*p) {

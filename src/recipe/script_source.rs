@@ -39,7 +39,11 @@ impl ScriptSource {
             .ok()
             .and_then(|t| t.get("v").and_then(|v| v.as_str().map(str::to_string)))
             .ok_or_else(|| {
-                recipe.key_error(KeyError::new(key, "is not a string", "write script = '''…'''"))
+                recipe.key_error(KeyError::new(
+                    key,
+                    "is not a string",
+                    "write script = '''…'''",
+                ))
             })?;
         Ok(ScriptSource {
             code,
@@ -49,7 +53,12 @@ impl ScriptSource {
     }
 
     /// A script in a file beside the recipe.
-    pub fn from_file(base_dir: &Path, rel: &str, recipe: &SourceFile, key: &str) -> Result<ScriptSource, Diagnostic> {
+    pub fn from_file(
+        base_dir: &Path,
+        rel: &str,
+        recipe: &SourceFile,
+        key: &str,
+    ) -> Result<ScriptSource, Diagnostic> {
         let path = base_dir.join(rel);
         let code = std::fs::read_to_string(&path).map_err(|e| {
             recipe.key_error(KeyError::new(

@@ -12,13 +12,17 @@ impl Vars {
     /// keeps its type (an integer may be given where a float is declared).
     pub fn set(&mut self, assignment: &str) -> Result<(), Diagnostic> {
         let Some((name, text)) = assignment.split_once('=') else {
-            return Err(Diagnostic::plain(format!("`--set {assignment}` has no `=`"))
-                .with_hint("write --set NAME=VALUE, e.g. --set bursts_per_point=8"));
+            return Err(
+                Diagnostic::plain(format!("`--set {assignment}` has no `=`"))
+                    .with_hint("write --set NAME=VALUE, e.g. --set bursts_per_point=8"),
+            );
         };
         let name = name.trim();
         let text = text.trim();
         let Some(old) = self.0.get(name) else {
-            let mut d = Diagnostic::plain(format!("`--set {name}=…`: the recipe has no variable `{name}`"));
+            let mut d = Diagnostic::plain(format!(
+                "`--set {name}=…`: the recipe has no variable `{name}`"
+            ));
             let known: Vec<&str> = self.0.keys().map(String::as_str).collect();
             d = match did_you_mean(name, known.iter().copied()) {
                 Some(s) => d.with_hint(format!("did you mean `{s}`?")),
@@ -29,7 +33,11 @@ impl Vars {
         };
         let new = match old {
             toml::Value::Integer(_) => text.parse::<i64>().ok().map(toml::Value::Integer),
-            toml::Value::Float(_) => text.parse::<f64>().ok().filter(|v| v.is_finite()).map(toml::Value::Float),
+            toml::Value::Float(_) => text
+                .parse::<f64>()
+                .ok()
+                .filter(|v| v.is_finite())
+                .map(toml::Value::Float),
             toml::Value::Boolean(_) => text.parse::<bool>().ok().map(toml::Value::Boolean),
             toml::Value::String(_) => Some(toml::Value::String(text.to_string())),
             _ => None,
@@ -59,7 +67,13 @@ impl Vars {
     }
 
     /// A whole number within `min..=max` at `key`.
-    pub fn count(&self, key: &str, value: &toml::Value, min: u32, max: u32) -> Result<u32, KeyError> {
+    pub fn count(
+        &self,
+        key: &str,
+        value: &toml::Value,
+        min: u32,
+        max: u32,
+    ) -> Result<u32, KeyError> {
         let v = self.number(key, value)?;
         if v.fract() != 0.0 || v < f64::from(min) || v > f64::from(max) {
             return Err(KeyError::new(
@@ -72,7 +86,11 @@ impl Vars {
     }
 
     /// Follows a `"$name"` reference; other values are returned as they are.
-    pub fn deref<'a>(&'a self, key: &str, value: &'a toml::Value) -> Result<&'a toml::Value, KeyError> {
+    pub fn deref<'a>(
+        &'a self,
+        key: &str,
+        value: &'a toml::Value,
+    ) -> Result<&'a toml::Value, KeyError> {
         let toml::Value::String(s) = value else {
             return Ok(value);
         };
@@ -84,7 +102,11 @@ impl Vars {
                 Some(s) => format!("did you mean `${s}`?"),
                 None => "declare it under [vars]".to_string(),
             };
-            KeyError::new(key, format!("refers to `${name}`, which [vars] does not declare"), hint)
+            KeyError::new(
+                key,
+                format!("refers to `${name}`, which [vars] does not declare"),
+                hint,
+            )
         })
     }
 }

@@ -1,0 +1,154 @@
+//! `manifest.toml`: what ran, on what, with what outcome. Rewritten atomically (temporary file,
+//! sync, rename) so a crash never leaves half a manifest.
+
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+use std::io::{self, Write};
+use std::path::Path;
+
+/// Where a run stands.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RunStatus {
+    /// Under way (or the process died; see `taucal resume`).
+    Running,
+    /// Every stage ran and the table was written.
+    Completed,
+    /// Stopped by an interrupt; data kept.
+    Stopped,
+    /// Stopped by an instrument or script failure; data kept.
+    Failed,
+}
+
+/// The recipe that ran.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct RecipeInfo {
+    /// Recipe name.
+    pub name: String,
+    /// Path as given.
+    pub path: String,
+    /// SHA-256 of the file's bytes, hex.
+    pub sha256: String,
+    /// `--set` overrides, as given.
+    pub overrides: Vec<String>,
+}
+
+/// The bench it ran on.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct BenchInfo {
+    /// Bench name.
+    pub name: String,
+    /// Path, or the built-in label.
+    pub path: String,
+    /// SHA-256 of the bench text, hex.
+    pub sha256: String,
+    /// True when every instrument was simulated.
+    pub simulated: bool,
+}
+
+/// Exchange counts.
+#[derive(Debug, Clone, Default, Serialize, Deserialize)]
+pub struct Counts {
+    /// Attenuation points visited.
+    pub points: u64,
+    /// Bursts run.
+    pub bursts: u64,
+    /// Exchanges recorded.
+    pub exchanges: u64,
+    /// Exchanges with status `ok`.
+    pub exchanges_ok: u64,
+}
+
+/// One acceptance limit and how the run did against it.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct AcceptCheck {
+    /// Limit name as in the recipe's `[accept]`.
+    pub name: String,
+    /// The limit.
+    pub limit: f64,
+    /// What the run achieved.
+    pub value: f64,
+    /// Whether the limit was met.
+    pub passed: bool,
+}
+
+/// The whole manifest.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct Manifest {
+    /// Where the run stands.
+    pub status: RunStatus,
+    /// Bench time elapsed (virtual on a simulated bench), s.
+    pub bench_time_s: f64,
+    /// Wall time elapsed, s.
+    pub wall_time_s: f64,
+    /// taucal's version.
+    pub taucal_version: String,
+    /// Seed of the simulated bench, when simulated.
+    pub seed: Option<u64>,
+    /// Start, UTC, RFC 3339.
+    pub started_utc: String,
+    /// End, UTC, RFC 3339.
+    pub finished_utc: Option<String>,
+    /// Why the run did not complete.
+    pub error: Option<String>,
+    /// The recipe.
+    pub recipe: RecipeInfo,
+    /// The bench.
+    pub bench: BenchInfo,
+    /// Identity each instrument reported, by role.
+    pub instruments: BTreeMap<String, String>,
+    /// Counts.
+    pub counts: Counts,
+    /// Acceptance limits and outcomes.
+    pub acceptance: Vec<AcceptCheck>,
+    /// Values scripts recorded with `record(name, value)`.
+    pub results: BTreeMap<String, toml::Value>,
+}
+
+impl Manifest {
+    /// Writes the manifest atomically to `path`.
+    pub fn write(&self, path: &Path) -> io::Result<()> {
+        let text = toml::to_string_pretty(self).map_err(io::Error::other)?;
+        write_atomic(path, text.as_bytes())
+    }
+
+    /// Reads a manifest.
+    pub fn read(path: &Path) -> io::Result<Manifest> {
+        let text = std::fs::read_to_string(path)?;
+        toml::from_str(&text).map_err(|e| io::Error::new(io::ErrorKind::InvalidData, e.to_string()))
+    }
+}
+
+/// Writes `bytes` to `path` through a synced temporary file and a rename.
+pub fn write_atomic(path: &Path, bytes: &[u8]) -> io::Result<()> {
+    let tmp = path.with_extension("tmp");
+    {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+    }
+    std::fs::rename(&tmp, path)
+}
+
+/// Lower-case hex SHA-256 of `bytes`.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    use sha2::{Digest, Sha256};
+    Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sha256_matches_the_fips_180_2_example() {
+        // FIPS 180-2, appendix B.1: SHA-256("abc").
+        assert_eq!(
+            sha256_hex(b"abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
+    }
+}

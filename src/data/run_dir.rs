@@ -1,0 +1,59 @@
+//! The run directory: `runs/<UTC time>-<recipe name>/` and the names of the files in it.
+
+use std::io;
+use std::path::{Path, PathBuf};
+use time::OffsetDateTime;
+
+/// File names inside a run directory.
+pub mod files {
+    /// Run description and outcome.
+    pub const MANIFEST: &str = "manifest.toml";
+    /// Every exchange recorded.
+    pub const EXCHANGES: &str = "exchanges.csv";
+    /// The calibration table.
+    pub const CALTABLE: &str = "caltable.csv";
+    /// Human-readable log.
+    pub const LOG: &str = "run.log";
+}
+
+/// Creates a fresh run directory: `out` itself when given (it must not hold a manifest yet),
+/// else `runs/<UTC time>-<name>` with a numeric suffix if that exists.
+pub fn create(out: Option<&Path>, name: &str, now: OffsetDateTime) -> io::Result<PathBuf> {
+    if let Some(dir) = out {
+        if dir.join(files::MANIFEST).exists() {
+            return Err(io::Error::new(
+                io::ErrorKind::AlreadyExists,
+                format!(
+                    "{} already holds a run (manifest.toml); choose another --out",
+                    dir.display()
+                ),
+            ));
+        }
+        std::fs::create_dir_all(dir)?;
+        return Ok(dir.to_path_buf());
+    }
+    let stamp = format!(
+        "{:04}{:02}{:02}T{:02}{:02}{:02}Z",
+        now.year(),
+        u8::from(now.month()),
+        now.day(),
+        now.hour(),
+        now.minute(),
+        now.second()
+    );
+    let base = Path::new("runs").join(format!("{stamp}-{name}"));
+    let mut dir = base.clone();
+    let mut n = 1;
+    while dir.exists() {
+        n += 1;
+        dir = PathBuf::from(format!("{}-{n}", base.display()));
+    }
+    std::fs::create_dir_all(&dir)?;
+    Ok(dir)
+}
+
+/// RFC 3339 text of a UTC time.
+pub fn rfc3339(t: OffsetDateTime) -> String {
+    t.format(&time::format_description::well_known::Rfc3339)
+        .unwrap_or_else(|_| t.unix_timestamp().to_string())
+}

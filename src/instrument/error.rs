@@ -1,0 +1,22 @@
+//! Instrument failures, as the runner sees them.
+
+use thiserror::Error;
+
+/// What went wrong talking to an instrument.
+#[derive(Debug, Clone, Error, PartialEq)]
+pub enum InstrumentError {
+    /// The instrument refused or could not carry out a request.
+    #[error("{role}: {message}")]
+    Failed {
+        /// Bench role (`attenuator`, `dut`).
+        role: String,
+        /// The instrument's or driver's own words.
+        message: String,
+    },
+    /// The task owning the instrument is gone (it failed earlier or the run is ending).
+    #[error("{role}: the instrument's connection is closed")]
+    Gone {
+        /// Bench role.
+        role: String,
+    },
+}

@@ -1,0 +1,53 @@
+//! Typed handles over the owner tasks, one per capability.
+
+use super::capability::{Attenuator, BurstSpec, RangingDevice};
+use super::owner::Owned;
+use super::InstrumentError;
+use crate::data::DeviceExchange;
+
+/// Handle on the bench's attenuator.
+#[derive(Clone)]
+pub struct AttenuatorHandle(pub Owned<dyn Attenuator>);
+
+impl AttenuatorHandle {
+    /// The instrument's identity.
+    pub fn identify(&self) -> Result<String, InstrumentError> {
+        self.0.call(|a| a.identify())
+    }
+    /// Sets the attenuation.
+    pub fn set_atten_db(&self, db: f64) -> Result<(), InstrumentError> {
+        self.0.call(move |a| a.set_atten_db(db))
+    }
+    /// Reads the attenuation back.
+    pub fn atten_db(&self) -> Result<f64, InstrumentError> {
+        self.0.call(|a| a.atten_db())
+    }
+    /// Maximum attenuation.
+    pub fn safe_state(&self) -> Result<(), InstrumentError> {
+        self.0.call(|a| a.safe_state())
+    }
+}
+
+/// Handle on the bench's ranging device (the DUT).
+#[derive(Clone)]
+pub struct RangingHandle(pub Owned<dyn RangingDevice>);
+
+impl RangingHandle {
+    /// The instrument's identity.
+    pub fn identify(&self) -> Result<String, InstrumentError> {
+        self.0.call(|d| d.identify())
+    }
+    /// Runs a burst.
+    pub fn burst(&self, spec: BurstSpec) -> Result<Vec<DeviceExchange>, InstrumentError> {
+        self.0
+            .call(move |d| Box::pin(async move { d.burst(&spec).await }))
+    }
+    /// Stops ranging.
+    pub fn safe_state(&self) -> Result<(), InstrumentError> {
+        self.0.call(|d| d.safe_state())
+    }
+    /// Temperature at the device, if measured.
+    pub fn temperature_c(&self) -> Result<Option<f64>, InstrumentError> {
+        self.0.call(|d| d.temperature_c())
+    }
+}

@@ -1,0 +1,11 @@
+//! Instruments: capability traits, the task that owns each instrument, and typed handles.
+
+pub mod capability;
+pub mod error;
+pub mod handles;
+pub mod owner;
+
+pub use capability::{Attenuator, BurstSpec, RangingDevice};
+pub use error::InstrumentError;
+pub use handles::{AttenuatorHandle, RangingHandle};
+pub use owner::Owned;
