@@ -8,4 +8,5 @@ pub mod fit;
 pub mod instrument;
 pub mod recipe;
 pub mod runner;
+pub mod script;
 pub mod sim;

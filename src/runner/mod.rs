@@ -2,5 +2,11 @@
 //! record sink.
 
 pub mod clock;
+pub mod error;
+pub mod session;
+pub mod sweep;
 
 pub use clock::{BenchClock, ClockMode};
+pub use error::RunError;
+pub use session::{PointSummary, Session};
+pub use sweep::run_sweep;

@@ -1,0 +1,32 @@
+//! Why a run stopped.
+
+use crate::diagnostic::Diagnostic;
+use crate::instrument::InstrumentError;
+use thiserror::Error;
+
+/// A failure during a run. Data recorded before it are kept.
+#[derive(Debug, Error)]
+pub enum RunError {
+    /// An instrument failed.
+    #[error(transparent)]
+    Instrument(#[from] InstrumentError),
+    /// A run file could not be written.
+    #[error("cannot write {path}: {source}")]
+    Io {
+        /// The file.
+        path: String,
+        /// Cause.
+        source: std::io::Error,
+    },
+    /// A step was refused because it would break a bench limit (receiver protection).
+    #[error("refused: {message}")]
+    Refused {
+        /// What was asked and why it is refused.
+        message: String,
+        /// What to do instead.
+        hint: String,
+    },
+    /// A script failed; the diagnostic points at its line.
+    #[error("{0}")]
+    Script(Box<Diagnostic>),
+}

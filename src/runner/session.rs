@@ -1,0 +1,224 @@
+//! The state a run carries from stage to stage: instrument handles, the clock, the record sink,
+//! and where the run is (stage, point, burst). Sweeps and scripts act only through it, so both
+//! obey the same limits and number their records the same way.
+
+use super::{BenchClock, RunError};
+use crate::bench::Bench;
+use crate::data::manifest::Counts;
+use crate::data::{Exchange, RecordSink, STATUS_OK};
+use crate::instrument::{AttenuatorHandle, BurstSpec, RangingHandle};
+use crate::recipe::Channel;
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+/// What one attenuation point yielded: gain states seen and how often.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PointSummary {
+    /// Stage name.
+    pub stage: String,
+    /// Point index within the stage.
+    pub point: u32,
+    /// Attenuator setting.
+    pub atten_db: f64,
+    /// Channel.
+    pub channel: Channel,
+    /// Exchanges with status `ok` per DUT gain index.
+    pub ok_by_gain: BTreeMap<u32, u64>,
+    /// Exchanges that failed.
+    pub failed: u64,
+}
+
+/// Instruments and bookkeeping of a run in progress.
+pub struct Session {
+    bench: Arc<Bench>,
+    clock: Arc<BenchClock>,
+    atten: AttenuatorHandle,
+    dut: RangingHandle,
+    sink: Box<dyn RecordSink>,
+    sink_name: String,
+    stage: String,
+    channel: Channel,
+    atten_db: Option<f64>,
+    next_burst: u32,
+    /// One entry per point visited, in order.
+    pub points: Vec<PointSummary>,
+    /// Running counts for the manifest.
+    pub counts: Counts,
+    /// Values recorded by scripts.
+    pub results: BTreeMap<String, toml::Value>,
+}
+
+impl Session {
+    /// A session over the given instruments, writing records to `sink` (named `sink_name` in
+    /// errors).
+    pub fn new(
+        bench: Arc<Bench>,
+        clock: Arc<BenchClock>,
+        atten: AttenuatorHandle,
+        dut: RangingHandle,
+        sink: Box<dyn RecordSink>,
+        sink_name: &str,
+    ) -> Self {
+        Session {
+            bench,
+            clock,
+            atten,
+            dut,
+            sink,
+            sink_name: sink_name.to_string(),
+            stage: String::new(),
+            channel: Channel {
+                center_mhz: 5180,
+                bw_mhz: 80,
+            },
+            atten_db: None,
+            next_burst: 0,
+            points: Vec::new(),
+            counts: Counts::default(),
+            results: BTreeMap::new(),
+        }
+    }
+
+    /// The bench.
+    pub fn bench(&self) -> &Bench {
+        &self.bench
+    }
+
+    /// The clock.
+    pub fn clock(&self) -> &BenchClock {
+        &self.clock
+    }
+
+    /// Starts a stage: points are numbered afresh, and the attenuation must be set again.
+    pub fn begin_stage(&mut self, name: &str, channel: Channel) {
+        self.stage = name.to_string();
+        self.channel = channel;
+        self.atten_db = None;
+    }
+
+    /// The channel bursts use.
+    pub fn channel(&self) -> Channel {
+        self.channel
+    }
+
+    /// Changes channel; the next burst starts a new point.
+    pub fn set_channel(&mut self, channel: Channel) {
+        if self.channel != channel {
+            self.channel = channel;
+            if let Some(db) = self.atten_db {
+                self.new_point(db);
+            }
+        }
+    }
+
+    /// The attenuation last set in this stage.
+    pub fn atten_db(&self) -> Option<f64> {
+        self.atten_db
+    }
+
+    /// Sets the attenuator, after checking the bench's limits (receiver protection first), and
+    /// starts a new point.
+    pub fn set_atten(&mut self, db: f64) -> Result<(), RunError> {
+        if let Some((message, hint)) = self.bench.refuse_atten(db) {
+            return Err(RunError::Refused { message, hint });
+        }
+        self.atten.set_atten_db(db)?;
+        self.new_point(db);
+        Ok(())
+    }
+
+    fn new_point(&mut self, db: f64) {
+        let point = self
+            .points
+            .iter()
+            .filter(|p| p.stage == self.stage)
+            .map(|p| p.point + 1)
+            .max()
+            .unwrap_or(0);
+        self.points.push(PointSummary {
+            stage: self.stage.clone(),
+            point,
+            atten_db: db,
+            channel: self.channel,
+            ok_by_gain: BTreeMap::new(),
+            failed: 0,
+        });
+        self.atten_db = Some(db);
+        self.next_burst = 0;
+        self.counts.points += 1;
+    }
+
+    /// Waits `ms` of bench time.
+    pub fn wait_ms(&mut self, ms: f64) {
+        std::thread::sleep(self.clock.spend(BenchClock::ms_to_ps(ms)));
+    }
+
+    /// Runs one burst at the current point and records it; returns the recorded rows.
+    pub fn burst(&mut self, frames: u32) -> Result<Vec<Exchange>, RunError> {
+        let Some(atten_db) = self.atten_db else {
+            return Err(RunError::Refused {
+                message: "a burst was asked for before any attenuation was set in this stage".into(),
+                hint: "set the attenuation first (set_atten in a script)".into(),
+            });
+        };
+        let channel = self.channel;
+        let reported = self.dut.burst(BurstSpec { frames, channel })?;
+        let temp_c = self.dut.temperature_c()?;
+        let point = self.points.last_mut().map_or(0, |p| p.point);
+        let burst = self.next_burst;
+        self.next_burst += 1;
+        let rows: Vec<Exchange> = reported
+            .into_iter()
+            .enumerate()
+            .map(|(seq, d)| Exchange {
+                stage: self.stage.clone(),
+                point,
+                burst,
+                seq: seq as u32,
+                atten_db,
+                center_mhz: channel.center_mhz,
+                bw_mhz: channel.bw_mhz,
+                t1_ps: d.t1_ps,
+                t2_ps: d.t2_ps,
+                t3_ps: d.t3_ps,
+                t4_ps: d.t4_ps,
+                dut_gain: d.dut_gain,
+                dut_rssi_dbm: d.dut_rssi_dbm,
+                ref_gain: d.ref_gain,
+                temp_c,
+                status: d.status,
+            })
+            .collect();
+        self.sink.write_burst(&rows).map_err(|source| RunError::Io {
+            path: self.sink_name.clone(),
+            source,
+        })?;
+        self.counts.bursts += 1;
+        self.counts.exchanges += rows.len() as u64;
+        if let Some(summary) = self.points.last_mut() {
+            for r in &rows {
+                match (r.status == STATUS_OK, r.dut_gain) {
+                    (true, Some(g)) => {
+                        *summary.ok_by_gain.entry(g).or_insert(0) += 1;
+                        self.counts.exchanges_ok += 1;
+                    }
+                    _ => summary.failed += 1,
+                }
+            }
+        }
+        Ok(rows)
+    }
+
+    /// Puts every instrument in its safe state; returns the failures, if any, without stopping
+    /// at the first so every instrument gets its chance.
+    pub fn safe_state(&self) -> Vec<RunError> {
+        let mut errs = Vec::new();
+        if let Err(e) = self.dut.safe_state() {
+            errs.push(e.into());
+        }
+        if let Err(e) = self.atten.safe_state() {
+            errs.push(e.into());
+        }
+        errs
+    }
+}
