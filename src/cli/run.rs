@@ -1,0 +1,73 @@
+//! `taucal run`.
+
+use super::args::RunArgs;
+use super::{bench_arg, log, table, Exit};
+use crate::data::run_dir::files;
+use crate::diagnostic::Diagnostic;
+use crate::runner::run::{execute, RunRequest};
+use std::sync::Arc;
+
+/// Validates, runs, fits, and reports.
+pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
+    let bench = bench_arg::load(&args.bench)?;
+    let plan = crate::recipe::load(&args.recipe, &args.set, &bench)?;
+    for stage in &plan.stages {
+        if let crate::recipe::Stage::Script(s) = stage {
+            crate::script::check(&s.source)?;
+        }
+    }
+    eprintln!("taucal: {}", bench_arg::describe(&bench, args.seed));
+    let request = RunRequest {
+        plan,
+        bench: Arc::new(bench),
+        overrides: args.set,
+        out: args.out,
+        seed: args.seed,
+        realtime: args.realtime,
+    };
+    let report = execute(request, |dir| {
+        log::open_run_log(&dir.join(files::LOG));
+        eprintln!("taucal: run directory {}", dir.display());
+    })?;
+    let m = &report.manifest;
+    println!("run directory: {}", report.dir.display());
+    println!(
+        "recorded {} exchanges ({} ok) in {} bursts at {} points; bench time {:.1} s, wall time {:.2} s",
+        m.counts.exchanges, m.counts.exchanges_ok, m.counts.bursts, m.counts.points, m.bench_time_s, m.wall_time_s
+    );
+    if let Some(fit) = &report.fit {
+        println!("calibration table (DUT K = TX + RX group delay per gain state):");
+        print!("{}", table::render(&fit.rows));
+    }
+    for c in &m.acceptance {
+        let (op, verdict) = match (c.name.starts_with("max"), c.passed) {
+            (true, true) => ("≤", "met"),
+            (true, false) => ("≤", "NOT MET"),
+            (false, true) => ("≥", "met"),
+            (false, false) => ("≥", "NOT MET"),
+        };
+        println!("acceptance {}: {:.1} {op} {} — {verdict}", c.name, c.value, c.limit);
+    }
+    if let Some(f) = &report.failure {
+        eprintln!("{}", failure_text(f));
+        println!("status: failed — data so far are kept in {}", report.dir.display());
+        return Ok(Exit::Stopped);
+    }
+    if report.accepted() {
+        println!("status: completed, every acceptance limit met");
+        Ok(Exit::Ok)
+    } else {
+        println!("status: completed, but an acceptance limit was not met");
+        Ok(Exit::LimitFailed)
+    }
+}
+
+fn failure_text(f: &crate::runner::RunError) -> String {
+    match f {
+        crate::runner::RunError::Script(d) => d.to_string(),
+        crate::runner::RunError::Refused { message, hint } => {
+            Diagnostic::plain(format!("run stopped: {message}")).with_hint(hint.clone()).to_string()
+        }
+        other => Diagnostic::plain(format!("run stopped: {other}")).to_string(),
+    }
+}

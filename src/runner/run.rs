@@ -1,0 +1,232 @@
+//! One run from start to end: run directory, instruments, stages, safe state, fit, acceptance,
+//! manifest. Whatever happens after the run directory exists, the data recorded so far stay on
+//! disk, the instruments end in their safe state and the manifest says how the run ended.
+
+use super::{run_sweep, tabulate, BenchClock, ClockMode, RunError, Session};
+use crate::bench::Bench;
+use crate::data::manifest::{sha256_hex, AcceptCheck, BenchInfo, RecipeInfo};
+use crate::data::run_dir::{self, files};
+use crate::data::{ExchangeWriter, Manifest, RunStatus};
+use crate::diagnostic::Diagnostic;
+use crate::fit::FitResult;
+use crate::instrument::connect::connect;
+use crate::recipe::{Acceptance, Plan, Stage};
+use std::cell::RefCell;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::{Path, PathBuf};
+use std::rc::Rc;
+use std::sync::Arc;
+use std::time::Instant;
+
+/// What to run, where, and how.
+pub struct RunRequest {
+    /// The validated recipe.
+    pub plan: Plan,
+    /// The bench it was validated against.
+    pub bench: Arc<Bench>,
+    /// `--set` overrides as typed (for the manifest).
+    pub overrides: Vec<String>,
+    /// `--out`: the run directory to use instead of `runs/<time>-<name>`.
+    pub out: Option<PathBuf>,
+    /// `--seed`: overrides a simulated bench's seed.
+    pub seed: Option<u64>,
+    /// `--realtime`: a simulated bench keeps wall-clock pace.
+    pub realtime: bool,
+}
+
+/// How a run ended.
+pub struct RunReport {
+    /// The run directory.
+    pub dir: PathBuf,
+    /// The final manifest, as written.
+    pub manifest: Manifest,
+    /// The table fitted from what was recorded (absent if the exchanges could not be read).
+    pub fit: Option<FitResult>,
+    /// Why the run stopped early, if it did.
+    pub failure: Option<RunError>,
+}
+
+impl RunReport {
+    /// True when every acceptance limit was met.
+    pub fn accepted(&self) -> bool {
+        self.manifest.acceptance.iter().all(|c| c.passed)
+    }
+}
+
+/// Runs `req`. `on_dir` is called once the run directory exists (to start its log). Errors
+/// returned here happen before anything runs; later failures are in the report.
+pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport, Diagnostic> {
+    let wall = Instant::now();
+    let now = time::OffsetDateTime::now_utc();
+    let dir = run_dir::create(req.out.as_deref(), &req.plan.name, now)
+        .map_err(|e| Diagnostic::plain(format!("cannot create the run directory: {e}")))?;
+    on_dir(&dir);
+    let bench = req.bench;
+    let simulated = bench.is_simulated();
+    let seed = req.seed.or(bench.sim.as_ref().map(|s| s.seed)).unwrap_or(1);
+    let mut manifest = Manifest {
+        status: RunStatus::Running,
+        bench_time_s: 0.0,
+        wall_time_s: 0.0,
+        taucal_version: env!("CARGO_PKG_VERSION").to_string(),
+        seed: simulated.then_some(seed),
+        started_utc: run_dir::rfc3339(now),
+        finished_utc: None,
+        error: None,
+        recipe: RecipeInfo {
+            name: req.plan.name.clone(),
+            path: req.plan.source.path.display().to_string(),
+            sha256: sha256_hex(req.plan.source.text.as_bytes()),
+            overrides: req.overrides.clone(),
+        },
+        bench: BenchInfo {
+            name: bench.name.clone(),
+            path: bench.source.path.display().to_string(),
+            sha256: sha256_hex(bench.source.text.as_bytes()),
+            simulated,
+        },
+        instruments: BTreeMap::new(),
+        counts: Default::default(),
+        acceptance: Vec::new(),
+        results: BTreeMap::new(),
+    };
+    let manifest_path = dir.join(files::MANIFEST);
+    let io_err = |path: &Path, source: std::io::Error| RunError::Io {
+        path: path.display().to_string(),
+        source,
+    };
+    manifest
+        .write(&manifest_path)
+        .map_err(|e| Diagnostic::plain(format!("cannot write {}: {e}", manifest_path.display())))?;
+    let mode = match (simulated, req.realtime) {
+        (true, false) => ClockMode::Virtual,
+        (true, true) => ClockMode::Paced,
+        (false, _) => ClockMode::Wall,
+    };
+    let clock = Arc::new(BenchClock::new(mode));
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(|e| Diagnostic::plain(format!("cannot start the instrument runtime: {e}")))?;
+    let instruments = connect(&bench, clock.clone(), seed, rt.handle())?;
+    let exchanges_path = dir.join(files::EXCHANGES);
+
+    let mut failure = None;
+    for (role, id) in [
+        ("attenuator", instruments.attenuator.identify()),
+        ("dut", instruments.dut.identify()),
+    ] {
+        match id {
+            Ok(id) => {
+                tracing::info!("{role}: {id}");
+                manifest.instruments.insert(role.to_string(), id);
+            }
+            Err(e) => failure = failure.or(Some(e.into())),
+        }
+    }
+    let session = match ExchangeWriter::create(&exchanges_path) {
+        Ok(writer) => Some(Rc::new(RefCell::new(Session::new(
+            bench.clone(),
+            clock.clone(),
+            instruments.attenuator,
+            instruments.dut,
+            Box::new(writer),
+            &exchanges_path.display().to_string(),
+        )))),
+        Err(e) => {
+            failure = failure.or(Some(io_err(&exchanges_path, e)));
+            None
+        }
+    };
+    if let Some(session) = &session {
+        if failure.is_none() {
+            failure = run_stages(&req.plan, session).err();
+        }
+        for e in session.borrow().safe_state() {
+            tracing::error!("safe state: {e}");
+            failure = failure.or(Some(e));
+        }
+        let s = session.borrow();
+        manifest.counts = s.counts.clone();
+        manifest.results = s.results.clone();
+    }
+    drop(session);
+    drop(rt);
+
+    let fit = match tabulate::fit_file(&exchanges_path, &bench, req.plan.reject_mad) {
+        Ok(fit) => {
+            let table_path = dir.join(files::CALTABLE);
+            if let Err(e) = tabulate::write_table(&table_path, &fit) {
+                failure = failure.or(Some(io_err(&table_path, e)));
+            }
+            Some(fit)
+        }
+        Err(e) => {
+            tracing::error!("fit: {e}");
+            None
+        }
+    };
+    manifest.acceptance = fit.as_ref().map_or_else(Vec::new, |f| acceptance(&req.plan.accept, f));
+    for c in &manifest.acceptance {
+        let verdict = if c.passed { "met" } else { "NOT met" };
+        tracing::info!("acceptance {}: {} against limit {} — {verdict}", c.name, c.value, c.limit);
+    }
+    manifest.status = match &failure {
+        None => RunStatus::Completed,
+        Some(_) => RunStatus::Failed,
+    };
+    manifest.error = failure.as_ref().map(ToString::to_string);
+    manifest.bench_time_s = clock.now_s();
+    manifest.wall_time_s = wall.elapsed().as_secs_f64();
+    manifest.finished_utc = Some(run_dir::rfc3339(time::OffsetDateTime::now_utc()));
+    if let Err(e) = manifest.write(&manifest_path) {
+        failure = failure.or(Some(io_err(&manifest_path, e)));
+    }
+    Ok(RunReport {
+        dir,
+        manifest,
+        fit,
+        failure,
+    })
+}
+
+fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunError> {
+    for stage in &plan.stages {
+        tracing::info!("stage `{}` begins", stage.name());
+        match stage {
+            Stage::Sweep(sweep) => run_sweep(&mut session.borrow_mut(), sweep)?,
+            Stage::Script(script) => crate::script::run_script(session.clone(), script, &plan.vars)?,
+        }
+    }
+    Ok(())
+}
+
+/// Evaluates the recipe's acceptance limits on a fitted table.
+pub fn acceptance(accept: &Acceptance, fit: &FitResult) -> Vec<AcceptCheck> {
+    let mut checks = Vec::new();
+    if let Some(limit) = accept.max_ci95_ps {
+        let worst = fit.rows.iter().map(|r| r.ci95_ps).fold(f64::NAN, f64::max);
+        checks.push(AcceptCheck {
+            name: "max_ci95_ps".into(),
+            limit,
+            value: worst,
+            passed: worst <= limit,
+        });
+    }
+    if let Some(limit) = accept.min_gain_states {
+        let states: BTreeSet<(u32, u32, u32)> = fit
+            .rows
+            .iter()
+            .map(|r| (r.center_mhz, r.bw_mhz, r.gain_index))
+            .collect();
+        let gains: BTreeSet<u32> = states.iter().map(|s| s.2).collect();
+        checks.push(AcceptCheck {
+            name: "min_gain_states".into(),
+            limit: f64::from(limit),
+            value: gains.len() as f64,
+            passed: gains.len() >= limit as usize,
+        });
+    }
+    checks
+}
