@@ -1,7 +1,9 @@
 //! The simulated bench: a physical model of the conducted bench and the instruments on it.
 
+pub mod agc;
 pub mod counter;
 pub mod truth;
 
+pub use agc::Agc;
 pub use counter::Counter48;
 pub use truth::SimTruth;
