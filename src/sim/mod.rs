@@ -2,8 +2,10 @@
 
 pub mod agc;
 pub mod counter;
+pub mod timing;
 pub mod truth;
 
 pub use agc::Agc;
 pub use counter::Counter48;
+pub use timing::Receiver;
 pub use truth::SimTruth;
