@@ -83,6 +83,9 @@ pub struct SimReference {
     /// Receive power thresholds of the reference's AGC (empty: one gain state).
     #[serde(default)]
     pub gain_thresholds_dbm: Vec<f64>,
+    /// Width of the reference AGC's hysteresis band around each threshold.
+    #[serde(default)]
+    pub gain_hysteresis_db: f64,
     /// Timing jitter per timestamp at high SNR, 1 sigma.
     #[serde(default = "default_jitter")]
     pub jitter_ps: f64,
@@ -249,6 +252,7 @@ impl SimTruth {
         non_negative("sim.dut.burst_offset_ps", d.burst_offset_ps)?;
         non_negative("sim.reference.jitter_ps", r.jitter_ps)?;
         non_negative("sim.reference.rssi_noise_db", r.rssi_noise_db)?;
+        non_negative("sim.reference.gain_hysteresis_db", r.gain_hysteresis_db)?;
         outlier_rate("sim.dut.outlier_rate", d.outlier_rate)?;
         outlier_rate("sim.reference.outlier_rate", r.outlier_rate)?;
         // The model does arithmetic with these; a NaN would pass every ordering check above and
