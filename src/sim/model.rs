@@ -835,6 +835,47 @@ mod tests {
     }
 
     #[test]
+    fn contract_example_bench_is_unbiased_under_default_noise() {
+        // Design §4's example truth with every other key at its default (300 ps jitter, 1 %
+        // late paths, 1 dB RSSI noise, 30 ps burst offsets, 8 ppm). The median de-embedded K
+        // over 640 exchanges has a standard error near 25 ps; 100 ps is four of them.
+        let truth: SimTruth = toml::from_str(
+            r#"
+            seed = 1
+            tx_power_dbm = 15.0
+            [dut]
+            tx_delay_ps = 1500.0
+            rx_delay_ps = [900.0, 1150.0, 1400.0]
+            gain_thresholds_dbm = [-30.0, -55.0]
+            clock_ppm = 8.0
+            jitter_ps = 300.0
+            outlier_rate = 0.01
+            [reference]
+            delay_ps = 2800.0
+            "#,
+        )
+        .expect("design §4 example parses");
+        let mut sim = bench(&truth, 23);
+        sim.set_atten_db(49.0);
+        let mut ks = Vec::new();
+        for b in 0..10u64 {
+            let out = sim.run_burst(b * 500_000_000_000, &BURST_80);
+            let xs = ok(&out);
+            let ratio = rate_ratio(&xs);
+            ks.extend(
+                xs.iter()
+                    .filter(|x| x.dut_gain == Some(1))
+                    .map(|x| corrected_rtt_ps(x, ratio) - bench_part_ps(&truth, 49.0, x)),
+            );
+        }
+        ks.sort_by(f64::total_cmp);
+        let median = ks[ks.len() / 2];
+        let want = truth.dut_k_ps(1).expect("gain 1 in table");
+        assert!(ks.len() > 600);
+        assert!((median - want).abs() < 100.0, "{median} vs {want}");
+    }
+
+    #[test]
     fn same_seed_same_outcome_different_seed_different() {
         let mut truth = noise_free();
         truth.dut.jitter_ps = 300.0;
