@@ -83,12 +83,26 @@ pub struct SimReference {
     /// Receive power thresholds of the reference's AGC (empty: one gain state).
     #[serde(default)]
     pub gain_thresholds_dbm: Vec<f64>,
+    /// Width of the reference AGC's hysteresis band around each threshold.
+    #[serde(default)]
+    pub gain_hysteresis_db: f64,
     /// Timing jitter per timestamp at high SNR, 1 sigma.
     #[serde(default = "default_jitter")]
     pub jitter_ps: f64,
     /// Receiver noise figure.
     #[serde(default = "default_nf")]
     pub noise_figure_db: f64,
+    /// Gain of the timing estimator over a single-sample SNR; the same waveform as the DUT's,
+    /// so the same default.
+    #[serde(default = "default_processing_gain")]
+    pub processing_gain_db: f64,
+    /// RSSI measurement noise behind the reference's AGC decisions, 1 sigma.
+    #[serde(default = "default_rssi_noise")]
+    pub rssi_noise_db: f64,
+    /// Probability that the reference's time of arrival locks to a late path. Zero by default:
+    /// a reference unit is chosen for clean detection, so late paths are the DUT's by default.
+    #[serde(default)]
+    pub outlier_rate: f64,
 }
 
 /// Timing of FTM-like bursts.
@@ -186,6 +200,17 @@ impl SimTruth {
             .map(|rx| rx + self.dut.tx_delay_ps)
     }
 
+    /// The reference's true K at its gain index `gain`. A table with one value holds for every
+    /// state the reference's AGC can report, so thresholds without per-state delays are valid.
+    pub fn ref_k_ps(&self, gain: u32) -> Option<f64> {
+        let k = &self.reference.delay_ps;
+        if k.states() == 1 {
+            k.values().first().copied()
+        } else {
+            k.at(Some(gain))
+        }
+    }
+
     /// Checks what serde cannot: table lengths, orderings and ranges.
     pub fn validate(&self) -> Result<(), KeyError> {
         let d = &self.dut;
@@ -226,17 +251,24 @@ impl SimTruth {
         non_negative("sim.dut.rssi_noise_db", d.rssi_noise_db)?;
         non_negative("sim.dut.burst_offset_ps", d.burst_offset_ps)?;
         non_negative("sim.reference.jitter_ps", r.jitter_ps)?;
-        if !(0.0..=0.5).contains(&d.outlier_rate) {
-            return Err(KeyError::new(
-                "sim.dut.outlier_rate",
-                format!(
-                    "{} is not a probability this model supports",
-                    d.outlier_rate
-                ),
-                "use a fraction between 0.0 and 0.5",
-            ));
-        }
-        if !(d.clock_ppm.abs() <= 200.0) {
+        non_negative("sim.reference.rssi_noise_db", r.rssi_noise_db)?;
+        non_negative("sim.reference.gain_hysteresis_db", r.gain_hysteresis_db)?;
+        outlier_rate("sim.dut.outlier_rate", d.outlier_rate)?;
+        outlier_rate("sim.reference.outlier_rate", r.outlier_rate)?;
+        // The model does arithmetic with these; a NaN would pass every ordering check above and
+        // then silently poison timestamps.
+        finite("sim.tx_power_dbm", self.tx_power_dbm)?;
+        finite("sim.dut.tx_delay_ps", d.tx_delay_ps)?;
+        finite_all("sim.dut.rx_delay_ps", &d.rx_delay_ps)?;
+        finite_all("sim.dut.gain_thresholds_dbm", &d.gain_thresholds_dbm)?;
+        finite("sim.dut.noise_figure_db", d.noise_figure_db)?;
+        finite("sim.dut.processing_gain_db", d.processing_gain_db)?;
+        finite("sim.dut.loss_snr_db", d.loss_snr_db)?;
+        finite_all("sim.reference.delay_ps", r.delay_ps.values())?;
+        finite_all("sim.reference.gain_thresholds_dbm", &r.gain_thresholds_dbm)?;
+        finite("sim.reference.noise_figure_db", r.noise_figure_db)?;
+        finite("sim.reference.processing_gain_db", r.processing_gain_db)?;
+        if !(-200.0..=200.0).contains(&d.clock_ppm) {
             return Err(KeyError::new(
                 "sim.dut.clock_ppm",
                 format!("{} ppm is outside ±200 ppm", d.clock_ppm),
@@ -273,6 +305,36 @@ fn descending(key: &str, v: &[f64]) -> Result<(), KeyError> {
     Ok(())
 }
 
+fn outlier_rate(key: &str, v: f64) -> Result<(), KeyError> {
+    if (0.0..=0.5).contains(&v) {
+        Ok(())
+    } else {
+        Err(KeyError::new(
+            key,
+            format!("{v} is not a probability this model supports"),
+            "use a fraction between 0.0 and 0.5",
+        ))
+    }
+}
+
+fn finite(key: &str, v: f64) -> Result<(), KeyError> {
+    if v.is_finite() {
+        Ok(())
+    } else {
+        Err(KeyError::new(
+            key,
+            format!("{v} is not a finite number"),
+            "give a plain number",
+        ))
+    }
+}
+
+fn finite_all(key: &str, v: &[f64]) -> Result<(), KeyError> {
+    v.iter()
+        .enumerate()
+        .try_for_each(|(i, x)| finite(&format!("{key}.{i}"), *x))
+}
+
 fn non_negative(key: &str, v: f64) -> Result<(), KeyError> {
     if v.is_finite() && v >= 0.0 {
         Ok(())
@@ -294,5 +356,74 @@ fn positive(key: &str, v: f64) -> Result<(), KeyError> {
             format!("{v} is not positive"),
             "use a value > 0",
         ))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // Design §4 contract keys, with the reference given per-state delays.
+    const BENCH: &str = r#"
+        seed = 1
+        tx_power_dbm = 15.0
+        [dut]
+        tx_delay_ps = 1500.0
+        rx_delay_ps = [900.0, 1150.0, 1400.0]
+        gain_thresholds_dbm = [-30.0, -55.0]
+        clock_ppm = 8.0
+        jitter_ps = 300.0
+        outlier_rate = 0.01
+        [reference]
+        delay_ps = 2800.0
+        gain_thresholds_dbm = [-40.0]
+    "#;
+
+    fn truth() -> SimTruth {
+        toml::from_str(BENCH).expect("test bench parses")
+    }
+
+    #[test]
+    fn contract_example_is_valid() {
+        // Values from design §4's example table.
+        let t = truth();
+        assert_eq!(t.validate(), Ok(()));
+        assert_eq!(t.dut_k_ps(2), Some(2900.0));
+        assert_eq!(t.dut_k_ps(3), None);
+    }
+
+    #[test]
+    fn one_reference_delay_holds_for_every_reference_state() {
+        // Design §2: the reference's table is keyed by its gain state where it reports one; a
+        // single value is the unkeyed case.
+        let t = truth();
+        assert_eq!(t.ref_k_ps(0), Some(2800.0));
+        assert_eq!(t.ref_k_ps(1), Some(2800.0));
+    }
+
+    #[test]
+    fn per_state_reference_delays_are_looked_up() {
+        let mut t = truth();
+        t.reference.delay_ps = PerGain::Each(vec![2800.0, 2850.0]);
+        assert_eq!(t.validate(), Ok(()));
+        assert_eq!(t.ref_k_ps(1), Some(2850.0));
+        assert_eq!(t.ref_k_ps(2), None);
+    }
+
+    #[test]
+    fn nan_threshold_is_rejected_by_name() {
+        // NaN compares false, so the ordering check alone would let it through.
+        let mut t = truth();
+        t.dut.gain_thresholds_dbm[1] = f64::NAN;
+        let err = t.validate().expect_err("NaN threshold must be rejected");
+        assert_eq!(err.key, "sim.dut.gain_thresholds_dbm.1");
+    }
+
+    #[test]
+    fn reference_outlier_rate_is_a_bounded_probability() {
+        let mut t = truth();
+        t.reference.outlier_rate = 0.7;
+        let err = t.validate().expect_err("rate above 0.5 must be rejected");
+        assert_eq!(err.key, "sim.reference.outlier_rate");
     }
 }
