@@ -30,7 +30,8 @@ pub fn connect(
             "use `sim:` addresses for the simulated bench",
         )));
     };
-    let shared = SimShared::new(SimBench::new(truth, &bench.path, seed), clock);
+    let model = SimBench::new(truth, &bench.path, seed).map_err(|e| bench.source.key_error(e))?;
+    let shared = SimShared::new(model, clock);
     let attenuator = SimAttenuatorFront::new(
         shared.clone(),
         truth.attenuator.switch_ms,

@@ -2,6 +2,7 @@
 
 pub mod capability;
 pub mod error;
+pub mod connect;
 pub mod handles;
 pub mod owner;
 

@@ -9,6 +9,7 @@
 
 pub mod agc;
 pub mod counter;
+pub mod front;
 pub mod model;
 pub mod timing;
 pub mod truth;
