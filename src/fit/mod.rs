@@ -1,1 +1,3 @@
 //! The fitter: pure functions from recorded exchanges to a calibration table.
+
+pub mod rtt;
