@@ -1,3 +1,4 @@
 //! The fitter: pure functions from recorded exchanges to a calibration table.
 
 pub mod rtt;
+pub mod stats;
