@@ -1,5 +1,9 @@
 //! The fitter: pure functions from recorded exchanges to a calibration table.
 
 pub mod deembed;
+pub mod fitter;
 pub mod rtt;
 pub mod stats;
+
+pub use deembed::Deembed;
+pub use fitter::{fit, CalRow, FitOptions, FitResult, FitSummary, Fitter, RowSource};
