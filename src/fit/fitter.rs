@@ -562,6 +562,38 @@ mod tests {
     }
 
     #[test]
+    fn interval_counts_bursts_not_exchanges() {
+        // Each burst carries a shared offset (identical within the burst): the exchanges of a
+        // burst are one piece of evidence, so the interval must be that of G = 8 burst means,
+        // t975(7)·s_b/√8, not the s/√n that treats 80 exchanges as independent.
+        let burst_offsets_ps = [-60.0, -20.0, 0.0, 20.0, 60.0, 40.0, -40.0, 0.0];
+        let mut rows = Vec::new();
+        for (burst, &offset) in burst_offsets_ps.iter().enumerate() {
+            for seq in 0..10u32 {
+                let depart = burst as i64 * BURST_SPACING_PS + seq as i64 * EXCHANGE_SPACING_PS;
+                rows.push(exchange(0, burst as u32, seq, 0.0, 0, depart, offset));
+            }
+        }
+        let result = fit(deembed(), FitOptions::default(), &rows);
+        assert_eq!(result.rows.len(), 1);
+        let row = &result.rows[0];
+        assert_eq!((row.n_used, row.n_rejected, row.n_bursts), (80, 0, 8));
+        let s_b = sample_sd(&burst_offsets_ps).unwrap_or(f64::NAN);
+        let expect = t975(7.0).unwrap_or(f64::NAN) * s_b / 8f64.sqrt();
+        assert!(
+            (row.ci95_ps - expect).abs() < 0.01 * expect,
+            "{} vs {expect}",
+            row.ci95_ps
+        );
+        let naive = t975(79.0).unwrap_or(f64::NAN) * row.sd_ps / 80f64.sqrt();
+        assert!(
+            row.ci95_ps > 2.0 * naive,
+            "{} vs naive {naive}",
+            row.ci95_ps
+        );
+    }
+
+    #[test]
     fn source_labels_match_the_contract() {
         // Design §4 caltable.csv contract: `measured` or `modelled`.
         assert_eq!(RowSource::Measured.as_str(), "measured");
