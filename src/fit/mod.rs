@@ -1,1 +1,11 @@
 //! The fitter: pure functions from recorded exchanges to a calibration table.
+
+pub mod caltable;
+pub mod deembed;
+pub mod fitter;
+pub mod rtt;
+pub mod stats;
+
+pub use caltable::{read_caltable, write_caltable, CalTableError, TableRow, CALTABLE_HEADER};
+pub use deembed::Deembed;
+pub use fitter::{fit, CalRow, FitOptions, FitResult, FitSummary, Fitter, RowSource};

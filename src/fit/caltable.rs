@@ -1,0 +1,315 @@
+//! `caltable.csv`: the table the DUT's firmware loads, in the column contract of design §4.
+//!
+//! Writing and reading live together so the format has one definition; the reader is for tests
+//! and for tools that apply or compare tables, and names the line of any bad input.
+
+use crate::fit::fitter::{CalRow, RowSource};
+use std::io::{Read, Write};
+use thiserror::Error;
+
+/// The contract header, in order.
+pub const CALTABLE_HEADER: [&str; 8] = [
+    "center_mhz",
+    "bw_mhz",
+    "gain_index",
+    "delay_ps",
+    "ci95_ps",
+    "n_used",
+    "n_rejected",
+    "source",
+];
+
+/// One row as the file holds it: the contract columns only.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TableRow {
+    /// Channel center frequency.
+    pub center_mhz: u32,
+    /// Channel bandwidth.
+    pub bw_mhz: u32,
+    /// DUT receive gain state.
+    pub gain_index: u32,
+    /// The DUT's K, to 3 decimals.
+    pub delay_ps: f64,
+    /// Half-width of the 95 % interval, to 3 decimals.
+    pub ci95_ps: f64,
+    /// Samples kept.
+    pub n_used: u64,
+    /// Samples rejected.
+    pub n_rejected: u64,
+    /// Measured or modelled.
+    pub source: RowSource,
+}
+
+impl From<&CalRow> for TableRow {
+    fn from(r: &CalRow) -> Self {
+        Self {
+            center_mhz: r.center_mhz,
+            bw_mhz: r.bw_mhz,
+            gain_index: r.gain_index,
+            delay_ps: r.delay_ps,
+            ci95_ps: r.ci95_ps,
+            n_used: r.n_used,
+            n_rejected: r.n_rejected,
+            source: r.source,
+        }
+    }
+}
+
+/// Why a calibration table could not be written or read.
+#[derive(Debug, Error)]
+pub enum CalTableError {
+    /// The output refused the bytes.
+    #[error("cannot write caltable: {0}")]
+    Write(#[source] csv::Error),
+    /// A row to write has a delay or interval that is not a finite number.
+    #[error(
+        "caltable row {index} (center {center_mhz} MHz, gain {gain_index}): {column} is not finite"
+    )]
+    NotFinite {
+        /// Position of the row in the slice given to the writer.
+        index: usize,
+        /// Its center frequency, to find it.
+        center_mhz: u32,
+        /// Its gain state, to find it.
+        gain_index: u32,
+        /// `delay_ps` or `ci95_ps`.
+        column: &'static str,
+    },
+    /// The header is not the contract header.
+    #[error("caltable line 1: header is `{found}`, expected `{}`", CALTABLE_HEADER.join(","))]
+    Header {
+        /// The header as read.
+        found: String,
+    },
+    /// A line could not be read or parsed.
+    #[error("caltable line {line}: {message}")]
+    Line {
+        /// 1-based line number in the file.
+        line: u64,
+        /// What was wrong with it.
+        message: String,
+    },
+}
+
+/// Write `rows` as `caltable.csv` (header first, delay and interval to 3 decimals).
+pub fn write_caltable<W: Write>(out: W, rows: &[CalRow]) -> Result<(), CalTableError> {
+    let mut w = csv::Writer::from_writer(out);
+    w.write_record(CALTABLE_HEADER)
+        .map_err(CalTableError::Write)?;
+    for (index, row) in rows.iter().enumerate() {
+        for (column, value) in [("delay_ps", row.delay_ps), ("ci95_ps", row.ci95_ps)] {
+            if !value.is_finite() {
+                return Err(CalTableError::NotFinite {
+                    index,
+                    center_mhz: row.center_mhz,
+                    gain_index: row.gain_index,
+                    column,
+                });
+            }
+        }
+        w.write_record([
+            row.center_mhz.to_string(),
+            row.bw_mhz.to_string(),
+            row.gain_index.to_string(),
+            format!("{:.3}", row.delay_ps),
+            format!("{:.3}", row.ci95_ps),
+            row.n_used.to_string(),
+            row.n_rejected.to_string(),
+            row.source.as_str().to_string(),
+        ])
+        .map_err(CalTableError::Write)?;
+    }
+    w.flush()
+        .map_err(|e| CalTableError::Write(csv::Error::from(e)))
+}
+
+/// Read a `caltable.csv` back into rows, checking the header and every field.
+pub fn read_caltable<R: Read>(input: R) -> Result<Vec<TableRow>, CalTableError> {
+    let mut r = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .from_reader(input);
+    let mut records = r.records();
+    let header = match records.next() {
+        Some(rec) => rec.map_err(|e| line_error(&e, 1))?,
+        None => {
+            return Err(CalTableError::Header {
+                found: String::new(),
+            })
+        }
+    };
+    if header.iter().ne(CALTABLE_HEADER) {
+        return Err(CalTableError::Header {
+            found: header.iter().collect::<Vec<_>>().join(","),
+        });
+    }
+    let mut rows = Vec::new();
+    for rec in records {
+        let rec = rec.map_err(|e| line_error(&e, 0))?;
+        let line = rec.position().map_or(0, |p| p.line());
+        rows.push(parse_row(&rec, line)?);
+    }
+    Ok(rows)
+}
+
+fn line_error(e: &csv::Error, fallback_line: u64) -> CalTableError {
+    CalTableError::Line {
+        line: e.position().map_or(fallback_line, |p| p.line()),
+        message: e.to_string(),
+    }
+}
+
+fn parse_row(rec: &csv::StringRecord, line: u64) -> Result<TableRow, CalTableError> {
+    let bad = |message: String| CalTableError::Line { line, message };
+    if rec.len() != CALTABLE_HEADER.len() {
+        return Err(bad(format!(
+            "{} fields, expected {}",
+            rec.len(),
+            CALTABLE_HEADER.len()
+        )));
+    }
+    let field = |i: usize| rec.get(i).unwrap_or_default().trim();
+    fn num<T: std::str::FromStr>(s: &str, col: &str) -> Result<T, String> {
+        s.parse()
+            .map_err(|_| format!("{col} `{s}` is not a number"))
+    }
+    let finite = |i: usize| -> Result<f64, CalTableError> {
+        let v: f64 = num(field(i), CALTABLE_HEADER[i]).map_err(bad)?;
+        if v.is_finite() {
+            Ok(v)
+        } else {
+            Err(bad(format!(
+                "{} `{}` is not finite",
+                CALTABLE_HEADER[i],
+                field(i)
+            )))
+        }
+    };
+    let source = match field(7) {
+        "measured" => RowSource::Measured,
+        "modelled" => RowSource::Modelled,
+        other => {
+            return Err(bad(format!(
+                "source `{other}` is not `measured` or `modelled`"
+            )))
+        }
+    };
+    Ok(TableRow {
+        center_mhz: num(field(0), CALTABLE_HEADER[0]).map_err(bad)?,
+        bw_mhz: num(field(1), CALTABLE_HEADER[1]).map_err(bad)?,
+        gain_index: num(field(2), CALTABLE_HEADER[2]).map_err(bad)?,
+        delay_ps: finite(3)?,
+        ci95_ps: finite(4)?,
+        n_used: num(field(5), CALTABLE_HEADER[5]).map_err(bad)?,
+        n_rejected: num(field(6), CALTABLE_HEADER[6]).map_err(bad)?,
+        source,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn row(gain_index: u32, delay_ps: f64, ci95_ps: f64, source: RowSource) -> CalRow {
+        CalRow {
+            center_mhz: 5180,
+            bw_mhz: 80,
+            gain_index,
+            delay_ps,
+            ci95_ps,
+            n_used: 120,
+            n_rejected: 3,
+            n_bursts: 12,
+            sd_ps: 300.0,
+            source,
+        }
+    }
+
+    fn golden_rows() -> Vec<CalRow> {
+        vec![
+            row(0, 2_400.123_4, 1.5, RowSource::Measured),
+            row(1, 2_650.0, 0.999_6, RowSource::Measured),
+            row(2, -3.25, 12.0, RowSource::Modelled),
+        ]
+    }
+
+    /// Design §4 contract header, then rows with delay and interval to 3 decimals.
+    const GOLDEN: &str = "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source\n\
+                          5180,80,0,2400.123,1.500,120,3,measured\n\
+                          5180,80,1,2650.000,1.000,120,3,measured\n\
+                          5180,80,2,-3.250,12.000,120,3,modelled\n";
+
+    #[test]
+    fn writes_the_golden_table_byte_for_byte() {
+        let mut out = Vec::new();
+        assert!(write_caltable(&mut out, &golden_rows()).is_ok());
+        assert_eq!(String::from_utf8_lossy(&out), GOLDEN);
+    }
+
+    #[test]
+    fn reads_back_what_it_wrote() {
+        let rows = read_caltable(GOLDEN.as_bytes());
+        let expect: Vec<TableRow> = golden_rows()
+            .iter()
+            .map(|r| {
+                let mut t = TableRow::from(r);
+                t.delay_ps = (t.delay_ps * 1000.0).round() / 1000.0;
+                t.ci95_ps = (t.ci95_ps * 1000.0).round() / 1000.0;
+                t
+            })
+            .collect();
+        assert_eq!(rows.ok(), Some(expect));
+    }
+
+    #[test]
+    fn refuses_non_finite_values_when_writing() {
+        let rows = [row(4, f64::NAN, 1.0, RowSource::Measured)];
+        let err = write_caltable(Vec::new(), &rows);
+        assert!(matches!(
+            err,
+            Err(CalTableError::NotFinite {
+                index: 0,
+                gain_index: 4,
+                column: "delay_ps",
+                ..
+            })
+        ));
+    }
+
+    fn error_line(text: &str) -> Option<u64> {
+        match read_caltable(text.as_bytes()) {
+            Err(CalTableError::Line { line, .. }) => Some(line),
+            _ => None,
+        }
+    }
+
+    #[test]
+    fn names_the_line_of_bad_input() {
+        let head = CALTABLE_HEADER.join(",");
+        let good = "5180,80,0,1.000,1.000,2,0,measured";
+        assert_eq!(
+            error_line(&format!("{head}\n{good}\n5180,80,x,1,1,2,0,measured\n")),
+            Some(3)
+        );
+        assert_eq!(
+            error_line(&format!(
+                "{head}\n{good}\n{good}\n5180,80,0,1,1,2,0,guessed\n"
+            )),
+            Some(4)
+        );
+        assert_eq!(
+            error_line(&format!("{head}\n5180,80,0,NaN,1,2,0,measured\n")),
+            Some(2)
+        );
+        assert_eq!(error_line(&format!("{head}\n5180,80,0\n")), Some(2));
+    }
+
+    #[test]
+    fn rejects_a_foreign_header() {
+        let r = read_caltable("center,bw,gain\n1,2,3\n".as_bytes());
+        assert!(matches!(r, Err(CalTableError::Header { .. })));
+        assert!(matches!(
+            read_caltable("".as_bytes()),
+            Err(CalTableError::Header { .. })
+        ));
+    }
+}

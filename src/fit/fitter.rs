@@ -1,0 +1,602 @@
+//! The streaming fitter: recorded exchanges in, one calibration row per cell out.
+//!
+//! Runs can be long (overnight, millions of exchanges), so rows are consumed one at a time and
+//! only a few numbers per usable exchange are kept: the DUT delay and its burst. Rows arrive
+//! grouped by burst; a burst is buffered until it ends, because its clock-rate ratio needs all of
+//! its exchanges before any of their RTTs can be corrected.
+//!
+//! Cells are (center frequency, bandwidth, DUT gain state as reported): near an AGC switch point
+//! one attenuation setting yields two gain states, so grouping by sweep point would mix them.
+
+use crate::data::Exchange;
+use crate::fit::deembed::Deembed;
+use crate::fit::rtt::{burst_offsets, corrected_rtt_from_counters_ps, rate_ratio};
+use crate::fit::stats::{cluster_robust_se, mad_scaled, mean, median, sample_sd, t975};
+use std::collections::{BTreeMap, BTreeSet};
+
+/// Smallest spread the rejection rule trusts, one counter tick. Below the counters' resolution
+/// the spread is quantisation, not noise, and a zero MAD (many identical values) would otherwise
+/// reject every sample one tick away from the median.
+const MAD_FLOOR_PS: f64 = 1.0;
+
+/// Choices that change what the fitter keeps.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FitOptions {
+    /// Reject a delay when `|K − median| > reject_mad · MAD` of its cell, MAD scaled by 1.4826
+    /// so it estimates a standard deviation (floored at 1 ps).
+    pub reject_mad: f64,
+}
+
+impl Default for FitOptions {
+    /// Five robust standard deviations, as the pandas baseline does.
+    fn default() -> Self {
+        Self { reject_mad: 5.0 }
+    }
+}
+
+/// Where a calibration row's delay comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RowSource {
+    /// Estimated from exchanges taken in that cell.
+    Measured,
+    /// Filled in by a model across cells.
+    Modelled,
+}
+
+impl RowSource {
+    /// The `source` column value of `caltable.csv`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            RowSource::Measured => "measured",
+            RowSource::Modelled => "modelled",
+        }
+    }
+}
+
+/// One cell of the calibration table with the statistics behind it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalRow {
+    /// Channel center frequency.
+    pub center_mhz: u32,
+    /// Channel bandwidth.
+    pub bw_mhz: u32,
+    /// DUT receive gain state.
+    pub gain_index: u32,
+    /// The DUT's K (TX + RX delay): mean of the kept samples.
+    pub delay_ps: f64,
+    /// Half-width of the two-sided 95 % Student-t interval of `delay_ps`.
+    pub ci95_ps: f64,
+    /// Samples kept.
+    pub n_used: u64,
+    /// Samples rejected as outliers.
+    pub n_rejected: u64,
+    /// Distinct bursts among the kept samples.
+    pub n_bursts: u64,
+    /// Sample standard deviation of the kept samples.
+    pub sd_ps: f64,
+    /// Measured or modelled.
+    pub source: RowSource,
+}
+
+/// What the fitter saw and which fallbacks it took, for the log and the report.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct FitSummary {
+    /// Rows given to the fitter.
+    pub rows_pushed: u64,
+    /// Rows not `ok`, missing a timestamp or the DUT gain, or giving a non-finite delay.
+    pub rows_unusable: u64,
+    /// Usable rows whose reference gain state has no entry in the reference delay table.
+    pub rows_without_reference: u64,
+    /// Bursts with at least one usable exchange.
+    pub bursts: u64,
+    /// Bursts whose own clock-rate ratio could not be estimated (fewer than two usable exchanges
+    /// or no spread in t1) and that got the median ratio of earlier bursts, or 1 if none.
+    pub bursts_fallback_ratio: u64,
+    /// Cells whose kept samples all come from one burst: their interval uses the ordinary
+    /// `s/√n` with n − 1 degrees of freedom, which ignores what the exchanges of a burst share.
+    pub cells_single_burst: u64,
+    /// Cells left out of the table because fewer than two samples were kept.
+    pub cells_skipped: u64,
+    /// Median over bursts with their own estimate of the clock offset `(ratio − 1)·1e6`, DUT
+    /// (initiator) relative to the reference (responder); `None` when no burst gave one.
+    pub median_clock_offset_ppm: Option<f64>,
+}
+
+/// The calibration table and its summary.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FitResult {
+    /// One row per cell with at least two kept samples, sorted by center, bandwidth, gain.
+    pub rows: Vec<CalRow>,
+    /// Counts and fallbacks.
+    pub summary: FitSummary,
+}
+
+/// (center_mhz, bw_mhz, dut_gain); the tuple order is the table's sort order.
+type CellKey = (u32, u32, u32);
+
+/// (stage, point, burst) of the burst being buffered.
+type BurstKey = (String, u32, u32);
+
+/// What one usable exchange contributes once its burst's clock ratio is known.
+struct Pending {
+    t_ps: [u64; 4],
+    atten_db: f64,
+    cell: CellKey,
+    ref_gain: Option<u32>,
+}
+
+/// Streaming fitter: [`push`](Fitter::push) rows in file order, then [`finish`](Fitter::finish).
+pub struct Fitter {
+    deembed: Deembed,
+    options: FitOptions,
+    current_burst: Option<BurstKey>,
+    pending: Vec<Pending>,
+    /// Ratios of bursts that had their own estimate, for the fallback and the summary.
+    ratios: Vec<f64>,
+    /// Per cell: (K, burst id) of every delay computed so far.
+    cells: BTreeMap<CellKey, Vec<(f64, u64)>>,
+    summary: FitSummary,
+}
+
+impl Fitter {
+    /// A fitter that removes `deembed`'s bench delays and rejects outliers per `options`.
+    pub fn new(deembed: Deembed, options: FitOptions) -> Self {
+        Self {
+            deembed,
+            options,
+            current_burst: None,
+            pending: Vec::new(),
+            ratios: Vec::new(),
+            cells: BTreeMap::new(),
+            summary: FitSummary::default(),
+        }
+    }
+
+    /// Take one row. Consecutive rows with the same (stage, point, burst) form a burst; a key
+    /// seen again after another burst starts a new burst.
+    pub fn push(&mut self, x: &Exchange) {
+        self.summary.rows_pushed += 1;
+        let same_burst = self
+            .current_burst
+            .as_ref()
+            .is_some_and(|(stage, point, burst)| {
+                *stage == x.stage && *point == x.point && *burst == x.burst
+            });
+        if !same_burst {
+            self.close_burst();
+            self.current_burst = Some((x.stage.clone(), x.point, x.burst));
+        }
+        let fields = (x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps, x.dut_gain);
+        match fields {
+            (Some(t1), Some(t2), Some(t3), Some(t4), Some(gain)) if x.is_usable() => {
+                self.pending.push(Pending {
+                    t_ps: [t1, t2, t3, t4],
+                    atten_db: x.atten_db,
+                    cell: (x.center_mhz, x.bw_mhz, gain),
+                    ref_gain: x.ref_gain,
+                });
+            }
+            _ => self.summary.rows_unusable += 1,
+        }
+    }
+
+    /// Close the last burst and compute the table.
+    pub fn finish(mut self) -> FitResult {
+        self.close_burst();
+        let mut ratios = self.ratios;
+        self.summary.median_clock_offset_ppm = median(&mut ratios).map(|r| (r - 1.0) * 1e6);
+        let mut rows = Vec::with_capacity(self.cells.len());
+        for (cell, samples) in self.cells {
+            match cell_row(cell, &samples, self.options, &mut self.summary) {
+                Some(row) => rows.push(row),
+                None => self.summary.cells_skipped += 1,
+            }
+        }
+        FitResult {
+            rows,
+            summary: self.summary,
+        }
+    }
+
+    /// Correct and de-embed the buffered burst and file its delays under their cells.
+    fn close_burst(&mut self) {
+        if self.pending.is_empty() {
+            return;
+        }
+        let burst_id = self.summary.bursts;
+        self.summary.bursts += 1;
+        let t1_t2: Vec<(u64, u64)> = self
+            .pending
+            .iter()
+            .map(|p| (p.t_ps[0], p.t_ps[1]))
+            .collect();
+        let ratio = match rate_ratio(&burst_offsets(&t1_t2)) {
+            Some(r) => {
+                self.ratios.push(r);
+                r
+            }
+            None => {
+                self.summary.bursts_fallback_ratio += 1;
+                let mut earlier = self.ratios.clone();
+                median(&mut earlier).unwrap_or(1.0)
+            }
+        };
+        for p in self.pending.drain(..) {
+            let [t1, t2, t3, t4] = p.t_ps;
+            let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
+            match self.deembed.dut_k_ps(rtt_ps, p.atten_db, p.ref_gain) {
+                None => self.summary.rows_without_reference += 1,
+                Some(k) if !k.is_finite() => self.summary.rows_unusable += 1,
+                Some(k) => self.cells.entry(p.cell).or_default().push((k, burst_id)),
+            }
+        }
+    }
+}
+
+/// Reject outliers in one cell and summarise the rest; `None` when fewer than two are kept.
+fn cell_row(
+    (center_mhz, bw_mhz, gain_index): CellKey,
+    samples: &[(f64, u64)],
+    options: FitOptions,
+    summary: &mut FitSummary,
+) -> Option<CalRow> {
+    let mut values: Vec<f64> = samples.iter().map(|s| s.0).collect();
+    let center = median(&mut values)?;
+    let spread = mad_scaled(&values, center)?.max(MAD_FLOOR_PS);
+    let limit = options.reject_mad * spread;
+    let kept: Vec<(f64, u64)> = samples
+        .iter()
+        .copied()
+        .filter(|(k, _)| (k - center).abs() <= limit)
+        .collect();
+    let kept_values: Vec<f64> = kept.iter().map(|s| s.0).collect();
+    let n = kept_values.len();
+    if n < 2 {
+        return None;
+    }
+    let delay_ps = mean(&kept_values)?;
+    let sd_ps = sample_sd(&kept_values)?;
+    let n_bursts = kept.iter().map(|s| s.1).collect::<BTreeSet<u64>>().len() as u64;
+    let (se_ps, df) = match cluster_robust_se(&kept, delay_ps) {
+        Some(c) => (c.se, (c.clusters - 1) as f64),
+        None => {
+            summary.cells_single_burst += 1;
+            (sd_ps / (n as f64).sqrt(), (n - 1) as f64)
+        }
+    };
+    let ci95_ps = t975(df)? * se_ps;
+    Some(CalRow {
+        center_mhz,
+        bw_mhz,
+        gain_index,
+        delay_ps,
+        ci95_ps,
+        n_used: n as u64,
+        n_rejected: (samples.len() - n) as u64,
+        n_bursts,
+        sd_ps,
+        source: RowSource::Measured,
+    })
+}
+
+/// Fit a whole sequence of rows in one call.
+pub fn fit<'a>(
+    deembed: Deembed,
+    options: FitOptions,
+    rows: impl IntoIterator<Item = &'a Exchange>,
+) -> FitResult {
+    let mut fitter = Fitter::new(deembed, options);
+    for row in rows {
+        fitter.push(row);
+    }
+    fitter.finish()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::bench::{PathFacts, PerGain};
+    use crate::data::STATUS_OK;
+    use crate::fit::rtt::COUNTER_BITS;
+
+    const MODULUS: i128 = 1 << COUNTER_BITS;
+    const CABLE_PS: f64 = 6100.0;
+    const ATTEN_SLOPE_PS_PER_DB: f64 = 0.5;
+    const K_REF_PS: f64 = 2800.0;
+    /// True DUT K per gain index: design §4 demo truth, TX 1500 + RX 900 / 1150 / 1400.
+    const K_DUT_PS: [f64; 3] = [2400.0, 2650.0, 2900.0];
+    const CLOCK_PPM: f64 = 8.0;
+    const TURNAROUND_TICKS: i64 = 120_000_000;
+    const EXCHANGE_SPACING_PS: i64 = 2_000_000_000;
+    const BURST_SPACING_PS: i64 = 100_000_000_000;
+
+    fn deembed() -> Deembed {
+        let path = PathFacts {
+            cable_delay_ps: CABLE_PS,
+            fixed_loss_db: 8.0,
+            atten_delay_ps_per_db: ATTEN_SLOPE_PS_PER_DB,
+        };
+        Deembed::new(&path, PerGain::Same(K_REF_PS))
+    }
+
+    fn on_counter(start: u64, elapsed_ps: i64) -> u64 {
+        (start as i128 + elapsed_ps as i128).rem_euclid(MODULUS) as u64
+    }
+
+    /// Closed-form timestamps of one exchange. The responder's clock is true time, the DUT's runs
+    /// `CLOCK_PPM` fast and replies `TURNAROUND_TICKS` of its own clock after arrival; both
+    /// counters start shortly before the wrap so bursts cross it. `late_ps` delays the
+    /// responder's detection of the reply (a gross outlier in t4 only).
+    #[allow(clippy::too_many_arguments)]
+    fn exchange(
+        point: u32,
+        burst: u32,
+        seq: u32,
+        atten_db: f64,
+        gain: u32,
+        depart_ps: i64,
+        late_ps: f64,
+    ) -> Exchange {
+        let r = 1.0 + CLOCK_PPM * 1e-6;
+        let resp_start = (MODULUS - 7_000_000_000) as u64;
+        let init_start = (MODULUS - 400_000_000_000) as u64;
+        let k_dut = K_DUT_PS[gain as usize];
+        let total_delay_ps = 2.0 * (CABLE_PS + ATTEN_SLOPE_PS_PER_DB * atten_db) + K_REF_PS + k_dut;
+        let outbound_ps = total_delay_ps / 2.0;
+        let t1 = on_counter(resp_start, depart_ps);
+        let t2 = on_counter(
+            init_start,
+            (r * (depart_ps as f64 + outbound_ps)).round() as i64,
+        );
+        let t3 = on_counter(t2, TURNAROUND_TICKS);
+        let back_ps = depart_ps as f64 + total_delay_ps + TURNAROUND_TICKS as f64 / r + late_ps;
+        let t4 = on_counter(resp_start, back_ps.round() as i64);
+        Exchange {
+            stage: "sweep".into(),
+            point,
+            burst,
+            seq,
+            atten_db,
+            center_mhz: 5180,
+            bw_mhz: 80,
+            t1_ps: Some(t1),
+            t2_ps: Some(t2),
+            t3_ps: Some(t3),
+            t4_ps: Some(t4),
+            dut_gain: Some(gain),
+            dut_rssi_dbm: Some(-50.0),
+            ref_gain: Some(0),
+            temp_c: None,
+            status: STATUS_OK.into(),
+        }
+    }
+
+    /// A sweep: point p at 20·p dB sits in gain state p; `bursts` bursts of `per_burst`
+    /// exchanges; every 37th exchange (counted over the whole run) detected 20 ns late.
+    fn sweep(bursts: u32, per_burst: u32) -> (Vec<Exchange>, [u64; 3]) {
+        let mut rows = Vec::new();
+        let mut outliers = [0u64; 3];
+        let mut count = 0u64;
+        for point in 0..3u32 {
+            for burst in 0..bursts {
+                for seq in 0..per_burst {
+                    count += 1;
+                    let late = if count % 37 == 0 {
+                        outliers[point as usize] += 1;
+                        20_000.0
+                    } else {
+                        0.0
+                    };
+                    let depart = (point * bursts + burst) as i64 * BURST_SPACING_PS
+                        + seq as i64 * EXCHANGE_SPACING_PS;
+                    rows.push(exchange(
+                        point,
+                        burst,
+                        seq,
+                        20.0 * point as f64,
+                        point,
+                        depart,
+                        late,
+                    ));
+                }
+            }
+        }
+        (rows, outliers)
+    }
+
+    #[test]
+    fn noise_free_sweep_recovers_k_per_gain() {
+        let (rows, outliers) = sweep(6, 10);
+        let result = fit(deembed(), FitOptions::default(), &rows);
+        assert_eq!(result.rows.len(), 3);
+        for (gain, row) in result.rows.iter().enumerate() {
+            assert_eq!(row.gain_index, gain as u32);
+            // Known truth of the synthetic bench (closed-form timestamps, no noise).
+            assert!(
+                (row.delay_ps - K_DUT_PS[gain]).abs() < 0.5,
+                "gain {gain}: {}",
+                row.delay_ps
+            );
+            assert_eq!(row.n_rejected, outliers[gain], "gain {gain}");
+            assert_eq!(row.n_used + row.n_rejected, 60);
+            assert_eq!(row.n_bursts, 6);
+            assert!(
+                row.ci95_ps.is_finite() && row.ci95_ps < 1.0,
+                "{}",
+                row.ci95_ps
+            );
+            assert_eq!(row.source, RowSource::Measured);
+        }
+        let s = &result.summary;
+        assert_eq!(s.rows_pushed, 180);
+        assert_eq!(s.rows_unusable, 0);
+        assert_eq!(s.bursts, 18);
+        assert_eq!(s.bursts_fallback_ratio, 0);
+        assert_eq!(s.cells_single_burst, 0);
+        assert_eq!(s.cells_skipped, 0);
+        let ppm = s.median_clock_offset_ppm.unwrap_or(f64::NAN);
+        assert!((ppm - CLOCK_PPM).abs() < 1e-3, "{ppm}");
+    }
+
+    #[test]
+    fn outliers_also_shift_the_naive_mean() {
+        // Guards the test above: without rejection the 20 ns late detections move the mean.
+        let (rows, _) = sweep(6, 10);
+        let keep_all = FitOptions {
+            reject_mad: f64::INFINITY,
+        };
+        let result = fit(deembed(), keep_all, &rows);
+        assert!(result.rows.iter().all(|r| r.n_rejected == 0));
+        assert!(result
+            .rows
+            .iter()
+            .any(|r| (r.delay_ps - K_DUT_PS[r.gain_index as usize]).abs() > 100.0));
+    }
+
+    #[test]
+    fn cells_follow_reported_gain_not_sweep_point() {
+        // One attenuation setting at an AGC switch point: the DUT alternates gain 1 and 2.
+        let mut rows = Vec::new();
+        for burst in 0..4u32 {
+            for seq in 0..10u32 {
+                let gain = 1 + seq % 2;
+                let depart = burst as i64 * BURST_SPACING_PS + seq as i64 * EXCHANGE_SPACING_PS;
+                rows.push(exchange(0, burst, seq, 25.0, gain, depart, 0.0));
+            }
+        }
+        let result = fit(deembed(), FitOptions::default(), &rows);
+        let gains: Vec<u32> = result.rows.iter().map(|r| r.gain_index).collect();
+        assert_eq!(gains, vec![1, 2]);
+        for row in &result.rows {
+            assert!((row.delay_ps - K_DUT_PS[row.gain_index as usize]).abs() < 0.5);
+            assert_eq!(row.n_used, 20);
+            assert_eq!(row.n_bursts, 4);
+        }
+    }
+
+    #[test]
+    fn fallbacks_and_bad_rows_are_counted() {
+        let mut rows = Vec::new();
+        // Burst 0: three good exchanges in gain 0.
+        for seq in 0..3u32 {
+            rows.push(exchange(
+                0,
+                0,
+                seq,
+                0.0,
+                0,
+                seq as i64 * EXCHANGE_SPACING_PS,
+                0.0,
+            ));
+        }
+        // Burst 1: one usable exchange (falls back to burst 0's ratio), one lost, one without t3.
+        let base = BURST_SPACING_PS;
+        rows.push(exchange(0, 1, 0, 0.0, 0, base, 0.0));
+        let mut lost = exchange(0, 1, 1, 0.0, 0, base + EXCHANGE_SPACING_PS, 0.0);
+        lost.status = "lost".into();
+        rows.push(lost);
+        let mut no_t3 = exchange(0, 1, 2, 0.0, 0, base + 2 * EXCHANGE_SPACING_PS, 0.0);
+        no_t3.t3_ps = None;
+        rows.push(no_t3);
+        // Burst 2: gain 1 in one burst only (single-burst cell); reference gain 5 unknown once.
+        for seq in 0..4u32 {
+            let depart = 2 * BURST_SPACING_PS + seq as i64 * EXCHANGE_SPACING_PS;
+            let mut x = exchange(1, 0, seq, 20.0, 1, depart, 0.0);
+            if seq == 3 {
+                x.ref_gain = Some(5);
+            }
+            rows.push(x);
+        }
+        // Burst 3: a lone gain-2 exchange (cell skipped, burst falls back).
+        rows.push(exchange(2, 0, 0, 40.0, 2, 3 * BURST_SPACING_PS, 0.0));
+
+        let mut d = deembed();
+        d.reference_delay = PerGain::Each(vec![K_REF_PS]);
+        let result = fit(d, FitOptions::default(), &rows);
+        let s = &result.summary;
+        assert_eq!(s.rows_pushed, 11);
+        assert_eq!(s.rows_unusable, 2);
+        assert_eq!(s.rows_without_reference, 1);
+        assert_eq!(s.bursts, 4);
+        assert_eq!(s.bursts_fallback_ratio, 2);
+        assert_eq!(s.cells_single_burst, 1);
+        assert_eq!(s.cells_skipped, 1);
+        let gains: Vec<u32> = result.rows.iter().map(|r| r.gain_index).collect();
+        assert_eq!(gains, vec![0, 1]);
+        // The fallback burst borrowed burst 0's ratio, so its exchange is still corrected.
+        assert!((result.rows[0].delay_ps - K_DUT_PS[0]).abs() < 0.5);
+        assert_eq!(result.rows[0].n_used, 4);
+        assert_eq!(result.rows[0].n_bursts, 2);
+        assert_eq!(result.rows[1].n_used, 3);
+        assert_eq!(result.rows[1].n_bursts, 1);
+    }
+
+    #[test]
+    fn identical_samples_keep_everything_at_the_median() {
+        // Scaled MAD 0: nothing equal to the median may be rejected.
+        let d = Deembed {
+            cable_delay_ps: 0.0,
+            atten_delay_ps_per_db: 0.0,
+            reference_delay: PerGain::Same(0.0),
+        };
+        let rows: Vec<Exchange> = (0..2u32)
+            .flat_map(|burst| {
+                (0..5u32).map(move |seq| {
+                    let t1 = 1_000_000_000 * (seq as u64 + 10 * burst as u64);
+                    let mut x = exchange(0, burst, seq, 0.0, 0, 0, 0.0);
+                    x.t1_ps = Some(t1);
+                    x.t2_ps = Some(t1 + 100);
+                    x.t3_ps = Some(t1 + 200);
+                    x.t4_ps = Some(t1 + 3_000);
+                    x
+                })
+            })
+            .collect();
+        let result = fit(d, FitOptions::default(), &rows);
+        assert_eq!(result.rows.len(), 1);
+        let row = &result.rows[0];
+        assert_eq!(row.n_used, 10);
+        assert_eq!(row.n_rejected, 0);
+        assert!((row.delay_ps - 2_900.0).abs() < 1e-9);
+        assert_eq!(row.ci95_ps, 0.0);
+    }
+
+    #[test]
+    fn interval_counts_bursts_not_exchanges() {
+        // Each burst carries a shared offset (identical within the burst): the exchanges of a
+        // burst are one piece of evidence, so the interval must be that of G = 8 burst means,
+        // t975(7)·s_b/√8, not the s/√n that treats 80 exchanges as independent.
+        let burst_offsets_ps = [-60.0, -20.0, 0.0, 20.0, 60.0, 40.0, -40.0, 0.0];
+        let mut rows = Vec::new();
+        for (burst, &offset) in burst_offsets_ps.iter().enumerate() {
+            for seq in 0..10u32 {
+                let depart = burst as i64 * BURST_SPACING_PS + seq as i64 * EXCHANGE_SPACING_PS;
+                rows.push(exchange(0, burst as u32, seq, 0.0, 0, depart, offset));
+            }
+        }
+        let result = fit(deembed(), FitOptions::default(), &rows);
+        assert_eq!(result.rows.len(), 1);
+        let row = &result.rows[0];
+        assert_eq!((row.n_used, row.n_rejected, row.n_bursts), (80, 0, 8));
+        let s_b = sample_sd(&burst_offsets_ps).unwrap_or(f64::NAN);
+        let expect = t975(7.0).unwrap_or(f64::NAN) * s_b / 8f64.sqrt();
+        assert!(
+            (row.ci95_ps - expect).abs() < 0.01 * expect,
+            "{} vs {expect}",
+            row.ci95_ps
+        );
+        let naive = t975(79.0).unwrap_or(f64::NAN) * row.sd_ps / 80f64.sqrt();
+        assert!(
+            row.ci95_ps > 2.0 * naive,
+            "{} vs naive {naive}",
+            row.ci95_ps
+        );
+    }
+
+    #[test]
+    fn source_labels_match_the_contract() {
+        // Design §4 caltable.csv contract: `measured` or `modelled`.
+        assert_eq!(RowSource::Measured.as_str(), "measured");
+        assert_eq!(RowSource::Modelled.as_str(), "modelled");
+    }
+}
