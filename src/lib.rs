@@ -2,6 +2,7 @@
 //! devices per receive gain state, on real or simulated benches.
 
 pub mod bench;
+pub mod cli;
 pub mod data;
 pub mod diagnostic;
 pub mod fit;

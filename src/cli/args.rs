@@ -16,13 +16,19 @@ pub struct Cli {
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Run a recipe on a bench and fit the calibration table.
-    #[command(after_help = "Examples:\n  taucal run recipes/rx-gain-sweep.toml\n  taucal run recipes/rx-gain-sweep.toml --seed 7 --set bursts_per_point=8\n  taucal run my-recipe.toml --bench benches/line-4.toml --out runs/unit-0042")]
+    #[command(
+        after_help = "Examples:\n  taucal run recipes/rx-gain-sweep.toml\n  taucal run recipes/rx-gain-sweep.toml --seed 7 --set bursts_per_point=8\n  taucal run my-recipe.toml --bench benches/line-4.toml --out runs/unit-0042"
+    )]
     Run(RunArgs),
     /// Validate a recipe against a bench and print its plan; runs nothing.
-    #[command(after_help = "Example:\n  taucal check recipes/rx-gain-sweep.toml --bench recipes/benches/sim-demo.toml")]
+    #[command(
+        after_help = "Example:\n  taucal check recipes/rx-gain-sweep.toml --bench recipes/benches/sim-demo.toml"
+    )]
     Check(CheckArgs),
     /// Fit a calibration table from an exchanges file.
-    #[command(after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit")]
+    #[command(
+        after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit"
+    )]
     Fit(FitArgs),
 }
 

@@ -9,8 +9,10 @@ use crate::runner::tabulate;
 /// Fits and prints (or writes) the table.
 pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
     if !(args.reject_mad.is_finite() && args.reject_mad >= 2.0) {
-        return Err(Diagnostic::plain(format!("--reject-mad {} is too small", args.reject_mad))
-            .with_hint("use 3.0 or more (5.0 is the default)"));
+        return Err(
+            Diagnostic::plain(format!("--reject-mad {} is too small", args.reject_mad))
+                .with_hint("use 3.0 or more (5.0 is the default)"),
+        );
     }
     let bench = bench_arg::load(&args.bench)?;
     let fit = tabulate::fit_file(&args.exchanges, &bench, args.reject_mad).map_err(|e| {
@@ -20,12 +22,14 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         ))
     })?;
     let s = &fit.summary;
+    let ppm = s
+        .median_clock_offset_ppm
+        .map_or_else(|| "unknown".to_string(), |p| format!("{p:+.2} ppm"));
     eprintln!(
-        "taucal: {} rows, {} usable, {} bursts; median DUT clock offset {:+.2} ppm",
-        s.rows_in,
-        s.rows_in - s.rows_unusable,
+        "taucal: {} rows, {} usable, {} bursts; median DUT clock offset {ppm}",
+        s.rows_pushed,
+        s.rows_pushed - s.rows_unusable,
         s.bursts,
-        s.median_clock_ppm
     );
     match &args.out {
         Some(dir) => {
@@ -38,7 +42,8 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
             println!("{}", path.display());
         }
         None => {
-            let text = tabulate::caltable_text(&fit).map_err(|e| Diagnostic::plain(e.to_string()))?;
+            let text =
+                tabulate::caltable_text(&fit).map_err(|e| Diagnostic::plain(e.to_string()))?;
             print!("{}", String::from_utf8_lossy(&text));
         }
     }

@@ -2,7 +2,7 @@
 //! run directory's `run.log` once a run has one.
 
 use std::fs::File;
-use std::io::{self, Write};
+use std::io::{self, IsTerminal, Write};
 use std::path::Path;
 use std::sync::Mutex;
 use tracing_subscriber::filter::LevelFilter;
@@ -43,12 +43,16 @@ pub fn init() {
         .with_writer(io::stderr)
         .without_time()
         .with_target(false)
+        .with_ansi(io::stderr().is_terminal() && std::env::var_os("NO_COLOR").is_none())
         .with_filter(LevelFilter::INFO);
     let file = tracing_subscriber::fmt::layer()
         .with_writer(RunLogWriter)
         .with_ansi(false)
         .with_filter(LevelFilter::DEBUG);
-    let _ = tracing_subscriber::registry().with(stderr).with(file).try_init();
+    let _ = tracing_subscriber::registry()
+        .with(stderr)
+        .with(file)
+        .try_init();
 }
 
 /// Starts copying the log into `path`.
@@ -59,6 +63,9 @@ pub fn open_run_log(path: &Path) {
                 *g = Some(f);
             }
         }
-        Err(e) => tracing::warn!("cannot create {}: {e}; logging to stderr only", path.display()),
+        Err(e) => tracing::warn!(
+            "cannot create {}: {e}; logging to stderr only",
+            path.display()
+        ),
     }
 }

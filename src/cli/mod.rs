@@ -20,7 +20,11 @@ pub fn main() -> Exit {
         Ok(cli) => cli,
         Err(e) => {
             let _ = e.print();
-            return if e.use_stderr() { Exit::BadInput } else { Exit::Ok };
+            return if e.use_stderr() {
+                Exit::BadInput
+            } else {
+                Exit::Ok
+            };
         }
     };
     log::init();

@@ -46,11 +46,17 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
             (false, true) => ("≥", "met"),
             (false, false) => ("≥", "NOT MET"),
         };
-        println!("acceptance {}: {:.1} {op} {} — {verdict}", c.name, c.value, c.limit);
+        println!(
+            "acceptance {}: {:.1} {op} {} — {verdict}",
+            c.name, c.value, c.limit
+        );
     }
     if let Some(f) = &report.failure {
         eprintln!("{}", failure_text(f));
-        println!("status: failed — data so far are kept in {}", report.dir.display());
+        println!(
+            "status: failed — data so far are kept in {}",
+            report.dir.display()
+        );
         return Ok(Exit::Stopped);
     }
     if report.accepted() {
@@ -66,7 +72,9 @@ fn failure_text(f: &crate::runner::RunError) -> String {
     match f {
         crate::runner::RunError::Script(d) => d.to_string(),
         crate::runner::RunError::Refused { message, hint } => {
-            Diagnostic::plain(format!("run stopped: {message}")).with_hint(hint.clone()).to_string()
+            Diagnostic::plain(format!("run stopped: {message}"))
+                .with_hint(hint.clone())
+                .to_string()
         }
         other => Diagnostic::plain(format!("run stopped: {other}")).to_string(),
     }

@@ -4,7 +4,9 @@ use crate::fit::CalRow;
 
 /// A fixed-width rendering of table rows.
 pub fn render(rows: &[CalRow]) -> String {
-    let mut out = String::from("  center_mhz  bw_mhz  gain   delay_ps  ±ci95_ps   n_used  n_rejected  source\n");
+    let mut out = String::from(
+        "  center_mhz  bw_mhz  gain   delay_ps  ±ci95_ps   n_used  n_rejected  source\n",
+    );
     for r in rows {
         out.push_str(&format!(
             "  {:>10}  {:>6}  {:>4}  {:>9.1}  {:>8.1}  {:>7}  {:>10}  {}\n",

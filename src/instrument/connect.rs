@@ -39,6 +39,10 @@ pub fn connect(
     );
     Ok(Instruments {
         attenuator: AttenuatorHandle(Owned::spawn(rt, "attenuator", Box::new(attenuator))),
-        dut: RangingHandle(Owned::spawn(rt, "dut", Box::new(SimRangingFront::new(shared)))),
+        dut: RangingHandle(Owned::spawn(
+            rt,
+            "dut",
+            Box::new(SimRangingFront::new(shared)),
+        )),
     })
 }

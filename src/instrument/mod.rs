@@ -1,8 +1,8 @@
 //! Instruments: capability traits, the task that owns each instrument, and typed handles.
 
 pub mod capability;
-pub mod error;
 pub mod connect;
+pub mod error;
 pub mod handles;
 pub mod owner;
 

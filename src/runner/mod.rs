@@ -3,8 +3,10 @@
 
 pub mod clock;
 pub mod error;
+pub mod run;
 pub mod session;
 pub mod sweep;
+pub mod tabulate;
 
 pub use clock::{BenchClock, ClockMode};
 pub use error::RunError;

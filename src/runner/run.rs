@@ -167,10 +167,17 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
             None
         }
     };
-    manifest.acceptance = fit.as_ref().map_or_else(Vec::new, |f| acceptance(&req.plan.accept, f));
+    manifest.acceptance = fit
+        .as_ref()
+        .map_or_else(Vec::new, |f| acceptance(&req.plan.accept, f));
     for c in &manifest.acceptance {
         let verdict = if c.passed { "met" } else { "NOT met" };
-        tracing::info!("acceptance {}: {} against limit {} — {verdict}", c.name, c.value, c.limit);
+        tracing::info!(
+            "acceptance {}: {} against limit {} — {verdict}",
+            c.name,
+            c.value,
+            c.limit
+        );
     }
     manifest.status = match &failure {
         None => RunStatus::Completed,
@@ -196,7 +203,9 @@ fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunErro
         tracing::info!("stage `{}` begins", stage.name());
         match stage {
             Stage::Sweep(sweep) => run_sweep(&mut session.borrow_mut(), sweep)?,
-            Stage::Script(script) => crate::script::run_script(session.clone(), script, &plan.vars)?,
+            Stage::Script(script) => {
+                crate::script::run_script(session.clone(), script, &plan.vars)?
+            }
         }
     }
     Ok(())

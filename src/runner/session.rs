@@ -157,7 +157,8 @@ impl Session {
     pub fn burst(&mut self, frames: u32) -> Result<Vec<Exchange>, RunError> {
         let Some(atten_db) = self.atten_db else {
             return Err(RunError::Refused {
-                message: "a burst was asked for before any attenuation was set in this stage".into(),
+                message: "a burst was asked for before any attenuation was set in this stage"
+                    .into(),
                 hint: "set the attenuation first (set_atten in a script)".into(),
             });
         };
@@ -189,10 +190,12 @@ impl Session {
                 status: d.status,
             })
             .collect();
-        self.sink.write_burst(&rows).map_err(|source| RunError::Io {
-            path: self.sink_name.clone(),
-            source,
-        })?;
+        self.sink
+            .write_burst(&rows)
+            .map_err(|source| RunError::Io {
+                path: self.sink_name.clone(),
+                source,
+            })?;
         self.counts.bursts += 1;
         self.counts.exchanges += rows.len() as u64;
         if let Some(summary) = self.points.last_mut() {

@@ -33,7 +33,9 @@ impl Bridge {
 }
 
 fn int_or_float(d: &Dynamic) -> Option<f64> {
-    d.as_float().ok().or_else(|| d.as_int().ok().map(|i| i as f64))
+    d.as_float()
+        .ok()
+        .or_else(|| d.as_int().ok().map(|i| i as f64))
 }
 
 fn number(name: &str, d: Dynamic) -> Res<f64> {
@@ -45,7 +47,11 @@ fn to_dynamic(v: &toml::Value) -> Dynamic {
         toml::Value::Integer(i) => Dynamic::from_int(*i),
         toml::Value::Float(f) => Dynamic::from_float(*f),
         toml::Value::Boolean(b) => Dynamic::from_bool(*b),
-        other => Dynamic::from(other.as_str().map_or_else(|| other.to_string(), str::to_string)),
+        other => Dynamic::from(
+            other
+                .as_str()
+                .map_or_else(|| other.to_string(), str::to_string),
+        ),
     }
 }
 
@@ -55,7 +61,10 @@ fn opt_int<T: Into<i64>>(v: Option<T>) -> Dynamic {
 
 fn exchange_map(x: &Exchange) -> Map {
     let mut m = Map::new();
-    let ts = |t: Option<u64>| t.and_then(|t| i64::try_from(t).ok()).map_or(Dynamic::UNIT, Dynamic::from_int);
+    let ts = |t: Option<u64>| {
+        t.and_then(|t| i64::try_from(t).ok())
+            .map_or(Dynamic::UNIT, Dynamic::from_int)
+    };
     m.insert("seq".into(), Dynamic::from_int(x.seq.into()));
     m.insert("t1_ps".into(), ts(x.t1_ps));
     m.insert("t2_ps".into(), ts(x.t2_ps));
@@ -81,7 +90,10 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
     });
     let b = bridge.clone();
     engine.register_fn("atten", move || -> Res<Dynamic> {
-        Ok(b.session.borrow().atten_db().map_or(Dynamic::UNIT, Dynamic::from_float))
+        Ok(b.session
+            .borrow()
+            .atten_db()
+            .map_or(Dynamic::UNIT, Dynamic::from_float))
     });
     let b = bridge.clone();
     engine.register_fn("wait_ms", move |ms: Dynamic| -> Res<()> {
@@ -111,11 +123,18 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
     let b = bridge.clone();
     engine.register_fn("burst", move |frames: INT| -> Res<Array> {
         if !(2..=i64::from(crate::recipe::plan::MAX_FRAMES)).contains(&frames) {
-            return Err(format!("burst({frames}): give 2 to {} exchanges", crate::recipe::plan::MAX_FRAMES).into());
+            return Err(format!(
+                "burst({frames}): give 2 to {} exchanges",
+                crate::recipe::plan::MAX_FRAMES
+            )
+            .into());
         }
         let r = b.session.borrow_mut().burst(frames as u32);
         let rows = b.park(r)?;
-        Ok(rows.iter().map(|x| Dynamic::from_map(exchange_map(x))).collect())
+        Ok(rows
+            .iter()
+            .map(|x| Dynamic::from_map(exchange_map(x)))
+            .collect())
     });
     let b = bridge.clone();
     engine.register_fn("seen", move || -> Array {
@@ -128,7 +147,10 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
                 m.insert("stage".into(), Dynamic::from(p.stage.clone()));
                 m.insert("point".into(), Dynamic::from_int(p.point.into()));
                 m.insert("atten_db".into(), Dynamic::from_float(p.atten_db));
-                m.insert("center_mhz".into(), Dynamic::from_int(p.channel.center_mhz.into()));
+                m.insert(
+                    "center_mhz".into(),
+                    Dynamic::from_int(p.channel.center_mhz.into()),
+                );
                 m.insert("bw_mhz".into(), Dynamic::from_int(p.channel.bw_mhz.into()));
                 let gains: Map = p
                     .ok_by_gain
@@ -161,7 +183,9 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
         Ok(m)
     });
     let b = bridge.clone();
-    engine.register_fn("bench_time_s", move || -> f64 { b.session.borrow().clock().now_s() });
+    engine.register_fn("bench_time_s", move || -> f64 {
+        b.session.borrow().clock().now_s()
+    });
     let b = bridge.clone();
     engine.register_fn("record", move |name: &str, value: Dynamic| -> Res<()> {
         let v = if let Ok(i) = value.as_int() {
@@ -173,7 +197,9 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
         } else if value.is_string() {
             toml::Value::String(value.to_string())
         } else {
-            return Err(format!("record(\"{name}\", …) takes a number, a boolean or a string").into());
+            return Err(
+                format!("record(\"{name}\", …) takes a number, a boolean or a string").into(),
+            );
         };
         b.session.borrow_mut().results.insert(name.to_string(), v);
         Ok(())
@@ -183,14 +209,16 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
     engine.on_debug(|msg, _, pos| tracing::debug!(target: "script", "{pos:?}: {msg}"));
     let vars = vars.clone();
     engine.register_fn("var", move |name: &str| -> Res<Dynamic> {
-        vars.0
-            .get(name)
-            .map(to_dynamic)
-            .ok_or_else(|| format!("var(\"{name}\"): the recipe declares no such variable under [vars]").into())
+        vars.0.get(name).map(to_dynamic).ok_or_else(|| {
+            format!("var(\"{name}\"): the recipe declares no such variable under [vars]").into()
+        })
     });
 }
 
 /// The recipe's variables as a Rhai object map, bound as the constant `vars` in every script.
 pub fn vars_map(vars: &Vars) -> Map {
-    vars.0.iter().map(|(k, v)| (k.as_str().into(), to_dynamic(v))).collect()
+    vars.0
+        .iter()
+        .map(|(k, v)| (k.as_str().into(), to_dynamic(v)))
+        .collect()
 }

@@ -30,7 +30,9 @@ fn describe(e: &EvalAltResult) -> String {
             "the script ran more than {} operations and was stopped (an endless loop?)",
             super::limits::MAX_OPERATIONS
         ),
-        EvalAltResult::ErrorInFunctionCall(name, _, inner, _) => format!("in `{name}`: {}", describe(inner)),
+        EvalAltResult::ErrorInFunctionCall(name, _, inner, _) => {
+            format!("in `{name}`: {}", describe(inner))
+        }
         EvalAltResult::ErrorRuntime(msg, _) => msg.to_string(),
         other => {
             let text = other.to_string();
@@ -40,8 +42,14 @@ fn describe(e: &EvalAltResult) -> String {
 }
 
 /// Runs a script stage on the session.
-pub fn run_script(session: Rc<RefCell<Session>>, script: &Script, vars: &Vars) -> Result<(), RunError> {
-    session.borrow_mut().begin_stage(&script.name, script.channel);
+pub fn run_script(
+    session: Rc<RefCell<Session>>,
+    script: &Script,
+    vars: &Vars,
+) -> Result<(), RunError> {
+    session
+        .borrow_mut()
+        .begin_stage(&script.name, script.channel);
     let bridge = Bridge {
         session,
         fault: Rc::new(RefCell::new(None)),
@@ -49,9 +57,13 @@ pub fn run_script(session: Rc<RefCell<Session>>, script: &Script, vars: &Vars) -
     let mut engine = sandboxed_engine();
     api::register(&mut engine, &bridge, vars);
     let src = &script.source;
-    let ast = engine
-        .compile(&src.code)
-        .map_err(|e| RunError::Script(Box::new(located(src, e.1, format!("script syntax: {}", e.0)))))?;
+    let ast = engine.compile(&src.code).map_err(|e| {
+        RunError::Script(Box::new(located(
+            src,
+            e.1,
+            format!("script syntax: {}", e.0),
+        )))
+    })?;
     let mut scope = Scope::new();
     scope.push_constant("vars", api::vars_map(vars));
     let result = engine.run_ast_with_scope(&mut scope, &ast);
@@ -65,7 +77,11 @@ pub fn run_script(session: Rc<RefCell<Session>>, script: &Script, vars: &Vars) -
                 Some(RunError::Refused { hint, .. }) => Some(hint),
                 _ => None,
             };
-            let mut d = located(src, e.position(), format!("script stage `{}`: {}", script.name, describe(&e)));
+            let mut d = located(
+                src,
+                e.position(),
+                format!("script stage `{}`: {}", script.name, describe(&e)),
+            );
             d.hint = hint;
             Err(RunError::Script(Box::new(d)))
         }

@@ -63,7 +63,10 @@ impl SimAttenuatorFront {
 #[async_trait]
 impl Attenuator for SimAttenuatorFront {
     async fn identify(&mut self) -> Result<String, InstrumentError> {
-        Ok(format!("taucal simulated step attenuator, 0-{} dB", self.max_db))
+        Ok(format!(
+            "taucal simulated step attenuator, 0-{} dB",
+            self.max_db
+        ))
     }
 
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
@@ -103,7 +106,10 @@ impl SimRangingFront {
 #[async_trait]
 impl RangingDevice for SimRangingFront {
     async fn identify(&mut self) -> Result<String, InstrumentError> {
-        Ok("taucal simulated ranging device (FTM initiator) with simulated reference responder".into())
+        Ok(
+            "taucal simulated ranging device (FTM initiator) with simulated reference responder"
+                .into(),
+        )
     }
 
     async fn burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, InstrumentError> {

@@ -1,0 +1,394 @@
+//! A battery of bad inputs: each ends with exit status 2, a message that names the file, line
+//! and column where there is one, no panic, and no run directory.
+
+use crate::support::{repo, Taucal};
+
+const GOOD: &str = r#"[recipe]
+name = "probe"
+
+[vars]
+bursts = 2
+
+[[stage]]
+name = "sweep"
+kind = "sweep"
+center_mhz = 5180
+bw_mhz = 80
+atten_db = [40.0, 50.0]
+bursts = "$bursts"
+frames = 8
+"#;
+
+/// Runs `taucal check` and `taucal run` on `recipe` and checks both refuse it the same way.
+fn refused(recipe: &str, extra: &[&str], location: &str, words: &str) {
+    for cmd in ["check", "run"] {
+        let mut args = vec![cmd.to_string(), "r.toml".to_string()];
+        args.extend(extra.iter().map(|s| s.to_string()));
+        let out = Taucal::new()
+            .file("r.toml", recipe)
+            .file("bad.rhai", "let x = ;\n")
+            .args(args)
+            .run();
+        out.expect_code(2);
+        assert!(out.stderr.contains("error:"), "{cmd}: {}", out.stderr);
+        assert!(
+            out.stderr.contains(location),
+            "{cmd}: wanted {location:?} in\n{}",
+            out.stderr
+        );
+        assert!(
+            out.stderr.contains(words),
+            "{cmd}: wanted {words:?} in\n{}",
+            out.stderr
+        );
+        assert!(!out.has_dir("runs"), "{cmd}: a run directory was created");
+    }
+}
+
+fn edit(from: &str, to: &str) -> String {
+    assert!(GOOD.contains(from), "{from}");
+    GOOD.replacen(from, to, 1)
+}
+
+#[test]
+fn the_good_recipe_is_accepted() {
+    Taucal::new()
+        .file("r.toml", GOOD)
+        .args(["check", "r.toml"])
+        .run()
+        .expect_code(0);
+}
+
+#[test]
+fn toml_syntax_error() {
+    refused(
+        &edit("name = \"probe\"", "name = \"probe"),
+        &[],
+        "r.toml:2:",
+        "string",
+    );
+}
+
+#[test]
+fn unknown_table() {
+    refused(&edit("[vars]", "[varz]"), &[], "r.toml:4:", "unknown field");
+}
+
+#[test]
+fn unknown_stage_key_lists_the_allowed_ones() {
+    refused(
+        &edit("frames = 8", "frames = 8\nburts = 3"),
+        &[],
+        "r.toml:15:",
+        "atten_db",
+    );
+}
+
+#[test]
+fn unknown_stage_kind() {
+    refused(
+        &edit("kind = \"sweep\"", "kind = \"sweeep\""),
+        &[],
+        "r.toml:9:8",
+        "not a stage kind",
+    );
+}
+
+#[test]
+fn missing_frames() {
+    refused(
+        &edit("frames = 8\n", ""),
+        &[],
+        "r.toml:7:1",
+        "needs `frames`",
+    );
+}
+
+#[test]
+fn receiver_protection_refuses_a_level_above_max_input() {
+    refused(
+        &edit("[40.0, 50.0]", "[10.0, 50.0]"),
+        &[],
+        "r.toml:12:12",
+        "above its max_input_dbm",
+    );
+}
+
+#[test]
+fn attenuation_off_the_grid() {
+    refused(&edit("[40.0, 50.0]", "[40.1]"), &[], "r.toml:12:12", "grid");
+}
+
+#[test]
+fn attenuation_outside_the_range() {
+    refused(
+        &edit("[40.0, 50.0]", "[120.0]"),
+        &[],
+        "r.toml:12:12",
+        "outside the attenuator's range",
+    );
+}
+
+#[test]
+fn bandwidth_that_is_no_channel_width() {
+    refused(
+        &edit("bw_mhz = 80", "bw_mhz = 30"),
+        &[],
+        "r.toml:11:10",
+        "not a channel width",
+    );
+}
+
+#[test]
+fn center_outside_the_wifi_bands() {
+    refused(
+        &edit("center_mhz = 5180", "center_mhz = 1000"),
+        &[],
+        "r.toml:10:14",
+        "not a Wi-Fi channel center",
+    );
+}
+
+#[test]
+fn misspelt_variable_reference() {
+    refused(
+        &edit("\"$bursts\"", "\"$burst\""),
+        &[],
+        "r.toml:13:10",
+        "did you mean `$bursts`",
+    );
+}
+
+#[test]
+fn zero_bursts() {
+    refused(
+        &edit("bursts = 2", "bursts = 0"),
+        &[],
+        "r.toml:13:10",
+        "whole number from 1",
+    );
+}
+
+#[test]
+fn fractional_frames() {
+    refused(
+        &edit("frames = 8", "frames = 2.5"),
+        &[],
+        "r.toml:14:10",
+        "whole number",
+    );
+}
+
+#[test]
+fn duplicate_stage_names() {
+    let text = format!("{GOOD}\n[[stage]]\nname = \"sweep\"\nkind = \"sweep\"\ncenter_mhz = 5180\nbw_mhz = 80\natten_db = [40.0]\nframes = 8\n");
+    refused(&text, &[], "r.toml:17:8", "earlier stage");
+}
+
+#[test]
+fn script_syntax_error_points_into_the_recipe() {
+    let text = format!(
+        "{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nscript = '''\nset_atten(40.0);\nlet x = ;\n'''\n"
+    );
+    refused(&text, &[], "r.toml:23:9", "script syntax");
+}
+
+#[test]
+fn script_syntax_error_in_a_script_file() {
+    let text = format!("{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"bad.rhai\"\n");
+    refused(&text, &[], "bad.rhai:1:9", "script syntax");
+}
+
+#[test]
+fn missing_script_file() {
+    let text = format!("{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"nowhere.rhai\"\n");
+    refused(&text, &[], "r.toml:21:8", "cannot read");
+}
+
+#[test]
+fn sweep_key_in_a_script_stage() {
+    let text = format!(
+        "{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nframes = 4\nscript = 'burst(4);'\n"
+    );
+    refused(
+        &text,
+        &[],
+        "r.toml:21:10",
+        "does not belong in a script stage",
+    );
+}
+
+#[test]
+fn descending_range() {
+    refused(
+        &edit("[40.0, 50.0]", "{ from = 60.0, to = 40.0, step = 2.0 }"),
+        &[],
+        "r.toml:12:12",
+        "ascending",
+    );
+}
+
+#[test]
+fn step_off_the_attenuator_grid() {
+    refused(
+        &edit("[40.0, 50.0]", "{ from = 40.0, to = 50.0, step = 0.3 }"),
+        &[],
+        "r.toml:12:",
+        "multiple of the attenuator's 0.25 dB step",
+    );
+}
+
+#[test]
+fn a_recipe_without_stages() {
+    refused(
+        "[recipe]\nname = \"empty\"\n",
+        &[],
+        "r.toml:1:1",
+        "no stages",
+    );
+}
+
+#[test]
+fn reject_threshold_too_small() {
+    refused(
+        &format!("{GOOD}\n[fit]\nreject_mad = 1.0\n"),
+        &[],
+        "r.toml:17:14",
+        "reject much of a clean",
+    );
+}
+
+#[test]
+fn set_of_an_undeclared_variable() {
+    refused(
+        GOOD,
+        &["--set", "burst=3"],
+        "burst",
+        "did you mean `bursts`",
+    );
+}
+
+#[test]
+fn set_of_the_wrong_type() {
+    refused(
+        GOOD,
+        &["--set", "bursts=many"],
+        "bursts=many",
+        "not a valid integer",
+    );
+}
+
+fn bench_refused(edit_from: &str, edit_to: &str, location: &str, words: &str) {
+    let bench = std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("demo bench");
+    assert!(bench.contains(edit_from), "{edit_from}");
+    let bench = bench.replacen(edit_from, edit_to, 1);
+    refused_with_bench(&bench, location, words);
+}
+
+fn refused_with_bench(bench: &str, location: &str, words: &str) {
+    let out = Taucal::new()
+        .file("r.toml", GOOD)
+        .file("b.toml", bench)
+        .args(["check", "r.toml", "--bench", "b.toml"])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains(location),
+        "wanted {location:?} in\n{}",
+        out.stderr
+    );
+    assert!(
+        out.stderr.contains(words),
+        "wanted {words:?} in\n{}",
+        out.stderr
+    );
+}
+
+#[test]
+fn bench_with_an_unknown_role() {
+    bench_refused(
+        "reference = { driver",
+        "referense = { driver",
+        "b.toml:",
+        "has no `reference` role",
+    );
+}
+
+#[test]
+fn bench_thresholds_not_descending() {
+    bench_refused(
+        "[-30.0, -55.0]",
+        "[-55.0, -30.0]",
+        "b.toml:",
+        "strictly descending",
+    );
+}
+
+#[test]
+fn bench_delay_table_and_thresholds_disagree() {
+    bench_refused(
+        "[900.0, 1150.0, 1400.0]",
+        "[900.0, 1150.0]",
+        "b.toml:",
+        "thresholds for 2 gain states",
+    );
+}
+
+#[test]
+fn bench_input_window_upside_down() {
+    bench_refused(
+        "min_input_dbm = -82.0",
+        "min_input_dbm = 0.0",
+        "b.toml:",
+        "not below max_input_dbm",
+    );
+}
+
+#[test]
+fn bench_value_of_the_wrong_type() {
+    bench_refused(
+        "cable_delay_ps = 6100.0",
+        "cable_delay_ps = \"long\"",
+        "b.toml:",
+        "invalid type",
+    );
+}
+
+#[test]
+fn missing_recipe_file() {
+    let out = Taucal::new().args(["check", "nowhere.toml"]).run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("cannot read recipe"), "{}", out.stderr);
+}
+
+#[test]
+fn unknown_command_line_option() {
+    let out = Taucal::new().args(["run", "r.toml", "--sed", "3"]).run();
+    out.expect_code(2);
+}
+
+#[test]
+fn fit_of_a_malformed_exchanges_file_names_the_line() {
+    let header = "stage,point,burst,seq,atten_db,center_mhz,bw_mhz,t1_ps,t2_ps,t3_ps,t4_ps,dut_gain,dut_rssi_dbm,ref_gain,temp_c,status";
+    let text = format!("{header}\nsweep,0,0,0,40,5180,80,1,2,3,4,0,-40,0,,ok\nsweep,0,0,1,40,5180,80,1,2,three,4,0,-40,0,,ok\n");
+    let out = Taucal::new()
+        .file("e.csv", &text)
+        .args(["fit", "e.csv"])
+        .run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("e.csv:3: column 10"), "{}", out.stderr);
+}
+
+#[test]
+fn fit_of_a_file_without_the_contract_columns() {
+    let out = Taucal::new()
+        .file("e.csv", "a,b\n1,2\n")
+        .args(["fit", "e.csv"])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains("has no `stage` column"),
+        "{}",
+        out.stderr
+    );
+}

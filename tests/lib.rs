@@ -1,0 +1,9 @@
+//! taucal's integration tests: one binary, modules by area.
+
+mod support;
+
+mod bad_input;
+mod demo_run;
+mod examples;
+mod fit_offline;
+mod truth;

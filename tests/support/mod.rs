@@ -1,0 +1,105 @@
+//! A small builder that runs the real `taucal` binary in a temporary directory.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+/// The repository root (recipes, benches).
+pub fn root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// A path under the repository root, as a string argument.
+pub fn repo(rel: &str) -> String {
+    root().join(rel).display().to_string()
+}
+
+/// One invocation of the binary.
+pub struct Taucal {
+    args: Vec<String>,
+    dir: tempfile::TempDir,
+}
+
+/// What an invocation did.
+pub struct Outcome {
+    pub code: i32,
+    pub stdout: String,
+    pub stderr: String,
+    pub dir: tempfile::TempDir,
+}
+
+impl Taucal {
+    pub fn new() -> Self {
+        Taucal {
+            args: Vec::new(),
+            dir: tempfile::tempdir().expect("temporary directory"),
+        }
+    }
+
+    /// Reuses the working directory of an earlier outcome.
+    pub fn in_dir(dir: tempfile::TempDir) -> Self {
+        Taucal {
+            args: Vec::new(),
+            dir,
+        }
+    }
+
+    pub fn args<I, S>(mut self, args: I) -> Self
+    where
+        I: IntoIterator<Item = S>,
+        S: Into<String>,
+    {
+        self.args.extend(args.into_iter().map(Into::into));
+        self
+    }
+
+    /// Writes a file into the working directory.
+    pub fn file(self, name: &str, text: &str) -> Self {
+        let path = self.dir.path().join(name);
+        if let Some(parent) = path.parent() {
+            std::fs::create_dir_all(parent).expect("mkdir");
+        }
+        std::fs::write(path, text).expect("write file");
+        self
+    }
+
+    pub fn run(self) -> Outcome {
+        let out = Command::new(env!("CARGO_BIN_EXE_taucal"))
+            .args(&self.args)
+            .current_dir(self.dir.path())
+            .env_remove("RUST_LOG")
+            .output()
+            .expect("run taucal");
+        Outcome {
+            code: out.status.code().unwrap_or(-1),
+            stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
+            stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
+            dir: self.dir,
+        }
+    }
+}
+
+impl Outcome {
+    pub fn path(&self, rel: &str) -> PathBuf {
+        self.dir.path().join(rel)
+    }
+
+    pub fn read(&self, rel: &str) -> String {
+        std::fs::read_to_string(self.path(rel))
+            .unwrap_or_else(|e| panic!("read {rel}: {e}\nstderr:\n{}", self.stderr))
+    }
+
+    /// Panics with the whole output unless the exit status is `code`.
+    pub fn expect_code(&self, code: i32) -> &Self {
+        assert_eq!(
+            self.code, code,
+            "exit status {} (wanted {code})\nstdout:\n{}\nstderr:\n{}",
+            self.code, self.stdout, self.stderr
+        );
+        assert!(!self.stderr.contains("panicked"), "panic:\n{}", self.stderr);
+        self
+    }
+
+    pub fn has_dir(&self, rel: &str) -> bool {
+        Path::is_dir(&self.path(rel))
+    }
+}
