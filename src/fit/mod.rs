@@ -3,9 +3,11 @@
 pub mod caltable;
 pub mod deembed;
 pub mod fitter;
+pub mod gainmap;
 pub mod rtt;
 pub mod stats;
+pub mod verify;
 
 pub use caltable::{read_caltable, write_caltable, CalTableError, TableRow, CALTABLE_HEADER};
 pub use deembed::Deembed;
-pub use fitter::{fit, CalRow, FitOptions, FitResult, FitSummary, Fitter, RowSource};
+pub use fitter::{burst_delays, fit, CalRow, FitOptions, FitResult, FitSummary, Fitter, RowSource};
