@@ -207,7 +207,7 @@ impl Fitter {
         self.summary.bursts += 1;
         let ratios = &self.ratios;
         let fallback = || median(&mut ratios.clone()).unwrap_or(1.0);
-        let items: Vec<([u64; 4], f64, Option<u32>)> = self
+        let items: Vec<Timed> = self
             .pending
             .iter()
             .map(|p| (p.t_ps, p.atten_db, p.ref_gain))
@@ -227,13 +227,17 @@ impl Fitter {
     }
 }
 
+/// A usable exchange as the clock correction and de-embedding need it: (t1..t4, attenuation,
+/// reference gain).
+type Timed = ([u64; 4], f64, Option<u32>);
+
 /// The burst's own clock-rate ratio (if it yields one) and each exchange's de-embedded delay
 /// (`None` where the reference table has no value for its gain). `items` are the burst's usable
 /// exchanges as (t1..t4, attenuation, reference gain); `fallback` is the ratio used when the
 /// burst yields none (computed only then).
 fn corrected_delays(
     deembed: &Deembed,
-    items: &[([u64; 4], f64, Option<u32>)],
+    items: &[Timed],
     fallback: impl FnOnce() -> f64,
 ) -> (Option<f64>, Vec<Option<f64>>) {
     let t1_t2: Vec<(u64, u64)> = items.iter().map(|(t, _, _)| (t[0], t[1])).collect();
@@ -253,7 +257,7 @@ fn corrected_delays(
 /// one whose reference gain has no delay. Used where exchanges are judged one by one
 /// (verification) rather than pooled into cells.
 pub fn burst_delays(deembed: &Deembed, rows: &[Exchange], fallback_ratio: f64) -> Vec<Option<f64>> {
-    let usable: Vec<(usize, ([u64; 4], f64, Option<u32>))> = rows
+    let usable: Vec<(usize, Timed)> = rows
         .iter()
         .enumerate()
         .filter_map(|(i, x)| match (x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps) {

@@ -70,7 +70,9 @@ pub fn verify(
     single: &BTreeMap<(u32, u32), f64>,
     level: impl Fn(f64) -> (f64, f64),
 ) -> (Vec<VerifyRow>, u64) {
-    let mut by_level: BTreeMap<(u32, u32, i64), (f64, Vec<f64>, Vec<f64>)> = BTreeMap::new();
+    // Per level: its attenuation and the errors (m) with each calibration.
+    type Errors = (f64, Vec<f64>, Vec<f64>);
+    let mut by_level: BTreeMap<(u32, u32, i64), Errors> = BTreeMap::new();
     let mut skipped = 0;
     for c in checked {
         let (Some(k_table), Some(k_single)) = (
@@ -107,6 +109,29 @@ pub fn verify(
         )
         .collect();
     (rows, skipped)
+}
+
+/// The gain state of the single-state calibration: the one most exchanges reported at the
+/// verified attenuation nearest `atten_db` on the channel.
+pub fn single_state_gain(
+    checked: &[Checked],
+    center_mhz: u32,
+    bw_mhz: u32,
+    atten_db: f64,
+) -> Option<u32> {
+    let on_channel = || {
+        checked
+            .iter()
+            .filter(|c| c.center_mhz == center_mhz && c.bw_mhz == bw_mhz)
+    };
+    let nearest = on_channel()
+        .map(|c| c.atten_db)
+        .min_by(|a, b| (a - atten_db).abs().total_cmp(&(b - atten_db).abs()))?;
+    let mut counts: BTreeMap<u32, u64> = BTreeMap::new();
+    for c in on_channel().filter(|c| c.atten_db == nearest) {
+        *counts.entry(c.gain_index).or_insert(0) += 1;
+    }
+    counts.into_iter().max_by_key(|(_, n)| *n).map(|(g, _)| g)
 }
 
 /// `verify.csv`'s header.
@@ -189,5 +214,8 @@ mod tests {
         assert!((rows[1].range_error_table_m - 5.0 * 0.149_896_229e-3).abs() < 1e-9);
         assert!((rows[1].range_error_single_m - 255.0 * 0.149_896_229e-3).abs() < 1e-9);
         assert!((rows[1].rx_power_dbm + 43.0).abs() < 1e-12);
+        assert_eq!(single_state_gain(&checked, 5180, 80, 47.0), Some(1));
+        assert_eq!(single_state_gain(&checked, 5180, 80, 21.0), Some(0));
+        assert_eq!(single_state_gain(&checked, 2437, 20, 21.0), None);
     }
 }
