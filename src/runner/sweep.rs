@@ -4,6 +4,7 @@
 use super::{RunError, Session};
 use crate::data::Exchange;
 use crate::fit::gainmap::{self, MapPoint, Pass};
+use crate::fit::stats::t975;
 use crate::fit::{fit, Deembed, FitOptions};
 use crate::recipe::{Adaptive, Points, Sweep, Verify};
 
@@ -57,13 +58,26 @@ fn measure_point(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), Ru
         rows.extend(session.burst(sweep.frames)?);
     }
     if let Some(adaptive) = sweep.adaptive {
+        // Stopping the first time a running interval dips under the target favours moments when
+        // the spread happens to look small, and such intervals cover less often than they claim.
+        // So the interval is only looked at when a planned count is reached; the plan comes from
+        // the spread seen so far, and a miss plans again from all the data.
         let mut bursts = sweep.bursts;
-        while bursts < adaptive.max_bursts && !narrow_enough(session, &rows, adaptive) {
+        let mut planned = plan(session, &rows, bursts, adaptive);
+        let mut looks = 1;
+        while bursts < adaptive.max_bursts {
+            if bursts >= planned {
+                if main_cell(session, &rows).is_some_and(|(ci, _)| ci <= adaptive.target_ci95_ps) {
+                    break;
+                }
+                planned = plan(session, &rows, bursts, adaptive);
+                looks += 1;
+            }
             rows.extend(session.burst(sweep.frames)?);
             bursts += 1;
         }
         tracing::info!(
-            "stage `{}` point {db} dB: {bursts} bursts, {} exchanges",
+            "stage `{}` point {db} dB: {bursts} bursts after {looks} plans, {} exchanges",
             sweep.name,
             rows.len()
         );
@@ -71,20 +85,36 @@ fn measure_point(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), Ru
     Ok(())
 }
 
-/// Whether the point's main gain state has reached the target half-width, computed exactly as
-/// the final table will compute it (same de-embedding, rejection and burst-clustered interval).
-fn narrow_enough(session: &Session, rows: &[Exchange], adaptive: Adaptive) -> bool {
+/// Bursts needed for the target from the burst-mean spread seen so far (at least one more than
+/// done, at most the stage's maximum).
+fn plan(session: &Session, rows: &[Exchange], done: u32, adaptive: Adaptive) -> u32 {
+    main_cell(session, rows).map_or(done + 1, |(_, burst_sd_ps)| {
+        let n = (Z975 * burst_sd_ps / adaptive.target_ci95_ps)
+            .powi(2)
+            .ceil();
+        (n.min(f64::from(adaptive.max_bursts)) as u32).max(done + 1)
+    })
+}
+
+/// Two-sided 95 % normal quantile.
+const Z975: f64 = 1.959_964;
+
+/// The 95 % half-width of the point's main gain state and the spread of its burst means,
+/// computed exactly as the final table computes them (same de-embedding, rejection and
+/// burst-clustered interval).
+fn main_cell(session: &Session, rows: &[Exchange]) -> Option<(f64, f64)> {
     let bench = session.bench();
     let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
     let options = FitOptions {
         reject_mad: session.reject_mad,
     };
     let table = fit(deembed, options, rows);
-    table
-        .rows
-        .iter()
-        .max_by_key(|r| r.n_used)
-        .is_some_and(|r| r.ci95_ps <= adaptive.target_ci95_ps)
+    let cell = table.rows.iter().max_by_key(|r| r.n_used)?;
+    let t = t975(cell.n_bursts.checked_sub(1)? as f64)?;
+    Some((
+        cell.ci95_ps,
+        cell.ci95_ps / t * (cell.n_bursts as f64).sqrt(),
+    ))
 }
 
 /// Runs a gain-map stage: the points with attenuation rising, then falling; the map is kept in
