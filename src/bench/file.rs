@@ -13,12 +13,18 @@ pub const BUILT_IN_DEMO: &str = include_str!("../../recipes/benches/sim-demo.tom
 /// Label under which the built-in bench appears in messages and manifests.
 pub const BUILT_IN_LABEL: &str = "<built-in sim-demo bench>";
 
-/// The roles a bench can fill.
+/// The roles every bench fills.
 pub const ROLES: [&str; 3] = ["attenuator", "dut", "reference"];
 
+/// Roles a bench may fill.
+pub const OPTIONAL_ROLES: [&str; 1] = ["chamber"];
+
 /// Drivers available without a driver file: the in-process simulated instruments.
-pub const SIM_DRIVERS: [(&str, &str); 2] =
-    [("attenuator", "sim-attenuator"), ("dut", "sim-ranging")];
+pub const SIM_DRIVERS: [(&str, &str); 3] = [
+    ("attenuator", "sim-attenuator"),
+    ("dut", "sim-ranging"),
+    ("chamber", "sim-chamber"),
+];
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -231,8 +237,11 @@ impl Bench {
     }
 
     fn validate(&self) -> Result<(), KeyError> {
-        for role in ROLES {
-            let Some(binding) = self.roles.get(role) else {
+        for role in ROLES.iter().chain(&OPTIONAL_ROLES) {
+            let Some(binding) = self.roles.get(*role) else {
+                if OPTIONAL_ROLES.contains(role) {
+                    continue;
+                }
                 return Err(KeyError::new(
                     "roles",
                     format!("has no `{role}` role"),
@@ -242,7 +251,7 @@ impl Bench {
             if binding.address.starts_with("sim:") {
                 let expected = SIM_DRIVERS
                     .iter()
-                    .find(|(r, _)| *r == role)
+                    .find(|(r, _)| r == role)
                     .map_or("sim-ranging", |(_, d)| d);
                 if binding.driver != expected {
                     return Err(KeyError::new(
@@ -262,11 +271,31 @@ impl Bench {
                 ));
             }
         }
-        if let Some(extra) = self.roles.keys().find(|r| !ROLES.contains(&r.as_str())) {
+        if let Some(extra) = self
+            .roles
+            .keys()
+            .find(|r| !ROLES.contains(&r.as_str()) && !OPTIONAL_ROLES.contains(&r.as_str()))
+        {
             return Err(KeyError::new(
                 format!("roles.{extra}"),
                 "is not a role taucal knows",
-                format!("roles are {}", ROLES.join(", ")),
+                format!(
+                    "roles are {} (and optionally {})",
+                    ROLES.join(", "),
+                    OPTIONAL_ROLES.join(", ")
+                ),
+            ));
+        }
+        if self
+            .roles
+            .get("chamber")
+            .is_some_and(|r| r.address.starts_with("sim:"))
+            && self.sim.as_ref().is_some_and(|s| s.chamber.is_none())
+        {
+            return Err(KeyError::new(
+                "roles.chamber",
+                "is simulated but [sim.chamber] is missing",
+                "add [sim.chamber] (start_c, ramp_c_per_min, dut_tau_s), or remove the chamber role",
             ));
         }
         if self.is_simulated() && self.sim.is_none() {

@@ -44,3 +44,16 @@ pub trait RangingDevice: Send {
         Ok(None)
     }
 }
+
+/// A climatic chamber around the DUT.
+#[async_trait]
+pub trait Chamber: Send {
+    /// The instrument's identity string.
+    async fn identify(&mut self) -> Result<String, InstrumentError>;
+    /// Sets the air temperature setpoint.
+    async fn set_setpoint_c(&mut self, setpoint_c: f64) -> Result<(), InstrumentError>;
+    /// Reads the air temperature.
+    async fn air_c(&mut self) -> Result<f64, InstrumentError>;
+    /// Returns the setpoint to room temperature, so nothing is left hot or cold unattended.
+    async fn safe_state(&mut self) -> Result<(), InstrumentError>;
+}

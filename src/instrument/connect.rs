@@ -1,12 +1,18 @@
 //! From a bench's role bindings to running instruments: one owner task each, handles returned.
 
-use super::{AttenuatorHandle, Owned, RangingHandle};
+use super::{AttenuatorHandle, ChamberHandle, Owned, RangingHandle};
 use crate::bench::Bench;
 use crate::diagnostic::{Diagnostic, KeyError};
 use crate::runner::BenchClock;
-use crate::sim::front::{SimAttenuatorFront, SimRangingFront, SimShared};
+use crate::sim::chamber::SimChamber;
+use crate::sim::front::{
+    SimAttenuatorFront, SimChamberFront, SimRangingFront, SimShared, SimWorld,
+};
 use crate::sim::model::SimBench;
 use std::sync::Arc;
+
+/// Where a chamber's safe state leaves its setpoint: room temperature (common practice).
+const ROOM_C: f64 = 25.0;
 
 /// The instruments a run drives.
 pub struct Instruments {
@@ -14,6 +20,8 @@ pub struct Instruments {
     pub attenuator: AttenuatorHandle,
     /// The DUT.
     pub dut: RangingHandle,
+    /// The climatic chamber, when the bench has one.
+    pub chamber: Option<ChamberHandle>,
 }
 
 /// Starts the bench's instruments on `rt`. `seed` overrides a simulated bench's own seed.
@@ -31,12 +39,24 @@ pub fn connect(
         )));
     };
     let model = SimBench::new(truth, &bench.path, seed).map_err(|e| bench.source.key_error(e))?;
-    let shared = SimShared::new(model, clock);
+    let chamber_model = truth.chamber.as_ref().map(SimChamber::new);
+    let has_chamber = bench.roles.contains_key("chamber");
+    let shared = SimShared::new(
+        SimWorld {
+            bench: model,
+            chamber: chamber_model,
+        },
+        clock,
+    );
     let attenuator = SimAttenuatorFront::new(
         shared.clone(),
         truth.attenuator.switch_ms,
         bench.attenuator.range_db[1],
     );
+    let chamber = has_chamber.then(|| {
+        let front = SimChamberFront::new(shared.clone(), ROOM_C);
+        ChamberHandle(Owned::spawn(rt, "chamber", Box::new(front)))
+    });
     Ok(Instruments {
         attenuator: AttenuatorHandle(Owned::spawn(rt, "attenuator", Box::new(attenuator))),
         dut: RangingHandle(Owned::spawn(
@@ -44,5 +64,6 @@ pub fn connect(
             "dut",
             Box::new(SimRangingFront::new(shared)),
         )),
+        chamber,
     })
 }

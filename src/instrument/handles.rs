@@ -1,6 +1,6 @@
 //! Typed handles over the owner tasks, one per capability.
 
-use super::capability::{Attenuator, BurstSpec, RangingDevice};
+use super::capability::{Attenuator, BurstSpec, Chamber, RangingDevice};
 use super::owner::Owned;
 use super::InstrumentError;
 use crate::data::DeviceExchange;
@@ -49,5 +49,28 @@ impl RangingHandle {
     /// Temperature at the device, if measured.
     pub fn temperature_c(&self) -> Result<Option<f64>, InstrumentError> {
         self.0.call(|d| d.temperature_c())
+    }
+}
+
+/// Handle on the bench's climatic chamber.
+#[derive(Clone)]
+pub struct ChamberHandle(pub Owned<dyn Chamber>);
+
+impl ChamberHandle {
+    /// The instrument's identity.
+    pub fn identify(&self) -> Result<String, InstrumentError> {
+        self.0.call(|c| c.identify())
+    }
+    /// Sets the setpoint.
+    pub fn set_setpoint_c(&self, setpoint_c: f64) -> Result<(), InstrumentError> {
+        self.0.call(move |c| c.set_setpoint_c(setpoint_c))
+    }
+    /// Reads the air temperature.
+    pub fn air_c(&self) -> Result<f64, InstrumentError> {
+        self.0.call(|c| c.air_c())
+    }
+    /// Back to room temperature.
+    pub fn safe_state(&self) -> Result<(), InstrumentError> {
+        self.0.call(|c| c.safe_state())
     }
 }

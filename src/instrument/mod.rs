@@ -6,7 +6,7 @@ pub mod error;
 pub mod handles;
 pub mod owner;
 
-pub use capability::{Attenuator, BurstSpec, RangingDevice};
+pub use capability::{Attenuator, BurstSpec, Chamber, RangingDevice};
 pub use error::InstrumentError;
-pub use handles::{AttenuatorHandle, RangingHandle};
+pub use handles::{AttenuatorHandle, ChamberHandle, RangingHandle};
 pub use owner::Owned;

@@ -4,30 +4,49 @@
 //! device's radios see. Time they take is spent on the run's [`BenchClock`], never read from
 //! the wall, so a run is the same for a seed whether it runs in virtual time or paced.
 
+use super::chamber::SimChamber;
 use super::model::{BurstRequest, SimBench};
 use crate::data::DeviceExchange;
-use crate::instrument::{Attenuator, BurstSpec, InstrumentError, RangingDevice};
+use crate::instrument::{Attenuator, BurstSpec, Chamber, InstrumentError, RangingDevice};
 use crate::runner::BenchClock;
 use async_trait::async_trait;
 use std::sync::{Arc, Mutex, MutexGuard};
 
-/// The shared model plus the clock its instruments spend time on.
+/// Everything simulated on the bench: the radio model and, optionally, a chamber around the DUT.
+pub struct SimWorld {
+    /// The conducted bench and its radios.
+    pub bench: SimBench,
+    /// The chamber, when the bench has one.
+    pub chamber: Option<SimChamber>,
+}
+
+impl SimWorld {
+    /// Brings the chamber to bench time `now_ps` and hands the DUT its temperature.
+    fn settle_to(&mut self, now_ps: u64) {
+        if let Some(c) = &mut self.chamber {
+            c.advance_to(now_ps);
+            self.bench.set_dut_temp_c(c.dut_c());
+        }
+    }
+}
+
+/// The shared world plus the clock its instruments spend time on.
 #[derive(Clone)]
 pub struct SimShared {
-    model: Arc<Mutex<SimBench>>,
+    model: Arc<Mutex<SimWorld>>,
     clock: Arc<BenchClock>,
 }
 
 impl SimShared {
-    /// Wraps a model and a clock.
-    pub fn new(model: SimBench, clock: Arc<BenchClock>) -> Self {
+    /// Wraps a world and a clock.
+    pub fn new(world: SimWorld, clock: Arc<BenchClock>) -> Self {
         SimShared {
-            model: Arc::new(Mutex::new(model)),
+            model: Arc::new(Mutex::new(world)),
             clock,
         }
     }
 
-    fn lock(&self, role: &str) -> Result<MutexGuard<'_, SimBench>, InstrumentError> {
+    fn lock(&self, role: &str) -> Result<MutexGuard<'_, SimWorld>, InstrumentError> {
         self.model.lock().map_err(|_| InstrumentError::Failed {
             role: role.to_string(),
             message: "the simulated bench failed earlier".into(),
@@ -72,8 +91,8 @@ impl Attenuator for SimAttenuatorFront {
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
         let changed = {
             let mut m = self.shared.lock("attenuator")?;
-            let changed = m.atten_db() != db;
-            m.set_atten_db(db);
+            let changed = m.bench.atten_db() != db;
+            m.bench.set_atten_db(db);
             changed
         };
         if changed {
@@ -83,7 +102,7 @@ impl Attenuator for SimAttenuatorFront {
     }
 
     async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
-        Ok(self.shared.lock("attenuator")?.atten_db())
+        Ok(self.shared.lock("attenuator")?.bench.atten_db())
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
@@ -120,7 +139,9 @@ impl RangingDevice for SimRangingFront {
         };
         let outcome = {
             let start_ps = self.shared.clock.now_ps();
-            self.shared.lock("dut")?.run_burst(start_ps, &request)
+            let mut world = self.shared.lock("dut")?;
+            world.settle_to(start_ps);
+            world.bench.run_burst(start_ps, &request)
         };
         self.shared.spend(outcome.duration_ps).await;
         Ok(outcome.exchanges)
@@ -131,6 +152,56 @@ impl RangingDevice for SimRangingFront {
     }
 
     async fn temperature_c(&mut self) -> Result<Option<f64>, InstrumentError> {
-        Ok(self.shared.lock("dut")?.ambient_c())
+        let now_ps = self.shared.clock.now_ps();
+        let mut world = self.shared.lock("dut")?;
+        world.settle_to(now_ps);
+        Ok(world.bench.dut_temp_c())
+    }
+}
+
+/// The simulated climatic chamber.
+pub struct SimChamberFront {
+    shared: SimShared,
+    room_c: f64,
+}
+
+impl SimChamberFront {
+    /// A chamber whose safe state is `room_c`.
+    pub fn new(shared: SimShared, room_c: f64) -> Self {
+        SimChamberFront { shared, room_c }
+    }
+
+    fn with<R>(&self, f: impl FnOnce(&mut SimChamber, u64) -> R) -> Result<R, InstrumentError> {
+        let now_ps = self.shared.clock.now_ps();
+        let mut world = self.shared.lock("chamber")?;
+        world.settle_to(now_ps);
+        world
+            .chamber
+            .as_mut()
+            .map(|c| f(c, now_ps))
+            .ok_or_else(|| InstrumentError::Failed {
+                role: "chamber".into(),
+                message: "the simulated bench has no [sim.chamber]".into(),
+            })
+    }
+}
+
+#[async_trait]
+impl Chamber for SimChamberFront {
+    async fn identify(&mut self) -> Result<String, InstrumentError> {
+        Ok("taucal simulated climatic chamber".into())
+    }
+
+    async fn set_setpoint_c(&mut self, setpoint_c: f64) -> Result<(), InstrumentError> {
+        self.with(|c, now_ps| c.set_setpoint_c(now_ps, setpoint_c))
+    }
+
+    async fn air_c(&mut self) -> Result<f64, InstrumentError> {
+        self.with(|c, _| c.air_c())
+    }
+
+    async fn safe_state(&mut self) -> Result<(), InstrumentError> {
+        let room_c = self.room_c;
+        self.with(|c, now_ps| c.set_setpoint_c(now_ps, room_c))
     }
 }

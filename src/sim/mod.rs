@@ -8,6 +8,7 @@
 //! instrument front ends and virtual clocks wrap it elsewhere.
 
 pub mod agc;
+pub mod chamber;
 pub mod counter;
 pub mod front;
 pub mod model;

@@ -23,7 +23,7 @@ use super::agc::Agc;
 use super::counter::{wrapping_add_ps, Counter48, COUNTER_MODULUS};
 use super::timing::{frame_loss_probability, Receiver};
 use super::truth::SimTruth;
-use crate::bench::PathFacts;
+use crate::bench::{PathFacts, PerGain};
 use crate::data::{DeviceExchange, STATUS_OK};
 use crate::diagnostic::KeyError;
 use rand::{RngExt, SeedableRng};
@@ -32,6 +32,9 @@ use rand_distr::{Distribution, StandardNormal};
 
 /// Status of an exchange whose frame or reply was not received: only `t1` is reported.
 pub const STATUS_LOST: &str = "lost";
+
+/// Temperature at which the truth's delays hold; drift is counted from here.
+pub const DRIFT_REFERENCE_C: f64 = 25.0;
 
 /// Status of every exchange of a burst the DUT refused (a zero-width channel): nothing reported.
 pub const STATUS_REJECTED: &str = "rejected";
@@ -62,6 +65,8 @@ pub struct SimBench {
     path: PathFacts,
     tx_power_dbm: f64,
     ambient_c: Option<f64>,
+    dut_temp_c: Option<f64>,
+    dut_drift_ps_per_c: PerGain,
     atten_db: f64,
     dut: Unit,
     reference: Unit,
@@ -185,6 +190,8 @@ impl SimBench {
             path: path.clone(),
             tx_power_dbm: truth.tx_power_dbm,
             ambient_c: truth.ambient_c,
+            dut_temp_c: truth.ambient_c,
+            dut_drift_ps_per_c: d.drift_ps_per_c.clone(),
             atten_db: 0.0,
             dut,
             reference,
@@ -229,6 +236,23 @@ impl SimBench {
     /// the runner adds it to each row).
     pub fn ambient_c(&self) -> Option<f64> {
         self.ambient_c
+    }
+
+    /// Sets the DUT's temperature (from a simulated chamber); its K drifts with it.
+    pub fn set_dut_temp_c(&mut self, temp_c: f64) {
+        self.dut_temp_c = Some(temp_c);
+    }
+
+    /// The DUT's temperature, when the bench has one.
+    pub fn dut_temp_c(&self) -> Option<f64> {
+        self.dut_temp_c
+    }
+
+    /// The DUT's RX delay at gain `gain` and its present temperature.
+    fn dut_rx_delay_now_ps(&self, gain: u32) -> f64 {
+        let drift = self.dut_drift_ps_per_c.at(Some(gain)).unwrap_or(0.0);
+        let warm_c = self.dut_temp_c.map_or(0.0, |t| t - DRIFT_REFERENCE_C);
+        self.dut.rx_delay_ps(gain) + drift * warm_c
     }
 
     /// Runs one burst that starts at bench time `start_ps` (integer picoseconds since the run
@@ -322,7 +346,7 @@ impl SimBench {
         }
         // Offsets from T1 in bench picoseconds: small, so f64 keeps sub-picosecond detail.
         let t2_offset_ps =
-            c.tof_ps + self.dut.rx_delay_ps(dut_gain) + c.burst_offset_ps + dut_toa.error_ps;
+            c.tof_ps + self.dut_rx_delay_now_ps(dut_gain) + c.burst_offset_ps + dut_toa.error_ps;
         let t2_ps = self.dut.clock.read_ps(t1_bench_ps, t2_offset_ps);
         let t3_ps = wrapping_add_ps(t2_ps, self.turnaround_ps);
         let t4_offset_ps = t2_offset_ps

@@ -31,6 +31,9 @@ pub struct SimTruth {
     /// Temperature reported with each exchange; none when absent.
     #[serde(default)]
     pub ambient_c: Option<f64>,
+    /// A climatic chamber around the DUT, served to a bench role `chamber`.
+    #[serde(default)]
+    pub chamber: Option<SimChamberTruth>,
 }
 
 /// Truth of the device under test.
@@ -72,6 +75,10 @@ pub struct SimDut {
     /// Timing error shared by all exchanges of one burst (re-drawn each burst), 1 sigma.
     #[serde(default = "default_burst_offset")]
     pub burst_offset_ps: f64,
+    /// Change of the DUT's K per °C of its temperature away from 25 °C (the delays above hold at
+    /// 25 °C), constant or per gain index.
+    #[serde(default = "no_drift")]
+    pub drift_ps_per_c: PerGain,
 }
 
 /// Truth of the reference unit.
@@ -103,6 +110,22 @@ pub struct SimReference {
     /// a reference unit is chosen for clean detection, so late paths are the DUT's by default.
     #[serde(default)]
     pub outlier_rate: f64,
+}
+
+/// The simulated chamber: its air follows the setpoint at a limited ramp rate, and the DUT follows
+/// the air with a first-order thermal lag.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimChamberTruth {
+    /// Air and DUT temperature when the run starts.
+    #[serde(default = "default_start_c")]
+    pub start_c: f64,
+    /// Fastest change of the air temperature.
+    #[serde(default = "default_ramp")]
+    pub ramp_c_per_min: f64,
+    /// Time constant of the DUT's lag behind the air.
+    #[serde(default = "default_tau")]
+    pub dut_tau_s: f64,
 }
 
 /// Timing of FTM-like bursts.
@@ -151,6 +174,18 @@ impl Default for SimAttenuator {
     }
 }
 
+fn no_drift() -> PerGain {
+    PerGain::Same(0.0)
+}
+fn default_start_c() -> f64 {
+    25.0
+}
+fn default_ramp() -> f64 {
+    2.0
+}
+fn default_tau() -> f64 {
+    300.0
+}
 fn default_seed() -> u64 {
     1
 }
@@ -250,6 +285,27 @@ impl SimTruth {
         non_negative("sim.dut.gain_hysteresis_db", d.gain_hysteresis_db)?;
         non_negative("sim.dut.rssi_noise_db", d.rssi_noise_db)?;
         non_negative("sim.dut.burst_offset_ps", d.burst_offset_ps)?;
+        let drifts = d.drift_ps_per_c.values();
+        if drifts.iter().any(|v| !v.is_finite())
+            || (drifts.len() > 1 && drifts.len() != d.rx_delay_ps.len())
+        {
+            return Err(KeyError::new(
+                "sim.dut.drift_ps_per_c",
+                "is not one finite drift, nor one per gain state",
+                "give one drift in ps/°C, or one per entry of rx_delay_ps",
+            ));
+        }
+        if let Some(c) = &self.chamber {
+            positive("sim.chamber.ramp_c_per_min", c.ramp_c_per_min)?;
+            positive("sim.chamber.dut_tau_s", c.dut_tau_s)?;
+            if !(-70.0..=180.0).contains(&c.start_c) {
+                return Err(KeyError::new(
+                    "sim.chamber.start_c",
+                    format!("{} °C is outside -70..180 °C", c.start_c),
+                    "give a temperature a climatic chamber can hold",
+                ));
+            }
+        }
         non_negative("sim.reference.jitter_ps", r.jitter_ps)?;
         non_negative("sim.reference.rssi_noise_db", r.rssi_noise_db)?;
         non_negative("sim.reference.gain_hysteresis_db", r.gain_hysteresis_db)?;
