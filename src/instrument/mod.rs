@@ -4,10 +4,12 @@
 
 pub mod capability;
 pub mod connect;
+pub mod driver_file;
 pub mod error;
 pub mod handles;
 pub mod line;
 pub mod owner;
+pub mod template;
 pub mod transport;
 
 pub use capability::{Attenuator, BurstSpec, RangingDevice};
