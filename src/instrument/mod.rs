@@ -4,11 +4,14 @@
 
 pub mod capability;
 pub mod connect;
+pub mod driven_attenuator;
+pub mod driven_console;
 pub mod driver_file;
 pub mod error;
 pub mod handles;
 pub mod line;
 pub mod owner;
+pub mod scpi_client;
 pub mod template;
 pub mod transport;
 
