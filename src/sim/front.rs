@@ -3,28 +3,80 @@
 //! Both front ends share one [`SimBench`], so the attenuator's setting is what the ranging
 //! device's radios see. Time they take is spent on the run's [`BenchClock`], never read from
 //! the wall, so a run is the same for a seed whether it runs in virtual time or paced.
+//!
+//! The model itself sees only the time its instruments spend (its own virtual clock), not the
+//! runner's waits: a served instrument in another process cannot see those waits either, and
+//! this way the in-process bench and the served one (`taucal sim serve`) make the same model
+//! calls at the same model times, so they record the same exchanges for a seed.
 
 use super::model::{BurstRequest, SimBench};
 use crate::data::DeviceExchange;
 use crate::instrument::{Attenuator, BurstSpec, InstrumentError, RangingDevice};
-use crate::runner::BenchClock;
+use crate::runner::{BenchClock, ClockMode};
 use async_trait::async_trait;
 use std::sync::{Arc, Mutex, MutexGuard};
+use std::time::Duration;
 
 /// The shared model plus the clock its instruments spend time on.
 #[derive(Clone)]
 pub struct SimShared {
     model: Arc<Mutex<SimBench>>,
+    model_clock: Arc<BenchClock>,
     clock: Arc<BenchClock>,
 }
 
 impl SimShared {
-    /// Wraps a model and a clock.
+    /// Wraps a model and the clock its instruments spend time on (the run's clock in-process,
+    /// the server's own when served).
     pub fn new(model: SimBench, clock: Arc<BenchClock>) -> Self {
         SimShared {
             model: Arc::new(Mutex::new(model)),
+            model_clock: Arc::new(BenchClock::new(ClockMode::Virtual)),
             clock,
         }
+    }
+
+    /// Sets the attenuation; returns the wall time to wait for the switch (zero in virtual
+    /// time). Switching takes `switch_ps` only when the setting changes.
+    pub fn set_atten_db(&self, db: f64, switch_ps: u64) -> Result<Duration, InstrumentError> {
+        let changed = {
+            let mut m = self.lock("attenuator")?;
+            let changed = m.atten_db() != db;
+            m.set_atten_db(db);
+            changed
+        };
+        Ok(if changed {
+            self.spend_now(switch_ps)
+        } else {
+            Duration::ZERO
+        })
+    }
+
+    /// The attenuation.
+    pub fn atten_db(&self) -> Result<f64, InstrumentError> {
+        Ok(self.lock("attenuator")?.atten_db())
+    }
+
+    /// Runs a burst at the model's time now; returns the exchanges and the wall time to wait.
+    pub fn run_burst(
+        &self,
+        request: &BurstRequest,
+    ) -> Result<(Vec<DeviceExchange>, Duration), InstrumentError> {
+        let outcome = {
+            let start_ps = self.model_clock.now_ps();
+            self.lock("dut")?.run_burst(start_ps, request)
+        };
+        Ok((outcome.exchanges, self.spend_now(outcome.duration_ps)))
+    }
+
+    /// Ambient temperature at the DUT, if the bench has one.
+    pub fn ambient_c(&self) -> Result<Option<f64>, InstrumentError> {
+        Ok(self.lock("dut")?.ambient_c())
+    }
+
+    fn spend_now(&self, ps: u64) -> Duration {
+        self.model_clock.spend(ps);
+        self.clock.spend(ps)
     }
 
     fn lock(&self, role: &str) -> Result<MutexGuard<'_, SimBench>, InstrumentError> {
@@ -33,12 +85,11 @@ impl SimShared {
             message: "the simulated bench failed earlier".into(),
         })
     }
+}
 
-    async fn spend(&self, ps: u64) {
-        let pause = self.clock.spend(ps);
-        if !pause.is_zero() {
-            tokio::time::sleep(pause).await;
-        }
+async fn pause(wall: Duration) {
+    if !wall.is_zero() {
+        tokio::time::sleep(wall).await;
     }
 }
 
@@ -70,20 +121,12 @@ impl Attenuator for SimAttenuatorFront {
     }
 
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
-        let changed = {
-            let mut m = self.shared.lock("attenuator")?;
-            let changed = m.atten_db() != db;
-            m.set_atten_db(db);
-            changed
-        };
-        if changed {
-            self.shared.spend(self.switch_ps).await;
-        }
+        pause(self.shared.set_atten_db(db, self.switch_ps)?).await;
         Ok(())
     }
 
     async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
-        Ok(self.shared.lock("attenuator")?.atten_db())
+        self.shared.atten_db()
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
@@ -118,12 +161,9 @@ impl RangingDevice for SimRangingFront {
             center_mhz: spec.channel.center_mhz,
             bw_mhz: spec.channel.bw_mhz,
         };
-        let outcome = {
-            let start_ps = self.shared.clock.now_ps();
-            self.shared.lock("dut")?.run_burst(start_ps, &request)
-        };
-        self.shared.spend(outcome.duration_ps).await;
-        Ok(outcome.exchanges)
+        let (exchanges, wall) = self.shared.run_burst(&request)?;
+        pause(wall).await;
+        Ok(exchanges)
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
@@ -131,6 +171,6 @@ impl RangingDevice for SimRangingFront {
     }
 
     async fn temperature_c(&mut self) -> Result<Option<f64>, InstrumentError> {
-        Ok(self.shared.lock("dut")?.ambient_c())
+        self.shared.ambient_c()
     }
 }
