@@ -11,6 +11,7 @@ pub mod agc;
 pub mod counter;
 pub mod front;
 pub mod model;
+pub mod serve;
 pub mod timing;
 pub mod truth;
 
