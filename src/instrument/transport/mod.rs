@@ -7,7 +7,7 @@ pub mod link;
 pub mod serial;
 pub mod tcp;
 
-pub use address::{Address, AddressError, SerialSettings};
+pub use address::{Address, AddressError, SerialSettings, ADDRESS_FORMS};
 pub use link::{Link, LinkError};
 
 use tokio::io::{AsyncRead, AsyncWrite};
