@@ -378,3 +378,21 @@ fn a_console_on_a_pty_pair_made_here_answers_through_the_serial_transport() {
         assert!(reply.starts_with("range fail"), "{reply}");
     });
 }
+
+#[test]
+fn every_driver_file_in_drivers_is_valid() {
+    let dir = root().join("drivers");
+    let mut names: Vec<String> = std::fs::read_dir(&dir)
+        .expect("drivers folder")
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|x| x == "toml"))
+        .filter_map(|p| p.file_stem().map(|s| s.to_string_lossy().into_owned()))
+        .collect();
+    names.sort();
+    assert!(names.len() >= 3, "{names:?}");
+    for name in names {
+        if let Err(d) = taucal::instrument::driver_file::DriverFile::load(&dir, &name) {
+            panic!("{name}: {d}");
+        }
+    }
+}
