@@ -2,6 +2,10 @@
 
 use super::{PathFacts, PerGain};
 use crate::diagnostic::{self, Diagnostic, KeyError, SourceFile};
+use crate::instrument::driver_file::{
+    DriverFile, DriverKind, KIND_ATTENUATOR, KIND_RANGING_CONSOLE,
+};
+use crate::instrument::transport::{Address, ADDRESS_FORMS};
 use crate::sim::SimTruth;
 use serde::Deserialize;
 use std::collections::BTreeMap;
@@ -44,7 +48,13 @@ struct RawMeta {
     name: String,
     #[serde(default)]
     description: String,
+    drivers_dir: Option<String>,
 }
+
+/// Where driver files are looked for, relative to the bench file's folder, unless the bench
+/// says otherwise with `[bench] drivers_dir` (benches live in `recipes/benches/`, drivers in
+/// `drivers/`).
+pub const DEFAULT_DRIVERS_DIR: &str = "../../drivers";
 
 /// Which driver plays a role, and where to reach it.
 #[derive(Debug, Clone, PartialEq, Deserialize)]
@@ -52,7 +62,7 @@ struct RawMeta {
 pub struct RoleBinding {
     /// Driver name (`sim-attenuator`, `sim-ranging`, or a driver file's name).
     pub driver: String,
-    /// Address: `sim:` for the in-process simulated bench.
+    /// Address: `sim:` for the in-process simulated bench, `tcp:HOST:PORT`, `serial:PATH?baud=N`.
     pub address: String,
 }
 
@@ -113,6 +123,10 @@ pub struct Bench {
     pub reference: ReferenceFacts,
     /// Simulation truth, present on a simulated bench.
     pub sim: Option<SimTruth>,
+    /// Folder of driver files, as the bench file gives it (relative to the bench's folder).
+    pub drivers_dir: String,
+    /// Driver files of the roles not served in-process, by role.
+    pub drivers: BTreeMap<String, DriverFile>,
 }
 
 impl Bench {
@@ -143,10 +157,134 @@ impl Bench {
             path: raw.path,
             reference: raw.reference,
             sim: raw.sim,
+            drivers_dir: raw
+                .bench
+                .drivers_dir
+                .unwrap_or_else(|| DEFAULT_DRIVERS_DIR.to_string()),
+            drivers: BTreeMap::new(),
             source,
         };
-        bench.validate().map_err(|e| bench.source.key_error(e))?;
-        Ok(bench)
+        bench.checked()
+    }
+
+    fn checked(mut self) -> Result<Bench, Diagnostic> {
+        self.validate().map_err(|e| self.source.key_error(e))?;
+        self.drivers = self.load_drivers()?;
+        Ok(self)
+    }
+
+    /// The bench with role addresses replaced (`--connect ROLE=ADDRESS`), checked again.
+    pub fn reconnect(&self, overrides: &[String]) -> Result<Bench, Diagnostic> {
+        let mut bench = self.clone();
+        for text in overrides {
+            let hint = "write ROLE=ADDRESS, e.g. --connect attenuator=tcp:127.0.0.1:5025";
+            let Some((role, address)) = text.split_once('=') else {
+                return Err(
+                    Diagnostic::plain(format!("--connect {text}: not ROLE=ADDRESS"))
+                        .with_hint(hint),
+                );
+            };
+            let Some(binding) = bench.roles.get_mut(role) else {
+                return Err(Diagnostic::plain(format!(
+                    "--connect {text}: the bench has no role `{role}`"
+                ))
+                .with_hint(format!("roles are {}", ROLES.join(", "))));
+            };
+            binding.address = address.to_string();
+        }
+        bench.checked().map_err(|mut d| {
+            d.message = format!("with --connect {}: {}", overrides.join(" "), d.message);
+            d
+        })
+    }
+
+    /// The folder driver files are read from.
+    pub fn drivers_path(&self) -> std::path::PathBuf {
+        let folder = self.source.path.parent().unwrap_or(Path::new("."));
+        folder.join(&self.drivers_dir)
+    }
+
+    /// Loads the driver file of every role not served in-process and checks it fits the role and
+    /// the bench's limits.
+    fn load_drivers(&self) -> Result<BTreeMap<String, DriverFile>, Diagnostic> {
+        let mut drivers = BTreeMap::new();
+        for (role, binding) in &self.roles {
+            if binding.address.starts_with("sim:") {
+                continue;
+            }
+            let driver = DriverFile::load(&self.drivers_path(), &binding.driver)?;
+            self.fits(role, &driver)
+                .map_err(|e| self.source.key_error(e))?;
+            drivers.insert(role.clone(), driver);
+        }
+        Ok(drivers)
+    }
+
+    fn fits(&self, role: &str, driver: &DriverFile) -> Result<(), KeyError> {
+        let key = format!("roles.{role}.driver");
+        let wanted = if role == "attenuator" {
+            KIND_ATTENUATOR
+        } else {
+            KIND_RANGING_CONSOLE
+        };
+        match &driver.kind {
+            kind if kind.name() != wanted => Err(KeyError::new(
+                key,
+                format!("`{}` drives a {}, not the {role}", driver.name, kind.name()),
+                format!("name a driver file of kind {wanted}"),
+            )),
+            DriverKind::Attenuator(a) => {
+                let [lo, hi] = self.attenuator.range_db;
+                if lo < a.range_db[0] || hi > a.range_db[1] {
+                    return Err(KeyError::new(
+                        "attenuator.range_db",
+                        format!(
+                            "[{lo}, {hi}] is wider than driver `{}` allows ({:?})",
+                            driver.name, a.range_db
+                        ),
+                        "keep the bench's range within the driver's",
+                    ));
+                }
+                let steps = self.attenuator.step_db / a.step_db;
+                if (steps - steps.round()).abs() > 1e-6 {
+                    return Err(KeyError::new(
+                        "attenuator.step_db",
+                        format!(
+                            "{} dB is not a multiple of driver `{}`'s step {} dB",
+                            self.attenuator.step_db, driver.name, a.step_db
+                        ),
+                        "use a multiple of the driver's step",
+                    ));
+                }
+                let into = self.dut.tx_power_dbm.max(self.reference.tx_power_dbm);
+                if into > a.max_input_dbm {
+                    return Err(KeyError::new(
+                        "attenuator",
+                        format!("can receive {into} dBm, above driver `{}`'s max_input_dbm {} dBm", driver.name, a.max_input_dbm),
+                        "RF power above an attenuator's rating damages it: add fixed attenuation before it or lower tx_power_dbm",
+                    ));
+                }
+                Ok(())
+            }
+            DriverKind::RangingConsole(c) => {
+                let limit = if role == "dut" {
+                    self.dut.max_input_dbm
+                } else {
+                    self.reference.max_input_dbm
+                };
+                if limit > c.max_input_dbm {
+                    return Err(KeyError::new(
+                        format!("{role}.max_input_dbm"),
+                        format!(
+                            "{limit} dBm is above driver `{}`'s max_input_dbm {} dBm",
+                            driver.name, c.max_input_dbm
+                        ),
+                        "the bench's limit must not exceed the device's rating",
+                    ));
+                }
+                Ok(())
+            }
+        }
     }
 
     /// True when every role is served by the in-process simulated bench.
@@ -261,14 +399,26 @@ impl Bench {
                     ));
                 }
             } else {
-                return Err(KeyError::new(
-                    format!("roles.{role}.address"),
-                    format!(
-                        "`{}` is not an address this build can reach",
-                        binding.address
-                    ),
-                    "use `sim:` for the in-process simulated bench",
-                ));
+                Address::parse(&binding.address).map_err(|e| {
+                    KeyError::new(
+                        format!("roles.{role}.address"),
+                        format!("is not an address: {}", e.reason),
+                        format!("addresses are {ADDRESS_FORMS}"),
+                    )
+                })?;
+                if SIM_DRIVERS.iter().any(|(_, d)| *d == binding.driver) {
+                    return Err(KeyError::new(
+                        format!("roles.{role}.driver"),
+                        format!(
+                            "`{}` drives only the in-process simulated bench (`sim:`)",
+                            binding.driver
+                        ),
+                        format!(
+                            "name a driver file from the drivers folder for `{}`",
+                            binding.address
+                        ),
+                    ));
+                }
             }
         }
         if let Some(extra) = self
@@ -298,7 +448,12 @@ impl Bench {
                 "add [sim.chamber] (start_c, ramp_c_per_min, dut_tau_s), or remove the chamber role",
             ));
         }
-        if self.is_simulated() && self.sim.is_none() {
+        let any_sim = ["attenuator", "dut"].iter().any(|r| {
+            self.roles
+                .get(*r)
+                .is_some_and(|b| b.address.starts_with("sim:"))
+        });
+        if any_sim && self.sim.is_none() {
             return Err(KeyError::new(
                 "roles",
                 "use simulated instruments but the file has no [sim] table",

@@ -30,6 +30,39 @@ pub enum Command {
         after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit"
     )]
     Fit(FitArgs),
+    /// Simulated instruments.
+    #[command(subcommand)]
+    Sim(SimCommand),
+}
+
+/// `taucal sim …`.
+#[derive(Debug, Subcommand)]
+pub enum SimCommand {
+    /// Serve the simulated bench's instruments as real ones (SCPI attenuator, DUT console).
+    #[command(
+        after_help = "Examples:\n  taucal sim serve\n  taucal sim serve --bench recipes/benches/sim-demo.toml --listen attenuator=tcp:127.0.0.1:5025 --listen dut=pty\n\nPrints `ROLE ADDRESS` for each role served, then runs until SIGINT or SIGTERM."
+    )]
+    Serve(SimServeArgs),
+}
+
+/// `taucal sim serve`.
+#[derive(Debug, Args)]
+pub struct SimServeArgs {
+    #[command(flatten)]
+    pub bench: BenchArg,
+    /// Serve ROLE (attenuator, dut) at tcp:HOST:PORT, tcp:PORT (loopback) or pty (dut only).
+    /// Default: attenuator=tcp:127.0.0.1:5025 and dut=tcp:127.0.0.1:5026.
+    #[arg(long, value_name = "ROLE=WHERE")]
+    pub listen: Vec<String>,
+    /// Seed of the simulation (default: the bench's [sim] seed).
+    #[arg(long, value_name = "N")]
+    pub seed: Option<u64>,
+    /// Keep wall-clock pace instead of virtual time.
+    #[arg(long)]
+    pub realtime: bool,
+    /// Allow listening on addresses other than loopback.
+    #[arg(long)]
+    pub allow_remote: bool,
 }
 
 /// Bench selection shared by the commands.
@@ -59,6 +92,9 @@ pub struct RunArgs {
     /// Keep wall-clock pace on a simulated bench instead of virtual time.
     #[arg(long)]
     pub realtime: bool,
+    /// Reach a bench role at another address (e.g. dut=serial:/dev/ttyUSB0?baud=115200).
+    #[arg(long = "connect", value_name = "ROLE=ADDRESS")]
+    pub connect: Vec<String>,
 }
 
 /// `taucal check`.

@@ -7,11 +7,12 @@ pub mod exit;
 pub mod fit;
 pub mod log;
 pub mod run;
+pub mod sim_serve;
 pub mod table;
 
 pub use exit::Exit;
 
-use args::{Cli, Command};
+use args::{Cli, Command, SimCommand};
 use clap::Parser;
 
 /// Parses the command line, runs the command, renders any error, and returns the exit status.
@@ -32,6 +33,7 @@ pub fn main() -> Exit {
         Command::Run(a) => run::run(a),
         Command::Check(a) => check::run(a),
         Command::Fit(a) => fit::run(a),
+        Command::Sim(SimCommand::Serve(a)) => sim_serve::run(a),
     };
     match result {
         Ok(exit) => exit,

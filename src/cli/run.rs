@@ -9,7 +9,7 @@ use std::sync::Arc;
 
 /// Validates, runs, fits, and reports.
 pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
-    let bench = bench_arg::load(&args.bench)?;
+    let bench = bench_arg::load(&args.bench)?.reconnect(&args.connect)?;
     let plan = crate::recipe::load(&args.recipe, &args.set, &bench)?;
     for stage in &plan.stages {
         if let crate::recipe::Stage::Script(s) = stage {

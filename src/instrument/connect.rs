@@ -1,6 +1,13 @@
 //! From a bench's role bindings to running instruments: one owner task each, handles returned.
+//! A role at `sim:` is served by the in-process simulated bench; any other address is driven
+//! by the role's driver file over the transport its address names.
 
-use super::{AttenuatorHandle, ChamberHandle, Owned, RangingHandle};
+use super::driven_attenuator::DrivenAttenuator;
+use super::driven_console::DrivenConsole;
+use super::driver_file::{DriverFile, DriverKind};
+use super::scpi_client::ScpiClient;
+use super::transport::{Address, Link};
+use super::{Attenuator, AttenuatorHandle, ChamberHandle, Owned, RangingDevice, RangingHandle};
 use crate::bench::Bench;
 use crate::diagnostic::{Diagnostic, KeyError};
 use crate::runner::BenchClock;
@@ -10,9 +17,6 @@ use crate::sim::front::{
 };
 use crate::sim::model::SimBench;
 use std::sync::Arc;
-
-/// Where a chamber's safe state leaves its setpoint: room temperature (common practice).
-const ROOM_C: f64 = 25.0;
 
 /// The instruments a run drives.
 pub struct Instruments {
@@ -24,46 +28,96 @@ pub struct Instruments {
     pub chamber: Option<ChamberHandle>,
 }
 
+/// Where a chamber's safe state leaves its setpoint: room temperature (common practice).
+const ROOM_C: f64 = 25.0;
+
 /// Starts the bench's instruments on `rt`. `seed` overrides a simulated bench's own seed.
+/// Driven instruments connect on their first command, so an unreachable instrument stops the
+/// run (with its data kept) rather than failing validation.
 pub fn connect(
     bench: &Bench,
     clock: Arc<BenchClock>,
     seed: u64,
     rt: &tokio::runtime::Handle,
 ) -> Result<Instruments, Diagnostic> {
-    let Some(truth) = bench.sim.as_ref().filter(|_| bench.is_simulated()) else {
-        return Err(bench.source.key_error(KeyError::new(
-            "roles",
-            "name instruments this build cannot reach",
-            "use `sim:` addresses for the simulated bench",
-        )));
-    };
-    let model = SimBench::new(truth, &bench.path, seed).map_err(|e| bench.source.key_error(e))?;
-    let chamber_model = truth.chamber.as_ref().map(SimChamber::new);
-    let has_chamber = bench.roles.contains_key("chamber");
-    let shared = SimShared::new(
-        SimWorld {
+    let in_process = |role: &str| bench.roles.get(role).is_none_or(|b| b.address == "sim:");
+    let shared = if in_process("attenuator") || in_process("dut") {
+        let Some(truth) = bench.sim.as_ref() else {
+            return Err(bench.source.key_error(KeyError::new(
+                "roles",
+                "use `sim:` but the bench has no [sim] table",
+                "add [sim], or give every role a driver file and an address",
+            )));
+        };
+        let model =
+            SimBench::new(truth, &bench.path, seed).map_err(|e| bench.source.key_error(e))?;
+        let world = SimWorld {
             bench: model,
-            chamber: chamber_model,
-        },
-        clock,
-    );
-    let attenuator = SimAttenuatorFront::new(
-        shared.clone(),
-        truth.attenuator.switch_ms,
-        bench.attenuator.range_db[1],
-    );
-    let chamber = has_chamber.then(|| {
-        let front = SimChamberFront::new(shared.clone(), ROOM_C);
-        ChamberHandle(Owned::spawn(rt, "chamber", Box::new(front)))
-    });
-    Ok(Instruments {
-        attenuator: AttenuatorHandle(Owned::spawn(rt, "attenuator", Box::new(attenuator))),
-        dut: RangingHandle(Owned::spawn(
-            rt,
-            "dut",
-            Box::new(SimRangingFront::new(shared)),
+            chamber: truth.chamber.as_ref().map(SimChamber::new),
+        };
+        Some((SimShared::new(world, clock), truth.attenuator.switch_ms))
+    } else {
+        None
+    };
+    let attenuator: Box<dyn Attenuator> = match (&shared, driven(bench, "attenuator")?) {
+        (_, Some((DriverKind::Attenuator(d), link))) => Box::new(DrivenAttenuator::new(
+            "attenuator",
+            d,
+            ScpiClient::new(link),
         )),
+        (Some((shared, switch_ms)), _) => Box::new(SimAttenuatorFront::new(
+            shared.clone(),
+            *switch_ms,
+            bench.attenuator.range_db[1],
+        )),
+        _ => return Err(unreachable_role(bench, "attenuator")),
+    };
+    let dut: Box<dyn RangingDevice> = match (&shared, driven(bench, "dut")?) {
+        (_, Some((DriverKind::RangingConsole(d), link))) => {
+            Box::new(DrivenConsole::new("dut", *d, link))
+        }
+        (Some((shared, _)), _) => Box::new(SimRangingFront::new(shared.clone())),
+        _ => return Err(unreachable_role(bench, "dut")),
+    };
+    let chamber = match (&shared, bench.roles.get("chamber")) {
+        (Some((shared, _)), Some(b)) if b.address == "sim:" => {
+            let front = SimChamberFront::new(shared.clone(), ROOM_C);
+            Some(ChamberHandle(Owned::spawn(rt, "chamber", Box::new(front))))
+        }
+        (_, Some(_)) => return Err(unreachable_role(bench, "chamber")),
+        (_, None) => None,
+    };
+    Ok(Instruments {
+        attenuator: AttenuatorHandle(Owned::spawn(rt, "attenuator", attenuator)),
+        dut: RangingHandle(Owned::spawn(rt, "dut", dut)),
         chamber,
     })
+}
+
+/// The driver and link of a role not served in-process (validated when the bench was loaded).
+fn driven(bench: &Bench, role: &str) -> Result<Option<(DriverKind, Link)>, Diagnostic> {
+    let (Some(binding), Some(DriverFile { kind, link, .. })) =
+        (bench.roles.get(role), bench.drivers.get(role))
+    else {
+        return Ok(None);
+    };
+    let address = Address::parse(&binding.address).map_err(|e| {
+        bench.source.key_error(KeyError::new(
+            format!("roles.{role}.address"),
+            e.reason,
+            "see the README's addresses",
+        ))
+    })?;
+    Ok(Some((
+        kind.clone(),
+        Link::new(address, &link.line_ending, link.timeout),
+    )))
+}
+
+fn unreachable_role(bench: &Bench, role: &str) -> Diagnostic {
+    bench.source.key_error(KeyError::new(
+        format!("roles.{role}.driver"),
+        "names no driver this build can run for the role",
+        "use the role's sim driver at `sim:`, or a driver file of the role's kind",
+    ))
 }

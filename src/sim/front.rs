@@ -3,14 +3,22 @@
 //! Both front ends share one [`SimBench`], so the attenuator's setting is what the ranging
 //! device's radios see. Time they take is spent on the run's [`BenchClock`], never read from
 //! the wall, so a run is the same for a seed whether it runs in virtual time or paced.
+//!
+//! The radio model itself sees only the time its instruments spend (its own virtual clock), not
+//! the runner's waits: a served instrument in another process cannot see those waits either, and
+//! this way the in-process bench and the served one (`taucal sim serve`) make the same model
+//! calls at the same model times, so they record the same exchanges for a seed. A simulated
+//! chamber is different: temperature changes while the runner waits (that is what a soak is), so
+//! it follows the run's bench time.
 
 use super::chamber::SimChamber;
 use super::model::{BurstRequest, SimBench};
 use crate::data::DeviceExchange;
 use crate::instrument::{Attenuator, BurstSpec, Chamber, InstrumentError, RangingDevice};
-use crate::runner::BenchClock;
+use crate::runner::{BenchClock, ClockMode};
 use async_trait::async_trait;
 use std::sync::{Arc, Mutex, MutexGuard};
+use std::time::Duration;
 
 /// Everything simulated on the bench: the radio model and, optionally, a chamber around the DUT.
 pub struct SimWorld {
@@ -21,6 +29,14 @@ pub struct SimWorld {
 }
 
 impl SimWorld {
+    /// A world without a chamber.
+    pub fn radios(bench: SimBench) -> Self {
+        SimWorld {
+            bench,
+            chamber: None,
+        }
+    }
+
     /// Brings the chamber to bench time `now_ps` and hands the DUT its temperature.
     fn settle_to(&mut self, now_ps: u64) {
         if let Some(c) = &mut self.chamber {
@@ -34,16 +50,86 @@ impl SimWorld {
 #[derive(Clone)]
 pub struct SimShared {
     model: Arc<Mutex<SimWorld>>,
+    model_clock: Arc<BenchClock>,
     clock: Arc<BenchClock>,
 }
 
 impl SimShared {
-    /// Wraps a world and a clock.
+    /// Wraps a world and the clock its instruments spend time on (the run's clock in-process,
+    /// the server's own when served).
     pub fn new(world: SimWorld, clock: Arc<BenchClock>) -> Self {
         SimShared {
             model: Arc::new(Mutex::new(world)),
+            model_clock: Arc::new(BenchClock::new(ClockMode::Virtual)),
             clock,
         }
+    }
+
+    /// Sets the attenuation; returns the wall time to wait for the switch (zero in virtual
+    /// time). Switching takes `switch_ps` only when the setting changes.
+    pub fn set_atten_db(&self, db: f64, switch_ps: u64) -> Result<Duration, InstrumentError> {
+        let changed = {
+            let mut m = self.lock("attenuator")?;
+            let changed = m.bench.atten_db() != db;
+            m.bench.set_atten_db(db);
+            changed
+        };
+        Ok(if changed {
+            self.spend_now(switch_ps)
+        } else {
+            Duration::ZERO
+        })
+    }
+
+    /// The attenuation.
+    pub fn atten_db(&self) -> Result<f64, InstrumentError> {
+        Ok(self.lock("attenuator")?.bench.atten_db())
+    }
+
+    /// Runs a burst at the model's time now; returns the exchanges and the wall time to wait.
+    pub fn run_burst(
+        &self,
+        request: &BurstRequest,
+    ) -> Result<(Vec<DeviceExchange>, Duration), InstrumentError> {
+        let outcome = {
+            let start_ps = self.model_clock.now_ps();
+            let now_ps = self.clock.now_ps();
+            let mut world = self.lock("dut")?;
+            world.settle_to(now_ps);
+            world.bench.run_burst(start_ps, request)
+        };
+        Ok((outcome.exchanges, self.spend_now(outcome.duration_ps)))
+    }
+
+    /// The DUT's temperature, if the bench has one (a chamber's, else the ambient).
+    pub fn dut_temp_c(&self) -> Result<Option<f64>, InstrumentError> {
+        let now_ps = self.clock.now_ps();
+        let mut world = self.lock("dut")?;
+        world.settle_to(now_ps);
+        Ok(world.bench.dut_temp_c())
+    }
+
+    /// Runs `f` on the chamber at the run's bench time now.
+    fn with_chamber<R>(
+        &self,
+        f: impl FnOnce(&mut SimChamber, u64) -> R,
+    ) -> Result<R, InstrumentError> {
+        let now_ps = self.clock.now_ps();
+        let mut world = self.lock("chamber")?;
+        world.settle_to(now_ps);
+        world
+            .chamber
+            .as_mut()
+            .map(|c| f(c, now_ps))
+            .ok_or_else(|| InstrumentError::Failed {
+                role: "chamber".into(),
+                message: "the simulated bench has no [sim.chamber]".into(),
+            })
+    }
+
+    fn spend_now(&self, ps: u64) -> Duration {
+        self.model_clock.spend(ps);
+        self.clock.spend(ps)
     }
 
     fn lock(&self, role: &str) -> Result<MutexGuard<'_, SimWorld>, InstrumentError> {
@@ -52,12 +138,11 @@ impl SimShared {
             message: "the simulated bench failed earlier".into(),
         })
     }
+}
 
-    async fn spend(&self, ps: u64) {
-        let pause = self.clock.spend(ps);
-        if !pause.is_zero() {
-            tokio::time::sleep(pause).await;
-        }
+async fn pause(wall: Duration) {
+    if !wall.is_zero() {
+        tokio::time::sleep(wall).await;
     }
 }
 
@@ -89,20 +174,12 @@ impl Attenuator for SimAttenuatorFront {
     }
 
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
-        let changed = {
-            let mut m = self.shared.lock("attenuator")?;
-            let changed = m.bench.atten_db() != db;
-            m.bench.set_atten_db(db);
-            changed
-        };
-        if changed {
-            self.shared.spend(self.switch_ps).await;
-        }
+        pause(self.shared.set_atten_db(db, self.switch_ps)?).await;
         Ok(())
     }
 
     async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
-        Ok(self.shared.lock("attenuator")?.bench.atten_db())
+        self.shared.atten_db()
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
@@ -137,14 +214,9 @@ impl RangingDevice for SimRangingFront {
             center_mhz: spec.channel.center_mhz,
             bw_mhz: spec.channel.bw_mhz,
         };
-        let outcome = {
-            let start_ps = self.shared.clock.now_ps();
-            let mut world = self.shared.lock("dut")?;
-            world.settle_to(start_ps);
-            world.bench.run_burst(start_ps, &request)
-        };
-        self.shared.spend(outcome.duration_ps).await;
-        Ok(outcome.exchanges)
+        let (exchanges, wall) = self.shared.run_burst(&request)?;
+        pause(wall).await;
+        Ok(exchanges)
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
@@ -152,10 +224,7 @@ impl RangingDevice for SimRangingFront {
     }
 
     async fn temperature_c(&mut self) -> Result<Option<f64>, InstrumentError> {
-        let now_ps = self.shared.clock.now_ps();
-        let mut world = self.shared.lock("dut")?;
-        world.settle_to(now_ps);
-        Ok(world.bench.dut_temp_c())
+        self.shared.dut_temp_c()
     }
 }
 
@@ -170,20 +239,6 @@ impl SimChamberFront {
     pub fn new(shared: SimShared, room_c: f64) -> Self {
         SimChamberFront { shared, room_c }
     }
-
-    fn with<R>(&self, f: impl FnOnce(&mut SimChamber, u64) -> R) -> Result<R, InstrumentError> {
-        let now_ps = self.shared.clock.now_ps();
-        let mut world = self.shared.lock("chamber")?;
-        world.settle_to(now_ps);
-        world
-            .chamber
-            .as_mut()
-            .map(|c| f(c, now_ps))
-            .ok_or_else(|| InstrumentError::Failed {
-                role: "chamber".into(),
-                message: "the simulated bench has no [sim.chamber]".into(),
-            })
-    }
 }
 
 #[async_trait]
@@ -193,15 +248,17 @@ impl Chamber for SimChamberFront {
     }
 
     async fn set_setpoint_c(&mut self, setpoint_c: f64) -> Result<(), InstrumentError> {
-        self.with(|c, now_ps| c.set_setpoint_c(now_ps, setpoint_c))
+        self.shared
+            .with_chamber(|c, now_ps| c.set_setpoint_c(now_ps, setpoint_c))
     }
 
     async fn air_c(&mut self) -> Result<f64, InstrumentError> {
-        self.with(|c, _| c.air_c())
+        self.shared.with_chamber(|c, _| c.air_c())
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
         let room_c = self.room_c;
-        self.with(|c, now_ps| c.set_setpoint_c(now_ps, room_c))
+        self.shared
+            .with_chamber(|c, now_ps| c.set_setpoint_c(now_ps, room_c))
     }
 }

@@ -12,6 +12,7 @@ pub mod chamber;
 pub mod counter;
 pub mod front;
 pub mod model;
+pub mod serve;
 pub mod timing;
 pub mod truth;
 

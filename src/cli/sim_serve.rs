@@ -1,0 +1,97 @@
+//! `taucal sim serve`: serve the simulated bench's instruments on TCP sockets and
+//! pseudo-terminals until SIGINT or SIGTERM.
+
+use super::args::SimServeArgs;
+use super::{bench_arg, Exit};
+use crate::diagnostic::Diagnostic;
+use crate::sim::serve::{Listen, ListenAt, ServedBench};
+
+/// Where each role is served when no `--listen` is given.
+pub const DEFAULT_LISTEN: [&str; 2] = ["attenuator=tcp:127.0.0.1:5025", "dut=tcp:127.0.0.1:5026"];
+
+/// Parses the listeners, refusing non-loopback ones unless `--allow-remote`.
+fn listeners(args: &SimServeArgs) -> Result<Vec<Listen>, Diagnostic> {
+    let texts: Vec<&str> = if args.listen.is_empty() {
+        DEFAULT_LISTEN.to_vec()
+    } else {
+        args.listen.iter().map(String::as_str).collect()
+    };
+    let mut out: Vec<Listen> = Vec::new();
+    for text in texts {
+        let listen = Listen::parse(text).map_err(|m| {
+            Diagnostic::plain(format!("--listen {text}: {m}"))
+                .with_hint("e.g. --listen attenuator=tcp:127.0.0.1:5025 --listen dut=pty")
+        })?;
+        if let ListenAt::Tcp(socket) = &listen.at {
+            if !socket.ip().is_loopback() {
+                if !args.allow_remote {
+                    return Err(Diagnostic::plain(format!(
+                        "--listen {text}: {} is not a loopback address",
+                        socket.ip()
+                    ))
+                    .with_hint("simulated instruments are served on loopback only; add --allow-remote to expose them on the network"));
+                }
+                eprintln!(
+                    "taucal: WARNING: serving the simulated {} on {socket}, reachable from the network",
+                    listen.role.name()
+                );
+            }
+        }
+        if out.iter().any(|l| l.role == listen.role) {
+            return Err(Diagnostic::plain(format!(
+                "--listen {text}: the {} is already served",
+                listen.role.name()
+            ))
+            .with_hint("serve each role once"));
+        }
+        out.push(listen);
+    }
+    Ok(out)
+}
+
+/// Serves until interrupted. Prints `ROLE ADDRESS` on stdout for each role once it is ready.
+pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
+    let bench = bench_arg::load(&args.bench)?;
+    let listen = listeners(&args)?;
+    let seed = args
+        .seed
+        .or(bench.sim.as_ref().map(|s| s.seed))
+        .unwrap_or(1);
+    let served = ServedBench::new(&bench, seed, args.realtime)?;
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(|e| Diagnostic::plain(format!("cannot start the server runtime: {e}")))?;
+    rt.block_on(async {
+        for l in &listen {
+            let address = served.start(l).await.map_err(|e| {
+                Diagnostic::plain(format!("cannot serve the {}: {e}", l.role.name()))
+                    .with_hint("pick a free port (tcp:127.0.0.1:0 lets the system choose)")
+            })?;
+            println!("{} {address}", l.role.name());
+        }
+        eprintln!(
+            "taucal: serving the simulated bench `{}` (seed {seed}, {} time); stop with Ctrl-C",
+            bench.name,
+            if args.realtime {
+                "wall-clock paced"
+            } else {
+                "virtual"
+            }
+        );
+        wait_for_stop().await
+    })?;
+    eprintln!("taucal: stopped");
+    Ok(Exit::Ok)
+}
+
+async fn wait_for_stop() -> Result<(), Diagnostic> {
+    let mut term = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate())
+        .map_err(|e| Diagnostic::plain(format!("cannot watch for SIGTERM: {e}")))?;
+    tokio::select! {
+        _ = tokio::signal::ctrl_c() => {}
+        _ = term.recv() => {}
+    }
+    Ok(())
+}

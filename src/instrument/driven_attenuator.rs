@@ -1,0 +1,122 @@
+//! An attenuator driven by a driver file over a transport: the file's command templates and
+//! reply pattern, SCPI basics around every setting, and the file's limits enforced before
+//! anything is sent.
+
+use super::driver_file::AttenuatorDriver;
+use super::scpi_client::{ScpiClient, ScpiError};
+use super::template::Value;
+use super::{Attenuator, InstrumentError};
+use async_trait::async_trait;
+use std::collections::BTreeMap;
+use std::time::Duration;
+
+/// A real (or served) step attenuator.
+pub struct DrivenAttenuator {
+    role: String,
+    driver: AttenuatorDriver,
+    scpi: ScpiClient,
+}
+
+impl DrivenAttenuator {
+    /// An attenuator for `role`, driven by `driver` over `scpi`.
+    pub fn new(role: &str, driver: AttenuatorDriver, scpi: ScpiClient) -> Self {
+        DrivenAttenuator {
+            role: role.to_string(),
+            driver,
+            scpi,
+        }
+    }
+
+    fn failed(&self, message: impl Into<String>) -> InstrumentError {
+        InstrumentError::Failed {
+            role: self.role.clone(),
+            message: message.into(),
+        }
+    }
+
+    /// Why the driver file forbids `db`, if it does.
+    pub fn refuse(&self, db: f64) -> Option<String> {
+        let [lo, hi] = self.driver.range_db;
+        if !db.is_finite() || db < lo - 1e-9 || db > hi + 1e-9 {
+            return Some(format!(
+                "{db} dB is outside the driver's range {lo}..{hi} dB; nothing was sent"
+            ));
+        }
+        let steps = (db - lo) / self.driver.step_db;
+        if (steps - steps.round()).abs() > 1e-6 {
+            return Some(format!(
+                "{db} dB is not on the driver's {} dB grid; nothing was sent",
+                self.driver.step_db
+            ));
+        }
+        None
+    }
+
+    async fn apply(&mut self, command: &str) -> Result<(), ScpiError> {
+        self.scpi.send(command).await?;
+        if self.driver.wait_complete {
+            self.scpi.wait_complete().await?;
+        }
+        if self.driver.error_queue {
+            self.scpi.check_errors().await?;
+        }
+        Ok(())
+    }
+}
+
+#[async_trait]
+impl Attenuator for DrivenAttenuator {
+    async fn identify(&mut self) -> Result<String, InstrumentError> {
+        self.scpi
+            .identify()
+            .await
+            .map_err(|e| self.failed(e.to_string()))
+    }
+
+    async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
+        if let Some(why) = self.refuse(db) {
+            return Err(self.failed(why));
+        }
+        let command = self
+            .driver
+            .set_atten
+            .render(&BTreeMap::from([("db", Value::Real(db))]));
+        let outcome = match self.apply(&command).await {
+            // A connection lost before or during the command: the link reconnects, and setting
+            // an attenuation twice is harmless, so try once more.
+            Err(ScpiError::Link(e)) if !e.is_timeout() && !self.scpi.is_connected() => {
+                tracing::warn!("{}: {e}; reconnecting", self.role);
+                self.apply(&command).await
+            }
+            other => other,
+        };
+        outcome.map_err(|e| self.failed(format!("`{command}`: {e}")))?;
+        if self.driver.settle_ms > 0.0 {
+            tokio::time::sleep(Duration::from_secs_f64(self.driver.settle_ms / 1000.0)).await;
+        }
+        Ok(())
+    }
+
+    async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
+        let command = self.driver.get_atten.text();
+        let reply = self
+            .scpi
+            .query(&command)
+            .await
+            .map_err(|e| self.failed(format!("`{command}`: {e}")))?;
+        self.driver
+            .get_atten_reply
+            .captures(&reply)
+            .and_then(|c| c["db"].parse::<f64>().ok())
+            .ok_or_else(|| {
+                self.failed(format!(
+                    "`{command}` was answered `{reply}`, which the driver's reply.get_atten does not match"
+                ))
+            })
+    }
+
+    async fn safe_state(&mut self) -> Result<(), InstrumentError> {
+        let db = self.driver.safe_atten_db;
+        self.set_atten_db(db).await
+    }
+}

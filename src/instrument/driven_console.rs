@@ -1,0 +1,323 @@
+//! A ranging device driven through its line console, as its driver file defines it: start a
+//! burst, read one record per exchange, stop at the end or failure line, and skip unsolicited
+//! lines (a boot banner). Line classification is pure; the async part only moves lines.
+
+use super::driver_file::ConsoleDriver;
+use super::template::Value;
+use super::transport::Link;
+use super::{BurstSpec, InstrumentError, RangingDevice};
+use crate::data::{DeviceExchange, STATUS_OK};
+use async_trait::async_trait;
+use regex::Captures;
+use std::collections::BTreeMap;
+
+/// Status given to an exchange whose record lacks a status field and a timestamp.
+pub const STATUS_INCOMPLETE: &str = "incomplete";
+
+/// What one console line means.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ConsoleLine {
+    /// One exchange's record.
+    Exchange(DeviceExchange),
+    /// The burst ended.
+    End,
+    /// The burst failed, with the console's reason.
+    Fail(String),
+    /// An unsolicited line to ignore.
+    Banner,
+    /// Anything else.
+    Other,
+}
+
+fn field<T: std::str::FromStr>(
+    caps: &Captures,
+    name: &str,
+    missing: &str,
+) -> Result<Option<T>, String> {
+    match caps.name(name).map(|m| m.as_str()) {
+        None => Ok(None),
+        Some(v) if v == missing || v.is_empty() => Ok(None),
+        Some(v) => v
+            .parse::<T>()
+            .map(Some)
+            .map_err(|_| format!("field `{name}` = `{v}` is not a number")),
+    }
+}
+
+/// Classifies a line by the driver's patterns; a record whose fields do not parse is an error.
+pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, String> {
+    if let Some(caps) = driver.exchange.captures(line) {
+        let m = driver.missing.as_str();
+        let mut x = DeviceExchange {
+            t1_ps: field(&caps, "t1", m)?,
+            t2_ps: field(&caps, "t2", m)?,
+            t3_ps: field(&caps, "t3", m)?,
+            t4_ps: field(&caps, "t4", m)?,
+            dut_gain: field(&caps, "gain", m)?,
+            dut_rssi_dbm: field(&caps, "rssi", m)?,
+            ref_gain: field(&caps, "ref_gain", m)?,
+            status: String::new(),
+        };
+        let complete = [x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps]
+            .iter()
+            .all(Option::is_some);
+        x.status = match caps.name("status").map(|s| s.as_str()) {
+            Some(s) if !s.is_empty() && s != m => s.to_string(),
+            _ if complete => STATUS_OK.to_string(),
+            _ => STATUS_INCOMPLETE.to_string(),
+        };
+        return Ok(ConsoleLine::Exchange(x));
+    }
+    if driver.burst_end.is_match(line) {
+        return Ok(ConsoleLine::End);
+    }
+    if let Some(caps) = driver.burst_fail.captures(line) {
+        let reason = caps
+            .name("reason")
+            .map_or_else(|| line.to_string(), |r| r.as_str().to_string());
+        return Ok(ConsoleLine::Fail(reason));
+    }
+    if driver.banner.as_ref().is_some_and(|b| b.is_match(line)) {
+        return Ok(ConsoleLine::Banner);
+    }
+    Ok(ConsoleLine::Other)
+}
+
+/// A ranging device behind its console.
+pub struct DrivenConsole {
+    role: String,
+    driver: ConsoleDriver,
+    link: Link,
+}
+
+impl DrivenConsole {
+    /// A console for `role`, defined by `driver`, over `link`.
+    pub fn new(role: &str, driver: ConsoleDriver, link: Link) -> Self {
+        DrivenConsole {
+            role: role.to_string(),
+            driver,
+            link,
+        }
+    }
+
+    fn failed(&self, message: impl Into<String>) -> InstrumentError {
+        InstrumentError::Failed {
+            role: self.role.clone(),
+            message: message.into(),
+        }
+    }
+
+    /// Why the driver file forbids this burst, if it does.
+    pub fn refuse(&self, spec: &BurstSpec) -> Option<String> {
+        let d = &self.driver;
+        let c = spec.channel;
+        if spec.frames < d.frames[0] || spec.frames > d.frames[1] {
+            return Some(format!(
+                "{} exchanges per burst is outside the driver's {}..{}",
+                spec.frames, d.frames[0], d.frames[1]
+            ));
+        }
+        if c.center_mhz < d.center_mhz[0] || c.center_mhz > d.center_mhz[1] {
+            return Some(format!(
+                "{} MHz is outside the driver's {}..{} MHz",
+                c.center_mhz, d.center_mhz[0], d.center_mhz[1]
+            ));
+        }
+        if !d.bw_mhz.contains(&c.bw_mhz) {
+            return Some(format!(
+                "{} MHz bandwidth is not one the driver lists ({:?})",
+                c.bw_mhz, d.bw_mhz
+            ));
+        }
+        None
+    }
+
+    /// Reads lines until one matches `want`, skipping banner lines; any other line is an error.
+    async fn expect(&mut self, command: &str, want: &regex::Regex) -> Result<String, String> {
+        loop {
+            let line = self
+                .link
+                .read_line()
+                .await
+                .map_err(|e| format!("`{command}`: {e}"))?;
+            if want.is_match(&line) {
+                return Ok(line);
+            }
+            match classify(&self.driver, &line)? {
+                ConsoleLine::Banner => continue,
+                ConsoleLine::Fail(reason) => return Err(format!("`{command}` failed: {reason}")),
+                _ => {
+                    return Err(format!(
+                        "`{command}` was answered `{line}`, which the driver does not expect"
+                    ))
+                }
+            }
+        }
+    }
+
+    async fn run_burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, String> {
+        let command = self.driver.start_burst.render(&BTreeMap::from([
+            ("frames", Value::Integer(u64::from(spec.frames))),
+            (
+                "center_mhz",
+                Value::Integer(u64::from(spec.channel.center_mhz)),
+            ),
+            ("bw_mhz", Value::Integer(u64::from(spec.channel.bw_mhz))),
+        ]));
+        self.link
+            .send(&command)
+            .await
+            .map_err(|e| format!("`{command}`: {e}"))?;
+        if let Some(ack) = self.driver.start_burst_reply.clone() {
+            self.expect(&command, &ack).await?;
+        }
+        let mut exchanges = Vec::with_capacity(spec.frames as usize);
+        loop {
+            let line = self
+                .link
+                .read_line()
+                .await
+                .map_err(|e| format!("burst after `{command}`: {e}"))?;
+            match classify(&self.driver, &line)? {
+                ConsoleLine::Exchange(x) => exchanges.push(x),
+                ConsoleLine::End => break,
+                ConsoleLine::Fail(reason) => return Err(format!("burst failed: {reason}")),
+                ConsoleLine::Banner => {}
+                ConsoleLine::Other => {
+                    return Err(format!("unexpected line during a burst: `{line}`"))
+                }
+            }
+        }
+        if exchanges.len() != spec.frames as usize {
+            return Err(format!(
+                "the burst reported {} exchanges, {} were asked for",
+                exchanges.len(),
+                spec.frames
+            ));
+        }
+        Ok(exchanges)
+    }
+}
+
+#[async_trait]
+impl RangingDevice for DrivenConsole {
+    async fn identify(&mut self) -> Result<String, InstrumentError> {
+        let command = self.driver.identify.text();
+        let want = self.driver.identify_reply.clone();
+        let outcome = async {
+            self.link
+                .send(&command)
+                .await
+                .map_err(|e| format!("`{command}`: {e}"))?;
+            self.expect(&command, &want).await
+        }
+        .await;
+        let line = outcome.map_err(|m| self.failed(m))?;
+        Ok(want
+            .captures(&line)
+            .map_or(line.clone(), |c| c["id"].to_string()))
+    }
+
+    async fn burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, InstrumentError> {
+        if let Some(why) = self.refuse(spec) {
+            return Err(self.failed(format!("{why}; nothing was sent")));
+        }
+        match self.run_burst(spec).await {
+            Ok(x) => Ok(x),
+            Err(m) => {
+                // Whatever the console still sends belongs to the failed burst: start afresh.
+                self.link.disconnect();
+                Err(self.failed(m))
+            }
+        }
+    }
+
+    async fn safe_state(&mut self) -> Result<(), InstrumentError> {
+        let command = self.driver.safe_command.text();
+        let outcome = async {
+            self.link
+                .send(&command)
+                .await
+                .map_err(|e| format!("`{command}`: {e}"))?;
+            if let Some(reply) = self.driver.safe_reply.clone() {
+                self.expect(&command, &reply).await?;
+            }
+            Ok::<(), String>(())
+        }
+        .await;
+        outcome.map_err(|m| self.failed(m))
+    }
+
+    async fn temperature_c(&mut self) -> Result<Option<f64>, InstrumentError> {
+        let Some((command, reply)) = self.driver.temperature.clone() else {
+            return Ok(None);
+        };
+        let command = command.text();
+        let outcome = async {
+            self.link
+                .send(&command)
+                .await
+                .map_err(|e| format!("`{command}`: {e}"))?;
+            let line = self.expect(&command, &reply).await?;
+            let caps = reply.captures(&line).ok_or("no match")?;
+            field::<f64>(&caps, "c", &self.driver.missing)
+        }
+        .await;
+        outcome.map_err(|m| self.failed(m))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::diagnostic::SourceFile;
+    use crate::instrument::driver_file::{DriverFile, DriverKind};
+
+    fn wren() -> ConsoleDriver {
+        let text = include_str!("../../drivers/wren6-console.toml");
+        match DriverFile::parse("wren6-console", SourceFile::new("wren6-console.toml", text)) {
+            Ok(DriverFile {
+                kind: DriverKind::RangingConsole(c),
+                ..
+            }) => *c,
+            _ => panic!("the shipped console driver loads"),
+        }
+    }
+
+    #[test]
+    fn classifies_records_end_failure_and_banner() {
+        let d = wren();
+        let line =
+            "xr 3 t1=281474976710000 t2=12 t3=60012 t4=281474976770100 g=2 rssi=-61.25 rg=0 st=ok";
+        assert_eq!(
+            classify(&d, line),
+            Ok(ConsoleLine::Exchange(DeviceExchange {
+                t1_ps: Some(281_474_976_710_000),
+                t2_ps: Some(12),
+                t3_ps: Some(60_012),
+                t4_ps: Some(281_474_976_770_100),
+                dut_gain: Some(2),
+                dut_rssi_dbm: Some(-61.25),
+                ref_gain: Some(0),
+                status: "ok".into(),
+            }))
+        );
+        let lost = "xr 4 t1=5 t2=- t3=- t4=- g=- rssi=- rg=- st=lost";
+        let Ok(ConsoleLine::Exchange(x)) = classify(&d, lost) else {
+            panic!("lost record");
+        };
+        assert_eq!(
+            (x.t1_ps, x.t2_ps, x.status.as_str()),
+            (Some(5), None, "lost")
+        );
+        assert_eq!(classify(&d, "range done n=16"), Ok(ConsoleLine::End));
+        assert_eq!(
+            classify(&d, "range fail radio busy"),
+            Ok(ConsoleLine::Fail("radio busy".into()))
+        );
+        assert_eq!(classify(&d, "boot: rf cal ok"), Ok(ConsoleLine::Banner));
+        assert_eq!(classify(&d, "what?"), Ok(ConsoleLine::Other));
+        let bad = "xr 1 t1=99999999999999999999999 t2=1 t3=1 t4=1 g=0 rssi=-1 rg=0 st=ok";
+        assert!(classify(&d, bad).is_err());
+    }
+}

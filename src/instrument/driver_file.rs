@@ -1,0 +1,768 @@
+//! Driver files (`drivers/NAME.toml`): an instrument described as data — its capability,
+//! command templates, reply patterns, limits, settle time and safe state — so a new instrument
+//! is a new file, not a recompile.
+//!
+//! Loading validates everything (templates against the parameters each command offers, regular
+//! expressions and the named fields they must capture, limits) and points errors at the file's
+//! line, like recipe and bench errors. Nothing here talks to an instrument.
+
+use super::template::{ParamKind, Template};
+use crate::diagnostic::{self, did_you_mean, Diagnostic, KeyError, SourceFile};
+use regex::Regex;
+use serde::Deserialize;
+use std::collections::BTreeMap;
+use std::path::Path;
+use std::time::Duration;
+
+/// Kind name of an attenuator driver.
+pub const KIND_ATTENUATOR: &str = "attenuator";
+/// Kind name of a ranging-device console driver.
+pub const KIND_RANGING_CONSOLE: &str = "ranging-console";
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawDriver {
+    driver: RawMeta,
+    link: RawLink,
+    #[serde(default)]
+    scpi: Option<RawScpi>,
+    command: BTreeMap<String, String>,
+    reply: BTreeMap<String, String>,
+    #[serde(default)]
+    limits: RawLimits,
+    #[serde(default)]
+    timing: RawTiming,
+    safe_state: RawSafe,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawMeta {
+    kind: String,
+    maker: String,
+    model: String,
+    #[serde(default)]
+    description: String,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawLink {
+    line_ending: String,
+    timeout_ms: f64,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawScpi {
+    wait_complete: bool,
+    error_queue: bool,
+}
+
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawLimits {
+    range_db: Option<[f64; 2]>,
+    step_db: Option<f64>,
+    max_input_dbm: Option<f64>,
+    frames: Option<[u32; 2]>,
+    center_mhz: Option<[u32; 2]>,
+    bw_mhz: Option<Vec<u32>>,
+}
+
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawTiming {
+    settle_ms: Option<f64>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSafe {
+    atten_db: Option<f64>,
+    command: Option<String>,
+    reply: Option<String>,
+}
+
+/// How lines travel.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LinkSettings {
+    /// Terminator appended to every line sent (`\n` or `\r\n`); replies may end with either.
+    pub line_ending: String,
+    /// How long to wait for a connection and for each reply line.
+    pub timeout: Duration,
+}
+
+/// A validated driver file.
+#[derive(Debug, Clone)]
+pub struct DriverFile {
+    /// The name benches use (the file stem).
+    pub name: String,
+    /// The file, kept for messages.
+    pub source: SourceFile,
+    /// Maker, as the file says.
+    pub maker: String,
+    /// Model, as the file says.
+    pub model: String,
+    /// Free text.
+    pub description: String,
+    /// Line settings.
+    pub link: LinkSettings,
+    /// What the instrument can do, and how it is asked.
+    pub kind: DriverKind,
+}
+
+/// The capability a driver file provides.
+#[derive(Debug, Clone)]
+pub enum DriverKind {
+    /// A step attenuator speaking SCPI.
+    Attenuator(AttenuatorDriver),
+    /// A ranging device's line console.
+    RangingConsole(Box<ConsoleDriver>),
+}
+
+impl DriverKind {
+    /// The kind's name as written in files.
+    pub fn name(&self) -> &'static str {
+        match self {
+            DriverKind::Attenuator(_) => KIND_ATTENUATOR,
+            DriverKind::RangingConsole(_) => KIND_RANGING_CONSOLE,
+        }
+    }
+}
+
+/// An attenuator driver: SCPI basics plus the file's own setting commands.
+#[derive(Debug, Clone)]
+pub struct AttenuatorDriver {
+    /// Sets the attenuation; parameter `db`.
+    pub set_atten: Template,
+    /// Asks for the attenuation.
+    pub get_atten: Template,
+    /// Reply to `get_atten`; captures `db`.
+    pub get_atten_reply: Regex,
+    /// Ask `*OPC?` after each setting and wait for `1`.
+    pub wait_complete: bool,
+    /// Drain `SYST:ERR?` after each setting; any error fails the run.
+    pub error_queue: bool,
+    /// Lowest and highest setting.
+    pub range_db: [f64; 2],
+    /// Smallest step.
+    pub step_db: f64,
+    /// Highest RF power the attenuator's input takes without damage.
+    pub max_input_dbm: f64,
+    /// Wait after a setting before it counts as taken effect (relays settling).
+    pub settle_ms: f64,
+    /// The setting that protects both receivers.
+    pub safe_atten_db: f64,
+}
+
+/// A ranging device's console: a line protocol defined entirely by the file.
+#[derive(Debug, Clone)]
+pub struct ConsoleDriver {
+    /// Asks for the device's identity.
+    pub identify: Template,
+    /// Reply to `identify`; captures `id`.
+    pub identify_reply: Regex,
+    /// Starts a burst; parameters `frames`, `center_mhz`, `bw_mhz`.
+    pub start_burst: Template,
+    /// Acknowledgment of `start_burst`, if the console sends one.
+    pub start_burst_reply: Option<Regex>,
+    /// One exchange; captures `t1`…`t4` and `gain`, optionally `rssi`, `ref_gain`, `status`.
+    pub exchange: Regex,
+    /// The burst's last line.
+    pub burst_end: Regex,
+    /// A burst that failed; captures `reason` where it can.
+    pub burst_fail: Regex,
+    /// Unsolicited lines to ignore (a boot banner, prompts).
+    pub banner: Option<Regex>,
+    /// Asks for the temperature, with its reply (capturing `c`), where the device measures one.
+    pub temperature: Option<(Template, Regex)>,
+    /// How the console writes a value it does not have.
+    pub missing: String,
+    /// Exchanges per burst the device accepts.
+    pub frames: [u32; 2],
+    /// Center frequencies it accepts.
+    pub center_mhz: [u32; 2],
+    /// Bandwidths it accepts.
+    pub bw_mhz: Vec<u32>,
+    /// Highest receive level its receiver takes (damage limit with margin).
+    pub max_input_dbm: f64,
+    /// Stops ranging: the safe state.
+    pub safe_command: Template,
+    /// Reply to the safe-state command, if any.
+    pub safe_reply: Option<Regex>,
+}
+
+const ATTEN_COMMANDS: [&str; 2] = ["set_atten", "get_atten"];
+const ATTEN_REPLIES: [&str; 1] = ["get_atten"];
+const CONSOLE_COMMANDS: [&str; 3] = ["identify", "start_burst", "temperature"];
+const CONSOLE_REPLIES: [&str; 8] = [
+    "identify",
+    "start_burst",
+    "exchange",
+    "burst_end",
+    "burst_fail",
+    "banner",
+    "temperature",
+    "missing",
+];
+const BURST_PARAMS: [(&str, ParamKind); 3] = [
+    ("frames", ParamKind::Integer),
+    ("center_mhz", ParamKind::Integer),
+    ("bw_mhz", ParamKind::Integer),
+];
+
+impl DriverFile {
+    /// Reads and validates `dir/NAME.toml`.
+    pub fn load(dir: &Path, name: &str) -> Result<DriverFile, Diagnostic> {
+        let path = dir.join(format!("{name}.toml"));
+        let text = std::fs::read_to_string(&path).map_err(|e| {
+            Diagnostic::in_file(&path, format!("cannot read driver file `{name}`: {e}"))
+                .with_hint(format!(
+                    "driver files live in {} (the bench's `drivers_dir`); the name is the file name without .toml",
+                    dir.display()
+                ))
+        })?;
+        DriverFile::parse(name, SourceFile::new(path, text))
+    }
+
+    /// Parses and validates driver-file text.
+    pub fn parse(name: &str, source: SourceFile) -> Result<DriverFile, Diagnostic> {
+        let raw: RawDriver =
+            toml::from_str(&source.text).map_err(|e| diagnostic::from_toml(&source, &e))?;
+        build(name, raw)
+            .map_err(|e| source.key_error(e))
+            .map(|mut d| {
+                d.source = source;
+                d
+            })
+    }
+}
+
+fn build(name: &str, raw: RawDriver) -> Result<DriverFile, KeyError> {
+    let line_ending = match raw.link.line_ending.as_str() {
+        "lf" => "\n",
+        "crlf" => "\r\n",
+        other => {
+            return Err(KeyError::new(
+                "link.line_ending",
+                format!("`{other}` is not a line ending"),
+                "write \"lf\" or \"crlf\"",
+            ))
+        }
+    };
+    let t = raw.link.timeout_ms;
+    if !(t.is_finite() && (1.0..=600_000.0).contains(&t)) {
+        return Err(KeyError::new(
+            "link.timeout_ms",
+            format!("{t} ms is not a usable timeout"),
+            "give 1 to 600000 ms, e.g. 2000",
+        ));
+    }
+    let link = LinkSettings {
+        line_ending: line_ending.to_string(),
+        timeout: Duration::from_micros((t * 1000.0) as u64),
+    };
+    let kind = match raw.driver.kind.as_str() {
+        KIND_ATTENUATOR => DriverKind::Attenuator(attenuator(&raw)?),
+        KIND_RANGING_CONSOLE => DriverKind::RangingConsole(Box::new(console(&raw)?)),
+        other => {
+            return Err(KeyError::new(
+                "driver.kind",
+                format!("`{other}` is not a kind of instrument taucal drives"),
+                format!("kinds are {KIND_ATTENUATOR} and {KIND_RANGING_CONSOLE}"),
+            ))
+        }
+    };
+    Ok(DriverFile {
+        name: name.to_string(),
+        source: SourceFile::new(name, ""),
+        maker: raw.driver.maker,
+        model: raw.driver.model,
+        description: raw.driver.description,
+        link,
+        kind,
+    })
+}
+
+fn only_keys(
+    table: &str,
+    map: &BTreeMap<String, String>,
+    allowed: &[&str],
+) -> Result<(), KeyError> {
+    match map.keys().find(|k| !allowed.contains(&k.as_str())) {
+        Some(k) => {
+            let hint = did_you_mean(k, allowed.iter().copied())
+                .map(|s| format!("did you mean `{s}`?"))
+                .unwrap_or_else(|| format!("this kind's {table} keys are {}", allowed.join(", ")));
+            Err(KeyError::new(
+                format!("{table}.{k}"),
+                "is not a key of this kind of driver",
+                hint,
+            ))
+        }
+        None => Ok(()),
+    }
+}
+
+fn required<'a>(
+    table: &str,
+    map: &'a BTreeMap<String, String>,
+    key: &str,
+    example: &str,
+) -> Result<&'a str, KeyError> {
+    map.get(key).map(String::as_str).ok_or_else(|| {
+        KeyError::new(
+            table,
+            format!("has no `{key}`"),
+            format!("add `{key} = {example}`"),
+        )
+    })
+}
+
+fn template(
+    table: &str,
+    key: &str,
+    text: &str,
+    params: &[(&str, ParamKind)],
+) -> Result<Template, KeyError> {
+    Template::parse(text, params).map_err(|m| {
+        KeyError::new(
+            format!("{table}.{key}"),
+            m,
+            "placeholders are `{name}` or `{name:.N}`",
+        )
+    })
+}
+
+/// Compiles a reply pattern and checks it captures `needs` (and nothing unknown among `may`).
+fn pattern(key: &str, text: &str, needs: &[&str], may: &[&str]) -> Result<Regex, KeyError> {
+    let full = format!("reply.{key}");
+    let re = Regex::new(text).map_err(|e| {
+        KeyError::new(
+            &full,
+            format!("is not a regular expression: {e}"),
+            "see the regex crate's syntax; name fields with (?P<name>…)",
+        )
+    })?;
+    let names: Vec<&str> = re.capture_names().flatten().collect();
+    if let Some(missing) = needs.iter().find(|n| !names.contains(n)) {
+        return Err(KeyError::new(
+            &full,
+            format!("does not capture the field `{missing}`"),
+            format!(
+                "capture it with (?P<{missing}>…); this pattern must capture {}",
+                needs.join(", ")
+            ),
+        ));
+    }
+    if let Some(unknown) = names
+        .iter()
+        .find(|n| !needs.contains(n) && !may.contains(n))
+    {
+        let mut known: Vec<&str> = needs.to_vec();
+        known.extend_from_slice(may);
+        return Err(KeyError::new(
+            &full,
+            format!("captures `{unknown}`, which taucal does not read"),
+            if known.is_empty() {
+                "this pattern captures nothing".to_string()
+            } else {
+                format!("fields here are {}", known.join(", "))
+            },
+        ));
+    }
+    Ok(re)
+}
+
+fn refuse(key: &str, kind: &str, present: bool) -> Result<(), KeyError> {
+    if present {
+        Err(KeyError::new(
+            key,
+            format!("does not apply to a {kind} driver"),
+            "remove it",
+        ))
+    } else {
+        Ok(())
+    }
+}
+
+fn finite_non_negative(key: &str, v: f64, example: &str) -> Result<f64, KeyError> {
+    if v.is_finite() && v >= 0.0 {
+        Ok(v)
+    } else {
+        Err(KeyError::new(
+            key,
+            format!("{v} is negative or not finite"),
+            format!("give a value ≥ 0, e.g. {example}"),
+        ))
+    }
+}
+
+fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
+    only_keys("command", &raw.command, &ATTEN_COMMANDS)?;
+    only_keys("reply", &raw.reply, &ATTEN_REPLIES)?;
+    let l = &raw.limits;
+    refuse("limits.frames", KIND_ATTENUATOR, l.frames.is_some())?;
+    refuse("limits.center_mhz", KIND_ATTENUATOR, l.center_mhz.is_some())?;
+    refuse("limits.bw_mhz", KIND_ATTENUATOR, l.bw_mhz.is_some())?;
+    refuse(
+        "safe_state.command",
+        KIND_ATTENUATOR,
+        raw.safe_state.command.is_some(),
+    )?;
+    refuse(
+        "safe_state.reply",
+        KIND_ATTENUATOR,
+        raw.safe_state.reply.is_some(),
+    )?;
+    let Some(scpi) = &raw.scpi else {
+        return Err(KeyError::new(
+            "driver",
+            "an attenuator driver needs a [scpi] table",
+            "add [scpi] with wait_complete = true and error_queue = true",
+        ));
+    };
+    let set_atten = template(
+        "command",
+        "set_atten",
+        required("command", &raw.command, "set_atten", "\"ATT {db:.2}\"")?,
+        &[("db", ParamKind::Real)],
+    )?;
+    let get_atten = template(
+        "command",
+        "get_atten",
+        required("command", &raw.command, "get_atten", "\"ATT?\"")?,
+        &[],
+    )?;
+    let get_atten_reply = pattern(
+        "get_atten",
+        required("reply", &raw.reply, "get_atten", "'^(?P<db>[-+0-9.eE]+)$'")?,
+        &["db"],
+        &[],
+    )?;
+    let Some([lo, hi]) = l.range_db else {
+        return Err(KeyError::new(
+            "limits",
+            "has no `range_db`",
+            "add `range_db = [lowest, highest]` in dB",
+        ));
+    };
+    if !(lo.is_finite() && hi.is_finite() && lo >= 0.0 && lo < hi) {
+        return Err(KeyError::new(
+            "limits.range_db",
+            format!("[{lo}, {hi}] is not a range"),
+            "give [lowest, highest] in dB, lowest ≥ 0",
+        ));
+    }
+    let step_db = l.step_db.ok_or_else(|| {
+        KeyError::new(
+            "limits",
+            "has no `step_db`",
+            "add the smallest step, e.g. `step_db = 0.25`",
+        )
+    })?;
+    if !(step_db.is_finite() && step_db > 0.0 && step_db <= hi - lo) {
+        return Err(KeyError::new(
+            "limits.step_db",
+            format!("{step_db} dB is not a usable step"),
+            "give the smallest step, e.g. 0.25",
+        ));
+    }
+    let max_input_dbm = l.max_input_dbm.filter(|v| v.is_finite()).ok_or_else(|| {
+        KeyError::new(
+            "limits",
+            "has no finite `max_input_dbm`",
+            "add the highest input power the attenuator takes without damage, from its data sheet",
+        )
+    })?;
+    let settle_ms = finite_non_negative(
+        "timing.settle_ms",
+        raw.timing.settle_ms.unwrap_or(0.0),
+        "5.0",
+    )?;
+    let safe_atten_db = raw.safe_state.atten_db.ok_or_else(|| {
+        KeyError::new(
+            "safe_state",
+            "has no `atten_db`",
+            format!("the safe state is the highest attenuation: `atten_db = {hi}`"),
+        )
+    })?;
+    if !(safe_atten_db.is_finite() && (lo..=hi).contains(&safe_atten_db)) {
+        return Err(KeyError::new(
+            "safe_state.atten_db",
+            format!("{safe_atten_db} dB is outside range_db"),
+            format!("use the highest setting, {hi}"),
+        ));
+    }
+    Ok(AttenuatorDriver {
+        set_atten,
+        get_atten,
+        get_atten_reply,
+        wait_complete: scpi.wait_complete,
+        error_queue: scpi.error_queue,
+        range_db: [lo, hi],
+        step_db,
+        max_input_dbm,
+        settle_ms,
+        safe_atten_db,
+    })
+}
+
+fn console(raw: &RawDriver) -> Result<ConsoleDriver, KeyError> {
+    only_keys("command", &raw.command, &CONSOLE_COMMANDS)?;
+    only_keys("reply", &raw.reply, &CONSOLE_REPLIES)?;
+    let l = &raw.limits;
+    refuse("scpi", KIND_RANGING_CONSOLE, raw.scpi.is_some())?;
+    refuse(
+        "limits.range_db",
+        KIND_RANGING_CONSOLE,
+        l.range_db.is_some(),
+    )?;
+    refuse("limits.step_db", KIND_RANGING_CONSOLE, l.step_db.is_some())?;
+    refuse(
+        "safe_state.atten_db",
+        KIND_RANGING_CONSOLE,
+        raw.safe_state.atten_db.is_some(),
+    )?;
+    let c = &raw.command;
+    let r = &raw.reply;
+    let identify = template(
+        "command",
+        "identify",
+        required("command", c, "identify", "\"who\"")?,
+        &[],
+    )?;
+    let identify_reply = pattern(
+        "identify",
+        required("reply", r, "identify", "'^id (?P<id>.+)$'")?,
+        &["id"],
+        &[],
+    )?;
+    let start_burst = template(
+        "command",
+        "start_burst",
+        required(
+            "command",
+            c,
+            "start_burst",
+            "\"start n={frames} f={center_mhz} bw={bw_mhz}\"",
+        )?,
+        &BURST_PARAMS,
+    )?;
+    let start_burst_reply = r
+        .get("start_burst")
+        .map(|p| pattern("start_burst", p, &[], &[]))
+        .transpose()?;
+    let exchange = pattern(
+        "exchange",
+        required(
+            "reply",
+            r,
+            "exchange",
+            "'^x t1=(?P<t1>\\d+) … g=(?P<gain>\\d+)$'",
+        )?,
+        &["t1", "t2", "t3", "t4", "gain"],
+        &["seq", "rssi", "ref_gain", "status"],
+    )?;
+    let burst_end = pattern(
+        "burst_end",
+        required("reply", r, "burst_end", "'^done$'")?,
+        &[],
+        &["count"],
+    )?;
+    let burst_fail = pattern(
+        "burst_fail",
+        required("reply", r, "burst_fail", "'^fail (?P<reason>.*)$'")?,
+        &[],
+        &["reason"],
+    )?;
+    let banner = r
+        .get("banner")
+        .map(|p| pattern("banner", p, &[], &[]))
+        .transpose()?;
+    let temperature = match (c.get("temperature"), r.get("temperature")) {
+        (None, None) => None,
+        (Some(cmd), Some(reply)) => Some((
+            template("command", "temperature", cmd, &[])?,
+            pattern("temperature", reply, &["c"], &[])?,
+        )),
+        (Some(_), None) => {
+            return Err(KeyError::new(
+                "command.temperature",
+                "has no reply pattern",
+                "add `reply.temperature` capturing (?P<c>…)",
+            ))
+        }
+        (None, Some(_)) => {
+            return Err(KeyError::new(
+                "reply.temperature",
+                "has no command",
+                "add `command.temperature`",
+            ))
+        }
+    };
+    let missing = r.get("missing").cloned().unwrap_or_else(|| "-".into());
+    let frames = l.frames.unwrap_or([1, 1024]);
+    if frames[0] == 0 || frames[0] > frames[1] {
+        return Err(KeyError::new(
+            "limits.frames",
+            format!("{frames:?} is not a range of burst sizes"),
+            "give [fewest, most], fewest ≥ 1",
+        ));
+    }
+    let center_mhz = l.center_mhz.ok_or_else(|| {
+        KeyError::new(
+            "limits",
+            "has no `center_mhz`",
+            "add `center_mhz = [lowest, highest]`, e.g. [2412, 7115]",
+        )
+    })?;
+    if center_mhz[0] > center_mhz[1] {
+        return Err(KeyError::new(
+            "limits.center_mhz",
+            format!("{center_mhz:?} is not a range"),
+            "give [lowest, highest]",
+        ));
+    }
+    let bw_mhz = l.bw_mhz.clone().filter(|b| !b.is_empty()).ok_or_else(|| {
+        KeyError::new(
+            "limits",
+            "has no `bw_mhz`",
+            "list the bandwidths the device ranges on, e.g. [20, 40, 80]",
+        )
+    })?;
+    let max_input_dbm = l.max_input_dbm.filter(|v| v.is_finite()).ok_or_else(|| {
+        KeyError::new(
+            "limits",
+            "has no finite `max_input_dbm`",
+            "add the receiver's highest safe input level with a margin, from its data sheet",
+        )
+    })?;
+    let Some(safe) = &raw.safe_state.command else {
+        return Err(KeyError::new(
+            "safe_state",
+            "has no `command`",
+            "add the command that stops ranging, e.g. `command = \"stop\"`",
+        ));
+    };
+    let safe_command = template("safe_state", "command", safe, &[])?;
+    let safe_reply = raw
+        .safe_state
+        .reply
+        .as_deref()
+        .map(|p| {
+            Regex::new(p).map_err(|e| {
+                KeyError::new(
+                    "safe_state.reply",
+                    format!("is not a regular expression: {e}"),
+                    "see the regex crate's syntax",
+                )
+            })
+        })
+        .transpose()?;
+    Ok(ConsoleDriver {
+        identify,
+        identify_reply,
+        start_burst,
+        start_burst_reply,
+        exchange,
+        burst_end,
+        burst_fail,
+        banner,
+        temperature,
+        missing,
+        frames,
+        center_mhz,
+        bw_mhz,
+        max_input_dbm,
+        safe_command,
+        safe_reply,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn parse(text: &str) -> Result<DriverFile, Diagnostic> {
+        DriverFile::parse("test", SourceFile::new("test.toml", text))
+    }
+
+    const SHIPPED: [(&str, &str); 3] = [
+        (
+            "brackwater-bw95a",
+            include_str!("../../drivers/brackwater-bw95a.toml"),
+        ),
+        (
+            "olvenmark-step8",
+            include_str!("../../drivers/olvenmark-step8.toml"),
+        ),
+        (
+            "wren6-console",
+            include_str!("../../drivers/wren6-console.toml"),
+        ),
+    ];
+
+    #[test]
+    fn shipped_drivers_load() {
+        for (name, text) in SHIPPED {
+            let d = parse(text).unwrap_or_else(|e| panic!("{name}: {e}"));
+            assert!(d.maker.contains("fictional"), "{name}");
+        }
+        let Ok(DriverFile {
+            kind: DriverKind::Attenuator(a),
+            ..
+        }) = parse(SHIPPED[0].1)
+        else {
+            panic!("attenuator");
+        };
+        assert_eq!(a.range_db, [0.0, 95.0]);
+        assert_eq!(a.safe_atten_db, 95.0);
+        let caps = a.get_atten_reply.captures("17.25").expect("reply matches");
+        assert_eq!(&caps["db"], "17.25");
+    }
+
+    /// Replaces `from` by `to` in a shipped driver and parses it.
+    fn broken(which: usize, from: &str, to: &str) -> String {
+        let text = SHIPPED[which].1;
+        assert!(text.contains(from), "{from}");
+        match parse(&text.replacen(from, to, 1)) {
+            Ok(_) => panic!("`{to}` was accepted"),
+            Err(d) => d.to_string(),
+        }
+    }
+
+    #[test]
+    fn errors_name_the_key_and_its_line() {
+        let e = broken(0, "ATTenuation {db:.2}", "ATTenuation {dB:.2}");
+        assert!(e.contains("command.set_atten"), "{e}");
+        assert!(e.contains("unknown parameter `dB`"), "{e}");
+        assert!(e.contains("test.toml:20:13"), "{e}");
+        let e = broken(0, "'^(?P<db>", "'^(?P<level>");
+        assert!(e.contains("does not capture the field `db`"), "{e}");
+        let e = broken(0, "'^(?P<db>", "'^((?P<db>");
+        assert!(e.contains("not a regular expression"), "{e}");
+        let e = broken(0, "kind = \"attenuator\"", "kind = \"chamber\"");
+        assert!(e.contains("not a kind of instrument"), "{e}");
+        let e = broken(0, "set_atten =", "set_atten_db =");
+        assert!(e.contains("did you mean `set_atten`"), "{e}");
+        let e = broken(0, "atten_db = 95.0", "atten_db = 120.0");
+        assert!(e.contains("outside range_db"), "{e}");
+        let e = broken(0, "max_input_dbm = 30.0", "max_input_dbm = nan");
+        assert!(e.contains("max_input_dbm"), "{e}");
+        let e = broken(0, "line_ending = \"lf\"", "line_ending = \"cr\"");
+        assert!(e.contains("not a line ending"), "{e}");
+        let e = broken(2, "(?P<gain>", "(?P<agc>");
+        assert!(e.contains("does not capture the field `gain`"), "{e}");
+        let e = broken(2, "ch={center_mhz}", "ch={channel}");
+        assert!(e.contains("offers frames, center_mhz, bw_mhz"), "{e}");
+        let e = broken(2, "[safe_state]", "[safe_state]\natten_db = 95.0");
+        assert!(
+            e.contains("does not apply to a ranging-console driver"),
+            "{e}"
+        );
+        let e = broken(2, "command = \"range halt\"", "");
+        assert!(e.contains("safe_state"), "{e}");
+    }
+}

@@ -1,0 +1,226 @@
+//! A line-oriented connection that (re)connects on demand: a lost connection fails the command
+//! in flight, and the next command reconnects, so a cable pulled and replugged between steps
+//! costs one error, not the instrument.
+
+use super::{open, Address, Stream};
+use crate::instrument::line::{read_line, LineError, LineFramer};
+use std::time::Duration;
+use thiserror::Error;
+use tokio::io::AsyncWriteExt;
+
+/// What went wrong on a link.
+#[derive(Debug, Clone, PartialEq, Eq, Error)]
+pub enum LinkError {
+    /// No connection could be made.
+    #[error("cannot connect to {address}: {message}")]
+    Connect {
+        /// The address.
+        address: String,
+        /// The system's words.
+        message: String,
+    },
+    /// A line could not be sent or read.
+    #[error("{address}: {source}")]
+    Line {
+        /// The address.
+        address: String,
+        /// What happened.
+        source: LineError,
+    },
+}
+
+impl LinkError {
+    /// True when the command timed out (the connection itself may be fine).
+    pub fn is_timeout(&self) -> bool {
+        matches!(
+            self,
+            LinkError::Line {
+                source: LineError::Timeout(_),
+                ..
+            }
+        )
+    }
+}
+
+/// A line connection to one instrument.
+pub struct Link {
+    address: Address,
+    ending: String,
+    timeout: Duration,
+    stream: Option<Box<dyn Stream>>,
+    framer: LineFramer,
+}
+
+impl Link {
+    /// A link that will connect to `address` on first use, end every line it sends with
+    /// `ending`, and wait `timeout` for each connection and each reply line.
+    pub fn new(address: Address, ending: &str, timeout: Duration) -> Self {
+        Link {
+            address,
+            ending: ending.to_string(),
+            timeout,
+            stream: None,
+            framer: LineFramer::new(),
+        }
+    }
+
+    /// The per-command timeout.
+    pub fn timeout(&self) -> Duration {
+        self.timeout
+    }
+
+    /// True while connected.
+    pub fn is_connected(&self) -> bool {
+        self.stream.is_some()
+    }
+
+    fn line_error(&mut self, source: LineError) -> LinkError {
+        if !matches!(source, LineError::Timeout(_)) {
+            self.stream = None;
+            self.framer.clear();
+        }
+        LinkError::Line {
+            address: self.address.to_string(),
+            source,
+        }
+    }
+
+    async fn connected(&mut self) -> Result<&mut Box<dyn Stream>, LinkError> {
+        if self.stream.is_none() {
+            let stream =
+                open(&self.address, self.timeout)
+                    .await
+                    .map_err(|e| LinkError::Connect {
+                        address: self.address.to_string(),
+                        message: e.to_string(),
+                    })?;
+            self.framer.clear();
+            self.stream = Some(stream);
+        }
+        self.stream.as_mut().ok_or_else(|| LinkError::Connect {
+            address: self.address.to_string(),
+            message: "not connected".into(),
+        })
+    }
+
+    /// Sends one line (the terminator is added).
+    pub async fn send(&mut self, line: &str) -> Result<(), LinkError> {
+        let bytes = format!("{line}{}", self.ending);
+        let timeout = self.timeout;
+        let stream = self.connected().await?;
+        let write = async {
+            stream.write_all(bytes.as_bytes()).await?;
+            stream.flush().await
+        };
+        let outcome = match tokio::time::timeout(timeout, write).await {
+            Ok(Ok(())) => return Ok(()),
+            Ok(Err(e)) => LineError::Io(e.to_string()),
+            Err(_) => LineError::Timeout(timeout.as_millis() as u64),
+        };
+        Err(self.line_error(outcome))
+    }
+
+    /// Reads the next line, waiting at most `timeout`.
+    pub async fn read_line_within(&mut self, timeout: Duration) -> Result<String, LinkError> {
+        let outcome = match self.stream.as_mut() {
+            Some(stream) => read_line(stream, &mut self.framer, timeout).await,
+            None => Err(LineError::Closed),
+        };
+        outcome.map_err(|e| self.line_error(e))
+    }
+
+    /// Reads the next line within the link's timeout.
+    pub async fn read_line(&mut self) -> Result<String, LinkError> {
+        self.read_line_within(self.timeout).await
+    }
+
+    /// Sends a line and reads one line back.
+    pub async fn query(&mut self, line: &str) -> Result<String, LinkError> {
+        self.send(line).await?;
+        self.read_line().await
+    }
+
+    /// Drops the connection (the next command reconnects).
+    pub fn disconnect(&mut self) {
+        self.stream = None;
+        self.framer.clear();
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use tokio::io::{AsyncBufReadExt, BufReader};
+    use tokio::net::TcpListener;
+
+    /// An echo-like peer on loopback that answers each line with `re:<line>` and hangs up after
+    /// `lines_per_connection` lines, accepting `connections` connections.
+    async fn peer(lines_per_connection: usize, connections: usize) -> u16 {
+        let listener = TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let port = listener.local_addr().expect("addr").port();
+        tokio::spawn(async move {
+            for _ in 0..connections {
+                let (socket, _) = listener.accept().await.expect("accept");
+                let (r, mut w) = socket.into_split();
+                let mut lines = BufReader::new(r).lines();
+                for _ in 0..lines_per_connection {
+                    let Ok(Some(line)) = lines.next_line().await else {
+                        break;
+                    };
+                    w.write_all(format!("re:{line}\r\n").as_bytes())
+                        .await
+                        .expect("write");
+                }
+            }
+        });
+        port
+    }
+
+    fn tcp(port: u16) -> Address {
+        Address::Tcp {
+            host: "127.0.0.1".into(),
+            port,
+        }
+    }
+
+    #[tokio::test]
+    async fn queries_over_loopback_tcp() {
+        let port = peer(2, 1).await;
+        let mut link = Link::new(tcp(port), "\n", Duration::from_secs(2));
+        assert_eq!(link.query("one").await, Ok("re:one".into()));
+        assert_eq!(link.query("two").await, Ok("re:two".into()));
+    }
+
+    #[tokio::test]
+    async fn a_lost_connection_fails_one_command_and_the_next_reconnects() {
+        let port = peer(1, 2).await;
+        let mut link = Link::new(tcp(port), "\n", Duration::from_secs(2));
+        assert_eq!(link.query("a").await, Ok("re:a".into()));
+        let lost = link.query("b").await.expect_err("peer hung up");
+        assert!(!lost.is_timeout(), "{lost}");
+        assert!(!link.is_connected());
+        assert_eq!(link.query("c").await, Ok("re:c".into()));
+    }
+
+    #[tokio::test]
+    async fn a_silent_peer_times_out() {
+        let listener = TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let port = listener.local_addr().expect("addr").port();
+        let keep = tokio::spawn(async move { listener.accept().await });
+        let mut link = Link::new(tcp(port), "\n", Duration::from_millis(100));
+        let e = link.query("*IDN?").await.expect_err("no answer");
+        assert!(e.is_timeout(), "{e}");
+        keep.abort();
+    }
+
+    #[tokio::test]
+    async fn a_refused_connection_says_where() {
+        let listener = TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let port = listener.local_addr().expect("addr").port();
+        drop(listener);
+        let mut link = Link::new(tcp(port), "\n", Duration::from_millis(500));
+        let e = link.query("x").await.expect_err("nobody listens");
+        assert!(matches!(e, LinkError::Connect { .. }), "{e}");
+        assert!(e.to_string().contains(&format!("127.0.0.1:{port}")), "{e}");
+    }
+}

@@ -1,0 +1,33 @@
+//! Transports: byte streams to an instrument, chosen from its address. Everything above them
+//! (line framing, SCPI, driver files) is the same whether the bytes travel over TCP or a serial
+//! line, so simulated instruments served on either exercise the same client code.
+
+pub mod address;
+pub mod link;
+pub mod serial;
+pub mod tcp;
+
+pub use address::{Address, AddressError, SerialSettings, ADDRESS_FORMS};
+pub use link::{Link, LinkError};
+
+use tokio::io::{AsyncRead, AsyncWrite};
+
+/// A connected byte stream.
+pub trait Stream: AsyncRead + AsyncWrite + Unpin + Send {}
+
+impl<T: AsyncRead + AsyncWrite + Unpin + Send> Stream for T {}
+
+/// Opens a stream to `address` (not `sim:`, which has no stream), waiting at most `timeout`.
+pub async fn open(
+    address: &Address,
+    timeout: std::time::Duration,
+) -> std::io::Result<Box<dyn Stream>> {
+    match address {
+        Address::Sim => Err(std::io::Error::new(
+            std::io::ErrorKind::Unsupported,
+            "`sim:` is served in-process, not over a stream",
+        )),
+        Address::Tcp { host, port } => tcp::connect(host, *port, timeout).await,
+        Address::Serial(settings) => serial::open(settings),
+    }
+}

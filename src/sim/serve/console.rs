@@ -1,0 +1,223 @@
+//! The simulated DUT's line console, speaking the protocol `drivers/wren6-console.toml`
+//! describes: a boot banner, `who`, `range go n= ch= bw=`, `range halt`, `temp?`. Encoding and
+//! parsing are pure functions; [`serve`] moves lines over any byte stream (TCP or a pty).
+
+use crate::data::DeviceExchange;
+use crate::sim::front::SimShared;
+use crate::sim::BurstRequest;
+use std::fmt::Write as _;
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
+
+/// Lines the console prints when it starts: unsolicited, before any command.
+pub const BANNER: [&str; 3] = [
+    "Wren-6 ranging module debug console (simulated by taucal)",
+    "boot: rf calibration loaded",
+    "fw 2.3.1 ready",
+];
+
+/// A console command.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ConsoleCommand {
+    /// `who`
+    Identify,
+    /// `range go n=N ch=MHZ bw=MHZ`
+    Burst(BurstRequest),
+    /// `range halt`
+    Halt,
+    /// `temp?`
+    Temperature,
+}
+
+/// Parses a command line; `Err` carries the reply for a line that is not one.
+pub fn parse_command(line: &str) -> Result<ConsoleCommand, String> {
+    let words: Vec<&str> = line.split_whitespace().collect();
+    match words.as_slice() {
+        ["who"] => Ok(ConsoleCommand::Identify),
+        ["range", "halt"] => Ok(ConsoleCommand::Halt),
+        ["temp?"] => Ok(ConsoleCommand::Temperature),
+        ["range", "go", args @ ..] => {
+            let mut n = None;
+            let mut ch = None;
+            let mut bw = None;
+            for arg in args {
+                let (key, value) = arg.split_once('=').ok_or("range fail bad argument")?;
+                let value: u32 = value.parse().map_err(|_| "range fail bad number")?;
+                match key {
+                    "n" => n = Some(value),
+                    "ch" => ch = Some(value),
+                    "bw" => bw = Some(value),
+                    _ => return Err("range fail unknown argument".into()),
+                }
+            }
+            match (n, ch, bw) {
+                (Some(frames), Some(center_mhz), Some(bw_mhz)) if frames > 0 => {
+                    Ok(ConsoleCommand::Burst(BurstRequest {
+                        frames,
+                        center_mhz,
+                        bw_mhz,
+                    }))
+                }
+                _ => Err("range fail need n>0, ch and bw".into()),
+            }
+        }
+        _ => Err(format!("err unknown command `{}`", line.trim())),
+    }
+}
+
+fn opt<T: std::fmt::Display>(v: Option<T>) -> String {
+    v.map_or_else(|| "-".to_string(), |v| v.to_string())
+}
+
+/// One exchange as the console prints it. RSSI is written in Rust's shortest round-trip form,
+/// so the client reads back exactly the value the model produced.
+pub fn format_exchange(seq: usize, x: &DeviceExchange) -> String {
+    let mut s = String::with_capacity(128);
+    let _ = write!(
+        s,
+        "xr {seq} t1={} t2={} t3={} t4={} g={} rssi={} rg={} st={}",
+        opt(x.t1_ps),
+        opt(x.t2_ps),
+        opt(x.t3_ps),
+        opt(x.t4_ps),
+        opt(x.dut_gain),
+        opt(x.dut_rssi_dbm),
+        opt(x.ref_gain),
+        x.status
+    );
+    s
+}
+
+/// Answers one command on the shared model; returns the reply lines and the wall time to wait
+/// before sending the burst's end (a paced burst).
+pub fn answer(shared: &SimShared, line: &str) -> (Vec<String>, std::time::Duration) {
+    let none = std::time::Duration::ZERO;
+    match parse_command(line) {
+        Err(reply) => (vec![reply], none),
+        Ok(ConsoleCommand::Identify) => (
+            vec![format!(
+                "id Saltmarsh Radio Lab,Wren-6,SIM-0006,fw2.3.1 (simulated by taucal {})",
+                env!("CARGO_PKG_VERSION")
+            )],
+            none,
+        ),
+        Ok(ConsoleCommand::Halt) => (vec!["ok".into()], none),
+        Ok(ConsoleCommand::Temperature) => match shared.dut_temp_c() {
+            Ok(t) => (vec![format!("temp {}", opt(t))], none),
+            Err(e) => (vec![format!("err {e}")], none),
+        },
+        Ok(ConsoleCommand::Burst(request)) => match shared.run_burst(&request) {
+            Ok((exchanges, wall)) => {
+                let mut lines = Vec::with_capacity(exchanges.len() + 2);
+                lines.push("range ack".to_string());
+                lines.extend(
+                    exchanges
+                        .iter()
+                        .enumerate()
+                        .map(|(k, x)| format_exchange(k, x)),
+                );
+                lines.push(format!("range done n={}", exchanges.len()));
+                (lines, wall)
+            }
+            Err(e) => (vec![format!("range fail {e}")], none),
+        },
+    }
+}
+
+/// Serves the console on `stream` until it closes: banner first, then one reply per command.
+/// Each reply line is written in two pieces, as a slow UART bridge would deliver it, so clients
+/// always meet lines split across reads.
+pub async fn serve<S: AsyncRead + AsyncWrite + Unpin>(
+    mut stream: S,
+    shared: SimShared,
+) -> std::io::Result<()> {
+    for line in BANNER {
+        stream.write_all(format!("{line}\r\n").as_bytes()).await?;
+    }
+    stream.flush().await?;
+    let mut framer = crate::instrument::line::LineFramer::new();
+    let mut buf = [0u8; 1024];
+    loop {
+        let line = loop {
+            match framer.next_line() {
+                Ok(Some(line)) => break line,
+                Ok(None) => {}
+                Err(_) => framer.clear(),
+            }
+            let n = stream.read(&mut buf).await?;
+            if n == 0 {
+                return Ok(());
+            }
+            framer.push(&buf[..n]);
+        };
+        if line.trim().is_empty() {
+            continue;
+        }
+        let (replies, wall) = answer(&shared, &line);
+        let last = replies.len().saturating_sub(1);
+        for (i, reply) in replies.iter().enumerate() {
+            if i == last && !wall.is_zero() {
+                tokio::time::sleep(wall).await;
+            }
+            let text = format!("{reply}\r\n");
+            let (head, tail) = text.split_at(text.len() / 2);
+            stream.write_all(head.as_bytes()).await?;
+            stream.flush().await?;
+            stream.write_all(tail.as_bytes()).await?;
+        }
+        stream.flush().await?;
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn parses_commands_and_refuses_the_rest() {
+        assert_eq!(
+            parse_command("range go n=16 ch=5180 bw=80"),
+            Ok(ConsoleCommand::Burst(BurstRequest {
+                frames: 16,
+                center_mhz: 5180,
+                bw_mhz: 80
+            }))
+        );
+        assert_eq!(parse_command("who"), Ok(ConsoleCommand::Identify));
+        assert_eq!(parse_command("range halt"), Ok(ConsoleCommand::Halt));
+        assert!(parse_command("range go n=0 ch=5180 bw=80").is_err());
+        assert!(parse_command("range go n=x").is_err());
+        assert!(parse_command("launch").is_err_and(|r| r.starts_with("err unknown command")));
+    }
+
+    #[test]
+    fn what_the_console_prints_the_shipped_driver_reads_back_exactly() {
+        use crate::diagnostic::SourceFile;
+        use crate::instrument::driven_console::{classify, ConsoleLine};
+        use crate::instrument::driver_file::{DriverFile, DriverKind};
+        let text = include_str!("../../../drivers/wren6-console.toml");
+        let Ok(DriverFile {
+            kind: DriverKind::RangingConsole(driver),
+            ..
+        }) = DriverFile::parse("wren6-console", SourceFile::new("wren6-console.toml", text))
+        else {
+            panic!("driver");
+        };
+        let x = DeviceExchange {
+            t1_ps: Some(281_474_976_710_655),
+            t2_ps: Some(7),
+            t3_ps: Some(60_007),
+            t4_ps: Some(123),
+            dut_gain: Some(1),
+            dut_rssi_dbm: Some(-47.123_456_789_012_34),
+            ref_gain: Some(0),
+            status: "ok".into(),
+        };
+        assert_eq!(
+            classify(&driver, &format_exchange(0, &x)),
+            Ok(ConsoleLine::Exchange(x))
+        );
+        for line in BANNER {
+            assert_eq!(classify(&driver, line), Ok(ConsoleLine::Banner), "{line}");
+        }
+    }
+}

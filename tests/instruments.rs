@@ -1,0 +1,398 @@
+//! Real transports against served simulated instruments: the served-versus-in-process identity,
+//! both attenuator drivers, instrument-side errors, a pty pair, and address handling.
+
+use crate::support::{repo, root, Taucal};
+use std::io::{BufRead, BufReader};
+use std::process::{Child, Command, Stdio};
+use std::sync::mpsc;
+use std::time::Duration;
+
+/// A running `taucal sim serve`, killed when dropped.
+struct Server {
+    child: Child,
+    addresses: Vec<(String, String)>,
+}
+
+impl Server {
+    fn start(listen: &[&str]) -> Server {
+        let mut cmd = Command::new(env!("CARGO_BIN_EXE_taucal"));
+        cmd.args([
+            "sim",
+            "serve",
+            "--bench",
+            &repo("recipes/benches/sim-demo.toml"),
+            "--seed",
+            "1",
+        ]);
+        for l in listen {
+            cmd.args(["--listen", l]);
+        }
+        let mut child = cmd
+            .stdout(Stdio::piped())
+            .stderr(Stdio::null())
+            .spawn()
+            .expect("start sim serve");
+        let stdout = child.stdout.take().expect("stdout");
+        let (tx, rx) = mpsc::channel();
+        std::thread::spawn(move || {
+            for line in BufReader::new(stdout).lines().map_while(Result::ok) {
+                let _ = tx.send(line);
+            }
+        });
+        let mut addresses = Vec::new();
+        for _ in listen {
+            let line = rx
+                .recv_timeout(Duration::from_secs(20))
+                .expect("sim serve announces each role");
+            let (role, address) = line.split_once(' ').expect("ROLE ADDRESS");
+            addresses.push((role.to_string(), address.to_string()));
+        }
+        Server { child, addresses }
+    }
+
+    fn address(&self, role: &str) -> String {
+        self.addresses
+            .iter()
+            .find(|(r, _)| r == role)
+            .map(|(_, a)| a.clone())
+            .expect("role served")
+    }
+}
+
+impl Drop for Server {
+    fn drop(&mut self) {
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+}
+
+/// The demo bench's text with its roles bound to drivers and addresses.
+fn served_bench(attenuator_driver: &str, attenuator: &str, dut: &str, drivers_dir: &str) -> String {
+    let demo = std::fs::read_to_string(root().join("recipes/benches/sim-demo.toml")).expect("demo");
+    demo.replace(
+        "attenuator = { driver = \"sim-attenuator\", address = \"sim:\" }",
+        &format!("attenuator = {{ driver = \"{attenuator_driver}\", address = \"{attenuator}\" }}"),
+    )
+    .replace(
+        "dut = { driver = \"sim-ranging\", address = \"sim:\" }",
+        &format!("dut = {{ driver = \"wren6-console\", address = \"{dut}\" }}"),
+    )
+    .replace(
+        "[bench]\n",
+        &format!("[bench]\ndrivers_dir = '{drivers_dir}'\n"),
+    )
+}
+
+fn in_process_exchanges() -> String {
+    let out = Taucal::new()
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--out",
+            "run",
+            "--seed",
+            "1",
+        ])
+        .run();
+    out.expect_code(0);
+    out.read("run/exchanges.csv")
+}
+
+#[test]
+fn served_instruments_over_tcp_and_a_pty_record_the_in_process_exchanges() {
+    // The acceptance: same bench and seed, attenuator over TCP (SCPI), the DUT console
+    // over a pseudo-terminal opened as a serial port: exchanges.csv identical byte for byte.
+    let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=pty"]);
+    let drivers = root().join("drivers").display().to_string();
+    let bench = served_bench(
+        "brackwater-bw95a",
+        &server.address("attenuator"),
+        &server.address("dut"),
+        &drivers,
+    );
+    let out = Taucal::new()
+        .file("served.toml", &bench)
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "served.toml",
+            "--out",
+            "run",
+        ])
+        .run();
+    out.expect_code(0);
+    assert!(
+        out.stderr.contains("drives real instruments"),
+        "{}",
+        out.stderr
+    );
+    let manifest = out.read("run/manifest.toml");
+    assert!(manifest.contains("SIM-STEP-ATTENUATOR"), "{manifest}");
+    assert!(manifest.contains("Wren-6"), "{manifest}");
+    let served = out.read("run/exchanges.csv");
+    assert!(served.lines().count() > 1000);
+    assert!(
+        served == in_process_exchanges(),
+        "served and in-process exchanges differ"
+    );
+}
+
+#[test]
+fn the_second_attenuator_driver_needs_no_code_change() {
+    // Same served bench, the other fictional attenuator's wording (LOSS:LEVel, CR LF), the
+    // console over TCP this time, and the address given with --connect.
+    let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"]);
+    let drivers = root().join("drivers").display().to_string();
+    let bench = served_bench(
+        "olvenmark-step8",
+        "tcp:127.0.0.1:9",
+        &server.address("dut"),
+        &drivers,
+    );
+    let out = Taucal::new()
+        .file("served.toml", &bench)
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "served.toml",
+            "--out",
+            "run",
+            "--connect",
+            &format!("attenuator={}", server.address("attenuator")),
+        ])
+        .run();
+    out.expect_code(0);
+    assert!(out.read("run/exchanges.csv") == in_process_exchanges());
+}
+
+#[test]
+fn an_instrument_side_error_stops_the_run_with_its_code_and_text() {
+    // SCPI 1999 Vol 2 §21.8 (from memory): an unknown header queues -113 "Undefined header";
+    // the client drains SYST:ERR? after the setting and the run stops (exit 3) naming it.
+    let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"]);
+    let wrong = std::fs::read_to_string(root().join("drivers/brackwater-bw95a.toml"))
+        .expect("driver")
+        .replace(
+            "set_atten = \"ATTenuation {db:.2}\"",
+            "set_atten = \"ATTX {db:.2}\"",
+        );
+    let console =
+        std::fs::read_to_string(root().join("drivers/wren6-console.toml")).expect("console");
+    let bench = served_bench(
+        "wrong-att",
+        &server.address("attenuator"),
+        &server.address("dut"),
+        "drivers",
+    );
+    let out = Taucal::new()
+        .file("drivers/wrong-att.toml", &wrong)
+        .file("drivers/wren6-console.toml", &console)
+        .file("served.toml", &bench)
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "served.toml",
+            "--out",
+            "run",
+        ])
+        .run();
+    out.expect_code(3);
+    assert!(
+        out.stderr.contains("-113,\"Undefined header\""),
+        "{}",
+        out.stderr
+    );
+    assert!(out.stderr.contains("ATTX"), "{}", out.stderr);
+    assert!(out
+        .read("run/manifest.toml")
+        .contains("status = \"failed\""));
+}
+
+#[test]
+fn an_unreachable_instrument_stops_the_run_and_says_where() {
+    let drivers = root().join("drivers").display().to_string();
+    let listener = std::net::TcpListener::bind("127.0.0.1:0").expect("bind");
+    let port = listener.local_addr().expect("addr").port();
+    drop(listener);
+    let bench = served_bench(
+        "brackwater-bw95a",
+        &format!("tcp:127.0.0.1:{port}"),
+        &format!("tcp:127.0.0.1:{port}"),
+        &drivers,
+    );
+    let out = Taucal::new()
+        .file("served.toml", &bench)
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "served.toml",
+            "--out",
+            "run",
+        ])
+        .run();
+    out.expect_code(3);
+    assert!(
+        out.stderr
+            .contains(&format!("cannot connect to tcp:127.0.0.1:{port}")),
+        "{}",
+        out.stderr
+    );
+}
+
+#[test]
+fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
+    let drivers = root().join("drivers").display().to_string();
+    for (bench, args, want) in [
+        (
+            served_bench(
+                "brackwater-bw95a",
+                "tcp:localhost",
+                "tcp:127.0.0.1:1",
+                &drivers,
+            ),
+            vec![],
+            "roles.attenuator.address",
+        ),
+        (
+            served_bench(
+                "no-such-driver",
+                "tcp:127.0.0.1:1",
+                "tcp:127.0.0.1:1",
+                &drivers,
+            ),
+            vec![],
+            "cannot read driver file `no-such-driver`",
+        ),
+        (
+            served_bench(
+                "wren6-console",
+                "tcp:127.0.0.1:1",
+                "tcp:127.0.0.1:1",
+                &drivers,
+            ),
+            vec![],
+            "drives a ranging-console, not the attenuator",
+        ),
+        (
+            served_bench(
+                "brackwater-bw95a",
+                "tcp:127.0.0.1:1",
+                "tcp:127.0.0.1:1",
+                &drivers,
+            ),
+            vec!["--connect", "chamber=tcp:127.0.0.1:1"],
+            "no role `chamber`",
+        ),
+        (
+            served_bench(
+                "brackwater-bw95a",
+                "tcp:127.0.0.1:1",
+                "tcp:127.0.0.1:1",
+                &drivers,
+            ),
+            vec!["--connect", "dut=serial:/dev/x?baud=fast"],
+            "with --connect",
+        ),
+    ] {
+        let out = Taucal::new()
+            .file("b.toml", &bench)
+            .args([
+                "run",
+                &repo("recipes/rx-gain-sweep.toml"),
+                "--bench",
+                "b.toml",
+            ])
+            .args(args)
+            .run();
+        out.expect_code(2);
+        assert!(out.stderr.contains(want), "{want}: {}", out.stderr);
+        assert!(!out.has_dir("runs"));
+    }
+    let out = Taucal::new()
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--connect",
+            "attenuator=tcp:127.0.0.1:5025",
+        ])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr
+            .contains("drives only the in-process simulated bench"),
+        "{}",
+        out.stderr
+    );
+}
+
+#[test]
+fn sim_serve_binds_loopback_only_unless_asked() {
+    let out = Taucal::new()
+        .args(["sim", "serve", "--listen", "attenuator=tcp:0.0.0.0:0"])
+        .run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("--allow-remote"), "{}", out.stderr);
+    let out = Taucal::new()
+        .args(["sim", "serve", "--listen", "attenuator=pty"])
+        .run();
+    out.expect_code(2);
+}
+
+#[test]
+fn a_console_on_a_pty_pair_made_here_answers_through_the_serial_transport() {
+    use taucal::instrument::transport::{Address, Link};
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(1)
+        .enable_all()
+        .build()
+        .expect("runtime");
+    rt.block_on(async {
+        let bench = taucal::bench::Bench::built_in().expect("bench");
+        let served = taucal::sim::serve::ServedBench::new(&bench, 1, false).expect("served");
+        let listen = taucal::sim::serve::Listen::parse("dut=pty").expect("listen");
+        let address = served.start(&listen).await.expect("pty");
+        let address = Address::parse(&format!("{address}?baud=115200")).expect("serial address");
+        let mut link = Link::new(address, "\r\n", Duration::from_secs(5));
+        link.send("who").await.expect("send");
+        let mut lines = Vec::new();
+        loop {
+            let line = link.read_line().await.expect("line");
+            let done = line.starts_with("id ");
+            lines.push(line);
+            if done {
+                break;
+            }
+        }
+        assert!(
+            lines.last().is_some_and(|l| l.contains("Wren-6")),
+            "{lines:?}"
+        );
+        let reply = link
+            .query("range go n=0 ch=5180 bw=80")
+            .await
+            .expect("reply");
+        assert!(reply.starts_with("range fail"), "{reply}");
+    });
+}
+
+#[test]
+fn every_driver_file_in_drivers_is_valid() {
+    let dir = root().join("drivers");
+    let mut names: Vec<String> = std::fs::read_dir(&dir)
+        .expect("drivers folder")
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|x| x == "toml"))
+        .filter_map(|p| p.file_stem().map(|s| s.to_string_lossy().into_owned()))
+        .collect();
+    names.sort();
+    assert!(names.len() >= 3, "{names:?}");
+    for name in names {
+        if let Err(d) = taucal::instrument::driver_file::DriverFile::load(&dir, &name) {
+            panic!("{name}: {d}");
+        }
+    }
+}
