@@ -3,6 +3,7 @@
 pub mod caltable;
 pub mod deembed;
 pub mod fitter;
+pub mod lsq;
 pub mod rtt;
 pub mod stats;
 
