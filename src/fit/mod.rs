@@ -4,6 +4,7 @@ pub mod caltable;
 pub mod deembed;
 pub mod fitter;
 pub mod lsq;
+pub mod model;
 pub mod rtt;
 pub mod stats;
 
