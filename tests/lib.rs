@@ -6,4 +6,5 @@ mod bad_input;
 mod demo_run;
 mod examples;
 mod fit_offline;
+mod science;
 mod truth;

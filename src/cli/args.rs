@@ -30,6 +30,11 @@ pub enum Command {
         after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit"
     )]
     Fit(FitArgs),
+    /// Solve each unit's delay from pairwise sums (no golden reference needed).
+    #[command(
+        after_help = "PAIRS.csv has the columns unit_a,unit_b,sum_ps,se_ps (other columns are ignored).\nThe pair graph needs an odd cycle in every connected group: three units measured pairwise at least.\n\nExample:\n  taucal pairs line-4-pairs.csv > unit-delays.csv"
+    )]
+    Pairs(PairsArgs),
 }
 
 /// Bench selection shared by the commands.
@@ -86,4 +91,11 @@ pub struct FitArgs {
     /// Outlier rejection threshold in scaled MADs (the recipe's [fit] reject_mad).
     #[arg(long, value_name = "K", default_value_t = crate::recipe::plan::DEFAULT_REJECT_MAD)]
     pub reject_mad: f64,
+}
+
+/// `taucal pairs`.
+#[derive(Debug, Args)]
+pub struct PairsArgs {
+    /// Pairs file: columns unit_a,unit_b,sum_ps,se_ps.
+    pub pairs: PathBuf,
 }

@@ -3,9 +3,11 @@
 pub mod args;
 pub mod bench_arg;
 pub mod check;
+pub mod csv_file;
 pub mod exit;
 pub mod fit;
 pub mod log;
+pub mod pairs;
 pub mod run;
 pub mod table;
 
@@ -32,6 +34,7 @@ pub fn main() -> Exit {
         Command::Run(a) => run::run(a),
         Command::Check(a) => check::run(a),
         Command::Fit(a) => fit::run(a),
+        Command::Pairs(a) => pairs::run(a),
     };
     match result {
         Ok(exit) => exit,
