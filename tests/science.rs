@@ -66,3 +66,70 @@ fn pairs_name_the_file_and_line_of_bad_input() {
     out.expect_code(2);
     assert!(out.stderr.contains("missing.csv"), "{}", out.stderr);
 }
+
+/// Invented log in the shape devices write: a status column, a quoted header, an RSSI column,
+/// ranges in mm, true distances in m, failed and empty readings.
+const RANGES: &str = "\"time\",status,range_mm,rssi_dbm,true_m\n\
+                      0.1,ok,3400,-40,1\n\
+                      0.2,ok,3500,-41,1\n\
+                      0.3,fail,,-41,1\n\
+                      0.4,ok,3600,-40,1\n\
+                      0.5,ok,5600,-55,3\n\
+                      0.6,ok,nan,-55,3\n\
+                      0.7,ok,5400,-56,3\n\
+                      0.8,ok,5500,-55,3\n\
+                      0.9,ok,9000,-62,5\n\
+                      1.0,ok,7500,-61,5\n\
+                      1.1,ok,-,-61,5\n";
+
+#[test]
+fn ota_prints_the_offset_and_the_error_table() {
+    // Arithmetic from the README's definitions: offset = median(3.4, 3.5, 3.6) − 1 = 2.5 m; at
+    // 1 m the |errors| after are 0.1, 0, 0.1 (definition-7 p90 at h = 1.8: 0.1); at 5 m they are
+    // 1.5 and 0 (median 0.75; p90 at h = 0.9: 0 + 0.9·1.5 = 1.35).
+    let out = Taucal::new()
+        .file("ranges.csv", RANGES)
+        .args([
+            "ota",
+            "ranges.csv",
+            "--measured",
+            "range_mm",
+            "--truth",
+            "true_m",
+            "--unit",
+            "mm",
+            "--at",
+            "1",
+        ])
+        .run();
+    out.expect_code(0);
+    assert_eq!(
+        out.stdout,
+        "offset 2.5000 m\n\
+         true_m,n,median_error_before_m,median_error_after_m,p90_abs_error_after_m\n\
+         1.000,3,2.5000,0.0000,0.1000\n\
+         3.000,3,2.5000,0.0000,0.1000\n\
+         5.000,2,3.2500,0.7500,1.3500\n"
+    );
+    assert!(out.stderr.contains("3 skipped"), "{}", out.stderr);
+    assert!(out.stderr.contains("look like m"), "{}", out.stderr);
+}
+
+#[test]
+fn ota_refuses_unknown_columns_and_distances_with_status_2() {
+    let ota = |extra: &[&str]| {
+        Taucal::new()
+            .file("ranges.csv", RANGES)
+            .args(["ota", "ranges.csv", "--unit", "mm", "--truth-unit", "m"])
+            .args(extra.iter().copied())
+            .run()
+    };
+    let out = ota(&["--measured", "range", "--truth", "true_m", "--at", "1"]);
+    out.expect_code(2);
+    assert!(out.stderr.contains("range_mm, rssi_dbm"), "{}", out.stderr);
+    let out = ota(&["--measured", "range_mm", "--truth", "true_m", "--at", "2"]);
+    out.expect_code(2);
+    assert!(out.stderr.contains("1, 3, 5"), "{}", out.stderr);
+    let out = ota(&["--measured", "range_mm", "--truth", "true_m", "--at", "-1"]);
+    out.expect_code(2);
+}

@@ -1,6 +1,6 @@
 //! The command line as typed: parsed by clap, no I/O.
 
-use clap::{Args, Parser, Subcommand};
+use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
 /// Calibrate the group delay of Wi-Fi ranging devices per receive gain state.
@@ -35,6 +35,11 @@ pub enum Command {
         after_help = "PAIRS.csv has the columns unit_a,unit_b,sum_ps,se_ps (other columns are ignored).\nThe pair graph needs an odd cycle in every connected group: three units measured pairwise at least.\n\nExample:\n  taucal pairs line-4-pairs.csv > unit-delays.csv"
     )]
     Pairs(PairsArgs),
+    /// Calibrate the range offset of a device that reports ranges, from ranges at known distances.
+    #[command(
+        after_help = "Prints `offset <value> m` (median of measured − true at the --at distance), then a CSV table\nof the errors at every true distance before and after subtracting it. Rows whose measured or\ntrue value is empty or not a number are skipped and counted.\n\nExamples:\n  taucal ota ranges.csv --measured distance_mm --truth true_m --unit mm --at 5\n  taucal ota log.csv --measured range --truth truth --unit m --at 2.5 > errors.txt"
+    )]
+    Ota(OtaArgs),
 }
 
 /// Bench selection shared by the commands.
@@ -98,4 +103,40 @@ pub struct FitArgs {
 pub struct PairsArgs {
     /// Pairs file: columns unit_a,unit_b,sum_ps,se_ps.
     pub pairs: PathBuf,
+}
+
+/// A length unit on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum UnitArg {
+    /// Millimetres.
+    Mm,
+    /// Centimetres.
+    Cm,
+    /// Metres.
+    M,
+}
+
+/// `taucal ota`.
+#[derive(Debug, Args)]
+pub struct OtaArgs {
+    /// Ranges file: CSV with a header; other columns are ignored.
+    pub ranges: PathBuf,
+    /// Column holding the measured range.
+    #[arg(long, value_name = "COLUMN")]
+    pub measured: String,
+    /// Column holding the true distance.
+    #[arg(long, value_name = "COLUMN")]
+    pub truth: String,
+    /// Unit of the measured ranges (and of the true distances unless --truth-unit says).
+    #[arg(long, value_enum)]
+    pub unit: UnitArg,
+    /// True distance to calibrate at, in metres.
+    #[arg(long, value_name = "DISTANCE_M", allow_negative_numbers = true)]
+    pub at: f64,
+    /// Unit of the true distances (default: as --unit, unless they are plainly off by 100 or 1000).
+    #[arg(long, value_enum)]
+    pub truth_unit: Option<UnitArg>,
+    /// True distances this close (m) are one distance; --at must be this close to one.
+    #[arg(long, value_name = "M", default_value_t = crate::fit::ota::DEFAULT_TOLERANCE_M)]
+    pub tolerance_m: f64,
 }

@@ -7,6 +7,7 @@ pub mod csv_file;
 pub mod exit;
 pub mod fit;
 pub mod log;
+pub mod ota;
 pub mod pairs;
 pub mod run;
 pub mod table;
@@ -35,6 +36,7 @@ pub fn main() -> Exit {
         Command::Check(a) => check::run(a),
         Command::Fit(a) => fit::run(a),
         Command::Pairs(a) => pairs::run(a),
+        Command::Ota(a) => ota::run(a),
     };
     match result {
         Ok(exit) => exit,

@@ -5,6 +5,7 @@ pub mod deembed;
 pub mod fitter;
 pub mod lsq;
 pub mod model;
+pub mod ota;
 pub mod pairs;
 pub mod rtt;
 pub mod stats;
