@@ -133,3 +133,141 @@ fn ota_refuses_unknown_columns_and_distances_with_status_2() {
     let out = ota(&["--measured", "range_mm", "--truth", "true_m", "--at", "-1"]);
     out.expect_code(2);
 }
+
+/// A finished demo run in a temporary directory, its files under `run/`.
+fn demo_run() -> crate::support::Outcome {
+    let run = Taucal::new()
+        .args([
+            "run",
+            &crate::support::repo("recipes/rx-gain-sweep.toml"),
+            "--out",
+            "run",
+        ])
+        .run();
+    run.expect_code(0);
+    run
+}
+
+/// `caltable.csv` rows as (center, bw, gain, delay_ps, ci95_ps, source).
+fn caltable(text: &str) -> Vec<(u32, u32, u32, f64, f64, String)> {
+    text.lines()
+        .skip(1)
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            let num = |i: usize| f[i].parse::<f64>().expect("number");
+            (
+                num(0) as u32,
+                num(1) as u32,
+                num(2) as u32,
+                num(3),
+                num(4),
+                f[7].to_string(),
+            )
+        })
+        .collect()
+}
+
+fn gcc_available() -> bool {
+    std::process::Command::new("gcc")
+        .arg("--version")
+        .output()
+        .is_ok_and(|o| o.status.success())
+}
+
+#[test]
+fn c_header_compiles_warning_free_and_holds_the_rounded_table() {
+    let run = demo_run();
+    let table = caltable(&run.read("run/caltable.csv"));
+    let export = Taucal::in_dir(run.dir)
+        .args(["export", "run", "--format", "c", "--out", "taucal_k.h"])
+        .run();
+    export.expect_code(0);
+    let header = export.read("taucal_k.h");
+    assert!(header.starts_with("/*"), "{header}");
+    for needle in ["ps", "MHz", "run started", "sha256 "] {
+        assert!(header.contains(needle), "opening comment lacks `{needle}`");
+    }
+    if !gcc_available() {
+        println!("note: gcc not found; the C header was not compiled");
+        return;
+    }
+    let dir = export.dir.path();
+    let gcc = |args: &[&str]| {
+        let out = std::process::Command::new("gcc")
+            .args(["-std=c99", "-Wall", "-Wextra", "-Werror"])
+            .args(args)
+            .current_dir(dir)
+            .output()
+            .expect("run gcc");
+        assert!(
+            out.status.success(),
+            "gcc {args:?}:\n{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+    };
+    gcc(&["-x", "c", "-c", "taucal_k.h", "-o", "header.o"]);
+    std::fs::write(
+        dir.join("print.c"),
+        "#include <stdio.h>\n#include \"taucal_k.h\"\n\
+         int main(void)\n{\n    size_t i;\n    for (i = 0; i < TAUCAL_K_COUNT; ++i) {\n\
+         \x20       const struct taucal_k_entry *e = taucal_k_find(taucal_k_table[i].center_mhz,\n\
+         \x20           taucal_k_table[i].bw_mhz, taucal_k_table[i].gain_index);\n\
+         \x20       printf(\"%lu,%lu,%lu,%ld,%ld,%u\\n\", (unsigned long)e->center_mhz,\n\
+         \x20           (unsigned long)e->bw_mhz, (unsigned long)e->gain_index, (long)e->delay_ps,\n\
+         \x20           (long)e->ci95_ps, (unsigned)e->modelled);\n    }\n    return 0;\n}\n",
+    )
+    .expect("write print.c");
+    gcc(&["print.c", "-o", "print"]);
+    let printed = std::process::Command::new(dir.join("print"))
+        .output()
+        .expect("run the C program");
+    let expected: String = table
+        .iter()
+        .map(|(c, b, g, d, ci, s)| {
+            format!(
+                "{c},{b},{g},{},{},{}\n",
+                d.round(),
+                ci.round(),
+                u8::from(s == "modelled")
+            )
+        })
+        .collect();
+    assert_eq!(String::from_utf8_lossy(&printed.stdout), expected);
+}
+
+#[test]
+fn json_and_toml_exports_round_trip_the_table() {
+    let run = demo_run();
+    let csv_text = run.read("run/caltable.csv");
+    let table = caltable(&csv_text);
+    let manifest = run.read("run/manifest.toml");
+    let export = |format: &str, dir| {
+        let out = Taucal::in_dir(dir)
+            .args(["export", "run", "--format", format])
+            .run();
+        out.expect_code(0);
+        out
+    };
+    let json = export("json", run.dir);
+    let doc: taucal::export::Document = serde_json::from_str(&json.stdout).expect("JSON parses");
+    let toml_out = export("toml", json.dir);
+    let doc_toml: taucal::export::Document = toml::from_str(&toml_out.stdout).expect("TOML parses");
+    assert_eq!(doc, doc_toml);
+    assert!(manifest.contains(&doc.run.recipe_sha256));
+    assert_eq!(doc.entries.len(), table.len());
+    for (e, (c, b, g, d, ci, s)) in doc.entries.iter().zip(&table) {
+        assert_eq!((e.center_mhz, e.bw_mhz, e.gain_index), (*c, *b, *g));
+        assert_eq!((e.delay_ps, e.ci95_ps, &e.source), (*d, *ci, s));
+    }
+    let csv_out = export("csv", toml_out.dir);
+    assert_eq!(csv_out.stdout, csv_text);
+}
+
+#[test]
+fn export_of_a_directory_without_a_run_exits_2() {
+    let out = Taucal::new()
+        .args(["export", "nowhere", "--format", "c"])
+        .run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("caltable.csv"), "{}", out.stderr);
+}

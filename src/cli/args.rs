@@ -40,6 +40,11 @@ pub enum Command {
         after_help = "Prints `offset <value> m` (median of measured − true at the --at distance), then a CSV table\nof the errors at every true distance before and after subtracting it. Rows whose measured or\ntrue value is empty or not a number are skipped and counted.\n\nExamples:\n  taucal ota ranges.csv --measured distance_mm --truth true_m --unit mm --at 5\n  taucal ota log.csv --measured range --truth truth --unit m --at 2.5 > errors.txt"
     )]
     Ota(OtaArgs),
+    /// Export a run's calibration table for firmware or other tools.
+    #[command(
+        after_help = "Formats: c (C99 header, integer picoseconds keyed by center frequency, bandwidth and gain\nstate), json, toml, csv (the caltable.csv columns).\n\nExamples:\n  taucal export runs/20261202T101500Z-rx-gain-sweep --format c --out taucal_k_table.h\n  taucal export runs/20261202T101500Z-rx-gain-sweep --format json"
+    )]
+    Export(ExportArgs),
 }
 
 /// Bench selection shared by the commands.
@@ -139,4 +144,30 @@ pub struct OtaArgs {
     /// True distances this close (m) are one distance; --at must be this close to one.
     #[arg(long, value_name = "M", default_value_t = crate::fit::ota::DEFAULT_TOLERANCE_M)]
     pub tolerance_m: f64,
+}
+
+/// An export format on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum FormatArg {
+    /// C99 header.
+    C,
+    /// JSON document.
+    Json,
+    /// TOML document.
+    Toml,
+    /// CSV, the caltable.csv columns.
+    Csv,
+}
+
+/// `taucal export`.
+#[derive(Debug, Args)]
+pub struct ExportArgs {
+    /// Run directory (holds caltable.csv and manifest.toml).
+    pub run_dir: PathBuf,
+    /// Output format.
+    #[arg(long, value_enum)]
+    pub format: FormatArg,
+    /// Write to this file instead of stdout.
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
 }

@@ -5,6 +5,7 @@ pub mod bench_arg;
 pub mod check;
 pub mod csv_file;
 pub mod exit;
+pub mod export;
 pub mod fit;
 pub mod log;
 pub mod ota;
@@ -37,6 +38,7 @@ pub fn main() -> Exit {
         Command::Fit(a) => fit::run(a),
         Command::Pairs(a) => pairs::run(a),
         Command::Ota(a) => ota::run(a),
+        Command::Export(a) => export::run(a),
     };
     match result {
         Ok(exit) => exit,

@@ -10,6 +10,8 @@ pub mod pairs;
 pub mod rtt;
 pub mod stats;
 
-pub use caltable::{read_caltable, write_caltable, CalTableError, TableRow, CALTABLE_HEADER};
+pub use caltable::{
+    read_caltable, write_caltable, write_table_rows, CalTableError, TableRow, CALTABLE_HEADER,
+};
 pub use deembed::Deembed;
 pub use fitter::{fit, CalRow, FitOptions, FitResult, FitSummary, Fitter, RowSource};
