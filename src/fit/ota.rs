@@ -118,12 +118,7 @@ pub fn read_ranges(
     let Some((delimiter, (header_line, m_col, t_col))) = found else {
         return Err(header_error());
     };
-    let mut reader = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .delimiter(delimiter)
-        .trim(csv::Trim::All)
-        .from_reader(text.as_bytes());
+    let mut reader = csv_reader(text, delimiter);
     let decimal_comma = delimiter != b',';
     let mut file = RangeFile {
         ranges: Vec::new(),
@@ -169,13 +164,7 @@ fn find_header(
     measured: &str,
     truth: &str,
 ) -> Option<(u64, usize, usize)> {
-    let mut reader = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .delimiter(delimiter)
-        .trim(csv::Trim::All)
-        .from_reader(text.as_bytes());
-    reader
+    csv_reader(text, delimiter)
         .records()
         .take(HEADER_SEARCH_LINES)
         .filter_map(Result::ok)
@@ -184,6 +173,16 @@ fn find_header(
             let line = r.position().map_or(1, |p| p.line());
             Some((line, col(measured)?, col(truth)?))
         })
+}
+
+/// A reader that takes every line as a record of any length, fields trimmed.
+fn csv_reader(text: &str, delimiter: u8) -> csv::Reader<&[u8]> {
+    csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .delimiter(delimiter)
+        .trim(csv::Trim::All)
+        .from_reader(text.as_bytes())
 }
 
 /// A finite number from a field, or `None` for anything else (empty, `nan`, `-`, text).
