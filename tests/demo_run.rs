@@ -40,6 +40,14 @@ fn demo_without_bench_says_simulated_and_writes_the_contract_files() {
     assert_eq!(m["recipe"]["sha256"].as_str().map(str::len), Some(64));
     assert_eq!(m["bench"]["simulated"].as_bool(), Some(true));
     assert!(!out.read("demo/run.log").is_empty());
+    assert_eq!(
+        out.read("demo/gainmap.csv").lines().next(),
+        Some("center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm")
+    );
+    assert_eq!(
+        out.read("demo/verify.csv").lines().next(),
+        Some("center_mhz,bw_mhz,atten_db,rx_power_dbm,equiv_distance_m,n,range_error_single_m,range_error_table_m")
+    );
 }
 
 #[test]
@@ -81,10 +89,10 @@ fn set_overrides_a_variable() {
         m["counts"]["points"].as_integer().expect("points")
     };
     let default = count_points(&[]);
-    let coarse = count_points(&["--set", "step_db=4.0"]);
+    let coarse = count_points(&["--set", "map_step_db=2.0"]);
     assert!(
         coarse < default,
-        "step 4 dB: {coarse} points, step 2 dB: {default}"
+        "map step 2 dB: {coarse} points, 1 dB: {default}"
     );
 }
 

@@ -63,7 +63,22 @@ fn check_prints_the_plan() {
         "{}",
         out.stdout
     );
-    assert!(out.stdout.contains("37 points"), "{}", out.stdout);
+    assert!(
+        out.stdout
+            .contains("gain map (swept up, then down) on 5180 MHz / 80 MHz: 73 points 17..89 dB"),
+        "{}",
+        out.stdout
+    );
+    assert!(
+        out.stdout.contains("3 points per gain state mid-plateau"),
+        "{}",
+        out.stdout
+    );
+    assert!(
+        out.stdout.contains("verified range error within 0.05 m"),
+        "{}",
+        out.stdout
+    );
     assert!(out.stdout.contains("nothing was run"), "{}", out.stdout);
     assert!(!out.has_dir("runs"));
 }

@@ -3,6 +3,7 @@
 mod support;
 
 mod bad_input;
+mod calibration;
 mod demo_run;
 mod examples;
 mod fit_offline;

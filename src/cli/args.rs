@@ -98,9 +98,10 @@ pub struct FitArgs {
     /// Write caltable.csv into this directory instead of printing it.
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
-    /// Outlier rejection threshold in scaled MADs (the recipe's [fit] reject_mad).
-    #[arg(long, value_name = "K", default_value_t = crate::recipe::plan::DEFAULT_REJECT_MAD)]
-    pub reject_mad: f64,
+    /// Outlier rejection threshold in scaled MADs (default: the run's, from a manifest.toml
+    /// beside the file, else 5.0).
+    #[arg(long, value_name = "K")]
+    pub reject_mad: Option<f64>,
 }
 
 /// `taucal pairs`.

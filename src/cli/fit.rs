@@ -1,26 +1,59 @@
 //! `taucal fit`: the fitter on an exchanges file, offline.
+//!
+//! When the file sits in a run directory, the run's manifest says how its table was fitted
+//! (rejection threshold, verification stages kept out of the fit), so the refit reproduces it.
 
 use super::args::FitArgs;
 use super::{bench_arg, table, Exit};
 use crate::data::run_dir::files;
+use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
-use crate::runner::tabulate;
+use crate::runner::tabulate::{self, FitSettings};
 
 /// Fits and prints (or writes) the table.
 pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
-    if !(args.reject_mad.is_finite() && args.reject_mad >= 2.0) {
-        return Err(
-            Diagnostic::plain(format!("--reject-mad {} is too small", args.reject_mad))
-                .with_hint("use 3.0 or more (5.0 is the default)"),
+    let manifest_path = args
+        .exchanges
+        .parent()
+        .map(|d| d.join(files::MANIFEST))
+        .filter(|p| p.is_file());
+    let mut settings = FitSettings {
+        reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
+        verify_stages: Vec::new(),
+    };
+    if let Some(path) = manifest_path {
+        let m = Manifest::read(&path).map_err(|e| {
+            Diagnostic::in_file(&path, format!("cannot read the run's manifest: {e}"))
+        })?;
+        eprintln!(
+            "taucal: fit settings from {}: reject_mad {}, verification stages left out: {}",
+            path.display(),
+            m.fit.reject_mad,
+            if m.fit.verify_stages.is_empty() {
+                "none".to_string()
+            } else {
+                m.fit.verify_stages.join(", ")
+            }
         );
+        settings.reject_mad = m.fit.reject_mad;
+        settings.verify_stages = m.fit.verify_stages;
+    }
+    if let Some(k) = args.reject_mad {
+        if !(k.is_finite() && k >= 2.0) {
+            return Err(Diagnostic::plain(format!("--reject-mad {k} is too small"))
+                .with_hint("use 3.0 or more (5.0 is the default)"));
+        }
+        settings.reject_mad = k;
     }
     let bench = bench_arg::load(&args.bench)?;
-    let fit = tabulate::fit_file(&args.exchanges, &bench, args.reject_mad).map_err(|e| {
-        Diagnostic::plain(e.to_string()).with_hint(format!(
-            "an exchanges file has the header {} and one row per exchange",
-            crate::data::EXCHANGES_HEADER.join(",")
-        ))
-    })?;
+    let fit = tabulate::fit_file(&args.exchanges, &bench, &settings)
+        .map_err(|e| {
+            Diagnostic::plain(e.to_string()).with_hint(format!(
+                "an exchanges file has the header {} and one row per exchange",
+                crate::data::EXCHANGES_HEADER.join(",")
+            ))
+        })?
+        .fit;
     let s = &fit.summary;
     let ppm = s
         .median_clock_offset_ppm

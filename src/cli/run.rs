@@ -39,6 +39,17 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
         println!("calibration table (DUT K = TX + RX group delay per gain state):");
         print!("{}", table::render(&fit.rows));
     }
+    if !report.verify.is_empty() {
+        let worst = |f: fn(&crate::fit::verify::VerifyRow) -> f64| {
+            report.verify.iter().map(|r| f(r).abs()).fold(0.0, f64::max)
+        };
+        println!(
+            "verification over {} levels: worst median range error {:.3} m with the per-gain table, {:.3} m with a single-state calibration (verify.csv)",
+            report.verify.len(),
+            worst(|r| r.range_error_table_m),
+            worst(|r| r.range_error_single_m)
+        );
+    }
     for c in &m.acceptance {
         let (op, verdict) = match (c.name.starts_with("max"), c.passed) {
             (true, true) => ("≤", "met"),
@@ -47,8 +58,10 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
             (false, false) => ("≥", "NOT MET"),
         };
         println!(
-            "acceptance {}: {:.1} {op} {} — {verdict}",
-            c.name, c.value, c.limit
+            "acceptance {}: {} {op} {} — {verdict}",
+            c.name,
+            significant(c.value),
+            c.limit
         );
     }
     if let Some(f) = &report.failure {
@@ -66,6 +79,15 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
         println!("status: completed, but an acceptance limit was not met");
         Ok(Exit::LimitFailed)
     }
+}
+
+/// A number with four significant digits, the way a limit is read.
+fn significant(v: f64) -> String {
+    if v.fract() == 0.0 || !v.is_finite() {
+        return v.to_string();
+    }
+    let decimals = (3 - v.abs().log10().floor() as i32).clamp(0, 9) as usize;
+    format!("{v:.decimals$}")
 }
 
 fn failure_text(f: &crate::runner::RunError) -> String {

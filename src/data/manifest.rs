@@ -72,6 +72,43 @@ pub struct AcceptCheck {
     pub passed: bool,
 }
 
+/// The single-state calibration a verification compared against.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct SingleState {
+    /// Channel center, MHz.
+    pub center_mhz: u32,
+    /// Bandwidth, MHz.
+    pub bw_mhz: u32,
+    /// The reference receive level.
+    pub rx_dbm: f64,
+    /// The gain state in force there.
+    pub gain_index: u32,
+    /// Its K from the table.
+    pub delay_ps: f64,
+}
+
+/// How the table was fitted, so `taucal fit` can do the same offline.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct FitInfo {
+    /// Rejection threshold, scaled MADs.
+    pub reject_mad: f64,
+    /// Stages whose exchanges verified the table instead of fitting it.
+    pub verify_stages: Vec<String>,
+    /// Single-state calibrations used by the verification.
+    #[serde(default)]
+    pub single_state: Vec<SingleState>,
+}
+
+impl Default for FitInfo {
+    fn default() -> Self {
+        FitInfo {
+            reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
+            verify_stages: Vec::new(),
+            single_state: Vec::new(),
+        }
+    }
+}
+
 /// The whole manifest.
 #[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Manifest {
@@ -103,6 +140,9 @@ pub struct Manifest {
     pub acceptance: Vec<AcceptCheck>,
     /// Values scripts recorded with `record(name, value)`.
     pub results: BTreeMap<String, toml::Value>,
+    /// Fit settings.
+    #[serde(default)]
+    pub fit: FitInfo,
 }
 
 impl Manifest {

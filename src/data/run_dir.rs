@@ -12,6 +12,10 @@ pub mod files {
     pub const EXCHANGES: &str = "exchanges.csv";
     /// The calibration table.
     pub const CALTABLE: &str = "caltable.csv";
+    /// Gain-state plateaus found by gain-map stages.
+    pub const GAINMAP: &str = "gainmap.csv";
+    /// Verification against receive level.
+    pub const VERIFY: &str = "verify.csv";
     /// Human-readable log.
     pub const LOG: &str = "run.log";
 }

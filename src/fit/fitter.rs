@@ -205,32 +205,75 @@ impl Fitter {
         }
         let burst_id = self.summary.bursts;
         self.summary.bursts += 1;
-        let t1_t2: Vec<(u64, u64)> = self
+        let ratios = &self.ratios;
+        let fallback = || median(&mut ratios.clone()).unwrap_or(1.0);
+        let items: Vec<Timed> = self
             .pending
             .iter()
-            .map(|p| (p.t_ps[0], p.t_ps[1]))
+            .map(|p| (p.t_ps, p.atten_db, p.ref_gain))
             .collect();
-        let ratio = match rate_ratio(&burst_offsets(&t1_t2)) {
-            Some(r) => {
-                self.ratios.push(r);
-                r
-            }
-            None => {
-                self.summary.bursts_fallback_ratio += 1;
-                let mut earlier = self.ratios.clone();
-                median(&mut earlier).unwrap_or(1.0)
-            }
-        };
-        for p in self.pending.drain(..) {
-            let [t1, t2, t3, t4] = p.t_ps;
-            let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
-            match self.deembed.dut_k_ps(rtt_ps, p.atten_db, p.ref_gain) {
+        let (ratio, delays) = corrected_delays(&self.deembed, &items, fallback);
+        match ratio {
+            Some(r) => self.ratios.push(r),
+            None => self.summary.bursts_fallback_ratio += 1,
+        }
+        for (p, k) in self.pending.drain(..).zip(delays) {
+            match k {
                 None => self.summary.rows_without_reference += 1,
                 Some(k) if !k.is_finite() => self.summary.rows_unusable += 1,
                 Some(k) => self.cells.entry(p.cell).or_default().push((k, burst_id)),
             }
         }
     }
+}
+
+/// A usable exchange as the clock correction and de-embedding need it: (t1..t4, attenuation,
+/// reference gain).
+type Timed = ([u64; 4], f64, Option<u32>);
+
+/// The burst's own clock-rate ratio (if it yields one) and each exchange's de-embedded delay
+/// (`None` where the reference table has no value for its gain). `items` are the burst's usable
+/// exchanges as (t1..t4, attenuation, reference gain); `fallback` is the ratio used when the
+/// burst yields none (computed only then).
+fn corrected_delays(
+    deembed: &Deembed,
+    items: &[Timed],
+    fallback: impl FnOnce() -> f64,
+) -> (Option<f64>, Vec<Option<f64>>) {
+    let t1_t2: Vec<(u64, u64)> = items.iter().map(|(t, _, _)| (t[0], t[1])).collect();
+    let own = rate_ratio(&burst_offsets(&t1_t2));
+    let ratio = own.unwrap_or_else(fallback);
+    let delays = items
+        .iter()
+        .map(|&([t1, t2, t3, t4], atten_db, ref_gain)| {
+            let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
+            deembed.dut_k_ps(rtt_ps, atten_db, ref_gain)
+        })
+        .collect();
+    (own, delays)
+}
+
+/// De-embedded delays of one burst's rows, aligned with `rows`: `None` for an unusable row or
+/// one whose reference gain has no delay. Used where exchanges are judged one by one
+/// (verification) rather than pooled into cells.
+pub fn burst_delays(deembed: &Deembed, rows: &[Exchange], fallback_ratio: f64) -> Vec<Option<f64>> {
+    let usable: Vec<(usize, Timed)> = rows
+        .iter()
+        .enumerate()
+        .filter_map(|(i, x)| match (x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps) {
+            (Some(a), Some(b), Some(c), Some(d)) if x.is_usable() => {
+                Some((i, ([a, b, c, d], x.atten_db, x.ref_gain)))
+            }
+            _ => None,
+        })
+        .collect();
+    let items: Vec<_> = usable.iter().map(|(_, it)| *it).collect();
+    let (_, delays) = corrected_delays(deembed, &items, || fallback_ratio);
+    let mut out = vec![None; rows.len()];
+    for ((i, _), k) in usable.iter().zip(delays) {
+        out[*i] = k.filter(|k| k.is_finite());
+    }
+    out
 }
 
 /// Reject outliers in one cell and summarise the rest; `None` when fewer than two are kept.

@@ -38,23 +38,41 @@ pub fn range_m_from_rtt_ps(rtt_ps: f64) -> f64 {
 ///
 /// `pairs` holds `(t1 offset, t2 offset)` per exchange: responder departure and initiator arrival,
 /// each relative to the burst's first exchange (see [`burst_offsets`]). The ratio is the
-/// least-squares slope of t2 against t1 (the neighbour-rate-ratio idea of IEEE 802.1AS). `None`
-/// with fewer than two points or when every t1 offset is the same.
+/// least-squares slope of t2 against t1 (the neighbour-rate-ratio idea of IEEE 802.1AS), refitted
+/// once without the points whose residual exceeds 5 scaled MADs: a late detection in one t2 would
+/// otherwise tilt the slope and move the whole burst's RTT by tens of picoseconds. `None` with
+/// fewer than two points or when every t1 offset is the same.
 pub fn rate_ratio(pairs: &[(i64, i64)]) -> Option<f64> {
-    if pairs.len() < 2 {
+    let (slope, intercept) = ls_line(pairs.iter().copied())?;
+    let residual = |&(x, y): &(i64, i64)| (y as f64 - intercept - slope * x as f64).abs();
+    let mut abs_res: Vec<f64> = pairs.iter().map(residual).collect();
+    let mad = crate::fit::stats::MAD_TO_SD * crate::fit::stats::median(&mut abs_res)?;
+    // One counter tick is the floor: below it residuals are rounding.
+    let limit = 5.0 * mad.max(1.0);
+    let kept = pairs.iter().filter(|p| residual(p) <= limit);
+    if kept.clone().count() == pairs.len() || kept.clone().count() < 3 {
+        return Some(slope);
+    }
+    ls_line(kept.copied()).map(|(s, _)| s)
+}
+
+/// Least-squares line `y = slope·x + intercept`, when it exists and has a positive slope.
+fn ls_line(points: impl Iterator<Item = (i64, i64)> + Clone) -> Option<(f64, f64)> {
+    let n = points.clone().count();
+    if n < 2 {
         return None;
     }
-    let n = pairs.len() as f64;
+    let n = n as f64;
     // Two passes: means first, then centred sums, so large offsets do not cancel catastrophically.
-    let mean_x = pairs.iter().map(|&(x, _)| x as f64).sum::<f64>() / n;
-    let mean_y = pairs.iter().map(|&(_, y)| y as f64).sum::<f64>() / n;
-    let (sxy, sxx) = pairs.iter().fold((0.0, 0.0), |(sxy, sxx), &(x, y)| {
+    let mean_x = points.clone().map(|(x, _)| x as f64).sum::<f64>() / n;
+    let mean_y = points.clone().map(|(_, y)| y as f64).sum::<f64>() / n;
+    let (sxy, sxx) = points.fold((0.0, 0.0), |(sxy, sxx), (x, y)| {
         let dx = x as f64 - mean_x;
         let dy = y as f64 - mean_y;
         (sxy + dx * dy, sxx + dx * dx)
     });
     let slope = sxy / sxx;
-    (sxx > 0.0 && slope.is_finite() && slope > 0.0).then_some(slope)
+    (sxx > 0.0 && slope.is_finite() && slope > 0.0).then_some((slope, mean_y - slope * mean_x))
 }
 
 /// `(t1, t2)` counter readings of a burst as wrap-safe offsets from the burst's first exchange,
@@ -102,6 +120,28 @@ mod tests {
             wrapped_diff_ps(COUNTER_HALF - 1, 0),
             COUNTER_HALF as i64 - 1
         );
+    }
+
+    #[test]
+    fn one_late_detection_does_not_tilt_the_rate_ratio() {
+        // 16 exchanges 1 ms apart at +20 ppm (IEEE 802.11 allows ±20 ppm per station, SOURCES §6);
+        // the last t2 locks to a path 20 ns late. Plain least squares would be off by ~0.4 ppm
+        // (a 26 ps error over a 60 µs turnaround); the refit removes the late point.
+        let ratio_true = 1.000_02;
+        let mut pairs: Vec<(i64, i64)> = (0..16)
+            .map(|k| {
+                let x = k * 1_000_000_000;
+                (x, (x as f64 * ratio_true).round() as i64)
+            })
+            .collect();
+        pairs[15].1 += 20_000;
+        let (plain, _) = ls_line(pairs.iter().copied()).expect("line");
+        assert!(
+            (plain - ratio_true).abs() > 2e-7,
+            "the test needs a visible tilt: {plain}"
+        );
+        let robust = rate_ratio(&pairs).expect("ratio");
+        assert!((robust - ratio_true).abs() < 1e-12, "{robust}");
     }
 
     #[test]

@@ -7,7 +7,7 @@ pub mod raw;
 pub mod script_source;
 pub mod vars;
 
-pub use plan::{Acceptance, Channel, Plan, Script, Stage, Sweep};
+pub use plan::{Acceptance, Adaptive, Channel, Plan, Points, Script, Stage, Sweep, Verify};
 pub use script_source::ScriptSource;
 pub use vars::Vars;
 

@@ -23,7 +23,32 @@ pub struct Channel {
     pub bw_mhz: u32,
 }
 
-/// A declarative attenuation sweep.
+/// Where a sweep's points come from.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Points {
+    /// Settings known when the recipe is checked.
+    Fixed(Vec<f64>),
+    /// The middle of each gain state's plateau, as an earlier gain-map stage finds it.
+    MidPlateau {
+        /// The gain-map stage.
+        map_stage: String,
+        /// Points per gain state.
+        per_state: u32,
+        /// Distance kept from each switch point, dB.
+        margin_db: f64,
+    },
+}
+
+/// Adaptive sampling: bursts continue at a point until its interval is narrow enough.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Adaptive {
+    /// Target 95 % half-width of the point's main gain state.
+    pub target_ci95_ps: f64,
+    /// Most bursts per point.
+    pub max_bursts: u32,
+}
+
+/// A declarative attenuation sweep (also the shape of gain-map and verification stages).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Sweep {
     /// Stage name.
@@ -31,13 +56,24 @@ pub struct Sweep {
     /// Channel measured.
     pub channel: Channel,
     /// Attenuator settings, in order.
-    pub points_db: Vec<f64>,
-    /// Bursts per point.
+    pub points: Points,
+    /// Bursts per point (the minimum, with adaptive sampling).
     pub bursts: u32,
     /// Exchanges per burst.
     pub frames: u32,
     /// Wait after each attenuation change.
     pub settle_ms: f64,
+    /// Adaptive sampling, when a target is set.
+    pub adaptive: Option<Adaptive>,
+}
+
+/// A verification stage: fresh exchanges judged against the table, not used to fit it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Verify {
+    /// The measurement itself.
+    pub sweep: Sweep,
+    /// Receive level whose gain state gives the single-state calibration.
+    pub single_state_rx_dbm: f64,
 }
 
 /// A Rhai script stage.
@@ -56,6 +92,10 @@ pub struct Script {
 pub enum Stage {
     /// Attenuation sweep.
     Sweep(Sweep),
+    /// Gain-state map: the points swept up, then down.
+    GainMap(Sweep),
+    /// Verification.
+    Verify(Verify),
     /// Script.
     Script(Script),
 }
@@ -64,7 +104,8 @@ impl Stage {
     /// The stage's name.
     pub fn name(&self) -> &str {
         match self {
-            Stage::Sweep(s) => &s.name,
+            Stage::Sweep(s) | Stage::GainMap(s) => &s.name,
+            Stage::Verify(v) => &v.sweep.name,
             Stage::Script(s) => &s.name,
         }
     }
@@ -77,6 +118,8 @@ pub struct Acceptance {
     pub max_ci95_ps: Option<f64>,
     /// Fewest distinct DUT gain states the run must measure.
     pub min_gain_states: Option<u32>,
+    /// Largest verification range error allowed with the per-gain table.
+    pub max_range_error_m: Option<f64>,
 }
 
 /// A validated recipe, ready to run on a bench.
@@ -138,13 +181,15 @@ pub(super) fn build(
             )));
         }
         let stage = match st.kind.as_str() {
-            "sweep" => Stage::Sweep(sweep(&key, st, &vars, bench).map_err(located)?),
+            "sweep" => Stage::Sweep(sweep(&key, st, &vars, bench, &stages).map_err(located)?),
+            "gainmap" => Stage::GainMap(gain_map(&key, st, &vars, bench).map_err(located)?),
+            "verify" => Stage::Verify(verify(&key, st, &vars, bench).map_err(located)?),
             "script" => Stage::Script(script(&key, i, st, &vars, source, base_dir)?),
             other => {
                 return Err(located(KeyError::new(
                     format!("{key}.kind"),
                     format!("\"{other}\" is not a stage kind"),
-                    "stage kinds are \"sweep\" and \"script\"",
+                    "stage kinds are \"sweep\", \"gainmap\", \"verify\" and \"script\"",
                 )))
             }
         };
@@ -165,7 +210,21 @@ pub(super) fn build(
             .map(|v| vars.count("accept.min_gain_states", v, 1, 64))
             .transpose()
             .map_err(located)?,
+        max_range_error_m: raw
+            .accept
+            .max_range_error_m
+            .as_ref()
+            .map(|v| positive(&vars, "accept.max_range_error_m", v))
+            .transpose()
+            .map_err(located)?,
     };
+    if accept.max_range_error_m.is_some() && !stages.iter().any(|s| matches!(s, Stage::Verify(_))) {
+        return Err(located(KeyError::new(
+            "accept.max_range_error_m",
+            "needs a verify stage to judge",
+            "add a [[stage]] with kind = \"verify\", or remove the limit",
+        )));
+    }
     let reject_mad = match &raw.fit.reject_mad {
         Some(v) => {
             let k = positive(&vars, "fit.reject_mad", v).map_err(located)?;
@@ -267,21 +326,9 @@ fn refuse_keys(key: &str, kind: &str, present: &[(&str, bool)]) -> Result<(), Ke
     }
 }
 
-fn sweep(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Sweep, KeyError> {
-    refuse_keys(
-        key,
-        "sweep",
-        &[("script", st.script.is_some()), ("file", st.file.is_some())],
-    )?;
+/// Keys shared by sweeps, gain maps and verifications.
+fn measurement(key: &str, st: &RawStage, vars: &Vars, points: Points) -> Result<Sweep, KeyError> {
     let channel = channel(key, st, vars)?;
-    let atten_key = format!("{key}.atten_db");
-    let atten = require(
-        key,
-        "atten_db",
-        &st.atten_db,
-        "add atten_db = { from = 20.0, to = 80.0, step = 2.0 }, a list, or { over = \"usable\", step = 2.0 }",
-    )?;
-    let points_db = points(&atten_key, atten, vars, bench)?;
     let bursts = match &st.bursts {
         Some(v) => vars.count(&format!("{key}.bursts"), v, 1, 100_000)?,
         None => 1,
@@ -310,10 +357,220 @@ fn sweep(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Sweep, 
     Ok(Sweep {
         name: st.name.clone(),
         channel,
-        points_db,
+        points,
         bursts,
         frames,
         settle_ms,
+        adaptive: None,
+    })
+}
+
+const ATTEN_HINT: &str =
+    "add atten_db = { from = 20.0, to = 80.0, step = 2.0 }, a list, or { over = \"usable\", step = 2.0 }";
+
+fn sweep(
+    key: &str,
+    st: &RawStage,
+    vars: &Vars,
+    bench: &Bench,
+    earlier: &[Stage],
+) -> Result<Sweep, KeyError> {
+    refuse_keys(
+        key,
+        "sweep",
+        &[
+            ("script", st.script.is_some()),
+            ("file", st.file.is_some()),
+            ("single_state_rx_dbm", st.single_state_rx_dbm.is_some()),
+        ],
+    )?;
+    let atten_key = format!("{key}.atten_db");
+    let atten = require(key, "atten_db", &st.atten_db, ATTEN_HINT)?;
+    let points = match vars.deref(&atten_key, atten)? {
+        toml::Value::Table(t) if t.contains_key("mid_plateau") => {
+            mid_plateau(&atten_key, t, vars, st, earlier)?
+        }
+        _ => Points::Fixed(points(&atten_key, atten, vars, bench)?),
+    };
+    let mut sweep = measurement(key, st, vars, points)?;
+    sweep.adaptive = match (&st.target_ci95_ps, &st.max_bursts) {
+        (None, None) => None,
+        (None, Some(_)) => {
+            return Err(KeyError::new(
+                format!("{key}.max_bursts"),
+                "only applies with target_ci95_ps",
+                "add target_ci95_ps = 50.0, or remove max_bursts",
+            ))
+        }
+        (Some(t), max) => {
+            let target_ci95_ps = positive(vars, &format!("{key}.target_ci95_ps"), t)?;
+            let max_bursts = match max {
+                Some(m) => vars.count(&format!("{key}.max_bursts"), m, 1, 100_000)?,
+                None => 1000,
+            };
+            if max_bursts < sweep.bursts.max(2) {
+                return Err(KeyError::new(
+                    format!("{key}.max_bursts"),
+                    format!("{max_bursts} is below the {} bursts every point starts with", sweep.bursts.max(2)),
+                    "max_bursts must be at least bursts (and at least 2: one burst gives no interval)",
+                ));
+            }
+            // One burst has no between-burst spread, so an interval needs two.
+            sweep.bursts = sweep.bursts.max(2);
+            Some(Adaptive {
+                target_ci95_ps,
+                max_bursts,
+            })
+        }
+    };
+    Ok(sweep)
+}
+
+fn mid_plateau(
+    key: &str,
+    t: &toml::Table,
+    vars: &Vars,
+    st: &RawStage,
+    earlier: &[Stage],
+) -> Result<Points, KeyError> {
+    if let Some(unknown) = t
+        .keys()
+        .find(|k| !["mid_plateau", "per_state", "margin_db"].contains(&k.as_str()))
+    {
+        return Err(KeyError::new(
+            format!("{key}.{unknown}"),
+            "is not a mid-plateau key",
+            "write { mid_plateau = \"STAGE\", per_state = 3, margin_db = 2.0 }",
+        ));
+    }
+    let map_stage = t
+        .get("mid_plateau")
+        .and_then(|v| vars.deref(key, v).ok())
+        .and_then(toml::Value::as_str)
+        .unwrap_or_default()
+        .to_string();
+    let map = earlier.iter().find_map(|s| match s {
+        Stage::GainMap(m) if m.name == map_stage => Some(m),
+        _ => None,
+    });
+    let Some(map) = map else {
+        let maps: Vec<&str> = earlier
+            .iter()
+            .filter(|s| matches!(s, Stage::GainMap(_)))
+            .map(Stage::name)
+            .collect();
+        return Err(KeyError::new(
+            format!("{key}.mid_plateau"),
+            format!("\"{map_stage}\" is not an earlier gainmap stage"),
+            if maps.is_empty() {
+                "add a [[stage]] with kind = \"gainmap\" before this one".to_string()
+            } else {
+                format!("earlier gainmap stages: {}", maps.join(", "))
+            },
+        ));
+    };
+    let per_state = match t.get("per_state") {
+        Some(v) => vars.count(&format!("{key}.per_state"), v, 1, 100)?,
+        None => 1,
+    };
+    let margin_db = match t.get("margin_db") {
+        Some(v) => {
+            let m = vars.number(&format!("{key}.margin_db"), v)?;
+            if !(0.0..=30.0).contains(&m) {
+                return Err(KeyError::new(
+                    format!("{key}.margin_db"),
+                    format!("is {m}"),
+                    "give 0 to 30 dB",
+                ));
+            }
+            m
+        }
+        None => 2.0,
+    };
+    let channel_key = format!(
+        "stage.{}",
+        key.trim_start_matches("stage.")
+            .trim_end_matches(".atten_db")
+    );
+    let here = channel(&channel_key, st, vars)?;
+    if here != map.channel {
+        return Err(KeyError::new(
+            format!("{channel_key}.center_mhz"),
+            format!(
+                "differs from the channel mapped by \"{map_stage}\" ({} MHz / {} MHz)",
+                map.channel.center_mhz, map.channel.bw_mhz
+            ),
+            "gain states are mapped per channel: measure on the mapped channel",
+        ));
+    }
+    Ok(Points::MidPlateau {
+        map_stage,
+        per_state,
+        margin_db,
+    })
+}
+
+fn gain_map(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Sweep, KeyError> {
+    refuse_keys(
+        key,
+        "gainmap",
+        &[
+            ("script", st.script.is_some()),
+            ("file", st.file.is_some()),
+            ("target_ci95_ps", st.target_ci95_ps.is_some()),
+            ("max_bursts", st.max_bursts.is_some()),
+            ("single_state_rx_dbm", st.single_state_rx_dbm.is_some()),
+        ],
+    )?;
+    let atten_key = format!("{key}.atten_db");
+    let atten = require(key, "atten_db", &st.atten_db, ATTEN_HINT)?;
+    let pts = points(&atten_key, atten, vars, bench)?;
+    if pts.len() < 3 {
+        return Err(KeyError::new(
+            atten_key,
+            "has fewer than 3 points",
+            "a map needs a range: { over = \"usable\", step = 1.0 }",
+        ));
+    }
+    measurement(key, st, vars, Points::Fixed(pts))
+}
+
+fn verify(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Verify, KeyError> {
+    refuse_keys(
+        key,
+        "verify",
+        &[
+            ("script", st.script.is_some()),
+            ("file", st.file.is_some()),
+            ("target_ci95_ps", st.target_ci95_ps.is_some()),
+            ("max_bursts", st.max_bursts.is_some()),
+        ],
+    )?;
+    let atten_key = format!("{key}.atten_db");
+    let atten = require(key, "atten_db", &st.atten_db, ATTEN_HINT)?;
+    let pts = points(&atten_key, atten, vars, bench)?;
+    let level_key = format!("{key}.single_state_rx_dbm");
+    let level = require(
+        key,
+        "single_state_rx_dbm",
+        &st.single_state_rx_dbm,
+        "add single_state_rx_dbm = -45.0: the receive level of the usual one-point calibration",
+    )?;
+    let single_state_rx_dbm = vars.number(&level_key, level)?;
+    let (lo, hi) = (
+        bench.dut_rx_dbm(pts[pts.len() - 1].max(pts[0])),
+        bench.dut_rx_dbm(pts[0].min(pts[pts.len() - 1])),
+    );
+    if !(lo - 1e-9..=hi + 1e-9).contains(&single_state_rx_dbm) {
+        return Err(KeyError::new(
+            level_key,
+            format!("{single_state_rx_dbm} dBm is outside the levels this stage verifies ({lo:.1} to {hi:.1} dBm)"),
+            "choose a level inside the stage's attenuation range",
+        ));
+    }
+    Ok(Verify {
+        sweep: measurement(key, st, vars, Points::Fixed(pts))?,
+        single_state_rx_dbm,
     })
 }
 
@@ -436,6 +693,9 @@ fn script(
             ("bursts", st.bursts.is_some()),
             ("frames", st.frames.is_some()),
             ("settle_ms", st.settle_ms.is_some()),
+            ("target_ci95_ps", st.target_ci95_ps.is_some()),
+            ("max_bursts", st.max_bursts.is_some()),
+            ("single_state_rx_dbm", st.single_state_rx_dbm.is_some()),
         ],
     )
     .map_err(located)?;

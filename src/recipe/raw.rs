@@ -51,6 +51,8 @@ pub struct RawAccept {
     pub max_ci95_ps: Option<toml::Value>,
     /// Fewest distinct DUT gain states the run must measure.
     pub min_gain_states: Option<toml::Value>,
+    /// Largest verification range error allowed with the per-gain table, at any level.
+    pub max_range_error_m: Option<toml::Value>,
 }
 
 /// One `[[stage]]`; which keys apply depends on `kind`.
@@ -59,7 +61,7 @@ pub struct RawAccept {
 pub struct RawStage {
     /// Stage name, unique in the recipe.
     pub name: String,
-    /// `sweep` or `script`.
+    /// `sweep`, `gainmap`, `verify` or `script`.
     pub kind: String,
     /// Channel center frequency, MHz.
     pub center_mhz: Option<toml::Value>,
@@ -73,6 +75,12 @@ pub struct RawStage {
     pub frames: Option<toml::Value>,
     /// Sweep: wait after each attenuation change, ms.
     pub settle_ms: Option<toml::Value>,
+    /// Sweep: stop a point once its 95 % half-width reaches this (adaptive sampling).
+    pub target_ci95_ps: Option<toml::Value>,
+    /// Sweep with a target: most bursts per point.
+    pub max_bursts: Option<toml::Value>,
+    /// Verify: receive level whose gain state gives the single-state calibration.
+    pub single_state_rx_dbm: Option<toml::Value>,
     /// Script: inline Rhai source.
     pub script: Option<String>,
     /// Script: path of a Rhai file, relative to the recipe.

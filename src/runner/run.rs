@@ -2,15 +2,22 @@
 //! manifest. Whatever happens after the run directory exists, the data recorded so far stay on
 //! disk, the instruments end in their safe state and the manifest says how the run ended.
 
-use super::{run_sweep, tabulate, BenchClock, ClockMode, RunError, Session};
+use super::tabulate::{FitSettings, Tabulated};
+use super::{
+    run_gain_map, run_sweep, run_verify, tabulate, BenchClock, ClockMode, RunError, Session,
+};
 use crate::bench::Bench;
-use crate::data::manifest::{sha256_hex, AcceptCheck, BenchInfo, RecipeInfo};
+use crate::data::manifest::{
+    sha256_hex, write_atomic, AcceptCheck, BenchInfo, FitInfo, RecipeInfo, SingleState,
+};
 use crate::data::run_dir::{self, files};
 use crate::data::{ExchangeWriter, Manifest, RunStatus};
 use crate::diagnostic::Diagnostic;
+use crate::fit::gainmap::GainMap;
+use crate::fit::verify::{self, VerifyRow};
 use crate::fit::FitResult;
 use crate::instrument::connect::connect;
-use crate::recipe::{Acceptance, Plan, Stage};
+use crate::recipe::{Acceptance, Channel, Plan, Stage};
 use std::cell::RefCell;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Path, PathBuf};
@@ -42,6 +49,8 @@ pub struct RunReport {
     pub manifest: Manifest,
     /// The table fitted from what was recorded (absent if the exchanges could not be read).
     pub fit: Option<FitResult>,
+    /// Verification rows, when the recipe verifies.
+    pub verify: Vec<VerifyRow>,
     /// Why the run stopped early, if it did.
     pub failure: Option<RunError>,
 }
@@ -89,6 +98,10 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         counts: Default::default(),
         acceptance: Vec::new(),
         results: BTreeMap::new(),
+        fit: FitInfo {
+            reject_mad: req.plan.reject_mad,
+            ..FitInfo::default()
+        },
     };
     let manifest_path = dir.join(files::MANIFEST);
     let io_err = |path: &Path, source: std::io::Error| RunError::Io {
@@ -126,14 +139,18 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         }
     }
     let session = match ExchangeWriter::create(&exchanges_path) {
-        Ok(writer) => Some(Rc::new(RefCell::new(Session::new(
-            bench.clone(),
-            clock.clone(),
-            instruments.attenuator,
-            instruments.dut,
-            Box::new(writer),
-            &exchanges_path.display().to_string(),
-        )))),
+        Ok(writer) => {
+            let mut s = Session::new(
+                bench.clone(),
+                clock.clone(),
+                instruments.attenuator,
+                instruments.dut,
+                Box::new(writer),
+                &exchanges_path.display().to_string(),
+            );
+            s.reject_mad = req.plan.reject_mad;
+            Some(Rc::new(RefCell::new(s)))
+        }
         Err(e) => {
             failure = failure.or(Some(io_err(&exchanges_path, e)));
             None
@@ -150,26 +167,49 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         let s = session.borrow();
         manifest.counts = s.counts.clone();
         manifest.results = s.results.clone();
+        manifest.fit.verify_stages = s.verify_stages.iter().map(|(n, _)| n.clone()).collect();
+        if !s.gain_maps.is_empty() {
+            let path = dir.join(files::GAINMAP);
+            if let Err(e) = write_atomic(&path, gainmap_csv(&bench, &s.gain_maps).as_bytes()) {
+                failure = failure.or(Some(io_err(&path, e)));
+            }
+        }
     }
+    let verify_levels: Vec<(String, f64)> = session
+        .as_ref()
+        .map(|s| s.borrow().verify_stages.clone())
+        .unwrap_or_default();
     drop(session);
     drop(rt);
 
-    let fit = match tabulate::fit_file(&exchanges_path, &bench, req.plan.reject_mad) {
-        Ok(fit) => {
+    let settings = FitSettings {
+        reject_mad: req.plan.reject_mad,
+        verify_stages: manifest.fit.verify_stages.clone(),
+    };
+    let (fit, verify_rows) = match tabulate::fit_file(&exchanges_path, &bench, &settings) {
+        Ok(Tabulated { fit, checked }) => {
             let table_path = dir.join(files::CALTABLE);
             if let Err(e) = tabulate::write_table(&table_path, &fit) {
                 failure = failure.or(Some(io_err(&table_path, e)));
             }
-            Some(fit)
+            let (rows, single) = verification(&req.plan, &bench, &fit, &checked, &verify_levels);
+            manifest.fit.single_state = single;
+            if !verify_levels.is_empty() {
+                let path = dir.join(files::VERIFY);
+                if let Err(e) = write_atomic(&path, verify::verify_csv(&rows).as_bytes()) {
+                    failure = failure.or(Some(io_err(&path, e)));
+                }
+            }
+            (Some(fit), rows)
         }
         Err(e) => {
             tracing::error!("fit: {e}");
-            None
+            (None, Vec::new())
         }
     };
     manifest.acceptance = fit
         .as_ref()
-        .map_or_else(Vec::new, |f| acceptance(&req.plan.accept, f));
+        .map_or_else(Vec::new, |f| acceptance(&req.plan.accept, f, &verify_rows));
     for c in &manifest.acceptance {
         let verdict = if c.passed { "met" } else { "NOT met" };
         tracing::info!(
@@ -194,6 +234,7 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         dir,
         manifest,
         fit,
+        verify: verify_rows,
         failure,
     })
 }
@@ -203,6 +244,8 @@ fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunErro
         tracing::info!("stage `{}` begins", stage.name());
         match stage {
             Stage::Sweep(sweep) => run_sweep(&mut session.borrow_mut(), sweep)?,
+            Stage::GainMap(map) => run_gain_map(&mut session.borrow_mut(), map)?,
+            Stage::Verify(v) => run_verify(&mut session.borrow_mut(), v)?,
             Stage::Script(script) => {
                 crate::script::run_script(session.clone(), script, &plan.vars)?
             }
@@ -211,8 +254,85 @@ fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunErro
     Ok(())
 }
 
-/// Evaluates the recipe's acceptance limits on a fitted table.
-pub fn acceptance(accept: &Acceptance, fit: &FitResult) -> Vec<AcceptCheck> {
+/// `gainmap.csv`: each mapped state's plateau as attenuation and as DUT receive level.
+fn gainmap_csv(bench: &Bench, maps: &BTreeMap<String, (Channel, GainMap)>) -> String {
+    let mut out =
+        String::from("center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm\n");
+    for (channel, map) in maps.values() {
+        for p in &map.plateaus {
+            out.push_str(&format!(
+                "{},{},{},{:.2},{:.2},{:.2},{:.2}\n",
+                channel.center_mhz,
+                channel.bw_mhz,
+                p.gain_index,
+                p.atten_min_db,
+                p.atten_max_db,
+                bench.dut_rx_dbm(p.atten_max_db),
+                bench.dut_rx_dbm(p.atten_min_db)
+            ));
+        }
+    }
+    out
+}
+
+/// Verification rows and the single-state calibrations they compare against.
+fn verification(
+    plan: &Plan,
+    bench: &Bench,
+    fit: &FitResult,
+    checked: &[verify::Checked],
+    levels: &[(String, f64)],
+) -> (Vec<VerifyRow>, Vec<SingleState>) {
+    let table: BTreeMap<(u32, u32, u32), f64> = fit
+        .rows
+        .iter()
+        .map(|r| ((r.center_mhz, r.bw_mhz, r.gain_index), r.delay_ps))
+        .collect();
+    let mut single = BTreeMap::new();
+    let mut states = Vec::new();
+    for (name, rx_dbm) in levels {
+        let Some(Stage::Verify(v)) = plan.stages.iter().find(|s| s.name() == name) else {
+            continue;
+        };
+        let ch = v.sweep.channel;
+        let atten_db = bench.reference.tx_power_dbm - bench.path.fixed_loss_db - rx_dbm;
+        let gain = verify::single_state_gain(checked, ch.center_mhz, ch.bw_mhz, atten_db);
+        match gain.and_then(|g| table.get(&(ch.center_mhz, ch.bw_mhz, g)).map(|k| (g, *k))) {
+            Some((gain_index, delay_ps)) => {
+                tracing::info!(
+                    "verify `{name}`: single-state calibration is gain state {gain_index} (at {rx_dbm} dBm), K = {delay_ps:.1} ps"
+                );
+                single.insert((ch.center_mhz, ch.bw_mhz), delay_ps);
+                states.push(SingleState {
+                    center_mhz: ch.center_mhz,
+                    bw_mhz: ch.bw_mhz,
+                    rx_dbm: *rx_dbm,
+                    gain_index,
+                    delay_ps,
+                });
+            }
+            None => {
+                tracing::warn!("verify `{name}`: no table row for the gain state at {rx_dbm} dBm")
+            }
+        }
+    }
+    let level = |a: f64| {
+        (
+            bench.dut_rx_dbm(a),
+            bench.reference.tx_power_dbm - bench.dut_rx_dbm(a),
+        )
+    };
+    let (rows, skipped) = verify::verify(checked, &table, &single, level);
+    if skipped > 0 {
+        tracing::warn!(
+            "verification: {skipped} exchanges in gain states the table lacks were skipped"
+        );
+    }
+    (rows, states)
+}
+
+/// Evaluates the recipe's acceptance limits on a fitted table and its verification.
+pub fn acceptance(accept: &Acceptance, fit: &FitResult, verify: &[VerifyRow]) -> Vec<AcceptCheck> {
     let mut checks = Vec::new();
     if let Some(limit) = accept.max_ci95_ps {
         let worst = fit.rows.iter().map(|r| r.ci95_ps).fold(f64::NAN, f64::max);
@@ -235,6 +355,18 @@ pub fn acceptance(accept: &Acceptance, fit: &FitResult) -> Vec<AcceptCheck> {
             limit: f64::from(limit),
             value: gains.len() as f64,
             passed: gains.len() >= limit as usize,
+        });
+    }
+    if let Some(limit) = accept.max_range_error_m {
+        let worst = verify
+            .iter()
+            .map(|r| r.range_error_table_m.abs())
+            .fold(f64::NAN, f64::max);
+        checks.push(AcceptCheck {
+            name: "max_range_error_m".into(),
+            limit,
+            value: worst,
+            passed: worst <= limit,
         });
     }
     checks

@@ -6,6 +6,7 @@ use super::{BenchClock, RunError};
 use crate::bench::Bench;
 use crate::data::manifest::Counts;
 use crate::data::{Exchange, RecordSink, STATUS_OK};
+use crate::fit::gainmap::GainMap;
 use crate::instrument::{AttenuatorHandle, BurstSpec, RangingHandle};
 use crate::recipe::Channel;
 use std::collections::BTreeMap;
@@ -46,6 +47,12 @@ pub struct Session {
     pub counts: Counts,
     /// Values recorded by scripts.
     pub results: BTreeMap<String, toml::Value>,
+    /// Gain maps found by gain-map stages, by stage name.
+    pub gain_maps: BTreeMap<String, (Channel, GainMap)>,
+    /// Verification stages run so far: name and single-state reference level (dBm).
+    pub verify_stages: Vec<(String, f64)>,
+    /// The fitter's rejection threshold, for intervals computed during the run.
+    pub reject_mad: f64,
 }
 
 impl Session {
@@ -76,6 +83,9 @@ impl Session {
             points: Vec::new(),
             counts: Counts::default(),
             results: BTreeMap::new(),
+            gain_maps: BTreeMap::new(),
+            verify_stages: Vec::new(),
+            reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
         }
     }
 

@@ -1,18 +1,178 @@
-//! The declarative attenuation sweep stage.
+//! Declarative measurement stages: the attenuation sweep (fixed or mid-plateau points, fixed or
+//! adaptive burst counts), the gain-state map, and verification.
 
 use super::{RunError, Session};
-use crate::recipe::Sweep;
+use crate::data::Exchange;
+use crate::fit::gainmap::{self, MapPoint, Pass};
+use crate::fit::stats::t975;
+use crate::fit::{fit, Deembed, FitOptions};
+use crate::recipe::{Adaptive, Points, Sweep, Verify};
 
 /// Runs a sweep: at each point set the attenuation, settle, then run the bursts.
 pub fn run_sweep(session: &mut Session, sweep: &Sweep) -> Result<(), RunError> {
+    let points = resolve(session, sweep)?;
     session.begin_stage(&sweep.name, sweep.channel);
-    for (i, &db) in sweep.points_db.iter().enumerate() {
-        tracing::debug!(stage = %sweep.name, point = i, atten_db = db, "point");
-        session.set_atten(db)?;
-        session.wait_ms(sweep.settle_ms);
-        for _ in 0..sweep.bursts {
-            session.burst(sweep.frames)?;
-        }
+    for db in points {
+        measure_point(session, sweep, db)?;
     }
     Ok(())
+}
+
+/// The sweep's attenuations: fixed, or mid-plateau from an earlier gain map.
+fn resolve(session: &Session, sweep: &Sweep) -> Result<Vec<f64>, RunError> {
+    match &sweep.points {
+        Points::Fixed(p) => Ok(p.clone()),
+        Points::MidPlateau {
+            map_stage,
+            per_state,
+            margin_db,
+        } => {
+            let step = session.bench().attenuator.step_db;
+            let map = session.gain_maps.get(map_stage).map(|(_, m)| m);
+            let points: Vec<f64> = map
+                .into_iter()
+                .flat_map(|m| &m.plateaus)
+                .flat_map(|p| p.points_db(*per_state, *margin_db, step))
+                .collect();
+            if points.is_empty() {
+                return Err(RunError::Refused {
+                    message: format!(
+                        "stage `{}`: the gain map `{map_stage}` found no plateau",
+                        sweep.name
+                    ),
+                    hint: "check the map stage's range and frames; see gainmap.csv".into(),
+                });
+            }
+            tracing::info!("stage `{}`: mid-plateau points {points:?} dB", sweep.name);
+            Ok(points)
+        }
+    }
+}
+
+/// One point: set, settle, run the bursts (adaptive: until the target interval is reached).
+fn measure_point(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), RunError> {
+    session.set_atten(db)?;
+    session.wait_ms(sweep.settle_ms);
+    let mut rows: Vec<Exchange> = Vec::new();
+    for _ in 0..sweep.bursts {
+        rows.extend(session.burst(sweep.frames)?);
+    }
+    if let Some(adaptive) = sweep.adaptive {
+        // Stopping the first time a running interval dips under the target favours moments when
+        // the spread happens to look small, and such intervals cover less often than they claim.
+        // So the interval is only looked at when a planned count is reached; the plan comes from
+        // the spread seen so far, and a miss plans again from all the data.
+        let mut bursts = sweep.bursts;
+        let mut planned = plan(session, &rows, bursts, adaptive);
+        let mut looks = 1;
+        while bursts < adaptive.max_bursts {
+            if bursts >= planned {
+                if main_cell(session, &rows).is_some_and(|(ci, _)| ci <= adaptive.target_ci95_ps) {
+                    break;
+                }
+                planned = plan(session, &rows, bursts, adaptive);
+                looks += 1;
+            }
+            rows.extend(session.burst(sweep.frames)?);
+            bursts += 1;
+        }
+        tracing::info!(
+            "stage `{}` point {db} dB: {bursts} bursts after {looks} plans, {} exchanges",
+            sweep.name,
+            rows.len()
+        );
+    }
+    Ok(())
+}
+
+/// Bursts needed for the target from the burst-mean spread seen so far (at least one more than
+/// done, at most the stage's maximum).
+fn plan(session: &Session, rows: &[Exchange], done: u32, adaptive: Adaptive) -> u32 {
+    main_cell(session, rows).map_or(done + 1, |(_, burst_sd_ps)| {
+        let n = (Z975 * burst_sd_ps / adaptive.target_ci95_ps)
+            .powi(2)
+            .ceil();
+        (n.min(f64::from(adaptive.max_bursts)) as u32).max(done + 1)
+    })
+}
+
+/// Two-sided 95 % normal quantile.
+const Z975: f64 = 1.959_964;
+
+/// The 95 % half-width of the point's main gain state and the spread of its burst means,
+/// computed exactly as the final table computes them (same de-embedding, rejection and
+/// burst-clustered interval).
+fn main_cell(session: &Session, rows: &[Exchange]) -> Option<(f64, f64)> {
+    let bench = session.bench();
+    let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
+    let options = FitOptions {
+        reject_mad: session.reject_mad,
+    };
+    let table = fit(deembed, options, rows);
+    let cell = table.rows.iter().max_by_key(|r| r.n_used)?;
+    let t = t975(cell.n_bursts.checked_sub(1)? as f64)?;
+    Some((
+        cell.ci95_ps,
+        cell.ci95_ps / t * (cell.n_bursts as f64).sqrt(),
+    ))
+}
+
+/// Runs a gain-map stage: the points with attenuation rising, then falling; the map is kept in
+/// the session for later mid-plateau sweeps and for `gainmap.csv`.
+pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> {
+    let Points::Fixed(points) = &map.points else {
+        return Err(RunError::Refused {
+            message: format!("gain-map stage `{}` needs fixed points", map.name),
+            hint: "give atten_db as a range or list".into(),
+        });
+    };
+    session.begin_stage(&map.name, map.channel);
+    let first = session.points.len();
+    let falling = points.iter().rev().copied();
+    for db in points.iter().copied().chain(falling) {
+        measure_point(session, map, db)?;
+    }
+    let seen: Vec<MapPoint> = session.points[first..]
+        .iter()
+        .enumerate()
+        .map(|(i, p)| MapPoint {
+            pass: if i < points.len() {
+                Pass::Rising
+            } else {
+                Pass::Falling
+            },
+            atten_db: p.atten_db,
+            ok_by_gain: p.ok_by_gain.clone(),
+        })
+        .collect();
+    let result = gainmap::analyse(&seen);
+    for s in &result.switches {
+        let level = |a: Option<f64>| {
+            a.map_or("—".to_string(), |a| {
+                format!("{:.1} dBm", session.bench().dut_rx_dbm(a))
+            })
+        };
+        tracing::info!(
+            "gain map `{}`: state {} → {} at {} falling signal, {} rising (hysteresis {})",
+            map.name,
+            s.below,
+            s.above,
+            level(s.rising_db),
+            level(s.falling_db),
+            s.hysteresis_db()
+                .map_or("unknown".into(), |h| format!("{h:.1} dB")),
+        );
+    }
+    session
+        .gain_maps
+        .insert(map.name.clone(), (map.channel, result));
+    Ok(())
+}
+
+/// Runs a verification stage: fresh exchanges at each level, kept out of the table's fit.
+pub fn run_verify(session: &mut Session, verify: &Verify) -> Result<(), RunError> {
+    session
+        .verify_stages
+        .push((verify.sweep.name.clone(), verify.single_state_rx_dbm));
+    run_sweep(session, &verify.sweep)
 }
