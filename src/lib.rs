@@ -5,6 +5,7 @@ pub mod bench;
 pub mod cli;
 pub mod data;
 pub mod diagnostic;
+pub mod export;
 pub mod fit;
 pub mod instrument;
 pub mod recipe;

@@ -1,6 +1,6 @@
 //! The command line as typed: parsed by clap, no I/O.
 
-use clap::{Args, Parser, Subcommand};
+use clap::{Args, Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 
 /// Calibrate the group delay of Wi-Fi ranging devices per receive gain state.
@@ -30,6 +30,21 @@ pub enum Command {
         after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit"
     )]
     Fit(FitArgs),
+    /// Solve each unit's delay from pairwise sums (no golden reference needed).
+    #[command(
+        after_help = "PAIRS.csv has the columns unit_a,unit_b,sum_ps,se_ps (other columns are ignored).\nThe pair graph needs an odd cycle in every connected group: three units measured pairwise at least.\n\nExample:\n  taucal pairs line-4-pairs.csv > unit-delays.csv"
+    )]
+    Pairs(PairsArgs),
+    /// Calibrate the range offset of a device that reports ranges, from ranges at known distances.
+    #[command(
+        after_help = "Prints `offset <value> m` (median of measured − true at the --at distance), then a CSV table\nof the errors at every true distance before and after subtracting it. Rows whose measured or\ntrue value is empty or not a number are skipped and counted.\n\nExamples:\n  taucal ota ranges.csv --measured distance_mm --truth true_m --unit mm --at 5\n  taucal ota log.csv --measured range --truth truth --unit m --at 2.5 > errors.txt"
+    )]
+    Ota(OtaArgs),
+    /// Export a run's calibration table for firmware or other tools.
+    #[command(
+        after_help = "Formats: c (C99 header, integer picoseconds keyed by center frequency, bandwidth and gain\nstate), json, toml, csv (the caltable.csv columns).\n\nExamples:\n  taucal export runs/20261202T101500Z-rx-gain-sweep --format c --out taucal_k_table.h\n  taucal export runs/20261202T101500Z-rx-gain-sweep --format json"
+    )]
+    Export(ExportArgs),
     /// Simulated instruments.
     #[command(subcommand)]
     Sim(SimCommand),
@@ -123,4 +138,73 @@ pub struct FitArgs {
     /// beside the file, else 5.0).
     #[arg(long, value_name = "K")]
     pub reject_mad: Option<f64>,
+}
+
+/// `taucal pairs`.
+#[derive(Debug, Args)]
+pub struct PairsArgs {
+    /// Pairs file: columns unit_a,unit_b,sum_ps,se_ps.
+    pub pairs: PathBuf,
+}
+
+/// A length unit on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum UnitArg {
+    /// Millimetres.
+    Mm,
+    /// Centimetres.
+    Cm,
+    /// Metres.
+    M,
+}
+
+/// `taucal ota`.
+#[derive(Debug, Args)]
+pub struct OtaArgs {
+    /// Ranges file: CSV with a header; other columns are ignored.
+    pub ranges: PathBuf,
+    /// Column holding the measured range.
+    #[arg(long, value_name = "COLUMN")]
+    pub measured: String,
+    /// Column holding the true distance.
+    #[arg(long, value_name = "COLUMN")]
+    pub truth: String,
+    /// Unit of the measured ranges (and of the true distances unless --truth-unit says).
+    #[arg(long, value_enum)]
+    pub unit: UnitArg,
+    /// True distance to calibrate at, in metres.
+    #[arg(long, value_name = "DISTANCE_M", allow_negative_numbers = true)]
+    pub at: f64,
+    /// Unit of the true distances (default: as --unit, unless they are plainly off by 100 or 1000).
+    #[arg(long, value_enum)]
+    pub truth_unit: Option<UnitArg>,
+    /// True distances this close (m) are one distance; --at must be this close to one.
+    #[arg(long, value_name = "M", default_value_t = crate::fit::ota::DEFAULT_TOLERANCE_M)]
+    pub tolerance_m: f64,
+}
+
+/// An export format on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum FormatArg {
+    /// C99 header.
+    C,
+    /// JSON document.
+    Json,
+    /// TOML document.
+    Toml,
+    /// CSV, the caltable.csv columns.
+    Csv,
+}
+
+/// `taucal export`.
+#[derive(Debug, Args)]
+pub struct ExportArgs {
+    /// Run directory (holds caltable.csv and manifest.toml).
+    pub run_dir: PathBuf,
+    /// Output format.
+    #[arg(long, value_enum)]
+    pub format: FormatArg,
+    /// Write to this file instead of stdout.
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
 }

@@ -3,9 +3,13 @@
 pub mod args;
 pub mod bench_arg;
 pub mod check;
+pub mod csv_file;
 pub mod exit;
+pub mod export;
 pub mod fit;
 pub mod log;
+pub mod ota;
+pub mod pairs;
 pub mod run;
 pub mod sim_serve;
 pub mod table;
@@ -34,6 +38,9 @@ pub fn main() -> Exit {
         Command::Check(a) => check::run(a),
         Command::Fit(a) => fit::run(a),
         Command::Sim(SimCommand::Serve(a)) => sim_serve::run(a),
+        Command::Pairs(a) => pairs::run(a),
+        Command::Ota(a) => ota::run(a),
+        Command::Export(a) => export::run(a),
     };
     match result {
         Ok(exit) => exit,

@@ -93,6 +93,13 @@ pub enum CalTableError {
 
 /// Write `rows` as `caltable.csv` (header first, delay and interval to 3 decimals).
 pub fn write_caltable<W: Write>(out: W, rows: &[CalRow]) -> Result<(), CalTableError> {
+    let rows: Vec<TableRow> = rows.iter().map(TableRow::from).collect();
+    write_table_rows(out, &rows)
+}
+
+/// Write table rows in the `caltable.csv` format: what [`write_caltable`] writes, for rows that
+/// were read back or came without their statistics.
+pub fn write_table_rows<W: Write>(out: W, rows: &[TableRow]) -> Result<(), CalTableError> {
     let mut w = csv::Writer::from_writer(out);
     w.write_record(CALTABLE_HEADER)
         .map_err(CalTableError::Write)?;

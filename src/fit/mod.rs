@@ -4,10 +4,16 @@ pub mod caltable;
 pub mod deembed;
 pub mod fitter;
 pub mod gainmap;
+pub mod lsq;
+pub mod model;
+pub mod ota;
+pub mod pairs;
 pub mod rtt;
 pub mod stats;
 pub mod verify;
 
-pub use caltable::{read_caltable, write_caltable, CalTableError, TableRow, CALTABLE_HEADER};
+pub use caltable::{
+    read_caltable, write_caltable, write_table_rows, CalTableError, TableRow, CALTABLE_HEADER,
+};
 pub use deembed::Deembed;
 pub use fitter::{burst_delays, fit, CalRow, FitOptions, FitResult, FitSummary, Fitter, RowSource};
