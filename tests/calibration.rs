@@ -262,3 +262,78 @@ fn adaptive_intervals_still_cover_about_95_percent() {
     // Binomial, 300 intervals at p = 0.95: 3 sigma is ±0.038.
     assert!((0.912..=0.988).contains(&share), "coverage {share:.3}");
 }
+
+#[test]
+fn an_overnight_soak_recovers_each_states_temperature_drift() {
+    let out = Taucal::new()
+        .args([
+            "run",
+            &repo("recipes/overnight-soak.toml"),
+            "--bench",
+            &repo("recipes/benches/overnight-soak.toml"),
+            "--out",
+            "soak",
+        ])
+        .run();
+    out.expect_code(0);
+    // Truth in recipes/benches/overnight-soak.toml: drift_ps_per_c = [1.2, 1.6, 2.1].
+    let truth = [1.2, 1.6, 2.1];
+    let rows = csv_rows(&out.read("soak/drift.csv"));
+    assert_eq!(rows.len(), 9, "three states on three bandwidths");
+    for r in rows {
+        let (gain, drift, se) = (r[2] as usize, r[3], r[4]);
+        assert!(
+            (drift - truth[gain]).abs() <= 4.0 * se,
+            "gain {gain}: {drift:.2} ± {se:.2} ps/°C"
+        );
+        assert!(
+            r[5] < -10.0 && r[6] > 60.0,
+            "temperatures span the soaks: {r:?}"
+        );
+    }
+    let m: toml::Table = toml::from_str(&out.read("soak/manifest.toml")).expect("manifest");
+    assert!(m["bench_time_s"].as_float().expect("bench time") > 3.0 * 3600.0);
+    assert!(m["instruments"]["chamber"].as_str().is_some());
+}
+
+#[test]
+fn unmeasured_gain_states_get_modelled_rows() {
+    let recipe = r#"
+[recipe]
+name = "three-of-four"
+
+[fit]
+gain_states = 4
+
+[[stage]]
+name = "cal"
+kind = "sweep"
+center_mhz = 5180
+bw_mhz = 80
+atten_db = [20.0, 26.0, 37.0, 43.0, 54.0, 60.0]
+bursts = 6
+frames = 16
+"#;
+    let out = Taucal::new()
+        .file("r.toml", recipe)
+        .file("b.toml", &bench_with(FOUR_STATES))
+        .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
+        .run();
+    out.expect_code(0);
+    let table = out.read("m/caltable.csv");
+    let rows: Vec<&str> = table.lines().skip(1).collect();
+    assert_eq!(rows.len(), 4, "{table}");
+    assert!(
+        rows[..3].iter().all(|r| r.ends_with(",measured")),
+        "{table}"
+    );
+    assert!(
+        rows[3].starts_with("5180,80,3,") && rows[3].ends_with(",modelled"),
+        "{table}"
+    );
+    let modelled = csv_rows(&table)[3].clone();
+    assert!(
+        modelled[4].is_finite() && modelled[4] > 0.0,
+        "an uncertainty: {modelled:?}"
+    );
+}

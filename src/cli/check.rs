@@ -29,6 +29,10 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
                     v.single_state_rx_dbm
                 );
             }
+            Stage::Soak(s) => println!(
+                "stage {i} `{}` soak at {} °C: until the DUT stays within ±{} °C for {} s (reading every {} s, at most {} s)",
+                s.name, s.setpoint_c, s.within_c, s.stable_s, s.poll_s, s.timeout_s
+            ),
             Stage::Script(s) => {
                 crate::script::check(&s.source)?;
                 println!(

@@ -20,6 +20,7 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
     let mut settings = FitSettings {
         reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
         verify_stages: Vec::new(),
+        gain_states: None,
     };
     if let Some(path) = manifest_path {
         let m = Manifest::read(&path).map_err(|e| {
@@ -37,6 +38,7 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         );
         settings.reject_mad = m.fit.reject_mad;
         settings.verify_stages = m.fit.verify_stages;
+        settings.gain_states = m.fit.gain_states;
     }
     if let Some(k) = args.reject_mad {
         if !(k.is_finite() && k >= 2.0) {
@@ -73,6 +75,13 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
                 .map_err(|e| Diagnostic::plain(format!("cannot write {}: {e}", path.display())))?;
             eprint!("{}", table::render(&fit.rows));
             println!("{}", path.display());
+            if !fit.drift.is_empty() {
+                let drift = dir.join(files::DRIFT);
+                std::fs::write(&drift, crate::fit::drift::drift_csv(&fit.drift)).map_err(|e| {
+                    Diagnostic::plain(format!("cannot write {}: {e}", drift.display()))
+                })?;
+                println!("{}", drift.display());
+            }
         }
         None => {
             let text =

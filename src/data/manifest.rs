@@ -97,6 +97,9 @@ pub struct FitInfo {
     /// Single-state calibrations used by the verification.
     #[serde(default)]
     pub single_state: Vec<SingleState>,
+    /// The DUT's number of gain states, when the recipe gave it (unmeasured ones are modelled).
+    #[serde(default)]
+    pub gain_states: Option<u32>,
 }
 
 impl Default for FitInfo {
@@ -105,6 +108,7 @@ impl Default for FitInfo {
             reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
             verify_stages: Vec::new(),
             single_state: Vec::new(),
+            gain_states: None,
         }
     }
 }

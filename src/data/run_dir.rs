@@ -14,6 +14,8 @@ pub mod files {
     pub const CALTABLE: &str = "caltable.csv";
     /// Gain-state plateaus found by gain-map stages.
     pub const GAINMAP: &str = "gainmap.csv";
+    /// Temperature coefficients of K, when the run spans temperatures.
+    pub const DRIFT: &str = "drift.csv";
     /// Verification against receive level.
     pub const VERIFY: &str = "verify.csv";
     /// Human-readable log.

@@ -10,6 +10,7 @@
 
 use crate::data::Exchange;
 use crate::fit::deembed::Deembed;
+use crate::fit::drift::{DriftRow, TempBins};
 use crate::fit::rtt::{burst_offsets, corrected_rtt_from_counters_ps, rate_ratio};
 use crate::fit::stats::{cluster_robust_se, mad_scaled, mean, median, sample_sd, t975};
 use std::collections::{BTreeMap, BTreeSet};
@@ -107,6 +108,8 @@ pub struct FitSummary {
 pub struct FitResult {
     /// One row per cell with at least two kept samples, sorted by center, bandwidth, gain.
     pub rows: Vec<CalRow>,
+    /// Temperature coefficients per cell, where the exchanges span temperatures.
+    pub drift: Vec<DriftRow>,
     /// Counts and fallbacks.
     pub summary: FitSummary,
 }
@@ -117,12 +120,23 @@ type CellKey = (u32, u32, u32);
 /// (stage, point, burst) of the burst being buffered.
 type BurstKey = (String, u32, u32);
 
+/// One de-embedded delay as a cell keeps it: 16 bytes, so memory stays a few numbers per
+/// exchange however large the file.
+#[derive(Debug, Clone, Copy)]
+struct Sample {
+    k_ps: f64,
+    burst: u32,
+    /// NaN when the exchange reported no temperature.
+    temp_c: f32,
+}
+
 /// What one usable exchange contributes once its burst's clock ratio is known.
 struct Pending {
     t_ps: [u64; 4],
     atten_db: f64,
     cell: CellKey,
     ref_gain: Option<u32>,
+    temp_c: Option<f64>,
 }
 
 /// Streaming fitter: [`push`](Fitter::push) rows in file order, then [`finish`](Fitter::finish).
@@ -133,8 +147,8 @@ pub struct Fitter {
     pending: Vec<Pending>,
     /// Ratios of bursts that had their own estimate, for the fallback and the summary.
     ratios: Vec<f64>,
-    /// Per cell: (K, burst id) of every delay computed so far.
-    cells: BTreeMap<CellKey, Vec<(f64, u64)>>,
+    /// Per cell: every delay computed so far.
+    cells: BTreeMap<CellKey, Vec<Sample>>,
     summary: FitSummary,
 }
 
@@ -174,6 +188,7 @@ impl Fitter {
                     atten_db: x.atten_db,
                     cell: (x.center_mhz, x.bw_mhz, gain),
                     ref_gain: x.ref_gain,
+                    temp_c: x.temp_c.filter(|t| t.is_finite()),
                 });
             }
             _ => self.summary.rows_unusable += 1,
@@ -186,14 +201,16 @@ impl Fitter {
         let mut ratios = self.ratios;
         self.summary.median_clock_offset_ppm = median(&mut ratios).map(|r| (r - 1.0) * 1e6);
         let mut rows = Vec::with_capacity(self.cells.len());
+        let mut temps = TempBins::default();
         for (cell, samples) in self.cells {
-            match cell_row(cell, &samples, self.options, &mut self.summary) {
+            match cell_row(cell, &samples, self.options, &mut self.summary, &mut temps) {
                 Some(row) => rows.push(row),
                 None => self.summary.cells_skipped += 1,
             }
         }
         FitResult {
             rows,
+            drift: temps.drift(),
             summary: self.summary,
         }
     }
@@ -221,7 +238,12 @@ impl Fitter {
             match k {
                 None => self.summary.rows_without_reference += 1,
                 Some(k) if !k.is_finite() => self.summary.rows_unusable += 1,
-                Some(k) => self.cells.entry(p.cell).or_default().push((k, burst_id)),
+                Some(k) => self.cells.entry(p.cell).or_default().push(Sample {
+                    k_ps: k,
+                    // 2^32 bursts (~7e10 exchanges) before ids repeat.
+                    burst: burst_id as u32,
+                    temp_c: p.temp_c.map_or(f32::NAN, |t| t as f32),
+                }),
             }
         }
     }
@@ -279,19 +301,24 @@ pub fn burst_delays(deembed: &Deembed, rows: &[Exchange], fallback_ratio: f64) -
 /// Reject outliers in one cell and summarise the rest; `None` when fewer than two are kept.
 fn cell_row(
     (center_mhz, bw_mhz, gain_index): CellKey,
-    samples: &[(f64, u64)],
+    samples: &[Sample],
     options: FitOptions,
     summary: &mut FitSummary,
+    temps: &mut TempBins,
 ) -> Option<CalRow> {
-    let mut values: Vec<f64> = samples.iter().map(|s| s.0).collect();
+    let mut values: Vec<f64> = samples.iter().map(|s| s.k_ps).collect();
     let center = median(&mut values)?;
     let spread = mad_scaled(&values, center)?.max(MAD_FLOOR_PS);
     let limit = options.reject_mad * spread;
-    let kept: Vec<(f64, u64)> = samples
-        .iter()
-        .copied()
-        .filter(|(k, _)| (k - center).abs() <= limit)
-        .collect();
+    let kept_samples = samples.iter().filter(|s| (s.k_ps - center).abs() <= limit);
+    for s in kept_samples.clone().filter(|s| s.temp_c.is_finite()) {
+        temps.add(
+            (center_mhz, bw_mhz, gain_index),
+            f64::from(s.temp_c),
+            s.k_ps,
+        );
+    }
+    let kept: Vec<(f64, u64)> = kept_samples.map(|s| (s.k_ps, u64::from(s.burst))).collect();
     let kept_values: Vec<f64> = kept.iter().map(|s| s.0).collect();
     let n = kept_values.len();
     if n < 2 {

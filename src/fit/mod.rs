@@ -2,6 +2,7 @@
 
 pub mod caltable;
 pub mod deembed;
+pub mod drift;
 pub mod fitter;
 pub mod gainmap;
 pub mod lsq;

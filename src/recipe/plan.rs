@@ -87,6 +87,23 @@ pub struct Script {
     pub source: ScriptSource,
 }
 
+/// A soak: set the chamber and wait until the DUT's temperature has settled.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Soak {
+    /// Stage name.
+    pub name: String,
+    /// Chamber setpoint.
+    pub setpoint_c: f64,
+    /// Settled means within this of the setpoint.
+    pub within_c: f64,
+    /// For this long.
+    pub stable_s: f64,
+    /// Reading interval.
+    pub poll_s: f64,
+    /// Longest wait.
+    pub timeout_s: f64,
+}
+
 /// One stage of the plan.
 #[derive(Debug, Clone)]
 pub enum Stage {
@@ -96,6 +113,8 @@ pub enum Stage {
     GainMap(Sweep),
     /// Verification.
     Verify(Verify),
+    /// Temperature soak.
+    Soak(Soak),
     /// Script.
     Script(Script),
 }
@@ -106,6 +125,7 @@ impl Stage {
         match self {
             Stage::Sweep(s) | Stage::GainMap(s) => &s.name,
             Stage::Verify(v) => &v.sweep.name,
+            Stage::Soak(s) => &s.name,
             Stage::Script(s) => &s.name,
         }
     }
@@ -139,6 +159,8 @@ pub struct Plan {
     pub accept: Acceptance,
     /// Fitter rejection threshold, scaled MADs.
     pub reject_mad: f64,
+    /// The DUT's number of gain states, when the recipe says; unmeasured ones are modelled.
+    pub gain_states: Option<u32>,
 }
 
 /// Default rejection threshold (scaled MADs).
@@ -180,19 +202,19 @@ pub(super) fn build(
                 "give every stage its own name",
             )));
         }
-        let stage = match st.kind.as_str() {
-            "sweep" => Stage::Sweep(sweep(&key, st, &vars, bench, &stages).map_err(located)?),
-            "gainmap" => Stage::GainMap(gain_map(&key, st, &vars, bench).map_err(located)?),
-            "verify" => Stage::Verify(verify(&key, st, &vars, bench).map_err(located)?),
-            "script" => Stage::Script(script(&key, i, st, &vars, source, base_dir)?),
-            other => {
-                return Err(located(KeyError::new(
+        let stage =
+            match st.kind.as_str() {
+                "sweep" => Stage::Sweep(sweep(&key, st, &vars, bench, &stages).map_err(located)?),
+                "gainmap" => Stage::GainMap(gain_map(&key, st, &vars, bench).map_err(located)?),
+                "verify" => Stage::Verify(verify(&key, st, &vars, bench).map_err(located)?),
+                "soak" => Stage::Soak(soak(&key, st, &vars, bench).map_err(located)?),
+                "script" => Stage::Script(script(&key, i, st, &vars, source, base_dir)?),
+                other => return Err(located(KeyError::new(
                     format!("{key}.kind"),
                     format!("\"{other}\" is not a stage kind"),
-                    "stage kinds are \"sweep\", \"gainmap\", \"verify\" and \"script\"",
-                )))
-            }
-        };
+                    "stage kinds are \"sweep\", \"gainmap\", \"verify\", \"soak\" and \"script\"",
+                ))),
+            };
         stages.push(stage);
     }
     let accept = Acceptance {
@@ -239,7 +261,15 @@ pub(super) fn build(
         }
         None => DEFAULT_REJECT_MAD,
     };
+    let gain_states = raw
+        .fit
+        .gain_states
+        .as_ref()
+        .map(|v| vars.count("fit.gain_states", v, 1, 64))
+        .transpose()
+        .map_err(located)?;
     Ok(Plan {
+        gain_states,
         name,
         description: raw.recipe.description,
         source: source.clone(),
@@ -310,17 +340,34 @@ fn channel(key: &str, st: &RawStage, vars: &Vars) -> Result<Channel, KeyError> {
     })
 }
 
-fn refuse_keys(key: &str, kind: &str, present: &[(&str, bool)]) -> Result<(), KeyError> {
-    match present.iter().find(|(_, p)| *p) {
+/// Refuses any optional stage key that `kind` does not take.
+fn allow_only(key: &str, kind: &str, st: &RawStage, allowed: &[&str]) -> Result<(), KeyError> {
+    let present = [
+        ("center_mhz", st.center_mhz.is_some()),
+        ("bw_mhz", st.bw_mhz.is_some()),
+        ("atten_db", st.atten_db.is_some()),
+        ("bursts", st.bursts.is_some()),
+        ("frames", st.frames.is_some()),
+        ("settle_ms", st.settle_ms.is_some()),
+        ("target_ci95_ps", st.target_ci95_ps.is_some()),
+        ("max_bursts", st.max_bursts.is_some()),
+        ("single_state_rx_dbm", st.single_state_rx_dbm.is_some()),
+        ("setpoint_c", st.setpoint_c.is_some()),
+        ("within_c", st.within_c.is_some()),
+        ("stable_s", st.stable_s.is_some()),
+        ("poll_s", st.poll_s.is_some()),
+        ("timeout_s", st.timeout_s.is_some()),
+        ("script", st.script.is_some()),
+        ("file", st.file.is_some()),
+    ];
+    match present
+        .iter()
+        .find(|(name, p)| *p && !allowed.contains(name))
+    {
         Some((name, _)) => Err(KeyError::new(
             format!("{key}.{name}"),
             format!("does not belong in a {kind} stage"),
-            match kind {
-                "sweep" => {
-                    "a sweep stage takes center_mhz, bw_mhz, atten_db, bursts, frames and settle_ms"
-                }
-                _ => "a script stage takes script or file, center_mhz and bw_mhz",
-            },
+            format!("a {kind} stage takes {}", allowed.join(", ")),
         )),
         None => Ok(()),
     }
@@ -375,13 +422,19 @@ fn sweep(
     bench: &Bench,
     earlier: &[Stage],
 ) -> Result<Sweep, KeyError> {
-    refuse_keys(
+    allow_only(
         key,
         "sweep",
+        st,
         &[
-            ("script", st.script.is_some()),
-            ("file", st.file.is_some()),
-            ("single_state_rx_dbm", st.single_state_rx_dbm.is_some()),
+            "center_mhz",
+            "bw_mhz",
+            "atten_db",
+            "bursts",
+            "frames",
+            "settle_ms",
+            "target_ci95_ps",
+            "max_bursts",
         ],
     )?;
     let atten_key = format!("{key}.atten_db");
@@ -511,15 +564,17 @@ fn mid_plateau(
 }
 
 fn gain_map(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Sweep, KeyError> {
-    refuse_keys(
+    allow_only(
         key,
         "gainmap",
+        st,
         &[
-            ("script", st.script.is_some()),
-            ("file", st.file.is_some()),
-            ("target_ci95_ps", st.target_ci95_ps.is_some()),
-            ("max_bursts", st.max_bursts.is_some()),
-            ("single_state_rx_dbm", st.single_state_rx_dbm.is_some()),
+            "center_mhz",
+            "bw_mhz",
+            "atten_db",
+            "bursts",
+            "frames",
+            "settle_ms",
         ],
     )?;
     let atten_key = format!("{key}.atten_db");
@@ -535,15 +590,56 @@ fn gain_map(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Swee
     measurement(key, st, vars, Points::Fixed(pts))
 }
 
+fn soak(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Soak, KeyError> {
+    allow_only(
+        key,
+        "soak",
+        st,
+        &["setpoint_c", "within_c", "stable_s", "poll_s", "timeout_s"],
+    )?;
+    if !bench.roles.contains_key("chamber") {
+        return Err(KeyError::new(
+            format!("{key}.kind"),
+            "needs a chamber, and the bench has no `chamber` role",
+            "add chamber = { driver = \"sim-chamber\", address = \"sim:\" } under the bench's [roles] (and [sim.chamber] when simulated)",
+        ));
+    }
+    let setpoint = require(key, "setpoint_c", &st.setpoint_c, "add setpoint_c = 45.0")?;
+    let setpoint_c = vars.number(&format!("{key}.setpoint_c"), setpoint)?;
+    if !(-70.0..=180.0).contains(&setpoint_c) {
+        return Err(KeyError::new(
+            format!("{key}.setpoint_c"),
+            format!("{setpoint_c} °C is outside -70..180 °C"),
+            "give a temperature the chamber and the DUT are rated for",
+        ));
+    }
+    let get = |name: &str, v: &Option<toml::Value>, default: f64| match v {
+        Some(v) => positive(vars, &format!("{key}.{name}"), v),
+        None => Ok(default),
+    };
+    Ok(Soak {
+        name: st.name.clone(),
+        setpoint_c,
+        within_c: get("within_c", &st.within_c, 0.5)?,
+        stable_s: get("stable_s", &st.stable_s, 120.0)?,
+        poll_s: get("poll_s", &st.poll_s, 10.0)?,
+        timeout_s: get("timeout_s", &st.timeout_s, 7200.0)?,
+    })
+}
+
 fn verify(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Verify, KeyError> {
-    refuse_keys(
+    allow_only(
         key,
         "verify",
+        st,
         &[
-            ("script", st.script.is_some()),
-            ("file", st.file.is_some()),
-            ("target_ci95_ps", st.target_ci95_ps.is_some()),
-            ("max_bursts", st.max_bursts.is_some()),
+            "center_mhz",
+            "bw_mhz",
+            "atten_db",
+            "bursts",
+            "frames",
+            "settle_ms",
+            "single_state_rx_dbm",
         ],
     )?;
     let atten_key = format!("{key}.atten_db");
@@ -685,18 +781,11 @@ fn script(
     base_dir: &Path,
 ) -> Result<Script, Diagnostic> {
     let located = |e: KeyError| source.key_error(e);
-    refuse_keys(
+    allow_only(
         key,
         "script",
-        &[
-            ("atten_db", st.atten_db.is_some()),
-            ("bursts", st.bursts.is_some()),
-            ("frames", st.frames.is_some()),
-            ("settle_ms", st.settle_ms.is_some()),
-            ("target_ci95_ps", st.target_ci95_ps.is_some()),
-            ("max_bursts", st.max_bursts.is_some()),
-            ("single_state_rx_dbm", st.single_state_rx_dbm.is_some()),
-        ],
+        st,
+        &["center_mhz", "bw_mhz", "script", "file"],
     )
     .map_err(located)?;
     let channel = channel(key, st, vars).map_err(located)?;

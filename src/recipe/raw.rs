@@ -41,6 +41,8 @@ pub struct RawMeta {
 pub struct RawFit {
     /// Rejection threshold in scaled MADs.
     pub reject_mad: Option<toml::Value>,
+    /// How many gain states the DUT has; states not measured are modelled.
+    pub gain_states: Option<toml::Value>,
 }
 
 /// `[accept]`.
@@ -61,7 +63,7 @@ pub struct RawAccept {
 pub struct RawStage {
     /// Stage name, unique in the recipe.
     pub name: String,
-    /// `sweep`, `gainmap`, `verify` or `script`.
+    /// `sweep`, `gainmap`, `verify`, `soak` or `script`.
     pub kind: String,
     /// Channel center frequency, MHz.
     pub center_mhz: Option<toml::Value>,
@@ -81,6 +83,16 @@ pub struct RawStage {
     pub max_bursts: Option<toml::Value>,
     /// Verify: receive level whose gain state gives the single-state calibration.
     pub single_state_rx_dbm: Option<toml::Value>,
+    /// Soak: chamber setpoint.
+    pub setpoint_c: Option<toml::Value>,
+    /// Soak: the DUT counts as settled within this of the setpoint.
+    pub within_c: Option<toml::Value>,
+    /// Soak: how long it must stay settled.
+    pub stable_s: Option<toml::Value>,
+    /// Soak: interval between temperature readings.
+    pub poll_s: Option<toml::Value>,
+    /// Soak: longest wait before the run stops.
+    pub timeout_s: Option<toml::Value>,
     /// Script: inline Rhai source.
     pub script: Option<String>,
     /// Script: path of a Rhai file, relative to the recipe.

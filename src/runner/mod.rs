@@ -11,4 +11,4 @@ pub mod tabulate;
 pub use clock::{BenchClock, ClockMode};
 pub use error::RunError;
 pub use session::{PointSummary, Session};
-pub use sweep::{run_gain_map, run_sweep, run_verify};
+pub use sweep::{run_gain_map, run_soak, run_sweep, run_verify};

@@ -4,7 +4,8 @@
 
 use super::tabulate::{FitSettings, Tabulated};
 use super::{
-    run_gain_map, run_sweep, run_verify, tabulate, BenchClock, ClockMode, RunError, Session,
+    run_gain_map, run_soak, run_sweep, run_verify, tabulate, BenchClock, ClockMode, RunError,
+    Session,
 };
 use crate::bench::Bench;
 use crate::data::manifest::{
@@ -100,6 +101,7 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         results: BTreeMap::new(),
         fit: FitInfo {
             reject_mad: req.plan.reject_mad,
+            gain_states: req.plan.gain_states,
             ..FitInfo::default()
         },
     };
@@ -126,10 +128,15 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
     let exchanges_path = dir.join(files::EXCHANGES);
 
     let mut failure = None;
-    for (role, id) in [
+    let chamber_id = instruments
+        .chamber
+        .as_ref()
+        .map(|c| ("chamber", c.identify()));
+    let ids = [
         ("attenuator", instruments.attenuator.identify()),
         ("dut", instruments.dut.identify()),
-    ] {
+    ];
+    for (role, id) in ids.into_iter().chain(chamber_id) {
         match id {
             Ok(id) => {
                 tracing::info!("{role}: {id}");
@@ -149,6 +156,7 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
                 &exchanges_path.display().to_string(),
             );
             s.reject_mad = req.plan.reject_mad;
+            s.set_chamber(instruments.chamber);
             Some(Rc::new(RefCell::new(s)))
         }
         Err(e) => {
@@ -185,12 +193,21 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
     let settings = FitSettings {
         reject_mad: req.plan.reject_mad,
         verify_stages: manifest.fit.verify_stages.clone(),
+        gain_states: req.plan.gain_states,
     };
     let (fit, verify_rows) = match tabulate::fit_file(&exchanges_path, &bench, &settings) {
         Ok(Tabulated { fit, checked }) => {
             let table_path = dir.join(files::CALTABLE);
             if let Err(e) = tabulate::write_table(&table_path, &fit) {
                 failure = failure.or(Some(io_err(&table_path, e)));
+            }
+            if !fit.drift.is_empty() {
+                let path = dir.join(files::DRIFT);
+                if let Err(e) =
+                    write_atomic(&path, crate::fit::drift::drift_csv(&fit.drift).as_bytes())
+                {
+                    failure = failure.or(Some(io_err(&path, e)));
+                }
             }
             let (rows, single) = verification(&req.plan, &bench, &fit, &checked, &verify_levels);
             manifest.fit.single_state = single;
@@ -246,6 +263,7 @@ fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunErro
             Stage::Sweep(sweep) => run_sweep(&mut session.borrow_mut(), sweep)?,
             Stage::GainMap(map) => run_gain_map(&mut session.borrow_mut(), map)?,
             Stage::Verify(v) => run_verify(&mut session.borrow_mut(), v)?,
+            Stage::Soak(soak) => run_soak(&mut session.borrow_mut(), soak)?,
             Stage::Script(script) => {
                 crate::script::run_script(session.clone(), script, &plan.vars)?
             }

@@ -7,7 +7,7 @@ use crate::bench::Bench;
 use crate::data::manifest::Counts;
 use crate::data::{Exchange, RecordSink, STATUS_OK};
 use crate::fit::gainmap::GainMap;
-use crate::instrument::{AttenuatorHandle, BurstSpec, RangingHandle};
+use crate::instrument::{AttenuatorHandle, BurstSpec, ChamberHandle, RangingHandle};
 use crate::recipe::Channel;
 use std::collections::BTreeMap;
 use std::sync::Arc;
@@ -35,6 +35,7 @@ pub struct Session {
     clock: Arc<BenchClock>,
     atten: AttenuatorHandle,
     dut: RangingHandle,
+    chamber: Option<ChamberHandle>,
     sink: Box<dyn RecordSink>,
     sink_name: String,
     stage: String,
@@ -71,6 +72,7 @@ impl Session {
             clock,
             atten,
             dut,
+            chamber: None,
             sink,
             sink_name: sink_name.to_string(),
             stage: String::new(),
@@ -87,6 +89,21 @@ impl Session {
             verify_stages: Vec::new(),
             reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
         }
+    }
+
+    /// Gives the session the bench's climatic chamber.
+    pub fn set_chamber(&mut self, chamber: Option<ChamberHandle>) {
+        self.chamber = chamber;
+    }
+
+    /// The climatic chamber, when the bench has one.
+    pub fn chamber(&self) -> Option<&ChamberHandle> {
+        self.chamber.as_ref()
+    }
+
+    /// The DUT's temperature, where the bench measures one.
+    pub fn dut_temp_c(&self) -> Result<Option<f64>, RunError> {
+        Ok(self.dut.temperature_c()?)
     }
 
     /// The bench.
@@ -230,6 +247,9 @@ impl Session {
             errs.push(e.into());
         }
         if let Err(e) = self.atten.safe_state() {
+            errs.push(e.into());
+        }
+        if let Some(Err(e)) = self.chamber.as_ref().map(ChamberHandle::safe_state) {
             errs.push(e.into());
         }
         errs

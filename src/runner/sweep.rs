@@ -1,12 +1,12 @@
 //! Declarative measurement stages: the attenuation sweep (fixed or mid-plateau points, fixed or
-//! adaptive burst counts), the gain-state map, and verification.
+//! adaptive burst counts), the gain-state map, verification, and temperature soaks.
 
 use super::{RunError, Session};
 use crate::data::Exchange;
 use crate::fit::gainmap::{self, MapPoint, Pass};
 use crate::fit::stats::t975;
 use crate::fit::{fit, Deembed, FitOptions};
-use crate::recipe::{Adaptive, Points, Sweep, Verify};
+use crate::recipe::{Adaptive, Points, Soak, Sweep, Verify};
 
 /// Runs a sweep: at each point set the attenuation, settle, then run the bursts.
 pub fn run_sweep(session: &mut Session, sweep: &Sweep) -> Result<(), RunError> {
@@ -175,4 +175,49 @@ pub fn run_verify(session: &mut Session, verify: &Verify) -> Result<(), RunError
         .verify_stages
         .push((verify.sweep.name.clone(), verify.single_state_rx_dbm));
     run_sweep(session, &verify.sweep)
+}
+
+/// Runs a soak: sets the chamber, then reads the DUT's temperature (the chamber's air where the
+/// DUT reports none) every `poll_s` until it has stayed within `within_c` of the setpoint for
+/// `stable_s`, or stops the run at `timeout_s`.
+pub fn run_soak(session: &mut Session, soak: &Soak) -> Result<(), RunError> {
+    let Some(chamber) = session.chamber().cloned() else {
+        return Err(RunError::Refused {
+            message: format!("soak `{}`: the bench has no chamber", soak.name),
+            hint: "add a chamber role to the bench".into(),
+        });
+    };
+    chamber.set_setpoint_c(soak.setpoint_c)?;
+    let start_s = session.clock().now_s();
+    let mut settled_since: Option<f64> = None;
+    loop {
+        session.wait_ms(soak.poll_s * 1000.0);
+        let now_s = session.clock().now_s();
+        let temp_c = match session.dut_temp_c()? {
+            Some(t) => t,
+            None => chamber.air_c()?,
+        };
+        if (temp_c - soak.setpoint_c).abs() <= soak.within_c {
+            let since = *settled_since.get_or_insert(now_s);
+            if now_s - since >= soak.stable_s {
+                tracing::info!(
+                    "soak `{}`: settled at {temp_c:.2} °C after {:.0} s",
+                    soak.name,
+                    now_s - start_s
+                );
+                return Ok(());
+            }
+        } else {
+            settled_since = None;
+        }
+        if now_s - start_s > soak.timeout_s {
+            return Err(RunError::Refused {
+                message: format!(
+                    "soak `{}`: the DUT reached only {temp_c:.2} °C of {} °C in {} s",
+                    soak.name, soak.setpoint_c, soak.timeout_s
+                ),
+                hint: "raise timeout_s or within_c, or check the chamber".into(),
+            });
+        }
+    }
 }

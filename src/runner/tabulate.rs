@@ -4,6 +4,7 @@
 use crate::bench::Bench;
 use crate::data::manifest::write_atomic;
 use crate::data::{read_exchanges, Exchange, ReadError};
+use crate::fit::model::{fill_table, ModelOptions};
 use crate::fit::verify::Checked;
 use crate::fit::{burst_delays, caltable, Deembed, FitOptions, FitResult, Fitter};
 use std::path::Path;
@@ -15,6 +16,8 @@ pub struct FitSettings {
     pub reject_mad: f64,
     /// Stages whose exchanges verify the table instead of fitting it.
     pub verify_stages: Vec<String>,
+    /// The DUT's number of gain states: unmeasured states get modelled rows.
+    pub gain_states: Option<u32>,
 }
 
 /// The table, and the verification exchanges judged one by one.
@@ -57,7 +60,14 @@ pub fn fit_file(
             fitter.push(&row);
         }
     }
-    let fit = fitter.finish();
+    let mut fit = fitter.finish();
+    if let Some(n) = settings.gain_states {
+        let wanted: Vec<u32> = (0..n).collect();
+        match fill_table(&fit.rows, &wanted, ModelOptions::default()) {
+            Ok(rows) => fit.rows = rows,
+            Err(e) => tracing::warn!("unmeasured gain states not modelled: {e}"),
+        }
+    }
     let fallback = 1.0 + fit.summary.median_clock_offset_ppm.unwrap_or(0.0) * 1e-6;
     let mut checked = Vec::new();
     for burst in &bursts {
