@@ -10,3 +10,4 @@ mod fit_offline;
 mod instruments;
 mod science;
 mod truth;
+mod unattended;

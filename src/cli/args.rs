@@ -25,6 +25,11 @@ pub enum Command {
         after_help = "Example:\n  taucal check recipes/rx-gain-sweep.toml --bench recipes/benches/sim-demo.toml"
     )]
     Check(CheckArgs),
+    /// Continue a run whose process died (power loss, SIGKILL) or that was stopped.
+    #[command(
+        after_help = "Completed points are kept; a half-done point is redone from its start. On a simulated bench\nthe resumed run records exactly what an uninterrupted run with the same seed would.\n\nExample:\n  taucal resume runs/20261202T101500Z-overnight-soak"
+    )]
+    Resume(ResumeArgs),
     /// Fit a calibration table from an exchanges file.
     #[command(
         after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit"
@@ -110,6 +115,13 @@ pub struct RunArgs {
     /// Reach a bench role at another address (e.g. dut=serial:/dev/ttyUSB0?baud=115200).
     #[arg(long = "connect", value_name = "ROLE=ADDRESS")]
     pub connect: Vec<String>,
+}
+
+/// `taucal resume`.
+#[derive(Debug, Args)]
+pub struct ResumeArgs {
+    /// The run directory.
+    pub run_dir: PathBuf,
 }
 
 /// `taucal check`.

@@ -55,6 +55,25 @@ pub fn init() {
         .try_init();
 }
 
+/// Continues a run's log in `path` (a resumed run).
+pub fn append_run_log(path: &Path) {
+    match std::fs::OpenOptions::new()
+        .create(true)
+        .append(true)
+        .open(path)
+    {
+        Ok(f) => {
+            if let Ok(mut g) = RUN_LOG.lock() {
+                *g = Some(f);
+            }
+        }
+        Err(e) => tracing::warn!(
+            "cannot open {}: {e}; logging to stderr only",
+            path.display()
+        ),
+    }
+}
+
 /// Starts copying the log into `path`.
 pub fn open_run_log(path: &Path) {
     match File::create(path) {

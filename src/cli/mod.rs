@@ -10,6 +10,7 @@ pub mod fit;
 pub mod log;
 pub mod ota;
 pub mod pairs;
+pub mod resume;
 pub mod run;
 pub mod sim_serve;
 pub mod table;
@@ -36,6 +37,7 @@ pub fn main() -> Exit {
     let result = match cli.command {
         Command::Run(a) => run::run(a),
         Command::Check(a) => check::run(a),
+        Command::Resume(a) => resume::run(a),
         Command::Fit(a) => fit::run(a),
         Command::Sim(SimCommand::Serve(a)) => sim_serve::run(a),
         Command::Pairs(a) => pairs::run(a),

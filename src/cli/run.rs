@@ -4,7 +4,8 @@ use super::args::RunArgs;
 use super::{bench_arg, log, table, Exit};
 use crate::data::run_dir::files;
 use crate::diagnostic::Diagnostic;
-use crate::runner::run::{execute, RunRequest};
+use crate::runner::run::{execute, RunReport, RunRequest};
+use crate::runner::RunError;
 use std::sync::Arc;
 
 /// Validates, runs, fits, and reports.
@@ -24,11 +25,17 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
         out: args.out,
         seed: args.seed,
         realtime: args.realtime,
+        resume: None,
     };
     let report = execute(request, |dir| {
         log::open_run_log(&dir.join(files::LOG));
         eprintln!("taucal: run directory {}", dir.display());
     })?;
+    Ok(outcome(&report))
+}
+
+/// Prints how a run ended and returns its exit status (shared with `taucal resume`).
+pub fn outcome(report: &RunReport) -> Exit {
     let m = &report.manifest;
     println!("run directory: {}", report.dir.display());
     println!(
@@ -66,18 +73,23 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
     }
     if let Some(f) = &report.failure {
         eprintln!("{}", failure_text(f));
+        let how = if matches!(f, RunError::Interrupted) {
+            "stopped"
+        } else {
+            "failed"
+        };
         println!(
-            "status: failed — data so far are kept in {}",
+            "status: {how} — data so far are kept; continue with: taucal resume {}",
             report.dir.display()
         );
-        return Ok(Exit::Stopped);
+        return Exit::Stopped;
     }
     if report.accepted() {
         println!("status: completed, every acceptance limit met");
-        Ok(Exit::Ok)
+        Exit::Ok
     } else {
         println!("status: completed, but an acceptance limit was not met");
-        Ok(Exit::LimitFailed)
+        Exit::LimitFailed
     }
 }
 

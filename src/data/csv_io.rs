@@ -28,8 +28,13 @@ pub const EXCHANGES_HEADER: [&str; 16] = [
 
 /// Where recorded exchanges go: a CSV file in a run, a vector in tests.
 pub trait RecordSink {
-    /// Takes one burst's rows; they must be durable (flushed) when this returns.
+    /// Takes one burst's rows; they must be flushed when this returns.
     fn write_burst(&mut self, rows: &[Exchange]) -> io::Result<()>;
+
+    /// Makes what was written durable (at point boundaries, before the journal says so).
+    fn sync(&mut self) -> io::Result<()> {
+        Ok(())
+    }
 }
 
 impl RecordSink for Vec<Exchange> {
@@ -45,6 +50,15 @@ pub struct ExchangeWriter {
 }
 
 impl ExchangeWriter {
+    /// Opens an existing exchanges file to add rows after its last one (a resumed run).
+    pub fn append(path: &Path) -> io::Result<Self> {
+        let file = std::fs::OpenOptions::new().append(true).open(path)?;
+        let inner = csv::WriterBuilder::new()
+            .has_headers(false)
+            .from_writer(BufWriter::new(file));
+        Ok(ExchangeWriter { inner })
+    }
+
     /// Creates the file and writes the header.
     pub fn create(path: &Path) -> io::Result<Self> {
         let file = File::create(path)?;
@@ -65,6 +79,11 @@ impl RecordSink for ExchangeWriter {
             self.inner.serialize(r).map_err(io::Error::other)?;
         }
         self.inner.flush()
+    }
+
+    fn sync(&mut self) -> io::Result<()> {
+        self.inner.flush()?;
+        self.inner.get_ref().get_ref().sync_data()
     }
 }
 

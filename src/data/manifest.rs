@@ -27,6 +27,9 @@ pub struct RecipeInfo {
     pub name: String,
     /// Path as given.
     pub path: String,
+    /// Absolute path, for `taucal resume` from another directory.
+    #[serde(default)]
+    pub file: String,
     /// SHA-256 of the file's bytes, hex.
     pub sha256: String,
     /// `--set` overrides, as given.
@@ -40,6 +43,9 @@ pub struct BenchInfo {
     pub name: String,
     /// Path, or the built-in label.
     pub path: String,
+    /// Absolute path (empty for the built-in bench).
+    #[serde(default)]
+    pub file: String,
     /// SHA-256 of the bench text, hex.
     pub sha256: String,
     /// True when every instrument was simulated.
@@ -147,6 +153,12 @@ pub struct Manifest {
     /// Fit settings.
     #[serde(default)]
     pub fit: FitInfo,
+    /// Whether a simulated bench kept wall-clock pace (`--realtime`).
+    #[serde(default)]
+    pub realtime: bool,
+    /// How many times `taucal resume` continued this run.
+    #[serde(default)]
+    pub resumes: u32,
 }
 
 impl Manifest {

@@ -18,6 +18,8 @@ pub mod files {
     pub const DRIFT: &str = "drift.csv";
     /// Verification against receive level.
     pub const VERIFY: &str = "verify.csv";
+    /// Checkpoints at point boundaries, for `taucal resume`.
+    pub const JOURNAL: &str = "journal.log";
     /// Human-readable log.
     pub const LOG: &str = "run.log";
 }

@@ -5,7 +5,7 @@
 //! virtual counter but also sleeps, so a simulated run keeps wall-clock pace. A real bench reads
 //! wall time.
 
-use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::time::{Duration, Instant};
 
 /// How bench time relates to wall time.
@@ -25,6 +25,7 @@ pub struct BenchClock {
     mode: ClockMode,
     counter_ps: AtomicU64,
     origin: Instant,
+    fast_forward: AtomicBool,
 }
 
 /// Picoseconds per second.
@@ -37,6 +38,7 @@ impl BenchClock {
             mode,
             counter_ps: AtomicU64::new(0),
             origin: Instant::now(),
+            fast_forward: AtomicBool::new(false),
         }
     }
 
@@ -59,9 +61,21 @@ impl BenchClock {
         self.now_ps() as f64 / PS_PER_S as f64
     }
 
+    /// While set, a paced or wall clock asks for no sleep: a resumed run replays what was
+    /// already recorded as fast as it can.
+    pub fn set_fast_forward(&self, on: bool) {
+        self.fast_forward.store(on, Ordering::SeqCst);
+    }
+
     /// Records that `ps` of bench time pass, and returns how long the caller must sleep in wall
     /// time for that to be true.
     pub fn spend(&self, ps: u64) -> Duration {
+        if self.fast_forward.load(Ordering::SeqCst) {
+            if self.mode != ClockMode::Wall {
+                self.counter_ps.fetch_add(ps, Ordering::SeqCst);
+            }
+            return Duration::ZERO;
+        }
         match self.mode {
             ClockMode::Virtual => {
                 self.counter_ps.fetch_add(ps, Ordering::SeqCst);

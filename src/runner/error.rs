@@ -26,6 +26,15 @@ pub enum RunError {
         /// What to do instead.
         hint: String,
     },
+    /// SIGINT or SIGTERM asked the run to stop.
+    #[error("stopped on request (SIGINT or SIGTERM)")]
+    Interrupted,
+    /// A resumed simulated run no longer reproduces what the interrupted one recorded.
+    #[error("resume diverged at exchange {row}: the bench, seed or recipe behave differently than when the run began")]
+    Diverged {
+        /// 1-based exchange number.
+        row: u64,
+    },
     /// A script failed; the diagnostic points at its line.
     #[error("{0}")]
     Script(Box<Diagnostic>),

@@ -3,12 +3,16 @@
 
 pub mod clock;
 pub mod error;
+pub mod journal;
+pub mod resume;
 pub mod run;
 pub mod session;
+pub mod stop;
 pub mod sweep;
 pub mod tabulate;
 
 pub use clock::{BenchClock, ClockMode};
 pub use error::RunError;
 pub use session::{PointSummary, Session};
+pub use stop::StopFlag;
 pub use sweep::{run_gain_map, run_soak, run_sweep, run_verify};

@@ -2,10 +2,11 @@
 //! manifest. Whatever happens after the run directory exists, the data recorded so far stay on
 //! disk, the instruments end in their safe state and the manifest says how the run ended.
 
+use super::journal::Journal;
 use super::tabulate::{FitSettings, Tabulated};
 use super::{
     run_gain_map, run_soak, run_sweep, run_verify, tabulate, BenchClock, ClockMode, RunError,
-    Session,
+    Session, StopFlag,
 };
 use crate::bench::Bench;
 use crate::data::manifest::{
@@ -40,6 +41,18 @@ pub struct RunRequest {
     pub seed: Option<u64>,
     /// `--realtime`: a simulated bench keeps wall-clock pace.
     pub realtime: bool,
+    /// Continue an interrupted run instead of starting one.
+    pub resume: Option<Resumption>,
+}
+
+/// What a resumed run starts from.
+pub struct Resumption {
+    /// The interrupted run's directory.
+    pub dir: PathBuf,
+    /// Its manifest.
+    pub manifest: Manifest,
+    /// Its exchanges up to the last checkpoint (the file is already cut there).
+    pub replay: Vec<crate::data::Exchange>,
 }
 
 /// How a run ended.
@@ -68,8 +81,11 @@ impl RunReport {
 pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport, Diagnostic> {
     let wall = Instant::now();
     let now = time::OffsetDateTime::now_utc();
-    let dir = run_dir::create(req.out.as_deref(), &req.plan.name, now)
-        .map_err(|e| Diagnostic::plain(format!("cannot create the run directory: {e}")))?;
+    let dir = match &req.resume {
+        Some(r) => r.dir.clone(),
+        None => run_dir::create(req.out.as_deref(), &req.plan.name, now)
+            .map_err(|e| Diagnostic::plain(format!("cannot create the run directory: {e}")))?,
+    };
     on_dir(&dir);
     let bench = req.bench;
     let simulated = bench.is_simulated();
@@ -86,12 +102,18 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         recipe: RecipeInfo {
             name: req.plan.name.clone(),
             path: req.plan.source.path.display().to_string(),
+            file: absolute(&req.plan.source.path),
             sha256: sha256_hex(req.plan.source.text.as_bytes()),
             overrides: req.overrides.clone(),
         },
         bench: BenchInfo {
             name: bench.name.clone(),
             path: bench.source.path.display().to_string(),
+            file: if bench.source.path.is_file() {
+                absolute(&bench.source.path)
+            } else {
+                String::new()
+            },
             sha256: sha256_hex(bench.source.text.as_bytes()),
             simulated,
         },
@@ -104,6 +126,16 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
             gain_states: req.plan.gain_states,
             ..FitInfo::default()
         },
+        realtime: req.realtime,
+        resumes: 0,
+    };
+    let earlier_wall_s = match &req.resume {
+        Some(r) => {
+            manifest.started_utc = r.manifest.started_utc.clone();
+            manifest.resumes = r.manifest.resumes + 1;
+            r.manifest.wall_time_s
+        }
+        None => 0.0,
     };
     let manifest_path = dir.join(files::MANIFEST);
     let io_err = |path: &Path, source: std::io::Error| RunError::Io {
@@ -126,6 +158,8 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         .map_err(|e| Diagnostic::plain(format!("cannot start the instrument runtime: {e}")))?;
     let instruments = connect(&bench, clock.clone(), seed, rt.handle())?;
     let exchanges_path = dir.join(files::EXCHANGES);
+    let stop = StopFlag::default();
+    stop.listen(rt.handle());
 
     let mut failure = None;
     let chamber_id = instruments
@@ -145,8 +179,13 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
             Err(e) => failure = failure.or(Some(e.into())),
         }
     }
-    let session = match ExchangeWriter::create(&exchanges_path) {
-        Ok(writer) => {
+    let writer = match &req.resume {
+        Some(_) => ExchangeWriter::append(&exchanges_path),
+        None => ExchangeWriter::create(&exchanges_path),
+    };
+    let journal_path = dir.join(files::JOURNAL);
+    let session = match writer.and_then(|w| Journal::open(&journal_path).map(|j| (w, j))) {
+        Ok((writer, journal)) => {
             let mut s = Session::new(
                 bench.clone(),
                 clock.clone(),
@@ -157,6 +196,11 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
             );
             s.reject_mad = req.plan.reject_mad;
             s.set_chamber(instruments.chamber);
+            s.set_stop(stop.clone());
+            s.set_journal(journal);
+            if let Some(r) = &req.resume {
+                s.set_replay(r.replay.clone(), simulated);
+            }
             Some(Rc::new(RefCell::new(s)))
         }
         Err(e) => {
@@ -166,7 +210,9 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
     };
     if let Some(session) = &session {
         if failure.is_none() {
-            failure = run_stages(&req.plan, session).err();
+            failure = run_stages(&req.plan, session)
+                .and_then(|()| session.borrow_mut().checkpoint())
+                .err();
         }
         for e in session.borrow().safe_state() {
             tracing::error!("safe state: {e}");
@@ -238,11 +284,12 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
     }
     manifest.status = match &failure {
         None => RunStatus::Completed,
+        Some(RunError::Interrupted) => RunStatus::Stopped,
         Some(_) => RunStatus::Failed,
     };
     manifest.error = failure.as_ref().map(ToString::to_string);
     manifest.bench_time_s = clock.now_s();
-    manifest.wall_time_s = wall.elapsed().as_secs_f64();
+    manifest.wall_time_s = earlier_wall_s + wall.elapsed().as_secs_f64();
     manifest.finished_utc = Some(run_dir::rfc3339(time::OffsetDateTime::now_utc()));
     if let Err(e) = manifest.write(&manifest_path) {
         failure = failure.or(Some(io_err(&manifest_path, e)));
@@ -254,6 +301,14 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         verify: verify_rows,
         failure,
     })
+}
+
+/// The absolute form of a path, for finding the file again from another working directory.
+fn absolute(path: &Path) -> String {
+    std::path::absolute(path)
+        .unwrap_or_else(|_| path.to_path_buf())
+        .display()
+        .to_string()
 }
 
 fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunError> {

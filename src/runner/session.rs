@@ -2,14 +2,15 @@
 //! and where the run is (stage, point, burst). Sweeps and scripts act only through it, so both
 //! obey the same limits and number their records the same way.
 
-use super::{BenchClock, RunError};
+use super::journal::{Checkpoint, Journal};
+use super::{BenchClock, RunError, StopFlag};
 use crate::bench::Bench;
 use crate::data::manifest::Counts;
 use crate::data::{Exchange, RecordSink, STATUS_OK};
 use crate::fit::gainmap::GainMap;
 use crate::instrument::{AttenuatorHandle, BurstSpec, ChamberHandle, RangingHandle};
 use crate::recipe::Channel;
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, VecDeque};
 use std::sync::Arc;
 
 /// What one attenuation point yielded: gain states seen and how often.
@@ -29,6 +30,16 @@ pub struct PointSummary {
     pub failed: u64,
 }
 
+/// Rows an interrupted run recorded, being replayed by its resumption.
+#[derive(Default)]
+struct Replay {
+    rows: VecDeque<Exchange>,
+    /// True on a simulated bench: rows are regenerated and checked, not read back.
+    regenerate: bool,
+    /// Rows replayed so far.
+    checked: u64,
+}
+
 /// Instruments and bookkeeping of a run in progress.
 pub struct Session {
     bench: Arc<Bench>,
@@ -36,6 +47,9 @@ pub struct Session {
     atten: AttenuatorHandle,
     dut: RangingHandle,
     chamber: Option<ChamberHandle>,
+    stop: StopFlag,
+    journal: Option<Journal>,
+    replay: Replay,
     sink: Box<dyn RecordSink>,
     sink_name: String,
     stage: String,
@@ -73,6 +87,9 @@ impl Session {
             atten,
             dut,
             chamber: None,
+            stop: StopFlag::default(),
+            journal: None,
+            replay: Replay::default(),
             sink,
             sink_name: sink_name.to_string(),
             stage: String::new(),
@@ -89,6 +106,55 @@ impl Session {
             verify_stages: Vec::new(),
             reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
         }
+    }
+
+    /// Makes the session obey a stop flag (SIGINT/SIGTERM).
+    pub fn set_stop(&mut self, stop: StopFlag) {
+        self.stop = stop;
+    }
+
+    /// The stop flag.
+    pub fn stop(&self) -> &StopFlag {
+        &self.stop
+    }
+
+    /// Journals a checkpoint at every completed point.
+    pub fn set_journal(&mut self, journal: Journal) {
+        self.journal = Some(journal);
+    }
+
+    /// Replays `rows` (what an interrupted run recorded up to its last checkpoint) before
+    /// recording anything new. A simulated bench regenerates them, so the model reaches the
+    /// state it was in, and each is checked against the record; a real bench's instruments are
+    /// left alone and the recorded rows are used as they are.
+    pub fn set_replay(&mut self, rows: Vec<Exchange>, regenerate: bool) {
+        self.replay = Replay {
+            rows: rows.into(),
+            regenerate,
+            checked: 0,
+        };
+        self.clock.set_fast_forward(!self.replay.rows.is_empty());
+    }
+
+    /// Records a checkpoint: the exchanges so far are synced, then journaled.
+    pub fn checkpoint(&mut self) -> Result<(), RunError> {
+        if !self.replay.rows.is_empty() {
+            return Ok(());
+        }
+        let Some(journal) = &mut self.journal else {
+            return Ok(());
+        };
+        let io = |source| RunError::Io {
+            path: self.sink_name.clone(),
+            source,
+        };
+        self.sink.sync().map_err(io)?;
+        journal
+            .append(Checkpoint {
+                rows: self.counts.exchanges,
+                bench_ps: self.clock.now_ps(),
+            })
+            .map_err(io)
     }
 
     /// Gives the session the bench's climatic chamber.
@@ -117,10 +183,12 @@ impl Session {
     }
 
     /// Starts a stage: points are numbered afresh, and the attenuation must be set again.
-    pub fn begin_stage(&mut self, name: &str, channel: Channel) {
+    pub fn begin_stage(&mut self, name: &str, channel: Channel) -> Result<(), RunError> {
+        self.checkpoint()?;
         self.stage = name.to_string();
         self.channel = channel;
         self.atten_db = None;
+        Ok(())
     }
 
     /// The channel bursts use.
@@ -129,13 +197,14 @@ impl Session {
     }
 
     /// Changes channel; the next burst starts a new point.
-    pub fn set_channel(&mut self, channel: Channel) {
+    pub fn set_channel(&mut self, channel: Channel) -> Result<(), RunError> {
         if self.channel != channel {
             self.channel = channel;
             if let Some(db) = self.atten_db {
-                self.new_point(db);
+                self.new_point(db)?;
             }
         }
+        Ok(())
     }
 
     /// The attenuation last set in this stage.
@@ -149,12 +218,22 @@ impl Session {
         if let Some((message, hint)) = self.bench.refuse_atten(db) {
             return Err(RunError::Refused { message, hint });
         }
-        self.atten.set_atten_db(db)?;
-        self.new_point(db);
-        Ok(())
+        if self.stop.requested() {
+            return Err(RunError::Interrupted);
+        }
+        if !self.feeding() {
+            self.atten.set_atten_db(db)?;
+        }
+        self.new_point(db)
     }
 
-    fn new_point(&mut self, db: f64) {
+    /// True while recorded rows stand in for a real bench's instruments.
+    fn feeding(&self) -> bool {
+        !self.replay.rows.is_empty() && !self.replay.regenerate
+    }
+
+    fn new_point(&mut self, db: f64) -> Result<(), RunError> {
+        self.checkpoint()?;
         let point = self
             .points
             .iter()
@@ -173,11 +252,23 @@ impl Session {
         self.atten_db = Some(db);
         self.next_burst = 0;
         self.counts.points += 1;
+        Ok(())
     }
 
     /// Waits `ms` of bench time.
-    pub fn wait_ms(&mut self, ms: f64) {
-        std::thread::sleep(self.clock.spend(BenchClock::ms_to_ps(ms)));
+    pub fn wait_ms(&mut self, ms: f64) -> Result<(), RunError> {
+        let mut left = self.clock.spend(BenchClock::ms_to_ps(ms));
+        // Sleep in slices so a stop request is seen within a tenth of a second.
+        let slice = std::time::Duration::from_millis(100);
+        while !left.is_zero() {
+            if self.stop.requested() {
+                return Err(RunError::Interrupted);
+            }
+            let nap = left.min(slice);
+            std::thread::sleep(nap);
+            left -= nap;
+        }
+        Ok(())
     }
 
     /// Runs one burst at the current point and records it; returns the recorded rows.
@@ -189,10 +280,16 @@ impl Session {
                 hint: "set the attenuation first (set_atten in a script)".into(),
             });
         };
+        if self.stop.requested() {
+            return Err(RunError::Interrupted);
+        }
         let channel = self.channel;
+        let point = self.points.last_mut().map_or(0, |p| p.point);
+        if self.feeding() {
+            return self.feed(point);
+        }
         let reported = self.dut.burst(BurstSpec { frames, channel })?;
         let temp_c = self.dut.temperature_c()?;
-        let point = self.points.last_mut().map_or(0, |p| p.point);
         let burst = self.next_burst;
         self.next_burst += 1;
         let rows: Vec<Exchange> = reported
@@ -217,16 +314,74 @@ impl Session {
                 status: d.status,
             })
             .collect();
-        self.sink
-            .write_burst(&rows)
-            .map_err(|source| RunError::Io {
-                path: self.sink_name.clone(),
-                source,
-            })?;
+        if self.replay.rows.is_empty() {
+            self.sink
+                .write_burst(&rows)
+                .map_err(|source| RunError::Io {
+                    path: self.sink_name.clone(),
+                    source,
+                })?;
+        } else {
+            self.check_replayed(&rows)?;
+        }
+        self.tally(&rows);
+        Ok(rows)
+    }
+
+    /// A replayed burst of a real bench: the recorded rows of this point's next burst.
+    fn feed(&mut self, point: u32) -> Result<Vec<Exchange>, RunError> {
+        let burst = self.next_burst;
+        self.next_burst += 1;
+        let mut rows = Vec::new();
+        while let Some(r) = self.replay.rows.front() {
+            if r.stage != self.stage || r.point != point || r.burst != burst {
+                break;
+            }
+            rows.extend(self.replay.rows.pop_front());
+        }
+        if rows.is_empty() {
+            return Err(RunError::Diverged {
+                row: self.replay.checked + 1,
+            });
+        }
+        self.replay.checked += rows.len() as u64;
+        self.end_replay_if_done();
+        self.tally(&rows);
+        Ok(rows)
+    }
+
+    /// Checks regenerated rows against the record; the replay ends when the record does.
+    fn check_replayed(&mut self, rows: &[Exchange]) -> Result<(), RunError> {
+        for r in rows {
+            match self.replay.rows.pop_front() {
+                Some(recorded) if recorded == *r => self.replay.checked += 1,
+                _ => {
+                    return Err(RunError::Diverged {
+                        row: self.replay.checked + 1,
+                    })
+                }
+            }
+        }
+        self.end_replay_if_done();
+        Ok(())
+    }
+
+    fn end_replay_if_done(&mut self) {
+        if self.replay.rows.is_empty() && self.replay.checked > 0 {
+            tracing::info!(
+                "resumed: {} exchanges replayed, recording again",
+                self.replay.checked
+            );
+            self.clock.set_fast_forward(false);
+        }
+    }
+
+    /// Updates counts and the point's summary with a burst's rows.
+    fn tally(&mut self, rows: &[Exchange]) {
         self.counts.bursts += 1;
         self.counts.exchanges += rows.len() as u64;
         if let Some(summary) = self.points.last_mut() {
-            for r in &rows {
+            for r in rows {
                 match (r.status == STATUS_OK, r.dut_gain) {
                     (true, Some(g)) => {
                         *summary.ok_by_gain.entry(g).or_insert(0) += 1;
@@ -236,7 +391,6 @@ impl Session {
                 }
             }
         }
-        Ok(rows)
     }
 
     /// Puts every instrument in its safe state; returns the failures, if any, without stopping
@@ -246,8 +400,9 @@ impl Session {
         if let Err(e) = self.dut.safe_state() {
             errs.push(e.into());
         }
-        if let Err(e) = self.atten.safe_state() {
-            errs.push(e.into());
+        match self.atten.safe_state().and_then(|()| self.atten.atten_db()) {
+            Ok(db) => tracing::info!("safe state: attenuator at {db} dB, ranging stopped"),
+            Err(e) => errs.push(e.into()),
         }
         if let Some(Err(e)) = self.chamber.as_ref().map(ChamberHandle::safe_state) {
             errs.push(e.into());

@@ -11,7 +11,7 @@ use crate::recipe::{Adaptive, Points, Soak, Sweep, Verify};
 /// Runs a sweep: at each point set the attenuation, settle, then run the bursts.
 pub fn run_sweep(session: &mut Session, sweep: &Sweep) -> Result<(), RunError> {
     let points = resolve(session, sweep)?;
-    session.begin_stage(&sweep.name, sweep.channel);
+    session.begin_stage(&sweep.name, sweep.channel)?;
     for db in points {
         measure_point(session, sweep, db)?;
     }
@@ -52,7 +52,7 @@ fn resolve(session: &Session, sweep: &Sweep) -> Result<Vec<f64>, RunError> {
 /// One point: set, settle, run the bursts (adaptive: until the target interval is reached).
 fn measure_point(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), RunError> {
     session.set_atten(db)?;
-    session.wait_ms(sweep.settle_ms);
+    session.wait_ms(sweep.settle_ms)?;
     let mut rows: Vec<Exchange> = Vec::new();
     for _ in 0..sweep.bursts {
         rows.extend(session.burst(sweep.frames)?);
@@ -126,7 +126,7 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
             hint: "give atten_db as a range or list".into(),
         });
     };
-    session.begin_stage(&map.name, map.channel);
+    session.begin_stage(&map.name, map.channel)?;
     let first = session.points.len();
     let falling = points.iter().rev().copied();
     for db in points.iter().copied().chain(falling) {
@@ -191,7 +191,7 @@ pub fn run_soak(session: &mut Session, soak: &Soak) -> Result<(), RunError> {
     let start_s = session.clock().now_s();
     let mut settled_since: Option<f64> = None;
     loop {
-        session.wait_ms(soak.poll_s * 1000.0);
+        session.wait_ms(soak.poll_s * 1000.0)?;
         let now_s = session.clock().now_s();
         let temp_c = match session.dut_temp_c()? {
             Some(t) => t,

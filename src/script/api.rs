@@ -101,8 +101,8 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
         if !(0.0..=86_400_000.0).contains(&ms) {
             return Err(format!("wait_ms({ms}): give 0 to 86400000 ms").into());
         }
-        b.session.borrow_mut().wait_ms(ms);
-        Ok(())
+        let r = b.session.borrow_mut().wait_ms(ms);
+        b.park(r)
     });
     let b = bridge.clone();
     engine.register_fn("channel", move |center: INT, bw: INT| -> Res<()> {
@@ -114,11 +114,11 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
             )
             .into());
         }
-        b.session.borrow_mut().set_channel(Channel {
+        let r = b.session.borrow_mut().set_channel(Channel {
             center_mhz: center as u32,
             bw_mhz: bw as u32,
         });
-        Ok(())
+        b.park(r)
     });
     let b = bridge.clone();
     engine.register_fn("burst", move |frames: INT| -> Res<Array> {

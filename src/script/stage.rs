@@ -49,13 +49,16 @@ pub fn run_script(
 ) -> Result<(), RunError> {
     session
         .borrow_mut()
-        .begin_stage(&script.name, script.channel);
+        .begin_stage(&script.name, script.channel)?;
+    let stop = session.borrow().stop().clone();
     let bridge = Bridge {
         session,
         fault: Rc::new(RefCell::new(None)),
     };
     let mut engine = sandboxed_engine();
     api::register(&mut engine, &bridge, vars);
+    // A stop request ends a script between operations, even one that never calls the bench.
+    engine.on_progress(move |_| stop.requested().then_some(rhai::Dynamic::UNIT));
     let src = &script.source;
     let ast = engine.compile(&src.code).map_err(|e| {
         RunError::Script(Box::new(located(
@@ -72,8 +75,16 @@ pub fn run_script(
         Ok(()) => Ok(()),
         Err(e) => {
             let fault = bridge.fault.borrow_mut().take();
+            if matches!(*e, EvalAltResult::ErrorTerminated(..)) {
+                return Err(RunError::Interrupted);
+            }
             let hint = match fault {
-                Some(f @ (RunError::Instrument(_) | RunError::Io { .. })) => return Err(f),
+                Some(
+                    f @ (RunError::Instrument(_)
+                    | RunError::Io { .. }
+                    | RunError::Interrupted
+                    | RunError::Diverged { .. }),
+                ) => return Err(f),
                 Some(RunError::Refused { hint, .. }) => Some(hint),
                 _ => None,
             };

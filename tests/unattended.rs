@@ -1,0 +1,169 @@
+//! Unattended runs: a run killed outright resumes to exactly the data of an uninterrupted one;
+//! SIGINT stops it cleanly (exit 3, status `stopped`, instruments in their safe state); resume
+//! refuses what it cannot continue honestly.
+
+use crate::support::Taucal;
+use nix::sys::signal::{kill, Signal};
+use nix::unistd::Pid;
+use std::process::{Command, Stdio};
+use std::time::{Duration, Instant};
+
+/// A recipe of ~1.6 s of bench time: a gain map, then mid-plateau points, so the later stage
+/// depends on what the earlier one found.
+const RECIPE: &str = r#"
+[recipe]
+name = "unattended"
+
+[[stage]]
+name = "map"
+kind = "gainmap"
+center_mhz = 5180
+bw_mhz = 80
+atten_db = { from = 20.0, to = 70.0, step = 5.0 }
+frames = 8
+settle_ms = 30.0
+
+[[stage]]
+name = "cal"
+kind = "sweep"
+center_mhz = 5180
+bw_mhz = 80
+atten_db = { mid_plateau = "map", per_state = 2, margin_db = 2.0 }
+bursts = 3
+frames = 16
+settle_ms = 30.0
+"#;
+
+/// Starts a `--realtime` run in `dir`, lets it record for `after`, then sends `signal`.
+fn interrupt(dir: &std::path::Path, out: &str, signal: Signal, after: Duration) -> i32 {
+    let mut child = Command::new(env!("CARGO_BIN_EXE_taucal"))
+        .args(["run", "r.toml", "--seed", "4", "--realtime", "--out", out])
+        .current_dir(dir)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("start taucal");
+    std::thread::sleep(after);
+    kill(Pid::from_raw(child.id() as i32), signal).expect("signal");
+    let start = Instant::now();
+    loop {
+        if let Some(status) = child.try_wait().expect("wait") {
+            return status.code().unwrap_or(-1);
+        }
+        assert!(
+            start.elapsed() < Duration::from_secs(20),
+            "taucal did not stop"
+        );
+        std::thread::sleep(Duration::from_millis(20));
+    }
+}
+
+fn status(dir: &std::path::Path, out: &str) -> String {
+    let text = std::fs::read_to_string(dir.join(out).join("manifest.toml")).expect("manifest");
+    let m: toml::Table = toml::from_str(&text).expect("toml");
+    m["status"].as_str().unwrap_or_default().to_string()
+}
+
+#[test]
+fn a_killed_run_resumes_to_exactly_the_uninterrupted_data() {
+    let full = Taucal::new()
+        .file("r.toml", RECIPE)
+        .args(["run", "r.toml", "--seed", "4", "--out", "full"])
+        .run();
+    full.expect_code(0);
+    let dir = full.dir;
+    let code = interrupt(
+        dir.path(),
+        "cut",
+        Signal::SIGKILL,
+        Duration::from_millis(900),
+    );
+    assert_eq!(code, -1, "killed by a signal");
+    assert_eq!(
+        status(dir.path(), "cut"),
+        "running",
+        "a killed run cannot say more"
+    );
+    let partial = std::fs::read_to_string(dir.path().join("cut/exchanges.csv")).expect("partial");
+    let resumed = Taucal::in_dir(dir).args(["resume", "cut"]).run();
+    resumed.expect_code(0);
+    let (a, b) = (
+        resumed.read("full/exchanges.csv"),
+        resumed.read("cut/exchanges.csv"),
+    );
+    assert!(partial.lines().count() > 1 && partial.lines().count() < a.lines().count());
+    assert_eq!(a, b, "nothing lost, nothing twice");
+    assert_eq!(
+        resumed.read("full/caltable.csv"),
+        resumed.read("cut/caltable.csv")
+    );
+    assert_eq!(status(resumed.dir.path(), "cut"), "completed");
+}
+
+#[test]
+fn sigint_stops_cleanly_and_the_run_resumes() {
+    let full = Taucal::new()
+        .file("r.toml", RECIPE)
+        .args(["run", "r.toml", "--seed", "4", "--out", "full"])
+        .run();
+    full.expect_code(0);
+    let dir = full.dir;
+    let code = interrupt(
+        dir.path(),
+        "int",
+        Signal::SIGINT,
+        Duration::from_millis(900),
+    );
+    assert_eq!(code, 3);
+    assert_eq!(status(dir.path(), "int"), "stopped");
+    let log = std::fs::read_to_string(dir.path().join("int/run.log")).expect("log");
+    assert!(
+        log.contains("safe state: attenuator at 95 dB, ranging stopped"),
+        "{log}"
+    );
+    let resumed = Taucal::in_dir(dir).args(["resume", "int"]).run();
+    resumed.expect_code(0);
+    assert_eq!(
+        resumed.read("full/exchanges.csv"),
+        resumed.read("int/exchanges.csv")
+    );
+}
+
+#[test]
+fn resume_refuses_a_completed_run_and_a_changed_recipe() {
+    let out = Taucal::new()
+        .file("r.toml", RECIPE)
+        .args(["run", "r.toml", "--out", "done"])
+        .run();
+    out.expect_code(0);
+    let again = Taucal::in_dir(out.dir).args(["resume", "done"]).run();
+    again.expect_code(2);
+    assert!(
+        again.stderr.contains("already completed"),
+        "{}",
+        again.stderr
+    );
+
+    let dir = again.dir;
+    let code = interrupt(
+        dir.path(),
+        "cut",
+        Signal::SIGKILL,
+        Duration::from_millis(600),
+    );
+    assert_eq!(code, -1);
+    std::fs::write(
+        dir.path().join("r.toml"),
+        RECIPE.replace("bursts = 3", "bursts = 4"),
+    )
+    .expect("edit");
+    let changed = Taucal::in_dir(dir).args(["resume", "cut"]).run();
+    changed.expect_code(2);
+    assert!(
+        changed
+            .stderr
+            .contains("the recipe changed since the run began"),
+        "{}",
+        changed.stderr
+    );
+}
