@@ -7,4 +7,5 @@ mod calibration;
 mod demo_run;
 mod examples;
 mod fit_offline;
+mod plan_preview;
 mod truth;

@@ -1,6 +1,6 @@
 //! Reading a bench file: raw TOML structs, then a validated [`Bench`].
 
-use super::{PathFacts, PerGain};
+use super::{PathFacts, PerGain, TimingFacts};
 use crate::diagnostic::{self, Diagnostic, KeyError, SourceFile};
 use crate::sim::SimTruth;
 use serde::Deserialize;
@@ -29,6 +29,8 @@ struct RawBench {
     dut: UnitFacts,
     path: PathFacts,
     reference: ReferenceFacts,
+    #[serde(default)]
+    timing: TimingFacts,
     sim: Option<SimTruth>,
 }
 
@@ -105,6 +107,8 @@ pub struct Bench {
     pub path: PathFacts,
     /// The reference unit.
     pub reference: ReferenceFacts,
+    /// How long actions take on a real bench (for estimates only).
+    pub timing: TimingFacts,
     /// Simulation truth, present on a simulated bench.
     pub sim: Option<SimTruth>,
 }
@@ -136,6 +140,7 @@ impl Bench {
             dut: raw.dut,
             path: raw.path,
             reference: raw.reference,
+            timing: raw.timing,
             sim: raw.sim,
             source,
         };
@@ -339,6 +344,7 @@ impl Bench {
                 "check tx_power_dbm, path.fixed_loss_db and the input limits",
             ));
         }
+        self.timing.validate()?;
         if let Some(sim) = &self.sim {
             sim.validate()?;
         }

@@ -25,10 +25,14 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
         seed: args.seed,
         realtime: args.realtime,
     };
-    let report = execute(request, |dir| {
-        log::open_run_log(&dir.join(files::LOG));
-        eprintln!("taucal: run directory {}", dir.display());
-    })?;
+    let report = execute(
+        request,
+        |dir| {
+            log::open_run_log(&dir.join(files::LOG));
+            eprintln!("taucal: run directory {}", dir.display());
+        },
+        Box::new(crate::runner::Unobserved),
+    )?;
     let m = &report.manifest;
     println!("run directory: {}", report.dir.display());
     println!(

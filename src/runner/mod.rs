@@ -3,6 +3,8 @@
 
 pub mod clock;
 pub mod error;
+pub mod estimate;
+pub mod events;
 pub mod run;
 pub mod session;
 pub mod sweep;
@@ -10,5 +12,6 @@ pub mod tabulate;
 
 pub use clock::{BenchClock, ClockMode};
 pub use error::RunError;
+pub use events::{RunEvent, RunObserver, Unobserved};
 pub use session::{PointSummary, Session};
 pub use sweep::{run_gain_map, run_sweep, run_verify};

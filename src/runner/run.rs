@@ -4,7 +4,8 @@
 
 use super::tabulate::{FitSettings, Tabulated};
 use super::{
-    run_gain_map, run_sweep, run_verify, tabulate, BenchClock, ClockMode, RunError, Session,
+    run_gain_map, run_sweep, run_verify, tabulate, BenchClock, ClockMode, RunError, RunEvent,
+    RunObserver, Session,
 };
 use crate::bench::Bench;
 use crate::data::manifest::{
@@ -62,9 +63,14 @@ impl RunReport {
     }
 }
 
-/// Runs `req`. `on_dir` is called once the run directory exists (to start its log). Errors
-/// returned here happen before anything runs; later failures are in the report.
-pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport, Diagnostic> {
+/// Runs `req`. `on_dir` is called once the run directory exists (to start its log); `observer`
+/// hears of stages, points and bursts as they happen. Errors returned here happen before
+/// anything runs; later failures are in the report.
+pub fn execute(
+    req: RunRequest,
+    on_dir: impl FnOnce(&Path),
+    observer: Box<dyn RunObserver>,
+) -> Result<RunReport, Diagnostic> {
     let wall = Instant::now();
     let now = time::OffsetDateTime::now_utc();
     let dir = run_dir::create(req.out.as_deref(), &req.plan.name, now)
@@ -149,6 +155,7 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
                 &exchanges_path.display().to_string(),
             );
             s.reject_mad = req.plan.reject_mad;
+            s.set_observer(observer);
             Some(Rc::new(RefCell::new(s)))
         }
         Err(e) => {
@@ -160,6 +167,7 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
         if failure.is_none() {
             failure = run_stages(&req.plan, session).err();
         }
+        session.borrow_mut().notify(&RunEvent::StagesEnded);
         for e in session.borrow().safe_state() {
             tracing::error!("safe state: {e}");
             failure = failure.or(Some(e));
@@ -240,7 +248,12 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
 }
 
 fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunError> {
-    for stage in &plan.stages {
+    for (index, stage) in plan.stages.iter().enumerate() {
+        session.borrow_mut().notify(&RunEvent::StageBegins {
+            index,
+            count: plan.stages.len(),
+            name: stage.name(),
+        });
         tracing::info!("stage `{}` begins", stage.name());
         match stage {
             Stage::Sweep(sweep) => run_sweep(&mut session.borrow_mut(), sweep)?,

@@ -2,7 +2,7 @@
 //! and where the run is (stage, point, burst). Sweeps and scripts act only through it, so both
 //! obey the same limits and number their records the same way.
 
-use super::{BenchClock, RunError};
+use super::{BenchClock, RunError, RunEvent, RunObserver, Unobserved};
 use crate::bench::Bench;
 use crate::data::manifest::Counts;
 use crate::data::{Exchange, RecordSink, STATUS_OK};
@@ -53,6 +53,7 @@ pub struct Session {
     pub verify_stages: Vec<(String, f64)>,
     /// The fitter's rejection threshold, for intervals computed during the run.
     pub reject_mad: f64,
+    observer: Box<dyn RunObserver>,
 }
 
 impl Session {
@@ -86,7 +87,19 @@ impl Session {
             gain_maps: BTreeMap::new(),
             verify_stages: Vec::new(),
             reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
+            observer: Box::new(Unobserved),
         }
+    }
+
+    /// Sends the run's events (points, bursts, and whatever [`Session::notify`] passes on) to
+    /// `observer`.
+    pub fn set_observer(&mut self, observer: Box<dyn RunObserver>) {
+        self.observer = observer;
+    }
+
+    /// Passes an event to the observer.
+    pub fn notify(&mut self, event: &RunEvent<'_>) {
+        self.observer.event(event);
     }
 
     /// The bench.
@@ -156,6 +169,11 @@ impl Session {
         self.atten_db = Some(db);
         self.next_burst = 0;
         self.counts.points += 1;
+        self.observer.event(&RunEvent::PointBegins {
+            stage: &self.stage,
+            point,
+            atten_db: db,
+        });
     }
 
     /// Waits `ms` of bench time.
@@ -219,6 +237,11 @@ impl Session {
                 }
             }
         }
+        self.observer.event(&RunEvent::BurstRecorded {
+            exchanges: self.counts.exchanges,
+            exchanges_ok: self.counts.exchanges_ok,
+            bench_time_s: self.clock.now_s(),
+        });
         Ok(rows)
     }
 
