@@ -8,6 +8,7 @@ pub mod diagnostic;
 pub mod fit;
 pub mod instrument;
 pub mod recipe;
+pub mod report;
 pub mod runner;
 pub mod script;
 pub mod sim;

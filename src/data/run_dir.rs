@@ -18,6 +18,8 @@ pub mod files {
     pub const VERIFY: &str = "verify.csv";
     /// Human-readable log.
     pub const LOG: &str = "run.log";
+    /// The run report.
+    pub const REPORT: &str = "report.html";
 }
 
 /// Creates a fresh run directory: `out` itself when given (it must not hold a manifest yet),

@@ -238,6 +238,11 @@ pub fn execute(
     if let Err(e) = manifest.write(&manifest_path) {
         failure = failure.or(Some(io_err(&manifest_path, e)));
     }
+    // The report is read from the files just written, exactly as `taucal report` reads them; a
+    // report that cannot be made loses no data, so it is a warning.
+    if let Err(e) = crate::report::write(&dir, &bench) {
+        tracing::warn!("report: {e}");
+    }
     Ok(RunReport {
         dir,
         manifest,
