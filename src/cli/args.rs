@@ -5,11 +5,23 @@ use std::path::PathBuf;
 
 /// Calibrate the group delay of Wi-Fi ranging devices per receive gain state.
 #[derive(Debug, Parser)]
-#[command(name = "taucal", version, about, propagate_version = true)]
+#[command(
+    name = "taucal",
+    version,
+    about,
+    propagate_version = true,
+    after_help = "Examples:\n  taucal check recipes/rx-gain-sweep.toml      # the plan and its bench time\n  taucal run recipes/rx-gain-sweep.toml        # run it on the simulated demo bench\n  taucal report runs/20261202T101500Z-rx-gain-sweep\n  taucal completions bash > /etc/bash_completion.d/taucal"
+)]
 pub struct Cli {
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
+    /// Only warnings and errors on stderr; no progress display.
+    #[arg(long, short, global = true, conflicts_with = "verbose")]
+    pub quiet: bool,
+    /// Debug detail on stderr too (the run directory's logs always have it).
+    #[arg(long, short, global = true)]
+    pub verbose: bool,
 }
 
 /// Commands.
@@ -22,14 +34,24 @@ pub enum Command {
     Run(RunArgs),
     /// Validate a recipe against a bench and print its plan; runs nothing.
     #[command(
-        after_help = "Example:\n  taucal check recipes/rx-gain-sweep.toml --bench recipes/benches/sim-demo.toml"
+        after_help = "Prints the stages, points, exchanges and the estimated bench time (a lower bound where\nadaptive, mid-plateau or script stages decide at run time).\n\nExamples:\n  taucal check recipes/rx-gain-sweep.toml\n  taucal check recipes/rx-gain-sweep.toml --bench recipes/benches/sim-demo.toml --set map_step_db=0.5"
     )]
     Check(CheckArgs),
     /// Fit a calibration table from an exchanges file.
     #[command(
-        after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit"
+        after_help = "Examples:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit\n  taucal fit exchanges.csv --bench recipes/benches/sim-demo.toml --reject-mad 4"
     )]
     Fit(FitArgs),
+    /// Write a run directory's report.html again from its files.
+    #[command(
+        after_help = "Examples:\n  taucal report runs/20261202T101500Z-rx-gain-sweep\n  taucal report /tmp/demo --bench recipes/benches/sim-demo.toml"
+    )]
+    Report(ReportArgs),
+    /// Print a shell completion script.
+    #[command(
+        after_help = "Examples:\n  taucal completions bash > ~/.local/share/bash-completion/completions/taucal\n  taucal completions zsh > ~/.zfunc/_taucal\n  taucal completions fish > ~/.config/fish/completions/taucal.fish"
+    )]
+    Completions(CompletionsArgs),
 }
 
 /// Bench selection shared by the commands.
@@ -87,4 +109,23 @@ pub struct FitArgs {
     /// beside the file, else 5.0).
     #[arg(long, value_name = "K")]
     pub reject_mad: Option<f64>,
+}
+
+/// `taucal report`.
+#[derive(Debug, Args)]
+pub struct ReportArgs {
+    /// The run directory.
+    #[arg(value_name = "RUN_DIR")]
+    pub run_dir: PathBuf,
+    /// The bench the run used (default: the bench file its manifest names, if unchanged).
+    #[arg(long, value_name = "FILE")]
+    pub bench: Option<PathBuf>,
+}
+
+/// `taucal completions`.
+#[derive(Debug, Args)]
+pub struct CompletionsArgs {
+    /// The shell.
+    #[arg(value_name = "SHELL")]
+    pub shell: clap_complete::Shell,
 }

@@ -3,9 +3,12 @@
 pub mod args;
 pub mod bench_arg;
 pub mod check;
+pub mod completions;
 pub mod exit;
 pub mod fit;
 pub mod log;
+pub mod progress;
+pub mod report;
 pub mod run;
 pub mod table;
 
@@ -27,11 +30,14 @@ pub fn main() -> Exit {
             };
         }
     };
-    log::init();
+    let verbosity = log::Verbosity::from_flags(cli.quiet, cli.verbose);
+    log::init(verbosity);
     let result = match cli.command {
-        Command::Run(a) => run::run(a),
+        Command::Run(a) => run::run(a, verbosity),
         Command::Check(a) => check::run(a),
         Command::Fit(a) => fit::run(a),
+        Command::Report(a) => report::run(a),
+        Command::Completions(a) => Ok(completions::run(a)),
     };
     match result {
         Ok(exit) => exit,

@@ -18,6 +18,8 @@ pub mod files {
     pub const VERIFY: &str = "verify.csv";
     /// Human-readable log.
     pub const LOG: &str = "run.log";
+    /// The same log as JSON lines, for tools.
+    pub const JSON_LOG: &str = "run.jsonl";
     /// The run report.
     pub const REPORT: &str = "report.html";
 }
