@@ -8,4 +8,5 @@ mod demo_run;
 mod examples;
 mod fit_offline;
 mod plan_preview;
+mod report;
 mod truth;

@@ -391,7 +391,11 @@ fn provenance(page: &mut String, data: &ReportData) {
         ));
     }
     for (name, value) in &m.results {
-        rows.push((format!("script result {name}"), value.to_string()));
+        let shown = match value {
+            toml::Value::String(s) => s.clone(),
+            other => other.to_string(),
+        };
+        rows.push((format!("script result {name}"), shown));
     }
     page.push_str("<section id=\"provenance\">\n<h2>Provenance</h2>\n<dl>\n");
     for (k, v) in rows {
