@@ -9,6 +9,7 @@ pub mod export;
 pub mod fit;
 pub mod instrument;
 pub mod recipe;
+pub mod report;
 pub mod runner;
 pub mod script;
 pub mod sim;

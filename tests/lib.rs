@@ -8,6 +8,8 @@ mod demo_run;
 mod examples;
 mod fit_offline;
 mod instruments;
+mod plan_preview;
+mod report;
 mod science;
 mod truth;
 mod unattended;

@@ -1,6 +1,6 @@
 //! Reading a bench file: raw TOML structs, then a validated [`Bench`].
 
-use super::{PathFacts, PerGain};
+use super::{PathFacts, PerGain, TimingFacts};
 use crate::diagnostic::{self, Diagnostic, KeyError, SourceFile};
 use crate::instrument::driver_file::{
     DriverFile, DriverKind, KIND_ATTENUATOR, KIND_RANGING_CONSOLE,
@@ -39,6 +39,8 @@ struct RawBench {
     dut: UnitFacts,
     path: PathFacts,
     reference: ReferenceFacts,
+    #[serde(default)]
+    timing: TimingFacts,
     sim: Option<SimTruth>,
 }
 
@@ -121,6 +123,8 @@ pub struct Bench {
     pub path: PathFacts,
     /// The reference unit.
     pub reference: ReferenceFacts,
+    /// How long actions take on a real bench (for estimates only).
+    pub timing: TimingFacts,
     /// Simulation truth, present on a simulated bench.
     pub sim: Option<SimTruth>,
     /// Folder of driver files, as the bench file gives it (relative to the bench's folder).
@@ -156,6 +160,7 @@ impl Bench {
             dut: raw.dut,
             path: raw.path,
             reference: raw.reference,
+            timing: raw.timing,
             sim: raw.sim,
             drivers_dir: raw
                 .bench
@@ -523,6 +528,7 @@ impl Bench {
                 "check tx_power_dbm, path.fixed_loss_db and the input limits",
             ));
         }
+        self.timing.validate()?;
         if let Some(sim) = &self.sim {
             sim.validate()?;
         }

@@ -4,7 +4,9 @@
 pub mod file;
 pub mod path;
 pub mod per_gain;
+pub mod timing;
 
 pub use file::{AttenuatorFacts, Bench, ReferenceFacts, RoleBinding, UnitFacts};
 pub use path::PathFacts;
 pub use per_gain::PerGain;
+pub use timing::TimingFacts;

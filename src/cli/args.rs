@@ -5,11 +5,23 @@ use std::path::PathBuf;
 
 /// Calibrate the group delay of Wi-Fi ranging devices per receive gain state.
 #[derive(Debug, Parser)]
-#[command(name = "taucal", version, about, propagate_version = true)]
+#[command(
+    name = "taucal",
+    version,
+    about,
+    propagate_version = true,
+    after_help = "Examples:\n  taucal check recipes/rx-gain-sweep.toml      # the plan and its bench time\n  taucal run recipes/rx-gain-sweep.toml        # run it on the simulated demo bench\n  taucal report runs/20261202T101500Z-rx-gain-sweep\n  taucal completions bash > /etc/bash_completion.d/taucal"
+)]
 pub struct Cli {
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
+    /// Only warnings and errors on stderr; no progress display.
+    #[arg(long, short, global = true, conflicts_with = "verbose")]
+    pub quiet: bool,
+    /// Debug detail on stderr too (the run directory's logs always have it).
+    #[arg(long, short, global = true)]
+    pub verbose: bool,
 }
 
 /// Commands.
@@ -22,7 +34,7 @@ pub enum Command {
     Run(RunArgs),
     /// Validate a recipe against a bench and print its plan; runs nothing.
     #[command(
-        after_help = "Example:\n  taucal check recipes/rx-gain-sweep.toml --bench recipes/benches/sim-demo.toml"
+        after_help = "Prints the stages, points, exchanges and the estimated bench time (a lower bound where\nadaptive, mid-plateau or script stages decide at run time).\n\nExamples:\n  taucal check recipes/rx-gain-sweep.toml\n  taucal check recipes/rx-gain-sweep.toml --bench recipes/benches/sim-demo.toml --set map_step_db=0.5"
     )]
     Check(CheckArgs),
     /// Continue a run whose process died (power loss, SIGKILL) or that was stopped.
@@ -32,9 +44,19 @@ pub enum Command {
     Resume(ResumeArgs),
     /// Fit a calibration table from an exchanges file.
     #[command(
-        after_help = "Example:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit"
+        after_help = "Examples:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit\n  taucal fit exchanges.csv --bench recipes/benches/sim-demo.toml --reject-mad 4"
     )]
     Fit(FitArgs),
+    /// Write a run directory's report.html again from its files.
+    #[command(
+        after_help = "Examples:\n  taucal report runs/20261202T101500Z-rx-gain-sweep\n  taucal report /tmp/demo --bench recipes/benches/sim-demo.toml"
+    )]
+    Report(ReportArgs),
+    /// Print a shell completion script.
+    #[command(
+        after_help = "Examples:\n  taucal completions bash > ~/.local/share/bash-completion/completions/taucal\n  taucal completions zsh > ~/.zfunc/_taucal\n  taucal completions fish > ~/.config/fish/completions/taucal.fish"
+    )]
+    Completions(CompletionsArgs),
     /// Solve each unit's delay from pairwise sums (no golden reference needed).
     #[command(
         after_help = "PAIRS.csv has the columns unit_a,unit_b,sum_ps,se_ps (other columns are ignored).\nThe pair graph needs an odd cycle in every connected group: three units measured pairwise at least.\n\nExample:\n  taucal pairs line-4-pairs.csv > unit-delays.csv"
@@ -219,4 +241,23 @@ pub struct ExportArgs {
     /// Write to this file instead of stdout.
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
+}
+
+/// `taucal report`.
+#[derive(Debug, Args)]
+pub struct ReportArgs {
+    /// The run directory.
+    #[arg(value_name = "RUN_DIR")]
+    pub run_dir: PathBuf,
+    /// The bench the run used (default: the bench file its manifest names, if unchanged).
+    #[arg(long, value_name = "FILE")]
+    pub bench: Option<PathBuf>,
+}
+
+/// `taucal completions`.
+#[derive(Debug, Args)]
+pub struct CompletionsArgs {
+    /// The shell.
+    #[arg(value_name = "SHELL")]
+    pub shell: clap_complete::Shell,
 }

@@ -4,6 +4,7 @@ use super::args::CheckArgs;
 use super::{bench_arg, Exit};
 use crate::diagnostic::Diagnostic;
 use crate::recipe::{Points, Stage, Sweep};
+use crate::runner::estimate::{estimate, human_duration, Bound, Estimate, StageEstimate};
 
 /// Validates the recipe and bench, compiles scripts, prints the plan.
 pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
@@ -18,12 +19,12 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
             bench.dut_rx_dbm(hi)
         );
     }
-    let mut total = 0u64;
-    for (i, stage) in plan.stages.iter().enumerate() {
+    let est = estimate(&plan, &bench);
+    for (i, (stage, stage_est)) in plan.stages.iter().zip(&est.stages).enumerate() {
         match stage {
-            Stage::Sweep(s) | Stage::GainMap(s) => total += describe(i, stage, s),
+            Stage::Sweep(s) | Stage::GainMap(s) => describe(i, stage, s),
             Stage::Verify(v) => {
-                total += describe(i, stage, &v.sweep);
+                describe(i, stage, &v.sweep);
                 println!(
                     "  verifies range error against receive level; single-state calibration at {} dBm",
                     v.single_state_rx_dbm
@@ -44,8 +45,9 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
                 );
             }
         }
+        println!("{}", stage_line(stage_est));
     }
-    println!("declared exchanges: {total} (at least; adaptive and mid-plateau stages decide at run time)");
+    print!("{}", plan_summary(&est));
     if let Some(l) = plan.accept.max_ci95_ps {
         println!("accept: every cell's 95 % half-width ≤ {l} ps");
     }
@@ -59,23 +61,73 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
     Ok(Exit::Ok)
 }
 
-/// Prints one measurement stage and returns the exchanges it declares.
-fn describe(i: usize, stage: &Stage, s: &Sweep) -> u64 {
+/// One stage's estimate, indented under its description.
+fn stage_line(e: &StageEstimate) -> String {
+    let counted = format!(
+        "{} points, {} bursts, {} exchanges, {} of bench time",
+        e.points,
+        e.bursts,
+        e.exchanges,
+        human_duration(e.bench_s)
+    );
+    let note = e.note.as_ref().map_or(String::new(), |n| format!(" ({n})"));
+    match e.bound {
+        Bound::Estimate => format!("  plan: {counted}"),
+        Bound::AtLeast => format!("  plan: at least {counted}{note}"),
+        Bound::Unknown => format!("  plan: unknown{note}"),
+    }
+}
+
+/// The plan's totals and the estimated bench time, saying what it leaves out.
+fn plan_summary(est: &Estimate) -> String {
+    let t = est.timing;
+    let from = if t.simulated {
+        "the simulation's [sim.ftm] and [sim.attenuator]"
+    } else {
+        "the bench's [timing]"
+    };
+    let lower = match est.bound {
+        Bound::Estimate => String::new(),
+        _ => {
+            let which: Vec<String> = est
+                .stages
+                .iter()
+                .filter(|s| s.bound != Bound::Estimate)
+                .map(|s| format!("`{}`", s.name))
+                .collect();
+            format!("; a lower bound: {} decide at run time", which.join(", "))
+        }
+    };
+    format!(
+        "plan: {} stages, {} points, {} exchanges\n\
+         estimated bench time: {:.3} s{}{lower}\n\
+         timing from {from}: burst setup {} ms, {} µs per exchange, attenuator switch {} ms\n",
+        est.stages.len(),
+        est.points(),
+        est.exchanges(),
+        est.bench_s,
+        if est.bench_s >= 120.0 {
+            format!(" ({})", human_duration(est.bench_s))
+        } else {
+            String::new()
+        },
+        t.burst_setup_ms,
+        t.frame_interval_us,
+        t.atten_switch_ms
+    )
+}
+
+/// Prints one measurement stage.
+fn describe(i: usize, stage: &Stage, s: &Sweep) {
     let kind = match stage {
         Stage::GainMap(_) => "gain map (swept up, then down)",
         Stage::Verify(_) => "verification",
         _ => "sweep",
     };
-    let passes = if matches!(stage, Stage::GainMap(_)) {
-        2
-    } else {
-        1
-    };
     let head = format!(
         "stage {i} `{}` {kind} on {} MHz / {} MHz:",
         s.name, s.channel.center_mhz, s.channel.bw_mhz
     );
-    let per_point = u64::from(s.bursts) * u64::from(s.frames);
     let adaptive = s.adaptive.map_or(String::new(), |a| {
         format!(
             ", adaptive until the 95 % half-width is {} ps (at most {} bursts)",
@@ -86,15 +138,18 @@ fn describe(i: usize, stage: &Stage, s: &Sweep) -> u64 {
         Points::Fixed(p) => {
             let first = p.first().copied().unwrap_or_default();
             let last = p.last().copied().unwrap_or_default();
-            let n = passes * p.len() as u64 * per_point;
+            let direction = if matches!(stage, Stage::GainMap(_)) {
+                " each way"
+            } else {
+                ""
+            };
             println!(
-                "{head} {} points {first}..{last} dB, {} bursts × {} exchanges each{adaptive}, settle {} ms: {n} exchanges",
+                "{head} {} points {first}..{last} dB{direction}, {} bursts × {} exchanges each{adaptive}, settle {} ms",
                 p.len(),
                 s.bursts,
                 s.frames,
                 s.settle_ms
             );
-            n
         }
         Points::MidPlateau {
             map_stage,
@@ -105,7 +160,6 @@ fn describe(i: usize, stage: &Stage, s: &Sweep) -> u64 {
                 "{head} {per_state} points per gain state mid-plateau (≥ {margin_db} dB from switch points, from `{map_stage}`), {} bursts × {} exchanges each{adaptive}, settle {} ms",
                 s.bursts, s.frames, s.settle_ms
             );
-            0
         }
     }
 }

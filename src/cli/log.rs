@@ -1,6 +1,10 @@
-//! Logging at the edge: a human log on stderr, and the same events (with more detail) in the
-//! run directory's `run.log` once a run has one.
+//! Logging at the edge: a human log on stderr, and the same events with more detail in the run
+//! directory once a run has one — `run.log` for people, `run.jsonl` (one JSON object a line)
+//! for tools.
+//!
+//! While a progress display is on screen, stderr lines go through it so the two never tangle.
 
+use indicatif::ProgressBar;
 use std::fs::File;
 use std::io::{self, IsTerminal, Write};
 use std::path::Path;
@@ -11,80 +15,147 @@ use tracing_subscriber::layer::SubscriberExt;
 use tracing_subscriber::util::SubscriberInitExt;
 use tracing_subscriber::Layer;
 
+/// How much goes to stderr.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Verbosity {
+    /// Warnings and errors only, and no progress display.
+    Quiet,
+    /// Information, warnings and errors.
+    Normal,
+    /// Debug detail as well.
+    Verbose,
+}
+
+impl Verbosity {
+    /// From `--quiet` and `--verbose` (clap refuses both together).
+    pub fn from_flags(quiet: bool, verbose: bool) -> Self {
+        match (quiet, verbose) {
+            (true, _) => Verbosity::Quiet,
+            (false, true) => Verbosity::Verbose,
+            (false, false) => Verbosity::Normal,
+        }
+    }
+
+    fn level(self) -> LevelFilter {
+        match self {
+            Verbosity::Quiet => LevelFilter::WARN,
+            Verbosity::Normal => LevelFilter::INFO,
+            Verbosity::Verbose => LevelFilter::DEBUG,
+        }
+    }
+}
+
+/// True when stderr may carry colour: a terminal, and `NO_COLOR` unset (no-color.org).
+pub fn colour() -> bool {
+    io::stderr().is_terminal() && std::env::var_os("NO_COLOR").is_none_or(|v| v.is_empty())
+}
+
 static RUN_LOG: Mutex<Option<File>> = Mutex::new(None);
+static RUN_JSONL: Mutex<Option<File>> = Mutex::new(None);
+static PROGRESS: Mutex<Option<ProgressBar>> = Mutex::new(None);
 
-struct RunLogWriter;
+/// Writes into one of the run directory's log files once it is open; drops lines before that.
+#[derive(Clone, Copy)]
+struct FileWriter(&'static Mutex<Option<File>>);
 
-impl Write for RunLogWriter {
+impl Write for FileWriter {
     fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
-        match RUN_LOG.lock().ok().as_mut().and_then(|g| g.as_mut()) {
+        match self.0.lock().ok().as_mut().and_then(|g| g.as_mut()) {
             Some(f) => f.write(buf),
             None => Ok(buf.len()),
         }
     }
     fn flush(&mut self) -> io::Result<()> {
-        match RUN_LOG.lock().ok().as_mut().and_then(|g| g.as_mut()) {
+        match self.0.lock().ok().as_mut().and_then(|g| g.as_mut()) {
             Some(f) => f.flush(),
             None => Ok(()),
         }
     }
 }
 
-impl<'a> MakeWriter<'a> for RunLogWriter {
-    type Writer = RunLogWriter;
+impl<'a> MakeWriter<'a> for FileWriter {
+    type Writer = FileWriter;
     fn make_writer(&'a self) -> Self::Writer {
-        RunLogWriter
+        *self
     }
 }
 
-/// Installs the subscriber: info and above on stderr, debug and above to the run log.
-pub fn init() {
+/// Writes to stderr, lifting the progress display out of the way while it does.
+struct StderrWriter;
+
+impl Write for StderrWriter {
+    fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
+        let bar = PROGRESS.lock().ok().and_then(|g| g.clone());
+        match bar {
+            Some(bar) => bar
+                .suspend(|| io::stderr().write_all(buf))
+                .map(|()| buf.len()),
+            None => io::stderr().write(buf),
+        }
+    }
+    fn flush(&mut self) -> io::Result<()> {
+        io::stderr().flush()
+    }
+}
+
+impl<'a> MakeWriter<'a> for StderrWriter {
+    type Writer = StderrWriter;
+    fn make_writer(&'a self) -> Self::Writer {
+        StderrWriter
+    }
+}
+
+/// Installs the subscriber: stderr at `verbosity`; debug and above to the run's log files.
+pub fn init(verbosity: Verbosity) {
     let stderr = tracing_subscriber::fmt::layer()
-        .with_writer(io::stderr)
+        .with_writer(StderrWriter)
         .without_time()
         .with_target(false)
-        .with_ansi(io::stderr().is_terminal() && std::env::var_os("NO_COLOR").is_none())
-        .with_filter(LevelFilter::INFO);
+        .with_ansi(colour())
+        .with_filter(verbosity.level());
     let file = tracing_subscriber::fmt::layer()
-        .with_writer(RunLogWriter)
+        .with_writer(FileWriter(&RUN_LOG))
         .with_ansi(false)
+        .with_filter(LevelFilter::DEBUG);
+    let json = tracing_subscriber::fmt::layer()
+        .json()
+        .with_writer(FileWriter(&RUN_JSONL))
         .with_filter(LevelFilter::DEBUG);
     let _ = tracing_subscriber::registry()
         .with(stderr)
         .with(file)
+        .with(json)
         .try_init();
 }
 
-/// Continues a run's log in `path` (a resumed run).
-pub fn append_run_log(path: &Path) {
-    match std::fs::OpenOptions::new()
-        .create(true)
-        .append(true)
-        .open(path)
-    {
-        Ok(f) => {
-            if let Ok(mut g) = RUN_LOG.lock() {
-                *g = Some(f);
+/// Starts copying the log into `run.log` (text) and `run.jsonl` (JSON lines) in `dir`; a
+/// resumed run (`append`) continues them.
+pub fn open_run_logs(dir: &Path, text: &str, json: &str, append: bool) {
+    for (name, slot) in [(text, &RUN_LOG), (json, &RUN_JSONL)] {
+        let path = dir.join(name);
+        let file = std::fs::OpenOptions::new()
+            .create(true)
+            .write(true)
+            .append(append)
+            .truncate(!append)
+            .open(&path);
+        match file {
+            Ok(f) => {
+                if let Ok(mut g) = slot.lock() {
+                    *g = Some(f);
+                }
             }
+            Err(e) => tracing::warn!(
+                "cannot create {}: {e}; logging to stderr only",
+                path.display()
+            ),
         }
-        Err(e) => tracing::warn!(
-            "cannot open {}: {e}; logging to stderr only",
-            path.display()
-        ),
     }
 }
 
-/// Starts copying the log into `path`.
-pub fn open_run_log(path: &Path) {
-    match File::create(path) {
-        Ok(f) => {
-            if let Ok(mut g) = RUN_LOG.lock() {
-                *g = Some(f);
-            }
-        }
-        Err(e) => tracing::warn!(
-            "cannot create {}: {e}; logging to stderr only",
-            path.display()
-        ),
+/// Routes stderr log lines around `bar` while it shows (`None` when it is gone).
+pub fn set_progress(bar: Option<ProgressBar>) {
+    if let Ok(mut g) = PROGRESS.lock() {
+        *g = bar;
     }
 }

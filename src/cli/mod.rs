@@ -3,6 +3,7 @@
 pub mod args;
 pub mod bench_arg;
 pub mod check;
+pub mod completions;
 pub mod csv_file;
 pub mod exit;
 pub mod export;
@@ -10,6 +11,8 @@ pub mod fit;
 pub mod log;
 pub mod ota;
 pub mod pairs;
+pub mod progress;
+pub mod report;
 pub mod resume;
 pub mod run;
 pub mod sim_serve;
@@ -33,16 +36,19 @@ pub fn main() -> Exit {
             };
         }
     };
-    log::init();
+    let verbosity = log::Verbosity::from_flags(cli.quiet, cli.verbose);
+    log::init(verbosity);
     let result = match cli.command {
-        Command::Run(a) => run::run(a),
+        Command::Run(a) => run::run(a, verbosity),
         Command::Check(a) => check::run(a),
-        Command::Resume(a) => resume::run(a),
+        Command::Resume(a) => resume::run(a, verbosity),
         Command::Fit(a) => fit::run(a),
         Command::Sim(SimCommand::Serve(a)) => sim_serve::run(a),
         Command::Pairs(a) => pairs::run(a),
         Command::Ota(a) => ota::run(a),
         Command::Export(a) => export::run(a),
+        Command::Report(a) => report::run(a),
+        Command::Completions(a) => Ok(completions::run(a)),
     };
     match result {
         Ok(exit) => exit,

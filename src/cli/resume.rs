@@ -1,21 +1,32 @@
 //! `taucal resume`: continue a run whose process died or was stopped.
 
-use super::args::ResumeArgs;
-use super::{bench_arg, log, run, Exit};
+use super::log::{self, Verbosity};
+use super::progress::Progress;
+use super::{bench_arg, run, Exit};
 use crate::data::run_dir::files;
 use crate::diagnostic::Diagnostic;
 use crate::runner::run::execute;
+use crate::runner::{RunObserver, Unobserved};
 
 /// Prepares the interrupted run, replays it to its last checkpoint and carries on.
-pub fn run(args: ResumeArgs) -> Result<Exit, Diagnostic> {
+pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
     let request = crate::runner::resume::prepare(&args.run_dir)?;
     eprintln!(
         "taucal: {}",
         bench_arg::describe(&request.bench, request.seed)
     );
-    let report = execute(request, |dir| {
-        log::append_run_log(&dir.join(files::LOG));
-        eprintln!("taucal: resuming {}", dir.display());
-    })?;
+    let estimate = crate::runner::estimate::estimate(&request.plan, &request.bench);
+    let observer: Box<dyn RunObserver> = match Progress::start(verbosity, &estimate) {
+        Some(p) => Box::new(p),
+        None => Box::new(Unobserved),
+    };
+    let report = execute(
+        request,
+        |dir| {
+            log::open_run_logs(dir, files::LOG, files::JSON_LOG, true);
+            eprintln!("taucal: resuming {}", dir.display());
+        },
+        observer,
+    )?;
     Ok(run::outcome(&report))
 }

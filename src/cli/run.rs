@@ -1,7 +1,9 @@
 //! `taucal run`.
 
 use super::args::RunArgs;
-use super::{bench_arg, log, table, Exit};
+use super::log::{self, Verbosity};
+use super::progress::Progress;
+use super::{bench_arg, table, Exit};
 use crate::data::run_dir::files;
 use crate::diagnostic::Diagnostic;
 use crate::runner::run::{execute, RunReport, RunRequest};
@@ -9,7 +11,7 @@ use crate::runner::RunError;
 use std::sync::Arc;
 
 /// Validates, runs, fits, and reports.
-pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
+pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
     let bench = bench_arg::load(&args.bench)?.reconnect(&args.connect)?;
     let plan = crate::recipe::load(&args.recipe, &args.set, &bench)?;
     for stage in &plan.stages {
@@ -18,6 +20,12 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
         }
     }
     eprintln!("taucal: {}", bench_arg::describe(&bench, args.seed));
+    let estimate = crate::runner::estimate::estimate(&plan, &bench);
+    let observer: Box<dyn crate::runner::RunObserver> = match Progress::start(verbosity, &estimate)
+    {
+        Some(p) => Box::new(p),
+        None => Box::new(crate::runner::Unobserved),
+    };
     let request = RunRequest {
         plan,
         bench: Arc::new(bench),
@@ -27,10 +35,14 @@ pub fn run(args: RunArgs) -> Result<Exit, Diagnostic> {
         realtime: args.realtime,
         resume: None,
     };
-    let report = execute(request, |dir| {
-        log::open_run_log(&dir.join(files::LOG));
-        eprintln!("taucal: run directory {}", dir.display());
-    })?;
+    let report = execute(
+        request,
+        |dir| {
+            log::open_run_logs(dir, files::LOG, files::JSON_LOG, false);
+            eprintln!("taucal: run directory {}", dir.display());
+        },
+        observer,
+    )?;
     Ok(outcome(&report))
 }
 

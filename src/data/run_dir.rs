@@ -22,6 +22,10 @@ pub mod files {
     pub const JOURNAL: &str = "journal.log";
     /// Human-readable log.
     pub const LOG: &str = "run.log";
+    /// The same log as JSON lines, for tools.
+    pub const JSON_LOG: &str = "run.jsonl";
+    /// The run report.
+    pub const REPORT: &str = "report.html";
 }
 
 /// Creates a fresh run directory: `out` itself when given (it must not hold a manifest yet),

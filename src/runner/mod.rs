@@ -3,6 +3,8 @@
 
 pub mod clock;
 pub mod error;
+pub mod estimate;
+pub mod events;
 pub mod journal;
 pub mod resume;
 pub mod run;
@@ -13,6 +15,7 @@ pub mod tabulate;
 
 pub use clock::{BenchClock, ClockMode};
 pub use error::RunError;
+pub use events::{RunEvent, RunObserver, Unobserved};
 pub use session::{PointSummary, Session};
 pub use stop::StopFlag;
 pub use sweep::{run_gain_map, run_soak, run_sweep, run_verify};

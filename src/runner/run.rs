@@ -6,7 +6,7 @@ use super::journal::Journal;
 use super::tabulate::{FitSettings, Tabulated};
 use super::{
     run_gain_map, run_soak, run_sweep, run_verify, tabulate, BenchClock, ClockMode, RunError,
-    Session, StopFlag,
+    RunEvent, RunObserver, Session, StopFlag,
 };
 use crate::bench::Bench;
 use crate::data::manifest::{
@@ -76,9 +76,14 @@ impl RunReport {
     }
 }
 
-/// Runs `req`. `on_dir` is called once the run directory exists (to start its log). Errors
-/// returned here happen before anything runs; later failures are in the report.
-pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport, Diagnostic> {
+/// Runs `req`. `on_dir` is called once the run directory exists (to start its log); `observer`
+/// hears of stages, points and bursts as they happen. Errors returned here happen before
+/// anything runs; later failures are in the report.
+pub fn execute(
+    req: RunRequest,
+    on_dir: impl FnOnce(&Path),
+    observer: Box<dyn RunObserver>,
+) -> Result<RunReport, Diagnostic> {
     let wall = Instant::now();
     let now = time::OffsetDateTime::now_utc();
     let dir = match &req.resume {
@@ -201,6 +206,7 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
             if let Some(r) = &req.resume {
                 s.set_replay(r.replay.clone(), simulated);
             }
+            s.set_observer(observer);
             Some(Rc::new(RefCell::new(s)))
         }
         Err(e) => {
@@ -214,6 +220,7 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
                 .and_then(|()| session.borrow_mut().checkpoint())
                 .err();
         }
+        session.borrow_mut().notify(&RunEvent::StagesEnded);
         for e in session.borrow().safe_state() {
             tracing::error!("safe state: {e}");
             failure = failure.or(Some(e));
@@ -294,6 +301,11 @@ pub fn execute(req: RunRequest, on_dir: impl FnOnce(&Path)) -> Result<RunReport,
     if let Err(e) = manifest.write(&manifest_path) {
         failure = failure.or(Some(io_err(&manifest_path, e)));
     }
+    // The report is read from the files just written, exactly as `taucal report` reads them; a
+    // report that cannot be made loses no data, so it is a warning.
+    if let Err(e) = crate::report::write(&dir, &bench) {
+        tracing::warn!("report: {e}");
+    }
     Ok(RunReport {
         dir,
         manifest,
@@ -312,7 +324,12 @@ fn absolute(path: &Path) -> String {
 }
 
 fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunError> {
-    for stage in &plan.stages {
+    for (index, stage) in plan.stages.iter().enumerate() {
+        session.borrow_mut().notify(&RunEvent::StageBegins {
+            index,
+            count: plan.stages.len(),
+            name: stage.name(),
+        });
         tracing::info!("stage `{}` begins", stage.name());
         match stage {
             Stage::Sweep(sweep) => run_sweep(&mut session.borrow_mut(), sweep)?,

@@ -3,7 +3,7 @@
 //! obey the same limits and number their records the same way.
 
 use super::journal::{Checkpoint, Journal};
-use super::{BenchClock, RunError, StopFlag};
+use super::{BenchClock, RunError, RunEvent, RunObserver, StopFlag, Unobserved};
 use crate::bench::Bench;
 use crate::data::manifest::Counts;
 use crate::data::{Exchange, RecordSink, STATUS_OK};
@@ -68,6 +68,7 @@ pub struct Session {
     pub verify_stages: Vec<(String, f64)>,
     /// The fitter's rejection threshold, for intervals computed during the run.
     pub reject_mad: f64,
+    observer: Box<dyn RunObserver>,
 }
 
 impl Session {
@@ -105,6 +106,7 @@ impl Session {
             gain_maps: BTreeMap::new(),
             verify_stages: Vec::new(),
             reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
+            observer: Box::new(Unobserved),
         }
     }
 
@@ -170,6 +172,17 @@ impl Session {
     /// The DUT's temperature, where the bench measures one.
     pub fn dut_temp_c(&self) -> Result<Option<f64>, RunError> {
         Ok(self.dut.temperature_c()?)
+    }
+
+    /// Sends the run's events (points, bursts, and whatever [`Session::notify`] passes on) to
+    /// `observer`.
+    pub fn set_observer(&mut self, observer: Box<dyn RunObserver>) {
+        self.observer = observer;
+    }
+
+    /// Passes an event to the observer.
+    pub fn notify(&mut self, event: &RunEvent<'_>) {
+        self.observer.event(event);
     }
 
     /// The bench.
@@ -252,6 +265,11 @@ impl Session {
         self.atten_db = Some(db);
         self.next_burst = 0;
         self.counts.points += 1;
+        self.observer.event(&RunEvent::PointBegins {
+            stage: &self.stage,
+            point,
+            atten_db: db,
+        });
         Ok(())
     }
 
@@ -391,6 +409,11 @@ impl Session {
                 }
             }
         }
+        self.observer.event(&RunEvent::BurstRecorded {
+            exchanges: self.counts.exchanges,
+            exchanges_ok: self.counts.exchanges_ok,
+            bench_time_s: self.clock.now_s(),
+        });
     }
 
     /// Puts every instrument in its safe state; returns the failures, if any, without stopping

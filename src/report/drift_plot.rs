@@ -1,0 +1,101 @@
+//! Plots over bench time: each burst's median K per gain state (drift), and the temperature
+//! the bench reported with it.
+//!
+//! Bench time comes from the reference's departure counter, unwrapped; spans longer than the
+//! counter's 281 s wrap between two exchanges fold, so long pauses look shorter than they were.
+
+use super::svg::{self, FONT, GRID, INK};
+use super::{BurstPoint, ReportData, ReportError};
+use plotters::prelude::*;
+
+/// Seconds, or minutes when the run is long enough to read better in them.
+fn time_axis(points: &[BurstPoint]) -> (f64, &'static str) {
+    let end = points.iter().map(|p| p.time_s).fold(0.0, f64::max);
+    if end > 600.0 {
+        (60.0, "bench time (min)")
+    } else {
+        (1.0, "bench time (s)")
+    }
+}
+
+/// Each burst's median K against bench time, coloured by gain state; verification bursts
+/// hollow. `None` without bursts.
+pub fn drift_svg(data: &ReportData) -> Result<Option<String>, ReportError> {
+    let pts = &data.bursts;
+    let (scale, x_desc) = time_axis(pts);
+    let (Some((x0, x1)), Some((y0, y1))) = (
+        svg::padded(pts.iter().map(|p| p.time_s / scale), 0.02),
+        svg::padded(pts.iter().map(|p| p.median_k_ps), 0.08),
+    ) else {
+        return Ok(None);
+    };
+    svg::render("drift", |root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(16)
+            .x_label_area_size(44)
+            .y_label_area_size(72)
+            .build_cartesian_2d(x0..x1, y0..y1)?;
+        chart
+            .configure_mesh()
+            .light_line_style(TRANSPARENT)
+            .bold_line_style(GRID)
+            .axis_style(INK)
+            .x_desc(x_desc)
+            .y_desc("burst median K (ps)")
+            .y_label_formatter(&|y| format!("{y:.0}"))
+            .label_style((FONT, 13, &INK))
+            .axis_desc_style((FONT, 14, &INK))
+            .draw()?;
+        chart.draw_series(pts.iter().map(|p| {
+            let c = svg::state_colour(p.gain_index);
+            let style = if p.verify {
+                c.stroke_width(1)
+            } else {
+                c.filled()
+            };
+            Circle::new((p.time_s / scale, p.median_k_ps), 3, style)
+        }))?;
+        Ok::<(), DrawingAreaErrorKind<std::io::Error>>(())
+    })
+    .map(Some)
+}
+
+/// The temperature reported with each burst against bench time; `None` when the run reported
+/// none.
+pub fn temperature_svg(data: &ReportData) -> Result<Option<String>, ReportError> {
+    let pts: Vec<(f64, f64)> = data
+        .bursts
+        .iter()
+        .filter_map(|p| p.temp_c.map(|t| (p.time_s, t)))
+        .collect();
+    let (scale, x_desc) = time_axis(&data.bursts);
+    let (Some((x0, x1)), Some((y0, y1))) = (
+        svg::padded(pts.iter().map(|p| p.0 / scale), 0.02),
+        svg::padded(pts.iter().map(|p| p.1), 0.1),
+    ) else {
+        return Ok(None);
+    };
+    svg::render("temperature", |root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(16)
+            .x_label_area_size(44)
+            .y_label_area_size(72)
+            .build_cartesian_2d(x0..x1, y0..y1)?;
+        chart
+            .configure_mesh()
+            .light_line_style(TRANSPARENT)
+            .bold_line_style(GRID)
+            .axis_style(INK)
+            .x_desc(x_desc)
+            .y_desc("temperature (°C)")
+            .label_style((FONT, 13, &INK))
+            .axis_desc_style((FONT, 14, &INK))
+            .draw()?;
+        chart.draw_series(LineSeries::new(
+            pts.iter().map(|(t, c)| (t / scale, *c)),
+            svg::state_colour(4).stroke_width(2),
+        ))?;
+        Ok::<(), DrawingAreaErrorKind<std::io::Error>>(())
+    })
+    .map(Some)
+}

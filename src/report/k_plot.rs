@@ -1,0 +1,87 @@
+//! K per gain state with its 95 % interval, one series per channel.
+
+use super::svg::{self, FONT, GRID, INK};
+use super::{ReportData, ReportError};
+use crate::fit::RowSource;
+use plotters::prelude::*;
+use std::collections::BTreeSet;
+
+/// The plot, or `None` without a table.
+pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
+    let rows = &data.table;
+    if rows.is_empty() {
+        return Ok(None);
+    }
+    let channels: Vec<(u32, u32)> = rows
+        .iter()
+        .map(|r| (r.center_mhz, r.bw_mhz))
+        .collect::<BTreeSet<_>>()
+        .into_iter()
+        .collect();
+    let max_gain = rows.iter().map(|r| r.gain_index).max().unwrap_or(0);
+    let Some((y0, y1)) = svg::padded(
+        rows.iter()
+            .flat_map(|r| [r.delay_ps - r.ci95_ps, r.delay_ps + r.ci95_ps]),
+        0.15,
+    ) else {
+        return Ok(None);
+    };
+    svg::render("K per gain state", |root| {
+        let mut chart = ChartBuilder::on(root)
+            .margin(16)
+            .x_label_area_size(44)
+            .y_label_area_size(72)
+            .build_cartesian_2d(-0.5..f64::from(max_gain) + 0.5, y0..y1)?;
+        chart
+            .configure_mesh()
+            .light_line_style(TRANSPARENT)
+            .bold_line_style(GRID)
+            .axis_style(INK)
+            .x_labels(max_gain as usize + 2)
+            .x_label_formatter(&svg::whole)
+            .x_desc("DUT gain state")
+            .y_desc("K = TX + RX delay (ps)")
+            .y_label_formatter(&|y| format!("{y:.0}"))
+            .label_style((FONT, 13, &INK))
+            .axis_desc_style((FONT, 14, &INK))
+            .draw()?;
+        let width = channels.len() as f64;
+        for (ci, ch) in channels.iter().enumerate() {
+            // Channels side by side around each state, so their bars never hide each other.
+            let offset = (ci as f64 - (width - 1.0) / 2.0) * 0.12;
+            let colour = svg::state_colour(ci as u32);
+            let mine: Vec<_> = rows
+                .iter()
+                .filter(|r| (r.center_mhz, r.bw_mhz) == *ch)
+                .collect();
+            for r in &mine {
+                let x = f64::from(r.gain_index) + offset;
+                let (lo, hi) = (r.delay_ps - r.ci95_ps, r.delay_ps + r.ci95_ps);
+                chart.draw_series([
+                    PathElement::new(vec![(x, lo), (x, hi)], colour.stroke_width(2)),
+                    PathElement::new(vec![(x - 0.05, lo), (x + 0.05, lo)], colour.stroke_width(2)),
+                    PathElement::new(vec![(x - 0.05, hi), (x + 0.05, hi)], colour.stroke_width(2)),
+                ])?;
+            }
+            chart
+                .draw_series(mine.iter().map(|r| {
+                    let style = match r.source {
+                        RowSource::Measured => colour.filled(),
+                        RowSource::Modelled => colour.stroke_width(2),
+                    };
+                    Circle::new((f64::from(r.gain_index) + offset, r.delay_ps), 5, style)
+                }))?
+                .label(format!("{} MHz / {} MHz", ch.0, ch.1))
+                .legend(move |(x, y)| Circle::new((x + 8, y), 5, colour.filled()));
+        }
+        chart
+            .configure_series_labels()
+            .position(SeriesLabelPosition::UpperLeft)
+            .background_style(WHITE.mix(0.9))
+            .border_style(GRID)
+            .label_font((FONT, 13, &INK))
+            .draw()?;
+        Ok::<(), DrawingAreaErrorKind<std::io::Error>>(())
+    })
+    .map(Some)
+}

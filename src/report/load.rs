@@ -1,0 +1,200 @@
+//! The loader: a run directory (and the bench it ran on) into a [`ReportData`]. All file reading
+//! for the report happens here, so the plots and the page are pure functions of the data.
+
+use super::{BurstPoint, CellSpread, GainMapRow, LevelGains, ReportData, ReportError, VerifyPoint};
+use crate::bench::Bench;
+use crate::data::run_dir::files;
+use crate::data::{read_exchanges, Exchange, Manifest};
+use crate::fit::rtt::COUNTER_BITS;
+use crate::fit::stats::median;
+use crate::fit::{burst_delays, read_caltable, Deembed};
+use serde::Deserialize;
+use std::collections::BTreeMap;
+use std::path::Path;
+
+/// Reads what the report shows from `dir`. `manifest.toml` and `exchanges.csv` must be there;
+/// `caltable.csv`, `gainmap.csv` and `verify.csv` are shown when present and listed as absent
+/// otherwise.
+pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
+    let manifest_path = required(dir, files::MANIFEST)?;
+    let manifest = Manifest::read(&manifest_path).map_err(|e| ReportError::Read {
+        path: manifest_path.display().to_string(),
+        message: e.to_string(),
+    })?;
+    let exchanges_path = required(dir, files::EXCHANGES)?;
+    let read_err = |path: &Path, message: String| ReportError::Read {
+        path: path.display().to_string(),
+        message,
+    };
+    let mut rows: Vec<Exchange> = Vec::new();
+    for row in
+        read_exchanges(&exchanges_path).map_err(|e| read_err(&exchanges_path, e.to_string()))?
+    {
+        rows.push(row.map_err(|e| read_err(&exchanges_path, e.to_string()))?);
+    }
+    let mut absent = Vec::new();
+    let table_path = dir.join(files::CALTABLE);
+    let table = if table_path.is_file() {
+        let file =
+            std::fs::File::open(&table_path).map_err(|e| read_err(&table_path, e.to_string()))?;
+        read_caltable(file).map_err(|e| read_err(&table_path, e.to_string()))?
+    } else {
+        absent.push(files::CALTABLE);
+        Vec::new()
+    };
+    let gainmap = optional_csv::<GainMapRow>(dir, files::GAINMAP, &mut absent)?;
+    let verify = optional_csv::<VerifyPoint>(dir, files::VERIFY, &mut absent)?;
+
+    let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
+    let times = bench_times_s(&rows);
+    let mut cells: BTreeMap<(u32, u32, u32), Vec<f64>> = BTreeMap::new();
+    let mut bursts = Vec::new();
+    for (range, is_fit) in burst_ranges(&rows, &manifest.fit.verify_stages) {
+        let burst = &rows[range.clone()];
+        // A NaN fallback leaves out bursts too short to estimate their own clock rate, rather
+        // than guessing one for them.
+        let delays = burst_delays(&deembed, burst, f64::NAN);
+        let mut by_gain: BTreeMap<u32, Vec<f64>> = BTreeMap::new();
+        for (x, k) in burst.iter().zip(&delays) {
+            if let (Some(k), Some(g)) = (k, x.dut_gain) {
+                by_gain.entry(g).or_default().push(*k);
+                if is_fit {
+                    cells
+                        .entry((x.center_mhz, x.bw_mhz, g))
+                        .or_default()
+                        .push(*k);
+                }
+            }
+        }
+        let time_s = times[range.start..range.end]
+            .iter()
+            .flatten()
+            .copied()
+            .next();
+        let temp_c = burst.iter().find_map(|x| x.temp_c);
+        for (gain_index, mut ks) in by_gain {
+            if let (Some(time_s), Some(k)) = (time_s, median(&mut ks)) {
+                bursts.push(BurstPoint {
+                    time_s,
+                    gain_index,
+                    median_k_ps: k,
+                    temp_c,
+                    verify: !is_fit,
+                });
+            }
+        }
+    }
+    let cells = cells
+        .into_iter()
+        .map(|((center_mhz, bw_mhz, gain_index), k_ps)| CellSpread {
+            center_mhz,
+            bw_mhz,
+            gain_index,
+            k_ps,
+        })
+        .collect();
+    Ok(ReportData {
+        manifest,
+        table,
+        gainmap,
+        verify,
+        cells,
+        bursts,
+        levels: level_gains(&rows, bench),
+        absent,
+    })
+}
+
+fn required(dir: &Path, name: &'static str) -> Result<std::path::PathBuf, ReportError> {
+    let path = dir.join(name);
+    if path.is_file() {
+        Ok(path)
+    } else {
+        Err(ReportError::Missing {
+            dir: dir.display().to_string(),
+            file: name,
+        })
+    }
+}
+
+fn optional_csv<T: for<'de> Deserialize<'de>>(
+    dir: &Path,
+    name: &'static str,
+    absent: &mut Vec<&'static str>,
+) -> Result<Vec<T>, ReportError> {
+    let path = dir.join(name);
+    if !path.is_file() {
+        absent.push(name);
+        return Ok(Vec::new());
+    }
+    let err = |message: String| ReportError::Read {
+        path: path.display().to_string(),
+        message,
+    };
+    let mut rdr = csv::Reader::from_path(&path).map_err(|e| err(e.to_string()))?;
+    rdr.deserialize()
+        .map(|r| r.map_err(|e| err(e.to_string())))
+        .collect()
+}
+
+/// Index ranges of consecutive rows of one burst, and whether the burst fits the table (not a
+/// verification stage's).
+fn burst_ranges(
+    rows: &[Exchange],
+    verify_stages: &[String],
+) -> Vec<(std::ops::Range<usize>, bool)> {
+    let mut out: Vec<(std::ops::Range<usize>, bool)> = Vec::new();
+    for (i, x) in rows.iter().enumerate() {
+        match out.last_mut() {
+            Some((r, _))
+                if rows[r.start].stage == x.stage
+                    && rows[r.start].point == x.point
+                    && rows[r.start].burst == x.burst =>
+            {
+                r.end = i + 1
+            }
+            _ => out.push((i..i + 1, !verify_stages.contains(&x.stage))),
+        }
+    }
+    out
+}
+
+/// Bench time of each exchange, seconds since the first: the reference's departure counter t1,
+/// unwrapped. The counter only moves forward, so each step is the forward distance modulo 2^48;
+/// a pause longer than one wrap (281 s) between two exchanges would fold, which the report says.
+fn bench_times_s(rows: &[Exchange]) -> Vec<Option<f64>> {
+    let modulus = 1u64 << COUNTER_BITS;
+    let mut last: Option<u64> = None;
+    let mut elapsed_ps: u64 = 0;
+    rows.iter()
+        .map(|x| {
+            let t1 = x.t1_ps? % modulus;
+            if let Some(prev) = last {
+                elapsed_ps += t1.wrapping_sub(prev) % modulus;
+            }
+            last = Some(t1);
+            Some(elapsed_ps as f64 * 1e-12)
+        })
+        .collect()
+}
+
+/// Usable exchanges per attenuation and reported gain state, over the whole run.
+fn level_gains(rows: &[Exchange], bench: &Bench) -> Vec<LevelGains> {
+    // Millidecibel keys: attenuator settings are on a coarser grid than that.
+    let mut by_level: BTreeMap<(u32, u32, i64), BTreeMap<u32, u64>> = BTreeMap::new();
+    for x in rows.iter().filter(|x| x.is_usable()) {
+        if let Some(g) = x.dut_gain {
+            let key = (x.center_mhz, x.bw_mhz, (x.atten_db * 1000.0).round() as i64);
+            *by_level.entry(key).or_default().entry(g).or_insert(0) += 1;
+        }
+    }
+    by_level
+        .into_iter()
+        .map(|((center_mhz, bw_mhz, mdb), counts)| LevelGains {
+            center_mhz,
+            bw_mhz,
+            rx_dbm: bench.dut_rx_dbm(mdb as f64 / 1000.0),
+            counts,
+        })
+        .collect()
+}

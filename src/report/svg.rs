@@ -1,0 +1,78 @@
+//! What every plot shares: size, palette, fonts and the one way a plot becomes SVG text.
+//!
+//! Text is left to the browser: plotters' SVG backend writes `<text>` elements (escaped) with a
+//! generic font family, so no font file is read or embedded and nothing is rasterised.
+
+use super::ReportError;
+use plotters::coord::Shift;
+use plotters::prelude::*;
+
+/// Plot width, px.
+pub const WIDTH: u32 = 760;
+/// Plot height, px.
+pub const HEIGHT: u32 = 340;
+
+/// Axis and label font.
+pub const FONT: &str = "sans-serif";
+
+/// Ink for axes and text.
+pub const INK: RGBColor = RGBColor(0x27, 0x2d, 0x36);
+/// Light grid lines.
+pub const GRID: RGBColor = RGBColor(0xe3, 0xe6, 0xea);
+
+/// Colours of gain states, by index (repeating beyond six); chosen to stay apart for the common
+/// colour-vision deficiencies and on paper.
+const STATES: [RGBColor; 6] = [
+    RGBColor(0x1f, 0x5f, 0x8b),
+    RGBColor(0xd9, 0x82, 0x2b),
+    RGBColor(0x5c, 0x9e, 0x6e),
+    RGBColor(0x8e, 0x4f, 0x9c),
+    RGBColor(0xb8, 0x3b, 0x3b),
+    RGBColor(0x6b, 0x72, 0x7b),
+];
+
+/// The colour of gain state `g`.
+pub fn state_colour(g: u32) -> RGBColor {
+    STATES[g as usize % STATES.len()]
+}
+
+/// Draws a plot into SVG text. `plot` names it in errors.
+pub fn render<E: std::fmt::Display>(
+    plot: &'static str,
+    draw: impl FnOnce(&DrawingArea<SVGBackend<'_>, Shift>) -> Result<(), E>,
+) -> Result<String, ReportError> {
+    let mut out = String::new();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, HEIGHT)).into_drawing_area();
+        let err = |e: &dyn std::fmt::Display| ReportError::Plot {
+            plot,
+            message: e.to_string(),
+        };
+        root.fill(&WHITE).map_err(|e| err(&e))?;
+        draw(&root).map_err(|e| err(&e))?;
+        root.present().map_err(|e| err(&e))?;
+    }
+    Ok(out)
+}
+
+/// The range of `values` widened by `pad` of its span on each side (and never empty).
+pub fn padded(values: impl Iterator<Item = f64>, pad: f64) -> Option<(f64, f64)> {
+    let (lo, hi) = values
+        .filter(|v| v.is_finite())
+        .fold(None, |acc: Option<(f64, f64)>, v| match acc {
+            None => Some((v, v)),
+            Some((lo, hi)) => Some((lo.min(v), hi.max(v))),
+        })?;
+    let span = (hi - lo).max(hi.abs().max(1.0) * 1e-3);
+    Some((lo - pad * span, hi + pad * span))
+}
+
+/// Labels an axis position with an integer when it is one, else nothing: gain states and
+/// categories sit on whole numbers.
+pub fn whole(x: &f64) -> String {
+    if (x - x.round()).abs() < 1e-6 {
+        format!("{}", x.round() as i64)
+    } else {
+        String::new()
+    }
+}
