@@ -167,3 +167,112 @@ fn resume_refuses_a_completed_run_and_a_changed_recipe() {
         changed.stderr
     );
 }
+
+/// The demo bench with every simulated fault switched on.
+fn faulty_bench() -> String {
+    let demo = std::fs::read_to_string(crate::support::repo("recipes/benches/sim-demo.toml"))
+        .expect("bench");
+    format!(
+        "{demo}\n[sim.faults]\ndrop_connection_every = 97\nreply_timeout_rate = 0.02\ngarbled_reply_rate = 0.02\ndut_restart_every = 1500\nfailed_exchange_rate = 0.02\n"
+    )
+}
+
+fn table(text: &str) -> Vec<Vec<f64>> {
+    text.lines()
+        .skip(1)
+        .map(|l| {
+            l.split(',')
+                .map(|v| v.parse().unwrap_or(f64::NAN))
+                .collect()
+        })
+        .collect()
+}
+
+#[test]
+fn with_every_fault_on_the_demo_completes_without_duplicates_and_agrees() {
+    let demo = crate::support::repo("recipes/rx-gain-sweep.toml");
+    let clean = Taucal::new()
+        .args(["run", demo.as_str(), "--out", "clean"])
+        .run();
+    clean.expect_code(0);
+    let faulty = Taucal::in_dir(clean.dir)
+        .file("faulty.toml", &faulty_bench())
+        .args([
+            "run",
+            demo.as_str(),
+            "--bench",
+            "faulty.toml",
+            "--out",
+            "faulty",
+        ])
+        .run();
+    faulty.expect_code(0);
+    let rows = faulty.read("faulty/exchanges.csv");
+    let mut keys = std::collections::BTreeSet::new();
+    for line in rows.lines().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        assert!(
+            keys.insert((
+                f[0].to_string(),
+                f[1].to_string(),
+                f[2].to_string(),
+                f[3].to_string()
+            )),
+            "twice: {line}"
+        );
+    }
+    assert!(
+        rows.lines().any(|l| l.ends_with(",fail")),
+        "failed exchanges are recorded"
+    );
+    let m: toml::Table = toml::from_str(&faulty.read("faulty/manifest.toml")).expect("manifest");
+    assert!(m["faults"]["dut"]["restarts"].as_integer().unwrap_or(0) >= 1);
+    assert!(
+        m["faults"]["attenuator"]["retries"]
+            .as_integer()
+            .unwrap_or(0)
+            >= 1
+    );
+    let (a, b) = (
+        table(&faulty.read("clean/caltable.csv")),
+        table(&faulty.read("faulty/caltable.csv")),
+    );
+    assert_eq!(a.len(), b.len());
+    for (x, y) in a.iter().zip(&b) {
+        // Difference of two 95 % intervals, widened to 99 % (2.576 / 1.960).
+        let limit = (x[4].powi(2) + y[4].powi(2)).sqrt() * 2.576 / 1.960;
+        assert!(
+            (x[3] - y[3]).abs() <= limit,
+            "gain {}: {} vs {}",
+            x[2],
+            x[3],
+            y[3]
+        );
+    }
+}
+
+#[test]
+fn a_point_that_keeps_failing_stops_the_run_or_is_skipped_as_the_recipe_says() {
+    let bench = faulty_bench().replace("reply_timeout_rate = 0.02", "reply_timeout_rate = 0.45");
+    let recipe = |policy: &str| {
+        format!(
+            "[recipe]\nname = \"flaky\"\n\n[faults]\nretries = 1\nbackoff_ms = 10.0\non_point_failure = \"{policy}\"\n\n[[stage]]\nname = \"s\"\nkind = \"sweep\"\ncenter_mhz = 5180\nbw_mhz = 80\natten_db = {{ from = 20.0, to = 80.0, step = 2.0 }}\nbursts = 2\nframes = 8\n"
+        )
+    };
+    let stop = Taucal::new()
+        .file("b.toml", &bench)
+        .file("r.toml", &recipe("stop"))
+        .args(["run", "r.toml", "--bench", "b.toml", "--out", "stop"])
+        .run();
+    stop.expect_code(3);
+    assert_eq!(status(stop.dir.path(), "stop"), "failed");
+    let skip = Taucal::in_dir(stop.dir)
+        .file("r.toml", &recipe("skip"))
+        .args(["run", "r.toml", "--bench", "b.toml", "--out", "skip"])
+        .run();
+    skip.expect_code(0);
+    let m: toml::Table = toml::from_str(&skip.read("skip/manifest.toml")).expect("manifest");
+    let skipped = m["skipped_points"].as_array().map_or(0, Vec::len);
+    assert!(skipped >= 1, "{m:?}");
+    assert_eq!(m["status"].as_str(), Some("completed"));
+}

@@ -159,6 +159,12 @@ pub struct Manifest {
     /// How many times `taucal resume` continued this run.
     #[serde(default)]
     pub resumes: u32,
+    /// Instrument faults and retries, by role.
+    #[serde(default)]
+    pub faults: BTreeMap<String, crate::runner::session::FaultTally>,
+    /// Points skipped after their retries ran out.
+    #[serde(default)]
+    pub skipped_points: Vec<String>,
 }
 
 impl Manifest {

@@ -12,6 +12,7 @@ use crate::bench::Bench;
 use crate::diagnostic::{Diagnostic, KeyError};
 use crate::runner::BenchClock;
 use crate::sim::chamber::SimChamber;
+use crate::sim::faults::FaultInjector;
 use crate::sim::front::{
     SimAttenuatorFront, SimChamberFront, SimRangingFront, SimShared, SimWorld,
 };
@@ -54,6 +55,7 @@ pub fn connect(
         let world = SimWorld {
             bench: model,
             chamber: truth.chamber.as_ref().map(SimChamber::new),
+            faults: FaultInjector::new(&truth.faults, seed),
         };
         Some((SimShared::new(world, clock), truth.attenuator.switch_ms))
     } else {

@@ -13,6 +13,21 @@ pub enum InstrumentError {
         /// The instrument's or driver's own words.
         message: String,
     },
+    /// A passing fault: a reply timed out, came garbled, or the connection dropped. Worth a
+    /// retry after reconnecting.
+    #[error("{role}: {message}")]
+    Transient {
+        /// Bench role.
+        role: String,
+        /// What happened.
+        message: String,
+    },
+    /// The device restarted and lost its configuration: it must be initialised again.
+    #[error("{role}: the device restarted")]
+    Restarted {
+        /// Bench role.
+        role: String,
+    },
     /// The task owning the instrument is gone (it failed earlier or the run is ending).
     #[error("{role}: the instrument's connection is closed")]
     Gone {

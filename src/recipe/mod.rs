@@ -7,7 +7,9 @@ pub mod raw;
 pub mod script_source;
 pub mod vars;
 
-pub use plan::{Acceptance, Adaptive, Channel, Plan, Points, Script, Soak, Stage, Sweep, Verify};
+pub use plan::{
+    Acceptance, Adaptive, Channel, FaultPolicy, Plan, Points, Script, Soak, Stage, Sweep, Verify,
+};
 pub use script_source::ScriptSource;
 pub use vars::Vars;
 

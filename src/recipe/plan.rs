@@ -142,6 +142,27 @@ pub struct Acceptance {
     pub max_range_error_m: Option<f64>,
 }
 
+/// What the runner does when an instrument fails.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FaultPolicy {
+    /// Retries of a failed command (after reconnecting and restoring the instrument's state).
+    pub retries: u32,
+    /// Wait before the first retry, doubled for each further one.
+    pub backoff_ms: f64,
+    /// Skip a point that still fails (and report it) instead of stopping the run.
+    pub skip_failed_points: bool,
+}
+
+impl Default for FaultPolicy {
+    fn default() -> Self {
+        FaultPolicy {
+            retries: 3,
+            backoff_ms: 200.0,
+            skip_failed_points: false,
+        }
+    }
+}
+
 /// A validated recipe, ready to run on a bench.
 #[derive(Debug, Clone)]
 pub struct Plan {
@@ -161,6 +182,8 @@ pub struct Plan {
     pub reject_mad: f64,
     /// The DUT's number of gain states, when the recipe says; unmeasured ones are modelled.
     pub gain_states: Option<u32>,
+    /// What to do when an instrument fails.
+    pub faults: FaultPolicy,
 }
 
 /// Default rejection threshold (scaled MADs).
@@ -268,7 +291,46 @@ pub(super) fn build(
         .map(|v| vars.count("fit.gain_states", v, 1, 64))
         .transpose()
         .map_err(located)?;
+    let defaults = FaultPolicy::default();
+    let faults =
+        FaultPolicy {
+            retries: match &raw.faults.retries {
+                Some(v) => vars.count("faults.retries", v, 0, 100).map_err(located)?,
+                None => defaults.retries,
+            },
+            backoff_ms: match &raw.faults.backoff_ms {
+                Some(v) => {
+                    let b = vars.number("faults.backoff_ms", v).map_err(located)?;
+                    if !(0.0..=600_000.0).contains(&b) {
+                        return Err(located(KeyError::new(
+                            "faults.backoff_ms",
+                            format!("is {b}"),
+                            "give 0 to 600000 ms",
+                        )));
+                    }
+                    b
+                }
+                None => defaults.backoff_ms,
+            },
+            skip_failed_points: match &raw.faults.on_point_failure {
+                None => false,
+                Some(v) => match vars
+                    .deref("faults.on_point_failure", v)
+                    .map_err(located)?
+                    .as_str()
+                {
+                    Some("stop") => false,
+                    Some("skip") => true,
+                    _ => return Err(located(KeyError::new(
+                        "faults.on_point_failure",
+                        "is neither \"stop\" nor \"skip\"",
+                        "\"stop\" ends the run (resumable); \"skip\" reports the point and goes on",
+                    ))),
+                },
+            },
+        };
     Ok(Plan {
+        faults,
         gain_states,
         name,
         description: raw.recipe.description,

@@ -19,6 +19,9 @@ pub struct RawRecipe {
     /// `[accept]`: acceptance limits.
     #[serde(default)]
     pub accept: RawAccept,
+    /// `[faults]`: what to do when an instrument fails.
+    #[serde(default)]
+    pub faults: RawFaults,
     /// `[[stage]]`, run in order.
     #[serde(default)]
     pub stage: Vec<RawStage>,
@@ -43,6 +46,18 @@ pub struct RawFit {
     pub reject_mad: Option<toml::Value>,
     /// How many gain states the DUT has; states not measured are modelled.
     pub gain_states: Option<toml::Value>,
+}
+
+/// `[faults]`.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawFaults {
+    /// Retries of a failed instrument command.
+    pub retries: Option<toml::Value>,
+    /// Wait before the first retry, doubled for each further one.
+    pub backoff_ms: Option<toml::Value>,
+    /// `stop` (default) or `skip`: what a point that still fails does to the run.
+    pub on_point_failure: Option<toml::Value>,
 }
 
 /// `[accept]`.

@@ -133,6 +133,8 @@ pub fn execute(
         },
         realtime: req.realtime,
         resumes: 0,
+        faults: BTreeMap::new(),
+        skipped_points: Vec::new(),
     };
     let earlier_wall_s = match &req.resume {
         Some(r) => {
@@ -200,6 +202,7 @@ pub fn execute(
                 &exchanges_path.display().to_string(),
             );
             s.reject_mad = req.plan.reject_mad;
+            s.policy = req.plan.faults;
             s.set_chamber(instruments.chamber);
             s.set_stop(stop.clone());
             s.set_journal(journal);
@@ -228,6 +231,8 @@ pub fn execute(
         let s = session.borrow();
         manifest.counts = s.counts.clone();
         manifest.results = s.results.clone();
+        manifest.faults = s.faults.clone();
+        manifest.skipped_points = s.skipped_points.clone();
         manifest.fit.verify_stages = s.verify_stages.iter().map(|(n, _)| n.clone()).collect();
         if !s.gain_maps.is_empty() {
             let path = dir.join(files::GAINMAP);

@@ -8,8 +8,11 @@ use crate::bench::Bench;
 use crate::data::manifest::Counts;
 use crate::data::{Exchange, RecordSink, STATUS_OK};
 use crate::fit::gainmap::GainMap;
-use crate::instrument::{AttenuatorHandle, BurstSpec, ChamberHandle, RangingHandle};
+use crate::instrument::{
+    AttenuatorHandle, BurstSpec, ChamberHandle, InstrumentError, RangingHandle,
+};
 use crate::recipe::Channel;
+use crate::recipe::FaultPolicy;
 use std::collections::{BTreeMap, VecDeque};
 use std::sync::Arc;
 
@@ -28,6 +31,17 @@ pub struct PointSummary {
     pub ok_by_gain: BTreeMap<u32, u64>,
     /// Exchanges that failed.
     pub failed: u64,
+}
+
+/// Faults seen on one instrument.
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct FaultTally {
+    /// Failed commands.
+    pub faults: u64,
+    /// Retries made.
+    pub retries: u64,
+    /// Device restarts detected.
+    pub restarts: u64,
 }
 
 /// Rows an interrupted run recorded, being replayed by its resumption.
@@ -68,6 +82,12 @@ pub struct Session {
     pub verify_stages: Vec<(String, f64)>,
     /// The fitter's rejection threshold, for intervals computed during the run.
     pub reject_mad: f64,
+    /// Retries and what a failing point does.
+    pub policy: FaultPolicy,
+    /// Faults and retries per role, for the manifest.
+    pub faults: BTreeMap<String, FaultTally>,
+    /// Points skipped after their retries ran out, described.
+    pub skipped_points: Vec<String>,
     observer: Box<dyn RunObserver>,
 }
 
@@ -106,6 +126,9 @@ impl Session {
             gain_maps: BTreeMap::new(),
             verify_stages: Vec::new(),
             reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
+            policy: FaultPolicy::default(),
+            faults: BTreeMap::new(),
+            skipped_points: Vec::new(),
             observer: Box::new(Unobserved),
         }
     }
@@ -235,7 +258,7 @@ impl Session {
             return Err(RunError::Interrupted);
         }
         if !self.feeding() {
-            self.atten.set_atten_db(db)?;
+            self.retrying("attenuator", |s| s.atten.set_atten_db(db))?;
         }
         self.new_point(db)
     }
@@ -306,8 +329,9 @@ impl Session {
         if self.feeding() {
             return self.feed(point);
         }
-        let reported = self.dut.burst(BurstSpec { frames, channel })?;
-        let temp_c = self.dut.temperature_c()?;
+        let spec = BurstSpec { frames, channel };
+        let reported = self.retrying("dut", |s| s.dut.burst(spec))?;
+        let temp_c = self.retrying("dut", |s| s.dut.temperature_c())?;
         let burst = self.next_burst;
         self.next_burst += 1;
         let rows: Vec<Exchange> = reported
@@ -414,6 +438,51 @@ impl Session {
             exchanges_ok: self.counts.exchanges_ok,
             bench_time_s: self.clock.now_s(),
         });
+    }
+
+    /// Runs `op` on `role`, retrying per the fault policy: after a failure it waits (doubling
+    /// the wait each time), brings the instrument back (a restarted device is initialised again;
+    /// the attenuation is re-applied) and tries again. A closed instrument task is not retried.
+    fn retrying<T>(
+        &mut self,
+        role: &str,
+        mut op: impl FnMut(&mut Self) -> Result<T, InstrumentError>,
+    ) -> Result<T, RunError> {
+        let mut attempt = 0u32;
+        loop {
+            let e = match op(self) {
+                Ok(v) => return Ok(v),
+                Err(e @ InstrumentError::Gone { .. }) => return Err(e.into()),
+                Err(e) => e,
+            };
+            let tally = self.faults.entry(role.to_string()).or_default();
+            tally.faults += 1;
+            if matches!(e, InstrumentError::Restarted { .. }) {
+                tally.restarts += 1;
+            }
+            if attempt >= self.policy.retries {
+                return Err(e.into());
+            }
+            attempt += 1;
+            tally.retries += 1;
+            let wait_ms = self.policy.backoff_ms * f64::from(1u32 << (attempt - 1).min(16));
+            tracing::warn!(
+                "{e}; retry {attempt} of {} in {wait_ms} ms",
+                self.policy.retries
+            );
+            self.wait_ms(wait_ms)?;
+            if matches!(e, InstrumentError::Restarted { .. }) {
+                // Initialising is identifying again; if it fails, the next attempt says so.
+                if let Ok(id) = self.dut.identify() {
+                    tracing::info!("dut initialised again after a restart: {id}");
+                }
+            }
+            if let (Some(db), true) = (self.atten_db, role == "dut") {
+                // The attenuator keeps its setting across a DUT fault, but a reconnected or
+                // power-cycled bench may not: setting it again is cheap insurance.
+                let _ = self.atten.set_atten_db(db);
+            }
+        }
     }
 
     /// Puts every instrument in its safe state; returns the failures, if any, without stopping

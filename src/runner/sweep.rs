@@ -13,9 +13,23 @@ pub fn run_sweep(session: &mut Session, sweep: &Sweep) -> Result<(), RunError> {
     let points = resolve(session, sweep)?;
     session.begin_stage(&sweep.name, sweep.channel)?;
     for db in points {
-        measure_point(session, sweep, db)?;
+        measure_or_skip(session, sweep, db)?;
     }
     Ok(())
+}
+
+/// Measures a point; when its instrument faults outlast the retries and the recipe says
+/// `on_point_failure = "skip"`, reports it and goes on.
+fn measure_or_skip(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), RunError> {
+    match measure_point(session, sweep, db) {
+        Err(RunError::Instrument(e)) if session.policy.skip_failed_points => {
+            let what = format!("stage `{}` at {db} dB: {e}", sweep.name);
+            tracing::warn!("skipped {what}");
+            session.skipped_points.push(what);
+            Ok(())
+        }
+        other => other,
+    }
 }
 
 /// The sweep's attenuations: fixed, or mid-plateau from an earlier gain map.
@@ -130,7 +144,7 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
     let first = session.points.len();
     let falling = points.iter().rev().copied();
     for db in points.iter().copied().chain(falling) {
-        measure_point(session, map, db)?;
+        measure_or_skip(session, map, db)?;
     }
     let seen: Vec<MapPoint> = session.points[first..]
         .iter()

@@ -12,7 +12,9 @@
 //! it follows the run's bench time.
 
 use super::chamber::SimChamber;
+use super::faults::FaultInjector;
 use super::model::{BurstRequest, SimBench};
+use super::truth::SimFaultsTruth;
 use crate::data::DeviceExchange;
 use crate::instrument::{Attenuator, BurstSpec, Chamber, InstrumentError, RangingDevice};
 use crate::runner::{BenchClock, ClockMode};
@@ -20,12 +22,17 @@ use async_trait::async_trait;
 use std::sync::{Arc, Mutex, MutexGuard};
 use std::time::Duration;
 
+/// Status of an exchange the (simulated) device reports as failed.
+pub const STATUS_FAIL: &str = "fail";
+
 /// Everything simulated on the bench: the radio model and, optionally, a chamber around the DUT.
 pub struct SimWorld {
     /// The conducted bench and its radios.
     pub bench: SimBench,
     /// The chamber, when the bench has one.
     pub chamber: Option<SimChamber>,
+    /// Injected faults.
+    pub faults: FaultInjector,
 }
 
 impl SimWorld {
@@ -34,6 +41,7 @@ impl SimWorld {
         SimWorld {
             bench,
             chamber: None,
+            faults: FaultInjector::new(&SimFaultsTruth::default(), 0),
         }
     }
 
@@ -70,6 +78,7 @@ impl SimShared {
     pub fn set_atten_db(&self, db: f64, switch_ps: u64) -> Result<Duration, InstrumentError> {
         let changed = {
             let mut m = self.lock("attenuator")?;
+            m.faults.command("attenuator")?;
             let changed = m.bench.atten_db() != db;
             m.bench.set_atten_db(db);
             changed
@@ -95,8 +104,25 @@ impl SimShared {
             let start_ps = self.model_clock.now_ps();
             let now_ps = self.clock.now_ps();
             let mut world = self.lock("dut")?;
+            world.faults.command("dut")?;
+            world.faults.burst(request.frames)?;
             world.settle_to(now_ps);
-            world.bench.run_burst(start_ps, request)
+            let mut outcome = world.bench.run_burst(start_ps, request);
+            for x in &mut outcome.exchanges {
+                if world.faults.exchange_fails() {
+                    *x = DeviceExchange {
+                        t1_ps: x.t1_ps,
+                        t2_ps: None,
+                        t3_ps: None,
+                        t4_ps: None,
+                        dut_gain: None,
+                        dut_rssi_dbm: None,
+                        ref_gain: None,
+                        status: STATUS_FAIL.to_string(),
+                    };
+                }
+            }
+            outcome
         };
         Ok((outcome.exchanges, self.spend_now(outcome.duration_ps)))
     }
@@ -202,6 +228,8 @@ impl SimRangingFront {
 #[async_trait]
 impl RangingDevice for SimRangingFront {
     async fn identify(&mut self) -> Result<String, InstrumentError> {
+        // Identifying is how the runner (re)initialises a device after a restart.
+        self.shared.lock("dut")?.faults.dut_initialised();
         Ok(
             "taucal simulated ranging device (FTM initiator) with simulated reference responder"
                 .into(),

@@ -10,6 +10,7 @@
 pub mod agc;
 pub mod chamber;
 pub mod counter;
+pub mod faults;
 pub mod front;
 pub mod model;
 pub mod serve;

@@ -31,6 +31,9 @@ pub struct SimTruth {
     /// Temperature reported with each exchange; none when absent.
     #[serde(default)]
     pub ambient_c: Option<f64>,
+    /// Faults to inject, for rehearsing unattended runs.
+    #[serde(default)]
+    pub faults: SimFaultsTruth,
     /// A climatic chamber around the DUT, served to a bench role `chamber`.
     #[serde(default)]
     pub chamber: Option<SimChamberTruth>,
@@ -110,6 +113,27 @@ pub struct SimReference {
     /// a reference unit is chosen for clean detection, so late paths are the DUT's by default.
     #[serde(default)]
     pub outlier_rate: f64,
+}
+
+/// Simulated instrument faults (`[sim.faults]`); all off by default. Same seed, same faults.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimFaultsTruth {
+    /// Every Nth instrument command finds the connection dropped (0: never).
+    #[serde(default)]
+    pub drop_connection_every: u64,
+    /// Probability that a command's reply times out.
+    #[serde(default)]
+    pub reply_timeout_rate: f64,
+    /// Probability that a command's reply comes garbled.
+    #[serde(default)]
+    pub garbled_reply_rate: f64,
+    /// The DUT restarts after every N exchanges (0: never), losing the burst under way.
+    #[serde(default)]
+    pub dut_restart_every: u64,
+    /// Probability that an exchange fails (recorded with status `fail`).
+    #[serde(default)]
+    pub failed_exchange_rate: f64,
 }
 
 /// The simulated chamber: its air follows the setpoint at a limited ramp rate, and the DUT follows
@@ -294,6 +318,28 @@ impl SimTruth {
                 "is not one finite drift, nor one per gain state",
                 "give one drift in ps/°C, or one per entry of rx_delay_ps",
             ));
+        }
+        for (key, p) in [
+            (
+                "sim.faults.reply_timeout_rate",
+                self.faults.reply_timeout_rate,
+            ),
+            (
+                "sim.faults.garbled_reply_rate",
+                self.faults.garbled_reply_rate,
+            ),
+            (
+                "sim.faults.failed_exchange_rate",
+                self.faults.failed_exchange_rate,
+            ),
+        ] {
+            if !(0.0..=0.5).contains(&p) {
+                return Err(KeyError::new(
+                    key,
+                    format!("{p} is not a rate this model supports"),
+                    "use 0.0 to 0.5",
+                ));
+            }
         }
         if let Some(c) = &self.chamber {
             positive("sim.chamber.ramp_c_per_min", c.ramp_c_per_min)?;
