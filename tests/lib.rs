@@ -7,6 +7,7 @@ mod calibration;
 mod demo_run;
 mod examples;
 mod fit_offline;
+mod fuzz;
 mod instruments;
 mod plan_preview;
 mod report;
