@@ -1,4 +1,8 @@
 //! `exchanges.csv`: writing it a burst at a time, and reading it back as a stream.
+//!
+//! The reader is on the path of every fit (`taucal fit`, and `taucal run` after recording), and
+//! files run to millions of rows, so it reads by column position into a reused row instead of
+//! deserializing a fresh row per line.
 
 use super::Exchange;
 use std::fs::File;
@@ -100,9 +104,7 @@ pub enum ReadError {
 }
 
 /// Streams the rows of an exchanges file, checking the header first.
-pub fn read_exchanges(
-    path: &Path,
-) -> Result<impl Iterator<Item = Result<Exchange, ReadError>>, ReadError> {
+pub fn read_exchanges(path: &Path) -> Result<ExchangeRows<File>, ReadError> {
     let name = path.display().to_string();
     let file = File::open(path).map_err(|source| ReadError::Io {
         path: name.clone(),
@@ -112,44 +114,195 @@ pub fn read_exchanges(
 }
 
 /// Streams rows from any reader (`name` labels errors).
-pub fn read_from<R: Read>(
-    reader: R,
-    name: String,
-) -> Result<impl Iterator<Item = Result<Exchange, ReadError>>, ReadError> {
+pub fn read_from<R: Read>(reader: R, name: String) -> Result<ExchangeRows<R>, ReadError> {
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(true)
         .from_reader(reader);
-    let headers = rdr.headers().map_err(|e| ReadError::Row {
+    let headers = rdr.byte_headers().map_err(|e| ReadError::Row {
         path: name.clone(),
         line: 1,
         message: e.to_string(),
     })?;
-    if let Some(missing) = EXCHANGES_HEADER
-        .iter()
-        .find(|c| !headers.iter().any(|h| h == **c))
-    {
-        return Err(ReadError::MissingColumn {
-            path: name,
-            column: (*missing).to_string(),
-        });
-    }
-    Ok(rdr.into_deserialize::<Exchange>().map(move |r| {
-        r.map_err(|e| {
-            let line = e.position().map_or(0, |p| p.line());
-            let message = match e.kind() {
-                csv::ErrorKind::Deserialize { err, .. } => match err.field() {
-                    Some(i) => format!("column {}: {}", i + 1, err.kind()),
-                    None => err.kind().to_string(),
-                },
-                _ => e.to_string(),
-            };
-            ReadError::Row {
+    let mut columns = [0usize; EXCHANGES_HEADER.len()];
+    for (slot, wanted) in columns.iter_mut().zip(EXCHANGES_HEADER) {
+        *slot = headers
+            .iter()
+            .position(|h| h == wanted.as_bytes())
+            .ok_or_else(|| ReadError::MissingColumn {
                 path: name.clone(),
-                line,
-                message,
+                column: wanted.to_string(),
+            })?;
+    }
+    Ok(ExchangeRows {
+        rdr,
+        record: csv::ByteRecord::new(),
+        columns,
+        name,
+    })
+}
+
+/// The rows of an exchanges file, read one at a time into a reused record.
+///
+/// Fields are found by the header's column positions (looked up once) and parsed straight from
+/// bytes, so a row costs no allocation when read with [`read_into`](ExchangeRows::read_into):
+/// at millions of rows per fit, per-row `String`s and serde's name matching were most of the
+/// time. Values parse as serde's csv reader parses them (decimal or `0x` integers, Rust float
+/// syntax, empty cell = none), so both readings of a file agree to the bit.
+pub struct ExchangeRows<R> {
+    rdr: csv::Reader<R>,
+    record: csv::ByteRecord,
+    /// Position in the record of each contract column, in `EXCHANGES_HEADER` order.
+    columns: [usize; EXCHANGES_HEADER.len()],
+    name: String,
+}
+
+/// Why one field did not parse: the contract column index and what was wrong.
+struct FieldError(usize, String);
+
+impl<R: Read> ExchangeRows<R> {
+    /// Reads the next row into `row`, reusing its strings; `Ok(false)` at the end of the file.
+    pub fn read_into(&mut self, row: &mut Exchange) -> Result<bool, ReadError> {
+        match self.rdr.read_byte_record(&mut self.record) {
+            Ok(false) => return Ok(false),
+            Ok(true) => {}
+            Err(e) => {
+                return Err(ReadError::Row {
+                    path: self.name.clone(),
+                    line: e.position().map_or(0, |p| p.line()),
+                    message: e.to_string(),
+                })
             }
-        })
-    }))
+        }
+        self.fill(row)
+            .map(|()| true)
+            .map_err(|FieldError(i, message)| {
+                let position = self.record.position();
+                ReadError::Row {
+                    path: self.name.clone(),
+                    line: position.map_or(0, |p| p.line()),
+                    message: format!("column {}: {message}", self.columns[i] + 1),
+                }
+            })
+    }
+
+    fn fill(&self, row: &mut Exchange) -> Result<(), FieldError> {
+        let f = |i: usize| Field {
+            index: i,
+            bytes: self.record.get(self.columns[i]).unwrap_or_default(),
+        };
+        f(0).text_into(&mut row.stage)?;
+        row.point = f(1).uint::<u32>()?;
+        row.burst = f(2).uint::<u32>()?;
+        row.seq = f(3).uint::<u32>()?;
+        row.atten_db = f(4).float()?;
+        row.center_mhz = f(5).uint::<u32>()?;
+        row.bw_mhz = f(6).uint::<u32>()?;
+        row.t1_ps = f(7).optional(Field::uint::<u64>)?;
+        row.t2_ps = f(8).optional(Field::uint::<u64>)?;
+        row.t3_ps = f(9).optional(Field::uint::<u64>)?;
+        row.t4_ps = f(10).optional(Field::uint::<u64>)?;
+        row.dut_gain = f(11).optional(Field::uint::<u32>)?;
+        row.dut_rssi_dbm = f(12).optional(Field::float)?;
+        row.ref_gain = f(13).optional(Field::uint::<u32>)?;
+        row.temp_c = f(14).optional(Field::float)?;
+        f(15).text_into(&mut row.status)
+    }
+}
+
+impl<R: Read> Iterator for ExchangeRows<R> {
+    type Item = Result<Exchange, ReadError>;
+
+    fn next(&mut self) -> Option<Self::Item> {
+        let mut row = Exchange::default();
+        match self.read_into(&mut row) {
+            Ok(true) => Some(Ok(row)),
+            Ok(false) => None,
+            Err(e) => Some(Err(e)),
+        }
+    }
+}
+
+/// One cell of a row, with the contract column it stands for.
+struct Field<'a> {
+    index: usize,
+    bytes: &'a [u8],
+}
+
+impl Field<'_> {
+    fn fail(&self, message: impl std::fmt::Display) -> FieldError {
+        FieldError(self.index, message.to_string())
+    }
+
+    fn text(&self) -> Result<&str, FieldError> {
+        std::str::from_utf8(self.bytes).map_err(|e| self.fail(format!("invalid UTF-8: {e}")))
+    }
+
+    fn text_into(&self, out: &mut String) -> Result<(), FieldError> {
+        let text = self.text()?;
+        out.clear();
+        out.push_str(text);
+        Ok(())
+    }
+
+    /// An unsigned integer. Plain decimal digits (every row taucal writes) are read directly;
+    /// anything else goes through the standard parser, `0x` as hexadecimal, as serde's csv
+    /// reader does, so odd but valid values and every error read the same either way.
+    fn uint<T: TryFrom<u64> + std::str::FromStr + Num>(&self) -> Result<T, FieldError>
+    where
+        <T as std::str::FromStr>::Err: std::fmt::Display,
+    {
+        // 19 digits always fit in a u64; longer runs take the checked path.
+        if !self.bytes.is_empty()
+            && self.bytes.len() <= 19
+            && self.bytes.iter().all(u8::is_ascii_digit)
+        {
+            let value = self
+                .bytes
+                .iter()
+                .fold(0u64, |acc, b| acc * 10 + u64::from(b - b'0'));
+            if let Ok(v) = T::try_from(value) {
+                return Ok(v);
+            }
+        }
+        let text = self.text()?;
+        match text.strip_prefix("0x") {
+            Some(digits) => T::from_hex(digits).map_err(|e| self.fail(e)),
+            None => text.parse::<T>().map_err(|e| self.fail(e)),
+        }
+    }
+
+    fn float(&self) -> Result<f64, FieldError> {
+        self.text()?.parse::<f64>().map_err(|e| self.fail(e))
+    }
+
+    /// Empty cell = not reported.
+    fn optional<T>(
+        &self,
+        parse: impl FnOnce(&Self) -> Result<T, FieldError>,
+    ) -> Result<Option<T>, FieldError> {
+        if self.bytes.is_empty() {
+            Ok(None)
+        } else {
+            parse(self).map(Some)
+        }
+    }
+}
+
+/// Hexadecimal parsing for the integer widths the contract uses.
+trait Num: Sized {
+    fn from_hex(digits: &str) -> Result<Self, std::num::ParseIntError>;
+}
+
+impl Num for u32 {
+    fn from_hex(digits: &str) -> Result<Self, std::num::ParseIntError> {
+        u32::from_str_radix(digits, 16)
+    }
+}
+
+impl Num for u64 {
+    fn from_hex(digits: &str) -> Result<Self, std::num::ParseIntError> {
+        u64::from_str_radix(digits, 16)
+    }
 }
 
 #[cfg(test)]
@@ -208,6 +361,48 @@ mod tests {
         let mut it = read_from(text.as_bytes(), "e.csv".into()).expect("header");
         let err = it.next().expect("one row").unwrap_err().to_string();
         assert!(err.starts_with("e.csv:2: column 5"), "{err}");
+    }
+
+    #[test]
+    fn reads_every_value_as_serde_does() {
+        // Odd but valid spellings (leading `+`, leading zeros, `0x`, exponents, extra and
+        // reordered columns) must read exactly as serde's csv deserializer reads them.
+        let text = "note,status,temp_c,ref_gain,dut_rssi_dbm,dut_gain,t4_ps,t3_ps,t2_ps,t1_ps,\
+                    bw_mhz,center_mhz,atten_db,seq,burst,point,stage\n\
+                    a,ok,24.5,0,-61.25,2,4,3,0x10,+1,80,5180,17.25,0,1,2,sweep\n\
+                    b,lost,,,,,,,,281474976710655,040,05180,1e1,7,0,0,sweep 2\n\
+                    c,ok,-1.5E-3,1,-40,0,18446744073709551615,3,2,1,20,5180,-0.0,3,4294967295,9,x\n";
+        let mut fast = read_from(text.as_bytes(), "e.csv".into()).expect("header");
+        let mut rdr = csv::Reader::from_reader(text.as_bytes());
+        for want in rdr.deserialize::<Exchange>() {
+            let want = want.expect("serde reads it");
+            let got = fast.next().expect("a row").expect("fast reads it");
+            assert_eq!(got, want);
+            assert_eq!(got.atten_db.to_bits(), want.atten_db.to_bits());
+        }
+        assert!(fast.next().is_none());
+    }
+
+    #[test]
+    fn out_of_range_and_malformed_values_name_line_and_column() {
+        let header = EXCHANGES_HEADER.join(",");
+        for (row, column) in [
+            ("sweep,4294967296,0,0,1,5180,80,1,2,3,4,0,-40,0,,ok", 2),
+            (
+                "sweep,0,0,0,1,5180,80,1,2,3,18446744073709551616,0,-40,0,,ok",
+                11,
+            ),
+            ("sweep,0,0,0,1,5180,80,1,2,3,4,-1,-40,0,,ok", 12),
+            ("sweep,0,0,0,1,5180,80,1,2,3,4,0,-40,0,warm,ok", 15),
+        ] {
+            let text = format!("{header}\n{row}\n");
+            let mut it = read_from(text.as_bytes(), "e.csv".into()).expect("header");
+            let err = it.next().expect("one row").unwrap_err().to_string();
+            assert!(
+                err.starts_with(&format!("e.csv:2: column {column}:")),
+                "{err}"
+            );
+        }
     }
 
     #[test]
