@@ -13,7 +13,7 @@ use crate::fit::deembed::Deembed;
 use crate::fit::drift::{DriftRow, TempBins};
 use crate::fit::rtt::{burst_offsets, corrected_rtt_from_counters_ps, rate_ratio};
 use crate::fit::stats::{cluster_robust_se, mad_scaled, mean, median, sample_sd, t975};
-use std::collections::{BTreeMap, BTreeSet};
+use std::collections::BTreeMap;
 
 /// Smallest spread the rejection rule trusts, one counter tick. Below the counters' resolution
 /// the spread is quantisation, not noise, and a zero MAD (many identical values) would otherwise
@@ -326,12 +326,12 @@ fn cell_row(
     }
     let delay_ps = mean(&kept_values)?;
     let sd_ps = sample_sd(&kept_values)?;
-    let n_bursts = kept.iter().map(|s| s.1).collect::<BTreeSet<u64>>().len() as u64;
-    let (se_ps, df) = match cluster_robust_se(&kept, delay_ps) {
-        Some(c) => (c.se, (c.clusters - 1) as f64),
+    // Distinct bursts are the clusters of the robust standard error (one when it has none).
+    let (se_ps, df, n_bursts) = match cluster_robust_se(&kept, delay_ps) {
+        Some(c) => (c.se, (c.clusters - 1) as f64, c.clusters),
         None => {
             summary.cells_single_burst += 1;
-            (sd_ps / (n as f64).sqrt(), (n - 1) as f64)
+            (sd_ps / (n as f64).sqrt(), (n - 1) as f64, 1)
         }
     };
     let ci95_ps = t975(df)? * se_ps;
