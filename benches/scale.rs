@@ -475,7 +475,11 @@ async fn bare_pings(port: u16, n: usize) -> Result<f64, Error> {
     Ok(t.elapsed().as_secs_f64() / n as f64)
 }
 
-fn scpi_section(s: &Settings) -> Result<f64, Error> {
+/// The layer's cost per query against two bare clients of the same server: one on a
+/// current-thread runtime (the calling thread waits on the socket itself) and one on a
+/// multi-thread runtime like the runner's (a worker waits on the socket, then wakes the caller).
+/// Returns the median ratios (layer / current-thread, layer / multi-thread).
+fn scpi_section(s: &Settings) -> Result<(f64, f64), Error> {
     println!(
         "\n== SCPI *IDN? over loopback: {} queries per round",
         s.pings
@@ -511,8 +515,10 @@ fn scpi_section(s: &Settings) -> Result<f64, Error> {
     }
     bare_rt.block_on(bare_pings(port, warm))?;
     let (mut bare, mut layer, mut ratio) = (Vec::new(), Vec::new(), Vec::new());
+    let (mut bare_mt, mut ratio_mt) = (Vec::new(), Vec::new());
     for _ in 0..s.repeats {
         let b = bare_rt.block_on(bare_pings(port, s.pings))?;
+        let b_mt = rt.block_on(bare_pings(port, s.pings))?;
         let t = Instant::now();
         for _ in 0..s.pings {
             attenuator.identify()?;
@@ -521,14 +527,18 @@ fn scpi_section(s: &Settings) -> Result<f64, Error> {
         bare.push(b * 1e6);
         layer.push(l * 1e6);
         ratio.push(l / b);
+        bare_mt.push(b_mt * 1e6);
+        ratio_mt.push(l / b_mt);
     }
-    show("bare tokio TcpStream (current-thread)", "µs", &bare);
-    show("instrument layer (handle → owner → SCPI)", "µs", &layer);
-    show("ratio layer / bare, per round", "×", &ratio);
+    show("bare socket, current-thread runtime", "µs", &bare);
+    show("bare socket, multi-thread runtime", "µs", &bare_mt);
+    show("instrument layer (handle, SCPI client, link)", "µs", &layer);
+    show("ratio layer / bare current-thread", "×", &ratio);
+    show("ratio layer / bare multi-thread", "×", &ratio_mt);
     drop(attenuator);
     drop(rt);
     server_rt.shutdown_timeout(Duration::from_secs(1));
-    Ok(spread(&ratio).median)
+    Ok((spread(&ratio).median, spread(&ratio_mt).median))
 }
 
 fn main() -> Result<(), Error> {
@@ -547,13 +557,15 @@ fn main() -> Result<(), Error> {
     if let Some(r) = soak_section(&s)? {
         ratios.push(("overnight-soak bench / wall (≥ 3000)".to_string(), r));
     }
+    let (vs_current, vs_multi) = scpi_section(&s)?;
+    ratios.push(("SCPI layer / bare, current-thread".to_string(), vs_current));
     ratios.push((
-        "SCPI layer / bare socket (≤ 1.3)".to_string(),
-        scpi_section(&s)?,
+        "SCPI layer / bare, multi-thread (≤ 1.3)".to_string(),
+        vs_multi,
     ));
     println!("\n== ratios (medians over rounds)");
     for (name, r) in ratios {
-        println!("  {name:<40} {r:>10.2}");
+        println!("  {name:<42} {r:>10.2}");
     }
     Ok(())
 }
