@@ -32,9 +32,13 @@ pub fn median(values: &mut [f64]) -> Option<f64> {
 }
 
 /// Median absolute deviation from `center`, scaled by [`MAD_TO_SD`]. `None` when empty.
-pub fn mad_scaled(values: &[f64], center: f64) -> Option<f64> {
-    let mut dev: Vec<f64> = values.iter().map(|v| (v - center).abs()).collect();
-    median(&mut dev).map(|m| MAD_TO_SD * m)
+/// Overwrites `values` with the absolute deviations: the fitter passes a scratch copy, and
+/// a cell of millions of delays then needs no second buffer.
+pub fn mad_scaled(values: &mut [f64], center: f64) -> Option<f64> {
+    for v in values.iter_mut() {
+        *v = (*v - center).abs();
+    }
+    median(values).map(|m| MAD_TO_SD * m)
 }
 
 /// Arithmetic mean, refined by a second pass over the residuals so that values sharing a large
@@ -299,7 +303,7 @@ mod tests {
         assert_eq!(median(&mut [4.0, 1.0, 3.0, 2.0]), Some(2.5));
         assert_eq!(median(&mut [5.0, 1.0, 3.0]), Some(3.0));
         // |x − 3| = 2, 0, 2, 97 → median 2 → 2·1.4826.
-        let mad = mad_scaled(&[1.0, 3.0, 5.0, 100.0], 3.0).unwrap_or(f64::NAN);
+        let mad = mad_scaled(&mut [1.0, 3.0, 5.0, 100.0], 3.0).unwrap_or(f64::NAN);
         assert!((mad - 2.0 * MAD_TO_SD).abs() < 1e-12);
     }
 
