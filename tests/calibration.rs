@@ -292,7 +292,8 @@ fn an_overnight_soak_recovers_each_states_temperature_drift() {
         );
     }
     let m: toml::Table = toml::from_str(&out.read("soak/manifest.toml")).expect("manifest");
-    assert!(m["bench_time_s"].as_float().expect("bench time") > 3.0 * 3600.0);
+    // An overnight run: at least eight hours of bench time (the recipe's ten soaks).
+    assert!(m["bench_time_s"].as_float().expect("bench time") >= 8.0 * 3600.0);
     assert!(m["instruments"]["chamber"].as_str().is_some());
 }
 

@@ -30,7 +30,7 @@ pub struct DeviceExchange {
 }
 
 /// One row of `exchanges.csv` (contract columns, in contract order).
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
 pub struct Exchange {
     /// Name of the recipe stage that took the exchange.
     pub stage: String,

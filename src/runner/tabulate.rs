@@ -43,8 +43,10 @@ pub fn fit_file(
         },
     );
     let mut bursts: Vec<Vec<Exchange>> = Vec::new();
-    for row in read_exchanges(exchanges)? {
-        let row = row?;
+    let mut rows = read_exchanges(exchanges)?;
+    // One row reused for the whole file: no allocation per exchange.
+    let mut row = Exchange::default();
+    while rows.read_into(&mut row)? {
         if settings.verify_stages.contains(&row.stage) {
             match bursts.last_mut() {
                 Some(b)
@@ -52,9 +54,9 @@ pub fn fit_file(
                         && b[0].point == row.point
                         && b[0].burst == row.burst =>
                 {
-                    b.push(row)
+                    b.push(row.clone())
                 }
-                _ => bursts.push(vec![row]),
+                _ => bursts.push(vec![row.clone()]),
             }
         } else {
             fitter.push(&row);
