@@ -446,7 +446,7 @@ mod tests {
     }
 
     #[test]
-    fn golden_transcript_of_the_common_commands() {
+    fn golden_dialogue_of_the_common_commands() {
         let mut d = device();
         for (send, want) in [
             // IEEE 488.2-1992 §10.14: *IDN? answers four fields, maker,model,serial,firmware.
