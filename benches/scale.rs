@@ -20,7 +20,7 @@ use std::process::{Command, Stdio};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 use taucal::bench::Bench;
-use taucal::data::{Exchange, ExchangeWriter, RecordSink};
+use taucal::data::{Exchange, ExchangeWriter, RecordSink, Taken};
 use taucal::instrument::connect::connect;
 use taucal::runner::{BenchClock, ClockMode};
 use taucal::sim::serve::{Listen, ServedBench};
@@ -180,25 +180,17 @@ fn generate(bench: &Bench, path: &Path, rows: u64) -> Result<(), Error> {
                 let outcome = sim.run_burst(bench_ps, &req);
                 bench_ps += outcome.duration_ps;
                 rows_of_burst.clear();
+                let at = Taken {
+                    stage,
+                    point: point as u32,
+                    burst: round,
+                    atten_db,
+                    center_mhz: CENTER_MHZ,
+                    bw_mhz,
+                    temp_c: sim.dut_temp_c(),
+                };
                 for (seq, x) in outcome.exchanges.into_iter().enumerate() {
-                    rows_of_burst.push(Exchange {
-                        stage: stage.clone(),
-                        point: point as u32,
-                        burst: round,
-                        seq: seq as u32,
-                        atten_db,
-                        center_mhz: CENTER_MHZ,
-                        bw_mhz,
-                        t1_ps: x.t1_ps,
-                        t2_ps: x.t2_ps,
-                        t3_ps: x.t3_ps,
-                        t4_ps: x.t4_ps,
-                        dut_gain: x.dut_gain,
-                        dut_rssi_dbm: x.dut_rssi_dbm,
-                        ref_gain: x.ref_gain,
-                        temp_c: sim.dut_temp_c(),
-                        status: x.status,
-                    });
+                    rows_of_burst.push(Exchange::recorded(&at, seq as u32, x));
                 }
                 writer.write_burst(&rows_of_burst)?;
                 written += u64::from(FRAMES);

@@ -4,7 +4,7 @@
 
 use crate::support::{repo, Taucal};
 use taucal::bench::PathFacts;
-use taucal::data::Exchange;
+use taucal::data::{Exchange, Taken};
 use taucal::fit::{fit, Deembed, FitOptions};
 use taucal::sim::{BurstRequest, SimBench, SimTruth};
 
@@ -159,28 +159,20 @@ fn oracle_exchanges(truth: &SimTruth, atten_db: f64, target_ps: f64) -> f64 {
             },
         );
         now_ps += out.duration_ps + 20_000_000_000;
+        let at = Taken {
+            stage: "oracle",
+            point: 0,
+            burst,
+            atten_db,
+            center_mhz: 5180,
+            bw_mhz: 80,
+            temp_c: None,
+        };
         rows.extend(
             out.exchanges
                 .into_iter()
                 .enumerate()
-                .map(|(seq, d)| Exchange {
-                    stage: "oracle".into(),
-                    point: 0,
-                    burst,
-                    seq: seq as u32,
-                    atten_db,
-                    center_mhz: 5180,
-                    bw_mhz: 80,
-                    t1_ps: d.t1_ps,
-                    t2_ps: d.t2_ps,
-                    t3_ps: d.t3_ps,
-                    t4_ps: d.t4_ps,
-                    dut_gain: d.dut_gain,
-                    dut_rssi_dbm: d.dut_rssi_dbm,
-                    ref_gain: d.ref_gain,
-                    temp_c: None,
-                    status: d.status,
-                }),
+                .map(|(seq, d)| Exchange::recorded(&at, seq as u32, d)),
         );
     }
     let deembed = Deembed::new(&path, taucal::bench::PerGain::Same(2800.0));

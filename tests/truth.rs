@@ -3,7 +3,7 @@
 //! up to 5 % outliers, wrapping counters, a reference with two gain states).
 
 use taucal::bench::{PathFacts, PerGain};
-use taucal::data::Exchange;
+use taucal::data::{Exchange, Taken};
 use taucal::fit::{Deembed, FitOptions, FitResult, Fitter};
 use taucal::sim::{BurstRequest, SimBench, SimTruth};
 
@@ -111,28 +111,20 @@ fn simulate(case: &Case, seed: u64, step_db: f64, bursts: u32) -> (SimTruth, Vec
             // Bursts spaced 200 ms apart, so an hour-long counter span is not needed for wraps:
             // the counters start at random 48-bit values.
             now_ps += out.duration_ps + 200_000_000_000;
+            let at = Taken {
+                stage: "sweep",
+                point,
+                burst,
+                atten_db: atten,
+                center_mhz: 5180,
+                bw_mhz: case.bw_mhz,
+                temp_c: None,
+            };
             rows.extend(
                 out.exchanges
                     .into_iter()
                     .enumerate()
-                    .map(|(seq, d)| Exchange {
-                        stage: "sweep".into(),
-                        point,
-                        burst,
-                        seq: seq as u32,
-                        atten_db: atten,
-                        center_mhz: 5180,
-                        bw_mhz: case.bw_mhz,
-                        t1_ps: d.t1_ps,
-                        t2_ps: d.t2_ps,
-                        t3_ps: d.t3_ps,
-                        t4_ps: d.t4_ps,
-                        dut_gain: d.dut_gain,
-                        dut_rssi_dbm: d.dut_rssi_dbm,
-                        ref_gain: d.ref_gain,
-                        temp_c: None,
-                        status: d.status,
-                    }),
+                    .map(|(seq, d)| Exchange::recorded(&at, seq as u32, d)),
             );
         }
         atten += step_db;

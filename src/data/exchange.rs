@@ -66,7 +66,48 @@ pub struct Exchange {
     pub status: String,
 }
 
+/// Where and how a burst was taken: everything a row holds besides what the device reported.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Taken<'a> {
+    /// Stage name.
+    pub stage: &'a str,
+    /// Point index within the stage.
+    pub point: u32,
+    /// Burst index within the point.
+    pub burst: u32,
+    /// Attenuator setting.
+    pub atten_db: f64,
+    /// Channel center, MHz.
+    pub center_mhz: u32,
+    /// Bandwidth, MHz.
+    pub bw_mhz: u32,
+    /// Temperature at the DUT, where measured.
+    pub temp_c: Option<f64>,
+}
+
 impl Exchange {
+    /// The row of the `seq`-th exchange `d` of a burst taken as `at` says.
+    pub fn recorded(at: &Taken<'_>, seq: u32, d: DeviceExchange) -> Exchange {
+        Exchange {
+            stage: at.stage.to_string(),
+            point: at.point,
+            burst: at.burst,
+            seq,
+            atten_db: at.atten_db,
+            center_mhz: at.center_mhz,
+            bw_mhz: at.bw_mhz,
+            t1_ps: d.t1_ps,
+            t2_ps: d.t2_ps,
+            t3_ps: d.t3_ps,
+            t4_ps: d.t4_ps,
+            dut_gain: d.dut_gain,
+            dut_rssi_dbm: d.dut_rssi_dbm,
+            ref_gain: d.ref_gain,
+            temp_c: at.temp_c,
+            status: d.status,
+        }
+    }
+
     /// True when the exchange completed and carries everything the fitter needs.
     pub fn is_usable(&self) -> bool {
         self.status == STATUS_OK

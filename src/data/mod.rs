@@ -6,5 +6,5 @@ pub mod manifest;
 pub mod run_dir;
 
 pub use csv_io::{read_exchanges, ExchangeWriter, ReadError, RecordSink, EXCHANGES_HEADER};
-pub use exchange::{DeviceExchange, Exchange, STATUS_OK};
+pub use exchange::{DeviceExchange, Exchange, Taken, STATUS_OK};
 pub use manifest::{Manifest, RunStatus};

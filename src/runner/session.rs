@@ -6,7 +6,7 @@ use super::journal::{Checkpoint, Journal};
 use super::{BenchClock, RunError, RunEvent, RunObserver, StopFlag, Unobserved};
 use crate::bench::Bench;
 use crate::data::manifest::Counts;
-use crate::data::{Exchange, RecordSink, STATUS_OK};
+use crate::data::{Exchange, RecordSink, Taken, STATUS_OK};
 use crate::fit::gainmap::GainMap;
 use crate::instrument::{
     AttenuatorHandle, BurstSpec, ChamberHandle, InstrumentError, RangingHandle,
@@ -334,27 +334,19 @@ impl Session {
         let temp_c = self.retrying("dut", |s| s.dut.temperature_c())?;
         let burst = self.next_burst;
         self.next_burst += 1;
+        let at = Taken {
+            stage: &self.stage,
+            point,
+            burst,
+            atten_db,
+            center_mhz: channel.center_mhz,
+            bw_mhz: channel.bw_mhz,
+            temp_c,
+        };
         let rows: Vec<Exchange> = reported
             .into_iter()
             .enumerate()
-            .map(|(seq, d)| Exchange {
-                stage: self.stage.clone(),
-                point,
-                burst,
-                seq: seq as u32,
-                atten_db,
-                center_mhz: channel.center_mhz,
-                bw_mhz: channel.bw_mhz,
-                t1_ps: d.t1_ps,
-                t2_ps: d.t2_ps,
-                t3_ps: d.t3_ps,
-                t4_ps: d.t4_ps,
-                dut_gain: d.dut_gain,
-                dut_rssi_dbm: d.dut_rssi_dbm,
-                ref_gain: d.ref_gain,
-                temp_c,
-                status: d.status,
-            })
+            .map(|(seq, d)| Exchange::recorded(&at, seq as u32, d))
             .collect();
         if self.replay.rows.is_empty() {
             self.sink
