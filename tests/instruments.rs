@@ -14,16 +14,14 @@ struct Server {
 }
 
 impl Server {
+    /// Serves the demo bench.
     fn start(listen: &[&str]) -> Server {
+        Server::start_bench(&repo("recipes/benches/sim-demo.toml"), listen)
+    }
+
+    fn start_bench(bench: &str, listen: &[&str]) -> Server {
         let mut cmd = Command::new(env!("CARGO_BIN_EXE_taucal"));
-        cmd.args([
-            "sim",
-            "serve",
-            "--bench",
-            &repo("recipes/benches/sim-demo.toml"),
-            "--seed",
-            "1",
-        ]);
+        cmd.args(["sim", "serve", "--bench", bench, "--seed", "1"]);
         for l in listen {
             cmd.args(["--listen", l]);
         }
@@ -136,6 +134,101 @@ fn served_instruments_over_tcp_and_a_pty_record_the_in_process_exchanges() {
         served == in_process_exchanges(),
         "served and in-process exchanges differ"
     );
+}
+
+#[test]
+fn served_instruments_with_every_fault_on_complete_the_demo_without_duplicates_and_agree() {
+    // The acceptance for served faults: dropped connections, silent commands, garbled
+    // replies and console restarts on the wire; the driven instruments must ride through them.
+    let spare = tempfile::tempdir().expect("temp dir");
+    let faulty = spare.path().join("faulty.toml");
+    std::fs::write(&faulty, crate::unattended::faulty_bench()).expect("write bench");
+    let server = Server::start_bench(
+        &faulty.display().to_string(),
+        &["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"],
+    );
+    let drivers = root().join("drivers").display().to_string();
+    let (attenuator, dut) = (server.address("attenuator"), server.address("dut"));
+    // Short timeouts so the silent commands cost little; quick backoff for the same reason.
+    let bench = served_bench("brackwater-bw95a", &attenuator, &dut, &drivers)
+        .replace(
+            &format!("address = \"{attenuator}\" }}"),
+            &format!("address = \"{attenuator}\", timeout_ms = 250.0 }}"),
+        )
+        .replace(
+            &format!("address = \"{dut}\" }}"),
+            &format!("address = \"{dut}\", timeout_ms = 250.0 }}"),
+        );
+    assert!(bench.matches("timeout_ms = 250.0").count() == 2, "{bench}");
+    let recipe = std::fs::read_to_string(root().join("recipes/rx-gain-sweep.toml"))
+        .expect("demo recipe")
+        + "\n[faults]\nretries = 4\nbackoff_ms = 20.0\n";
+    let out = Taucal::new()
+        .file("served.toml", &bench)
+        .file("demo.toml", &recipe)
+        .args([
+            "run",
+            "demo.toml",
+            "--bench",
+            "served.toml",
+            "--set",
+            "settle_ms=1",
+            "--out",
+            "run",
+        ])
+        .run();
+    out.expect_code(0);
+    let rows = out.read("run/exchanges.csv");
+    let mut keys = std::collections::BTreeSet::new();
+    for line in rows.lines().skip(1) {
+        let key: Vec<&str> = line.split(',').take(4).collect();
+        assert!(keys.insert(key.join(",")), "recorded twice: {line}");
+    }
+    assert!(
+        rows.lines().any(|l| l.ends_with(",fail")),
+        "failed exchanges kept"
+    );
+    let m: toml::Table = toml::from_str(&out.read("run/manifest.toml")).expect("manifest");
+    let count = |role: &str, what: &str| {
+        m["faults"][role][what]
+            .as_integer()
+            .unwrap_or_else(|| panic!("faults.{role}.{what} in {m:?}"))
+    };
+    assert!(count("dut", "restarts") >= 1, "a console restart was seen");
+    assert!(count("dut", "retries") >= 5);
+    assert!(count("attenuator", "retries") >= 1);
+    // Against the fault-free run (the in-process one records the same exchanges as a
+    // fault-free served one): each gain state within the 99 % bound of the difference.
+    let clean = Taucal::in_dir(out.dir)
+        .args(["run", &repo("recipes/rx-gain-sweep.toml"), "--out", "clean"])
+        .run();
+    clean.expect_code(0);
+    let table = |text: String| -> Vec<Vec<f64>> {
+        text.lines()
+            .skip(1)
+            .map(|l| {
+                l.split(',')
+                    .map(|v| v.parse().unwrap_or(f64::NAN))
+                    .collect()
+            })
+            .collect()
+    };
+    let (a, b) = (
+        table(clean.read("clean/caltable.csv")),
+        table(clean.read("run/caltable.csv")),
+    );
+    assert_eq!(a.len(), b.len());
+    for (x, y) in a.iter().zip(&b) {
+        // Difference of two 95 % intervals, widened to 99 % (normal quantiles 2.576 / 1.960).
+        let limit = (x[4].powi(2) + y[4].powi(2)).sqrt() * 2.576 / 1.960;
+        assert!(
+            (x[3] - y[3]).abs() <= limit,
+            "gain {}: {} vs {}",
+            x[2],
+            x[3],
+            y[3]
+        );
+    }
 }
 
 #[test]
@@ -296,6 +389,20 @@ fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
             ),
             vec!["--connect", "dut=serial:/dev/x?baud=fast"],
             "with --connect",
+        ),
+        (
+            served_bench(
+                "brackwater-bw95a",
+                "tcp:127.0.0.1:1",
+                "tcp:127.0.0.1:1",
+                &drivers,
+            )
+            .replace(
+                "address = \"tcp:127.0.0.1:1\" }",
+                "address = \"tcp:127.0.0.1:1\", timeout_ms = 0.0 }",
+            ),
+            vec![],
+            "`roles.attenuator.timeout_ms` 0 ms is not a usable timeout\n  --> b.toml:13:87",
         ),
     ] {
         let out = Taucal::new()

@@ -169,7 +169,7 @@ fn resume_refuses_a_completed_run_and_a_changed_recipe() {
 }
 
 /// The demo bench with every simulated fault switched on.
-fn faulty_bench() -> String {
+pub(crate) fn faulty_bench() -> String {
     let demo = std::fs::read_to_string(crate::support::repo("recipes/benches/sim-demo.toml"))
         .expect("bench");
     format!(

@@ -66,6 +66,10 @@ pub struct RoleBinding {
     pub driver: String,
     /// Address: `sim:` for the in-process simulated bench, `tcp:HOST:PORT`, `serial:PATH?baud=N`.
     pub address: String,
+    /// Reply timeout for this bench, replacing the driver file's `link.timeout_ms` (a slow
+    /// network, or a quick one where faults should cost little).
+    #[serde(default)]
+    pub timeout_ms: Option<f64>,
 }
 
 /// What the bench knows of its step attenuator.
@@ -391,6 +395,15 @@ impl Bench {
                     format!("add `{role} = {{ driver = \"…\", address = \"…\" }}` under [roles]"),
                 ));
             };
+            if let Some(t) = binding.timeout_ms {
+                if !(t.is_finite() && (1.0..=600_000.0).contains(&t)) {
+                    return Err(KeyError::new(
+                        format!("roles.{role}.timeout_ms"),
+                        format!("{t} ms is not a usable timeout"),
+                        "give 1 to 600000 ms, or leave it out to use the driver file's",
+                    ));
+                }
+            }
             if binding.address.starts_with("sim:") {
                 let expected = SIM_DRIVERS
                     .iter()

@@ -110,9 +110,12 @@ fn driven(bench: &Bench, role: &str) -> Result<Option<(DriverKind, Link)>, Diagn
             "see the README's addresses",
         ))
     })?;
+    let timeout = binding.timeout_ms.map_or(link.timeout, |ms| {
+        std::time::Duration::from_micros((ms * 1000.0) as u64)
+    });
     Ok(Some((
         kind.clone(),
-        Link::new(address, &link.line_ending, link.timeout),
+        Link::new(address, &link.line_ending, timeout),
     )))
 }
 

@@ -34,6 +34,19 @@ impl DrivenAttenuator {
         }
     }
 
+    /// A lost connection, a timeout or an unreadable reply may pass; an error the instrument
+    /// reports itself will not.
+    fn error(&self, context: &str, e: ScpiError) -> InstrumentError {
+        let message = format!("{context}{e}");
+        match e {
+            ScpiError::Link(_) | ScpiError::Reply { .. } => InstrumentError::Transient {
+                role: self.role.clone(),
+                message,
+            },
+            ScpiError::Instrument(_) => self.failed(message),
+        }
+    }
+
     /// Why the driver file forbids `db`, if it does.
     pub fn refuse(&self, db: f64) -> Option<String> {
         let [lo, hi] = self.driver.range_db;
@@ -67,10 +80,7 @@ impl DrivenAttenuator {
 #[async_trait]
 impl Attenuator for DrivenAttenuator {
     async fn identify(&mut self) -> Result<String, InstrumentError> {
-        self.scpi
-            .identify()
-            .await
-            .map_err(|e| self.failed(e.to_string()))
+        self.scpi.identify().await.map_err(|e| self.error("", e))
     }
 
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
@@ -90,7 +100,7 @@ impl Attenuator for DrivenAttenuator {
             }
             other => other,
         };
-        outcome.map_err(|e| self.failed(format!("`{command}`: {e}")))?;
+        outcome.map_err(|e| self.error(&format!("`{command}`: "), e))?;
         if self.driver.settle_ms > 0.0 {
             tokio::time::sleep(Duration::from_secs_f64(self.driver.settle_ms / 1000.0)).await;
         }
@@ -103,15 +113,20 @@ impl Attenuator for DrivenAttenuator {
             .scpi
             .query(&command)
             .await
-            .map_err(|e| self.failed(format!("`{command}`: {e}")))?;
+            .map_err(|e| self.error(&format!("`{command}`: "), e))?;
         self.driver
             .get_atten_reply
             .captures(&reply)
             .and_then(|c| c["db"].parse::<f64>().ok())
             .ok_or_else(|| {
-                self.failed(format!(
-                    "`{command}` was answered `{reply}`, which the driver's reply.get_atten does not match"
-                ))
+                self.error(
+                    "",
+                    ScpiError::Reply {
+                        command: command.clone(),
+                        reply: reply.clone(),
+                        expected: "what the driver's reply.get_atten matches".into(),
+                    },
+                )
             })
     }
 

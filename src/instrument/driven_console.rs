@@ -83,11 +83,27 @@ pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, Strin
     Ok(ConsoleLine::Other)
 }
 
+/// Why a console command went wrong, before it becomes an [`InstrumentError`].
+#[derive(Debug)]
+enum Trouble {
+    /// The link failed: the connection dropped or a reply timed out.
+    Link(String),
+    /// A reply the driver cannot read: corrupted on the line, or out of step.
+    Garbled(String),
+    /// The device printed its boot banner after it had answered: it restarted.
+    Restarted,
+    /// The device refused or failed the command.
+    Device(String),
+}
+
 /// A ranging device behind its console.
 pub struct DrivenConsole {
     role: String,
     driver: ConsoleDriver,
     link: Link,
+    /// Whether the device has answered on this connection: a banner before that is the
+    /// greeting of a new connection, after it a restart.
+    answered: bool,
 }
 
 impl DrivenConsole {
@@ -97,13 +113,18 @@ impl DrivenConsole {
             role: role.to_string(),
             driver,
             link,
+            answered: false,
         }
     }
 
-    fn failed(&self, message: impl Into<String>) -> InstrumentError {
-        InstrumentError::Failed {
-            role: self.role.clone(),
-            message: message.into(),
+    fn error(&self, trouble: Trouble) -> InstrumentError {
+        let role = self.role.clone();
+        match trouble {
+            Trouble::Link(message) | Trouble::Garbled(message) => {
+                InstrumentError::Transient { role, message }
+            }
+            Trouble::Restarted => InstrumentError::Restarted { role },
+            Trouble::Device(message) => InstrumentError::Failed { role, message },
         }
     }
 
@@ -132,30 +153,61 @@ impl DrivenConsole {
         None
     }
 
-    /// Reads lines until one matches `want`, skipping banner lines; any other line is an error.
-    async fn expect(&mut self, command: &str, want: &regex::Regex) -> Result<String, String> {
+    async fn send(&mut self, command: &str) -> Result<(), Trouble> {
+        if !self.link.is_connected() {
+            self.answered = false;
+        }
+        self.link
+            .send(command)
+            .await
+            .map_err(|e| Trouble::Link(format!("`{command}`: {e}")))
+    }
+
+    /// The next line that is not a banner (`want` wins over the banner pattern). A banner
+    /// before the device has answered on this connection is skipped as its greeting; after,
+    /// it means the device restarted, and the rest of the banner is then skipped as the
+    /// greeting it is.
+    async fn line(
+        &mut self,
+        context: &str,
+        want: Option<&regex::Regex>,
+    ) -> Result<String, Trouble> {
         loop {
             let line = self
                 .link
                 .read_line()
                 .await
-                .map_err(|e| format!("`{command}`: {e}"))?;
-            if want.is_match(&line) {
-                return Ok(line);
-            }
-            match classify(&self.driver, &line)? {
-                ConsoleLine::Banner => continue,
-                ConsoleLine::Fail(reason) => return Err(format!("`{command}` failed: {reason}")),
-                _ => {
-                    return Err(format!(
-                        "`{command}` was answered `{line}`, which the driver does not expect"
-                    ))
+                .map_err(|e| Trouble::Link(format!("{context}: {e}")))?;
+            let wanted = want.is_some_and(|w| w.is_match(&line));
+            if !wanted && matches!(classify(&self.driver, &line), Ok(ConsoleLine::Banner)) {
+                if self.answered {
+                    self.answered = false;
+                    return Err(Trouble::Restarted);
                 }
+                continue;
             }
+            self.answered = true;
+            return Ok(line);
         }
     }
 
-    async fn run_burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, String> {
+    /// Reads the reply to `command`, which must match `want`.
+    async fn expect(&mut self, command: &str, want: &regex::Regex) -> Result<String, Trouble> {
+        let line = self.line(&format!("`{command}`"), Some(want)).await?;
+        if want.is_match(&line) {
+            return Ok(line);
+        }
+        match classify(&self.driver, &line) {
+            Ok(ConsoleLine::Fail(reason)) => {
+                Err(Trouble::Device(format!("`{command}` failed: {reason}")))
+            }
+            _ => Err(Trouble::Garbled(format!(
+                "`{command}` was answered `{line}`, which the driver does not expect"
+            ))),
+        }
+    }
+
+    async fn run_burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, Trouble> {
         let command = self.driver.start_burst.render(&BTreeMap::from([
             ("frames", Value::Integer(u64::from(spec.frames))),
             (
@@ -164,38 +216,67 @@ impl DrivenConsole {
             ),
             ("bw_mhz", Value::Integer(u64::from(spec.channel.bw_mhz))),
         ]));
-        self.link
-            .send(&command)
-            .await
-            .map_err(|e| format!("`{command}`: {e}"))?;
+        self.send(&command).await?;
         if let Some(ack) = self.driver.start_burst_reply.clone() {
             self.expect(&command, &ack).await?;
         }
+        let context = format!("burst after `{command}`");
         let mut exchanges = Vec::with_capacity(spec.frames as usize);
         loop {
-            let line = self
-                .link
-                .read_line()
-                .await
-                .map_err(|e| format!("burst after `{command}`: {e}"))?;
-            match classify(&self.driver, &line)? {
-                ConsoleLine::Exchange(x) => exchanges.push(x),
-                ConsoleLine::End => break,
-                ConsoleLine::Fail(reason) => return Err(format!("burst failed: {reason}")),
-                ConsoleLine::Banner => {}
-                ConsoleLine::Other => {
-                    return Err(format!("unexpected line during a burst: `{line}`"))
+            let line = self.line(&context, None).await?;
+            match classify(&self.driver, &line) {
+                Ok(ConsoleLine::Exchange(x)) => exchanges.push(x),
+                Ok(ConsoleLine::End) => break,
+                Ok(ConsoleLine::Fail(reason)) => {
+                    return Err(Trouble::Device(format!("burst failed: {reason}")))
                 }
+                Ok(ConsoleLine::Banner | ConsoleLine::Other) => {
+                    return Err(Trouble::Garbled(format!(
+                        "unexpected line during a burst: `{line}`"
+                    )))
+                }
+                Err(why) => return Err(Trouble::Garbled(format!("`{line}`: {why}"))),
             }
         }
         if exchanges.len() != spec.frames as usize {
-            return Err(format!(
+            return Err(Trouble::Garbled(format!(
                 "the burst reported {} exchanges, {} were asked for",
                 exchanges.len(),
                 spec.frames
-            ));
+            )));
         }
         Ok(exchanges)
+    }
+
+    /// Gets back in step after an unreadable reply, so the next command's reply is not mistaken
+    /// for the rest of this one's: in a burst, reads to the burst's end line; otherwise (or if
+    /// that end never comes) reads until the console falls silent for the link's timeout,
+    /// which closes the link, and the next command starts on a fresh connection.
+    async fn resync(&mut self, in_burst: bool) {
+        while let Ok(line) = self.link.read_line().await {
+            if in_burst
+                && matches!(
+                    classify(&self.driver, &line),
+                    Ok(ConsoleLine::End | ConsoleLine::Fail(_))
+                )
+            {
+                return;
+            }
+        }
+    }
+
+    /// A command's failure, after getting back in step if its reply was unreadable.
+    async fn fail(&mut self, trouble: Trouble, in_burst: bool) -> InstrumentError {
+        if let Trouble::Garbled(_) = trouble {
+            self.resync(in_burst).await;
+        }
+        self.error(trouble)
+    }
+
+    /// Sends `command` and reads the reply matching `want`.
+    async fn query(&mut self, command: &str, want: &regex::Regex) -> Result<String, Trouble> {
+        self.send(command).await?;
+        self.expect(command, want).await
     }
 }
 
@@ -204,15 +285,10 @@ impl RangingDevice for DrivenConsole {
     async fn identify(&mut self) -> Result<String, InstrumentError> {
         let command = self.driver.identify.text();
         let want = self.driver.identify_reply.clone();
-        let outcome = async {
-            self.link
-                .send(&command)
-                .await
-                .map_err(|e| format!("`{command}`: {e}"))?;
-            self.expect(&command, &want).await
-        }
-        .await;
-        let line = outcome.map_err(|m| self.failed(m))?;
+        let line = match self.query(&command, &want).await {
+            Ok(line) => line,
+            Err(t) => return Err(self.fail(t, false).await),
+        };
         Ok(want
             .captures(&line)
             .map_or(line.clone(), |c| c["id"].to_string()))
@@ -220,32 +296,28 @@ impl RangingDevice for DrivenConsole {
 
     async fn burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, InstrumentError> {
         if let Some(why) = self.refuse(spec) {
-            return Err(self.failed(format!("{why}; nothing was sent")));
+            return Err(InstrumentError::Failed {
+                role: self.role.clone(),
+                message: format!("{why}; nothing was sent"),
+            });
         }
         match self.run_burst(spec).await {
             Ok(x) => Ok(x),
-            Err(m) => {
-                // Whatever the console still sends belongs to the failed burst: start afresh.
-                self.link.disconnect();
-                Err(self.failed(m))
-            }
+            // A failed link has already been closed, taking the burst's rest with it.
+            Err(trouble) => Err(self.fail(trouble, true).await),
         }
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
         let command = self.driver.safe_command.text();
-        let outcome = async {
-            self.link
-                .send(&command)
-                .await
-                .map_err(|e| format!("`{command}`: {e}"))?;
-            if let Some(reply) = self.driver.safe_reply.clone() {
-                self.expect(&command, &reply).await?;
-            }
-            Ok::<(), String>(())
+        let outcome = match self.driver.safe_reply.clone() {
+            Some(reply) => self.query(&command, &reply).await.map(drop),
+            None => self.send(&command).await,
+        };
+        match outcome {
+            Ok(()) => Ok(()),
+            Err(t) => Err(self.fail(t, false).await),
         }
-        .await;
-        outcome.map_err(|m| self.failed(m))
     }
 
     async fn temperature_c(&mut self) -> Result<Option<f64>, InstrumentError> {
@@ -253,17 +325,17 @@ impl RangingDevice for DrivenConsole {
             return Ok(None);
         };
         let command = command.text();
-        let outcome = async {
-            self.link
-                .send(&command)
-                .await
-                .map_err(|e| format!("`{command}`: {e}"))?;
-            let line = self.expect(&command, &reply).await?;
-            let caps = reply.captures(&line).ok_or("no match")?;
-            field::<f64>(&caps, "c", &self.driver.missing)
-        }
-        .await;
-        outcome.map_err(|m| self.failed(m))
+        let line = match self.query(&command, &reply).await {
+            Ok(line) => line,
+            Err(t) => return Err(self.fail(t, false).await),
+        };
+        let caps = reply.captures(&line).ok_or_else(|| {
+            self.error(Trouble::Garbled(format!(
+                "`{command}`: `{line}` does not match"
+            )))
+        })?;
+        field::<f64>(&caps, "c", &self.driver.missing)
+            .map_err(|why| self.error(Trouble::Garbled(format!("`{command}`: {why}"))))
     }
 }
 

@@ -433,8 +433,8 @@ impl Session {
     }
 
     /// Runs `op` on `role`, retrying per the fault policy: after a failure it waits (doubling
-    /// the wait each time), brings the instrument back (a restarted device is initialised again;
-    /// the attenuation is re-applied) and tries again. A closed instrument task is not retried.
+    /// the wait each time), brings the instrument back (the DUT is initialised again; the
+    /// attenuation is re-applied) and tries again. A closed instrument task is not retried.
     fn retrying<T>(
         &mut self,
         role: &str,
@@ -463,10 +463,14 @@ impl Session {
                 self.policy.retries
             );
             self.wait_ms(wait_ms)?;
-            if matches!(e, InstrumentError::Restarted { .. }) {
-                // Initialising is identifying again; if it fails, the next attempt says so.
+            if role == "dut" {
+                // Initialising is identifying again. Done after any DUT fault, not only a
+                // detected restart: a restart can hide behind a dropped connection or a
+                // timeout. If it fails, the next attempt says so.
                 if let Ok(id) = self.dut.identify() {
-                    tracing::info!("dut initialised again after a restart: {id}");
+                    if matches!(e, InstrumentError::Restarted { .. }) {
+                        tracing::info!("dut initialised again after a restart: {id}");
+                    }
                 }
             }
             if let (Some(db), true) = (self.atten_db, role == "dut") {

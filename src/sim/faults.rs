@@ -10,6 +10,46 @@ use rand_chacha::ChaCha8Rng;
 /// Stream id of the fault draws (the model uses 0–5).
 const STREAM_FAULTS: u64 = 6;
 
+/// A fault that strikes one command.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum CommandFault {
+    /// The connection drops before the command is carried out.
+    Drop,
+    /// The command is not carried out and nothing answers it.
+    Silence,
+    /// The command is carried out but its reply arrives corrupted.
+    Garble,
+}
+
+impl CommandFault {
+    /// What the client sees, as an in-process instrument reports it.
+    pub fn describe(self) -> &'static str {
+        match self {
+            CommandFault::Drop => "connection lost (simulated)",
+            CommandFault::Silence => "no reply within the timeout (simulated)",
+            CommandFault::Garble => "garbled reply (simulated)",
+        }
+    }
+
+    /// The error an in-process instrument in `role` returns for this fault.
+    pub fn error(self, role: &str) -> InstrumentError {
+        InstrumentError::Transient {
+            role: role.to_string(),
+            message: self.describe().to_string(),
+        }
+    }
+}
+
+/// Corrupts a reply as a noisy line would, keeping its line ends so the client stays in step:
+/// every other character becomes `#`. No reply of the simulated instruments survives it.
+pub fn garble(reply: &mut [u8]) {
+    for b in reply.iter_mut().step_by(2) {
+        if !matches!(*b, b'\r' | b'\n') {
+            *b = b'#';
+        }
+    }
+}
+
 /// Decides, command by command, which fault strikes.
 #[derive(Debug, Clone)]
 pub struct FaultInjector {
@@ -34,26 +74,21 @@ impl FaultInjector {
         }
     }
 
-    /// The fault, if any, that strikes the next command sent to `role`. Draws the same amount
-    /// whatever happens, so one fault never shifts the next.
-    pub fn command(&mut self, role: &str) -> Result<(), InstrumentError> {
+    /// The fault, if any, that strikes the next command. Draws the same amount whatever
+    /// happens, so one fault never shifts the next.
+    pub fn command(&mut self) -> Option<CommandFault> {
         self.commands += 1;
         let (timeout, garbled): (f64, f64) = (self.rng.random(), self.rng.random());
-        let transient = |message: &str| InstrumentError::Transient {
-            role: role.to_string(),
-            message: message.to_string(),
-        };
         let every = self.truth.drop_connection_every;
         if every > 0 && self.commands % every == 0 {
-            return Err(transient("connection lost (simulated)"));
+            Some(CommandFault::Drop)
+        } else if timeout < self.truth.reply_timeout_rate {
+            Some(CommandFault::Silence)
+        } else if garbled < self.truth.garbled_reply_rate {
+            Some(CommandFault::Garble)
+        } else {
+            None
         }
-        if timeout < self.truth.reply_timeout_rate {
-            return Err(transient("no reply within the timeout (simulated)"));
-        }
-        if garbled < self.truth.garbled_reply_rate {
-            return Err(transient("garbled reply (simulated)"));
-        }
-        Ok(())
     }
 
     /// Before a burst of `frames`: fails if the DUT is unconfigured, or restarts it when the
@@ -104,15 +139,23 @@ mod tests {
     fn same_seed_same_faults() {
         let run = |seed| {
             let mut f = FaultInjector::new(&truth(), seed);
-            (0..200)
-                .map(|_| f.command("attenuator").is_ok())
-                .collect::<Vec<_>>()
+            (0..200).map(|_| f.command().is_none()).collect::<Vec<_>>()
         };
         assert_eq!(run(3), run(3));
         assert_ne!(run(3), run(4));
         let faults = run(3).iter().filter(|ok| !**ok).count();
         // Every 5th dropped (40) plus ~19 % of the rest: binomial bounds, generously.
         assert!((60..=110).contains(&faults), "{faults}");
+    }
+
+    #[test]
+    fn a_garbled_reply_keeps_its_line_end_and_loses_its_meaning() {
+        let mut one = b"1\n".to_vec();
+        garble(&mut one);
+        assert_eq!(one, b"#\n");
+        let mut line = b"range ack\r\n".to_vec();
+        garble(&mut line);
+        assert_eq!(line, b"#a#g# #c#\r\n");
     }
 
     #[test]

@@ -12,7 +12,7 @@
 //! it follows the run's bench time.
 
 use super::chamber::SimChamber;
-use super::faults::FaultInjector;
+use super::faults::{CommandFault, FaultInjector};
 use super::model::{BurstRequest, SimBench};
 use super::truth::SimFaultsTruth;
 use crate::data::DeviceExchange;
@@ -78,7 +78,6 @@ impl SimShared {
     pub fn set_atten_db(&self, db: f64, switch_ps: u64) -> Result<Duration, InstrumentError> {
         let changed = {
             let mut m = self.lock("attenuator")?;
-            m.faults.command("attenuator")?;
             let changed = m.bench.atten_db() != db;
             m.bench.set_atten_db(db);
             changed
@@ -88,6 +87,18 @@ impl SimShared {
         } else {
             Duration::ZERO
         })
+    }
+
+    /// The fault, if any, that strikes the next command sent to the bench's instruments (one
+    /// stream for all of them, drawn in the order commands arrive).
+    pub fn command_fault(&self, role: &str) -> Result<Option<CommandFault>, InstrumentError> {
+        Ok(self.lock(role)?.faults.command())
+    }
+
+    /// The DUT was initialised (identified) again, which a restart requires before bursts.
+    pub fn dut_initialised(&self) -> Result<(), InstrumentError> {
+        self.lock("dut")?.faults.dut_initialised();
+        Ok(())
     }
 
     /// The attenuation.
@@ -104,7 +115,6 @@ impl SimShared {
             let start_ps = self.model_clock.now_ps();
             let now_ps = self.clock.now_ps();
             let mut world = self.lock("dut")?;
-            world.faults.command("dut")?;
             world.faults.burst(request.frames)?;
             world.settle_to(now_ps);
             let mut outcome = world.bench.run_burst(start_ps, request);
@@ -200,6 +210,9 @@ impl Attenuator for SimAttenuatorFront {
     }
 
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
+        if let Some(fault) = self.shared.command_fault("attenuator")? {
+            return Err(fault.error("attenuator"));
+        }
         pause(self.shared.set_atten_db(db, self.switch_ps)?).await;
         Ok(())
     }
@@ -229,7 +242,7 @@ impl SimRangingFront {
 impl RangingDevice for SimRangingFront {
     async fn identify(&mut self) -> Result<String, InstrumentError> {
         // Identifying is how the runner (re)initialises a device after a restart.
-        self.shared.lock("dut")?.faults.dut_initialised();
+        self.shared.dut_initialised()?;
         Ok(
             "taucal simulated ranging device (FTM initiator) with simulated reference responder"
                 .into(),
@@ -242,6 +255,9 @@ impl RangingDevice for SimRangingFront {
             center_mhz: spec.channel.center_mhz,
             bw_mhz: spec.channel.bw_mhz,
         };
+        if let Some(fault) = self.shared.command_fault("dut")? {
+            return Err(fault.error("dut"));
+        }
         let (exchanges, wall) = self.shared.run_burst(&request)?;
         pause(wall).await;
         Ok(exchanges)

@@ -1,6 +1,6 @@
-//! A line-oriented connection that (re)connects on demand: a lost connection fails the command
-//! in flight, and the next command reconnects, so a cable pulled and replugged between steps
-//! costs one error, not the instrument.
+//! A line-oriented connection that (re)connects on demand: a lost connection or a missed reply
+//! fails the command in flight, and the next command reconnects, so a cable pulled and
+//! replugged between steps costs one error, not the instrument.
 
 use super::{open, Address, Stream};
 use crate::instrument::line::{read_line, LineError, LineFramer};
@@ -30,7 +30,7 @@ pub enum LinkError {
 }
 
 impl LinkError {
-    /// True when the command timed out (the connection itself may be fine).
+    /// True when the command timed out (the instrument may be busy rather than gone).
     pub fn is_timeout(&self) -> bool {
         matches!(
             self,
@@ -74,11 +74,12 @@ impl Link {
         self.stream.is_some()
     }
 
+    /// Any failure ends the connection, a timeout too: a reply that comes late would otherwise
+    /// be read as the next command's. The next command reconnects (a serial port reopens with
+    /// its input discarded).
     fn line_error(&mut self, source: LineError) -> LinkError {
-        if !matches!(source, LineError::Timeout(_)) {
-            self.stream = None;
-            self.framer.clear();
-        }
+        self.stream = None;
+        self.framer.clear();
         LinkError::Line {
             address: self.address.to_string(),
             source,
@@ -138,12 +139,6 @@ impl Link {
     pub async fn query(&mut self, line: &str) -> Result<String, LinkError> {
         self.send(line).await?;
         self.read_line().await
-    }
-
-    /// Drops the connection (the next command reconnects).
-    pub fn disconnect(&mut self) {
-        self.stream = None;
-        self.framer.clear();
     }
 }
 
@@ -211,6 +206,32 @@ mod tests {
         let e = link.query("*IDN?").await.expect_err("no answer");
         assert!(e.is_timeout(), "{e}");
         keep.abort();
+    }
+
+    #[tokio::test]
+    async fn a_late_reply_is_not_read_as_the_next_commands() {
+        let listener = TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let port = listener.local_addr().expect("addr").port();
+        tokio::spawn(async move {
+            let (slow, _) = listener.accept().await.expect("accept");
+            let (r, mut w) = slow.into_split();
+            let mut lines = BufReader::new(r).lines();
+            let _ = lines.next_line().await;
+            tokio::time::sleep(Duration::from_millis(300)).await;
+            let _ = w.write_all(b"late\r\n").await;
+            let (quick, _) = listener.accept().await.expect("accept");
+            let (r, mut w) = quick.into_split();
+            if let Ok(Some(line)) = BufReader::new(r).lines().next_line().await {
+                w.write_all(format!("re:{line}\r\n").as_bytes())
+                    .await
+                    .expect("write");
+            }
+        });
+        let mut link = Link::new(tcp(port), "\n", Duration::from_millis(100));
+        assert!(link.query("a").await.expect_err("too slow").is_timeout());
+        assert!(!link.is_connected());
+        tokio::time::sleep(Duration::from_millis(400)).await;
+        assert_eq!(link.query("b").await, Ok("re:b".into()));
     }
 
     #[tokio::test]

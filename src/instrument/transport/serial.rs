@@ -4,9 +4,9 @@
 use super::address::{Flow, Parity, SerialSettings};
 use super::Stream;
 use std::io;
-use tokio_serial::SerialPortBuilderExt;
+use tokio_serial::{SerialPort, SerialPortBuilderExt};
 
-/// Opens the port with its line settings. Must run inside the tokio runtime (the port is
+/// Opens the port with its line settings, discarding input that arrived while it was closed. Must run inside the tokio runtime (the port is
 /// registered with its reactor).
 pub fn open(s: &SerialSettings) -> io::Result<Box<dyn Stream>> {
     let data_bits = match s.data_bits {
@@ -36,5 +36,9 @@ pub fn open(s: &SerialSettings) -> io::Result<Box<dyn Stream>> {
         .flow_control(flow)
         .open_native_async()
         .map_err(io::Error::from)?;
+    // Whatever waits in the input is an answer to a command of an earlier connection.
+    if let Err(e) = port.clear(tokio_serial::ClearBuffer::Input) {
+        tracing::debug!("{}: input not discarded on opening: {e}", s.path);
+    }
     Ok(Box::new(port))
 }

@@ -1,8 +1,12 @@
 //! The simulated DUT's line console, speaking the protocol `drivers/wren6-console.toml`
 //! describes: a boot banner, `who`, `range go n= ch= bw=`, `range halt`, `temp?`. Encoding and
-//! parsing are pure functions; [`serve`] moves lines over any byte stream (TCP or a pty).
+//! parsing are pure functions; [`serve`] moves lines over any byte stream (TCP or a pty) and
+//! applies `[sim.faults]` on the wire. A restart prints the banner again in place of the burst.
 
+use super::Medium;
 use crate::data::DeviceExchange;
+use crate::instrument::InstrumentError;
+use crate::sim::faults::{garble, CommandFault};
 use crate::sim::front::SimShared;
 use crate::sim::BurstRequest;
 use std::fmt::Write as _;
@@ -93,13 +97,16 @@ pub fn answer(shared: &SimShared, line: &str) -> (Vec<String>, std::time::Durati
     let none = std::time::Duration::ZERO;
     match parse_command(line) {
         Err(reply) => (vec![reply], none),
-        Ok(ConsoleCommand::Identify) => (
-            vec![format!(
-                "id Saltmarsh Radio Lab,Wren-6,SIM-0006,fw2.3.1 (simulated by taucal {})",
-                env!("CARGO_PKG_VERSION")
-            )],
-            none,
-        ),
+        Ok(ConsoleCommand::Identify) => match shared.dut_initialised() {
+            Ok(()) => (
+                vec![format!(
+                    "id Saltmarsh Radio Lab,Wren-6,SIM-0006,fw2.3.1 (simulated by taucal {})",
+                    env!("CARGO_PKG_VERSION")
+                )],
+                none,
+            ),
+            Err(e) => (vec![format!("err {e}")], none),
+        },
         Ok(ConsoleCommand::Halt) => (vec!["ok".into()], none),
         Ok(ConsoleCommand::Temperature) => match shared.dut_temp_c() {
             Ok(t) => (vec![format!("temp {}", opt(t))], none),
@@ -118,17 +125,21 @@ pub fn answer(shared: &SimShared, line: &str) -> (Vec<String>, std::time::Durati
                 lines.push(format!("range done n={}", exchanges.len()));
                 (lines, wall)
             }
+            Err(InstrumentError::Restarted { .. }) => {
+                (BANNER.iter().map(|l| l.to_string()).collect(), none)
+            }
             Err(e) => (vec![format!("range fail {e}")], none),
         },
     }
 }
 
-/// Serves the console on `stream` until it closes: banner first, then one reply per command.
-/// Each reply line is written in two pieces, as a slow UART bridge would deliver it, so clients
+/// Serves the console on `stream` until it closes (or a simulated fault drops it on a
+/// socket): banner first, then one reply per command. Each reply line is written in two pieces, as a slow UART bridge would deliver it, so clients
 /// always meet lines split across reads.
 pub async fn serve<S: AsyncRead + AsyncWrite + Unpin>(
     mut stream: S,
     shared: SimShared,
+    medium: Medium,
 ) -> std::io::Result<()> {
     for line in BANNER {
         stream.write_all(format!("{line}\r\n").as_bytes()).await?;
@@ -152,7 +163,22 @@ pub async fn serve<S: AsyncRead + AsyncWrite + Unpin>(
         if line.trim().is_empty() {
             continue;
         }
-        let (replies, wall) = answer(&shared, &line);
+        let fault = shared.command_fault("dut").ok().flatten();
+        match fault {
+            Some(CommandFault::Drop) if medium == Medium::Socket => return Ok(()),
+            Some(CommandFault::Drop | CommandFault::Silence) => continue,
+            _ => {}
+        }
+        let (mut replies, wall) = answer(&shared, &line);
+        if fault == Some(CommandFault::Garble) {
+            // The middle line: a record in a burst, the only line of any other reply.
+            let middle = replies.len() / 2;
+            if let Some(reply) = replies.get_mut(middle) {
+                let mut bytes = std::mem::take(reply).into_bytes();
+                garble(&mut bytes);
+                *reply = String::from_utf8_lossy(&bytes).into_owned();
+            }
+        }
         let last = replies.len().saturating_sub(1);
         for (i, reply) in replies.iter().enumerate() {
             if i == last && !wall.is_zero() {

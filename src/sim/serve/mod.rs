@@ -3,6 +3,12 @@
 //! pseudo-terminal — sharing one bench model, so a run through them exercises the real
 //! transports and driver files and still records the exchanges the in-process bench would.
 //!
+//! `[sim.faults]` strike on the wire, one command at a time in the order commands arrive: a
+//! dropped connection is closed before the command is carried out, a silent command is neither
+//! carried out nor answered, a garbled reply is the real reply with its characters corrupted,
+//! and a restarted DUT prints its boot banner instead of the burst and forgets it was
+//! initialised until it is identified again.
+//!
 //! The served instruments spend bench time on the server's own clock (virtual unless
 //! realtime): the model never sees wall time, which keeps a served run deterministic.
 
@@ -14,6 +20,7 @@ use crate::bench::Bench;
 use crate::diagnostic::Diagnostic;
 use crate::instrument::line::LineFramer;
 use crate::runner::{BenchClock, ClockMode};
+use crate::sim::faults::{garble, CommandFault, FaultInjector};
 use crate::sim::front::{SimShared, SimWorld};
 use crate::sim::SimBench;
 use scpi_attenuator::ScpiAttenuator;
@@ -105,6 +112,16 @@ impl Listen {
     }
 }
 
+/// What carries a served instrument's lines, which decides how a dropped connection looks.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Medium {
+    /// A TCP connection: a drop closes it.
+    Socket,
+    /// A (pseudo-)terminal has no connection to drop: the command is lost, as on a glitching
+    /// serial line.
+    Terminal,
+}
+
 /// The served bench: one model, its clock, and the attenuator's SCPI state.
 #[derive(Clone)]
 pub struct ServedBench {
@@ -129,7 +146,12 @@ impl ServedBench {
         } else {
             ClockMode::Virtual
         };
-        let shared = SimShared::new(SimWorld::radios(model), Arc::new(BenchClock::new(mode)));
+        let world = SimWorld {
+            bench: model,
+            chamber: None,
+            faults: FaultInjector::new(&truth.faults, seed),
+        };
+        let shared = SimShared::new(world, Arc::new(BenchClock::new(mode)));
         let attenuator = ScpiAttenuator::new(
             shared.clone(),
             bench.attenuator.range_db,
@@ -150,7 +172,7 @@ impl ServedBench {
                 let address = format!("serial:{}", pty.path.display());
                 let shared = self.shared.clone();
                 tokio::spawn(async move {
-                    if let Err(e) = console::serve(pty, shared).await {
+                    if let Err(e) = console::serve(pty, shared, Medium::Terminal).await {
                         tracing::warn!("dut console on the pty: {e}");
                     }
                 });
@@ -171,7 +193,9 @@ impl ServedBench {
                         tokio::spawn(async move {
                             let outcome = match role {
                                 ServedRole::Attenuator => me.serve_scpi(stream).await,
-                                ServedRole::Dut => console::serve(stream, me.shared.clone()).await,
+                                ServedRole::Dut => {
+                                    console::serve(stream, me.shared.clone(), Medium::Socket).await
+                                }
                             };
                             if let Err(e) = outcome {
                                 tracing::info!("{}: client {peer}: {e}", role.name());
@@ -200,10 +224,20 @@ impl ServedBench {
                 }
                 framer.push(&buf[..n]);
             };
-            let (response, wall) = match self.attenuator.lock() {
+            // A query that falls silent is not carried out; a setting has no reply to withhold.
+            let fault = self.shared.command_fault("attenuator").ok().flatten();
+            match fault {
+                Some(CommandFault::Drop) => return Ok(()),
+                Some(CommandFault::Silence) if message.contains('?') => continue,
+                _ => {}
+            }
+            let (mut response, wall) = match self.attenuator.lock() {
                 Ok(mut device) => device.execute(&message),
                 Err(_) => return Ok(()),
             };
+            if fault == Some(CommandFault::Garble) {
+                garble(&mut response);
+            }
             if !wall.is_zero() {
                 tokio::time::sleep(wall).await;
             }
@@ -211,5 +245,186 @@ impl ServedBench {
                 stream.write_all(&response).await?;
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::sim::truth::SimFaultsTruth;
+    use std::time::Duration;
+    use tokio::io::{AsyncBufReadExt, BufReader};
+
+    /// The built-in bench served on loopback with `faults`; returns the address of `role`.
+    async fn serve(faults: SimFaultsTruth, role: ServedRole) -> SocketAddr {
+        let mut bench = Bench::built_in().expect("demo bench");
+        if let Some(sim) = bench.sim.as_mut() {
+            sim.faults = faults;
+        }
+        let served = ServedBench::new(&bench, 1, false).expect("served");
+        let listen = Listen {
+            role,
+            at: ListenAt::Tcp(SocketAddr::from(([127, 0, 0, 1], 0))),
+        };
+        let address = served.start(&listen).await.expect("listening");
+        address
+            .trim_start_matches("tcp:")
+            .parse()
+            .expect("socket address")
+    }
+
+    /// One client connection: sends lines, reads lines with a short wait.
+    struct Client {
+        reader: BufReader<tokio::net::tcp::OwnedReadHalf>,
+        writer: tokio::net::tcp::OwnedWriteHalf,
+    }
+
+    impl Client {
+        async fn connect(at: SocketAddr) -> Client {
+            let (r, w) = TcpStream::connect(at).await.expect("connect").into_split();
+            Client {
+                reader: BufReader::new(r),
+                writer: w,
+            }
+        }
+
+        async fn send(&mut self, line: &str) {
+            self.writer
+                .write_all(format!("{line}\r\n").as_bytes())
+                .await
+                .expect("send");
+        }
+
+        /// The next line; `None` when nothing comes within 300 ms, `Some("<closed>")` at EOF.
+        async fn line(&mut self) -> Option<String> {
+            let mut line = String::new();
+            match tokio::time::timeout(Duration::from_millis(300), self.reader.read_line(&mut line))
+                .await
+            {
+                Err(_) => None,
+                Ok(Ok(0)) => Some("<closed>".into()),
+                Ok(_) => Some(line.trim_end().to_string()),
+            }
+        }
+
+        /// Reads past the greeting banner a console sends on connecting.
+        async fn skip_greeting(&mut self) {
+            for line in BANNER_LINES {
+                assert_eq!(self.line().await.as_deref(), Some(line));
+            }
+        }
+    }
+
+    const BANNER_LINES: [&str; 3] = console::BANNER;
+
+    #[tokio::test]
+    async fn every_nth_command_finds_the_connection_dropped_before_it_is_carried_out() {
+        let faults = SimFaultsTruth {
+            drop_connection_every: 3,
+            ..SimFaultsTruth::default()
+        };
+        let at = serve(faults, ServedRole::Attenuator).await;
+        let mut c = Client::connect(at).await;
+        c.send("ATT 30").await;
+        c.send("ATT?").await;
+        assert_eq!(c.line().await.as_deref(), Some("30.0"));
+        c.send("ATT 40").await;
+        assert_eq!(c.line().await.as_deref(), Some("<closed>"));
+        let mut again = Client::connect(at).await;
+        again.send("ATT?").await;
+        assert_eq!(
+            again.line().await.as_deref(),
+            Some("30.0"),
+            "40 was never set"
+        );
+    }
+
+    #[tokio::test]
+    async fn a_silent_query_is_not_answered_and_a_setting_still_takes_effect() {
+        let faults = SimFaultsTruth {
+            reply_timeout_rate: 0.5,
+            ..SimFaultsTruth::default()
+        };
+        let at = serve(faults, ServedRole::Attenuator).await;
+        let mut c = Client::connect(at).await;
+        for db in ["12.5", "20.0", "31.25", "47.0"] {
+            c.send(&format!("ATT {db}")).await;
+        }
+        let mut replies = Vec::new();
+        for _ in 0..12 {
+            c.send("ATT?").await;
+            replies.push(c.line().await);
+        }
+        assert!(replies.contains(&None), "{replies:?}");
+        assert!(
+            replies.iter().flatten().all(|r| r == "47.0"),
+            "every answer is the last setting: {replies:?}"
+        );
+        assert!(replies.iter().flatten().count() >= 1, "{replies:?}");
+    }
+
+    #[tokio::test]
+    async fn garbled_replies_keep_their_line_ends_and_the_burst_its_other_lines() {
+        let faults = SimFaultsTruth {
+            garbled_reply_rate: 0.5,
+            ..SimFaultsTruth::default()
+        };
+        let at = serve(faults, ServedRole::Dut).await;
+        let mut c = Client::connect(at).await;
+        c.skip_greeting().await;
+        let mut halts = Vec::new();
+        for _ in 0..8 {
+            c.send("range halt").await;
+            halts.push(c.line().await.unwrap_or_default());
+        }
+        assert!(halts.iter().all(|l| l == "ok" || l == "#k"), "{halts:?}");
+        assert!(halts.iter().any(|l| l == "#k"), "{halts:?}");
+        let mut garbled_bursts = 0;
+        for _ in 0..8 {
+            c.send("range go n=3 ch=5180 bw=80").await;
+            let mut lines = Vec::new();
+            for _ in 0..5 {
+                lines.push(c.line().await.unwrap_or_default());
+            }
+            // ack, three records, end: only the middle line (the second record) may be garbled.
+            assert_eq!(lines[0], "range ack");
+            assert!(lines[1].starts_with("xr 0 "), "{lines:?}");
+            assert!(lines[3].starts_with("xr 2 "), "{lines:?}");
+            assert_eq!(lines[4], "range done n=3");
+            if lines[2].starts_with("#r#1#") {
+                garbled_bursts += 1;
+            } else {
+                assert!(lines[2].starts_with("xr 1 "), "{lines:?}");
+            }
+        }
+        assert!(garbled_bursts >= 1);
+    }
+
+    #[tokio::test]
+    async fn a_restarted_console_prints_its_banner_and_wants_identifying_again() {
+        let faults = SimFaultsTruth {
+            dut_restart_every: 30,
+            ..SimFaultsTruth::default()
+        };
+        let at = serve(faults, ServedRole::Dut).await;
+        let mut c = Client::connect(at).await;
+        c.skip_greeting().await;
+        c.send("range go n=16 ch=5180 bw=80").await;
+        assert_eq!(c.line().await.as_deref(), Some("range ack"));
+        for _ in 0..17 {
+            assert!(c.line().await.is_some());
+        }
+        // The next burst crosses exchange 30: the module reboots instead of answering.
+        c.send("range go n=16 ch=5180 bw=80").await;
+        c.skip_greeting().await;
+        c.send("range go n=16 ch=5180 bw=80").await;
+        assert!(c
+            .line()
+            .await
+            .is_some_and(|l| l.starts_with("range fail") && l.contains("restarted")));
+        c.send("who").await;
+        assert!(c.line().await.is_some_and(|l| l.starts_with("id ")));
+        c.send("range go n=16 ch=5180 bw=80").await;
+        assert_eq!(c.line().await.as_deref(), Some("range ack"));
     }
 }
