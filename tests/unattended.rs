@@ -266,6 +266,12 @@ fn a_point_that_keeps_failing_stops_the_run_or_is_skipped_as_the_recipe_says() {
         .run();
     stop.expect_code(3);
     assert_eq!(status(stop.dir.path(), "stop"), "failed");
+    // The run stopped with the attenuator in its safe state.
+    assert!(
+        stop.stderr.contains("safe state: attenuator at 95 dB"),
+        "{}",
+        stop.stderr
+    );
     let skip = Taucal::in_dir(stop.dir)
         .file("r.toml", &recipe("skip"))
         .args(["run", "r.toml", "--bench", "b.toml", "--out", "skip"])

@@ -482,19 +482,128 @@ impl Session {
     }
 
     /// Puts every instrument in its safe state; returns the failures, if any, without stopping
-    /// at the first so every instrument gets its chance.
+    /// at the first so every instrument gets its chance. Each is tried as often as the fault
+    /// policy retries a command: a receiver left exposed is worth a few seconds more.
     pub fn safe_state(&self) -> Vec<RunError> {
         let mut errs = Vec::new();
-        if let Err(e) = self.dut.safe_state() {
+        if let Err(e) = self.persistently(|s| s.dut.safe_state()) {
             errs.push(e.into());
         }
-        match self.atten.safe_state().and_then(|()| self.atten.atten_db()) {
+        match self.persistently(|s| s.atten.safe_state().and_then(|()| s.atten.atten_db())) {
             Ok(db) => tracing::info!("safe state: attenuator at {db} dB, ranging stopped"),
             Err(e) => errs.push(e.into()),
         }
-        if let Some(Err(e)) = self.chamber.as_ref().map(ChamberHandle::safe_state) {
-            errs.push(e.into());
+        if let Some(chamber) = &self.chamber {
+            if let Err(e) = self.persistently(|_| chamber.safe_state()) {
+                errs.push(e.into());
+            }
         }
         errs
+    }
+
+    /// Runs `op` until it succeeds or the policy's retries are spent, waiting as [`retrying`]
+    /// does but without heeding a stop request (this is what a stop does last).
+    ///
+    /// [`retrying`]: Session::retrying
+    fn persistently<T>(
+        &self,
+        op: impl Fn(&Self) -> Result<T, InstrumentError>,
+    ) -> Result<T, InstrumentError> {
+        let mut attempt = 0u32;
+        loop {
+            match op(self) {
+                Ok(v) => return Ok(v),
+                Err(e @ InstrumentError::Gone { .. }) => return Err(e),
+                Err(e) if attempt >= self.policy.retries => return Err(e),
+                Err(e) => {
+                    attempt += 1;
+                    let wait_ms = self.policy.backoff_ms * f64::from(1u32 << (attempt - 1).min(16));
+                    tracing::warn!("safe state: {e}; retry {attempt} in {wait_ms} ms");
+                    std::thread::sleep(self.clock.spend(BenchClock::ms_to_ps(wait_ms)));
+                }
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::data::DeviceExchange;
+    use crate::instrument::{Attenuator, BurstSpec, Owned, RangingDevice};
+    use crate::runner::ClockMode;
+    use async_trait::async_trait;
+
+    /// An attenuator whose first `failures` commands fail as a flaky link would.
+    struct Flaky {
+        failures: u32,
+        db: f64,
+    }
+
+    #[async_trait]
+    impl Attenuator for Flaky {
+        async fn identify(&mut self) -> Result<String, InstrumentError> {
+            Ok("flaky".into())
+        }
+        async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
+            if self.failures > 0 {
+                self.failures -= 1;
+                return Err(InstrumentError::Transient {
+                    role: "attenuator".into(),
+                    message: "no reply".into(),
+                });
+            }
+            self.db = db;
+            Ok(())
+        }
+        async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
+            Ok(self.db)
+        }
+        async fn safe_state(&mut self) -> Result<(), InstrumentError> {
+            self.set_atten_db(95.0).await
+        }
+    }
+
+    struct Idle;
+
+    #[async_trait]
+    impl RangingDevice for Idle {
+        async fn identify(&mut self) -> Result<String, InstrumentError> {
+            Ok("idle".into())
+        }
+        async fn burst(&mut self, _: &BurstSpec) -> Result<Vec<DeviceExchange>, InstrumentError> {
+            Ok(Vec::new())
+        }
+        async fn safe_state(&mut self) -> Result<(), InstrumentError> {
+            Ok(())
+        }
+    }
+
+    fn session(rt: &tokio::runtime::Runtime, failures: u32) -> Session {
+        let flaky = Flaky { failures, db: 10.0 };
+        Session::new(
+            Arc::new(Bench::built_in().expect("demo bench")),
+            Arc::new(BenchClock::new(ClockMode::Virtual)),
+            AttenuatorHandle(Owned::spawn(rt.handle(), "attenuator", Box::new(flaky))),
+            RangingHandle(Owned::spawn(rt.handle(), "dut", Box::new(Idle))),
+            Box::new(Vec::<Exchange>::new()),
+            "rows",
+        )
+    }
+
+    #[test]
+    fn the_safe_state_is_retried_as_the_policy_retries_commands() {
+        let rt = tokio::runtime::Builder::new_current_thread()
+            .enable_all()
+            .build()
+            .expect("runtime");
+        // The default policy retries three times: three passing faults still end safe.
+        let s = session(&rt, 3);
+        assert!(s.safe_state().is_empty());
+        assert_eq!(s.atten.atten_db(), Ok(95.0));
+        let s = session(&rt, 4);
+        let errs = s.safe_state();
+        assert_eq!(errs.len(), 1, "{errs:?}");
+        assert_eq!(s.atten.atten_db(), Ok(10.0));
     }
 }
