@@ -80,6 +80,25 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
                 "virtual"
             }
         );
+        if let Some(f) = bench.sim.as_ref().map(|s| &s.faults) {
+            if f.drop_connection_every > 0
+                || f.reply_timeout_rate > 0.0
+                || f.garbled_reply_rate > 0.0
+                || f.dut_restart_every > 0
+                || f.failed_exchange_rate > 0.0
+            {
+                eprintln!(
+                    "taucal: injecting faults (0 = never): connection dropped every {} commands, \
+                     {} of queries silent, {} of replies garbled, DUT restart every {} \
+                     exchanges, {} of exchanges failed",
+                    f.drop_connection_every,
+                    f.reply_timeout_rate,
+                    f.garbled_reply_rate,
+                    f.dut_restart_every,
+                    f.failed_exchange_rate
+                );
+            }
+        }
         wait_for_stop().await
     })?;
     eprintln!("taucal: stopped");
