@@ -77,7 +77,8 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
             println!("{}", path.display());
             if !fit.drift.is_empty() {
                 let drift = dir.join(files::DRIFT);
-                std::fs::write(&drift, crate::fit::drift::drift_csv(&fit.drift)).map_err(|e| {
+                let text = crate::fit::drift::drift_csv(&fit.drift);
+                crate::data::manifest::write_atomic(&drift, text.as_bytes()).map_err(|e| {
                     Diagnostic::plain(format!("cannot write {}: {e}", drift.display()))
                 })?;
                 println!("{}", drift.display());
