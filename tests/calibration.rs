@@ -2,7 +2,7 @@
 //! verification shows what per-gain calibration buys, and adaptive sampling spends little more
 //! than an oracle would. Benches here are not the demo's: their truths differ.
 
-use crate::support::{repo, Taucal};
+use crate::support::{csv_numbers, repo, Taucal};
 use taucal::bench::PathFacts;
 use taucal::data::{Exchange, Taken};
 use taucal::fit::{fit, Deembed, FitOptions};
@@ -32,17 +32,6 @@ clock_ppm = 23.0
 jitter_ps = 250.0
 outlier_rate = 0.05";
 
-fn csv_rows(text: &str) -> Vec<Vec<f64>> {
-    text.lines()
-        .skip(1)
-        .map(|l| {
-            l.split(',')
-                .map(|v| v.parse().unwrap_or(f64::NAN))
-                .collect()
-        })
-        .collect()
-}
-
 fn run_demo(bench: &str, seed: &str, code: i32) -> crate::support::Outcome {
     let out = Taucal::new()
         .file("bench.toml", bench)
@@ -71,7 +60,7 @@ fn the_gain_map_finds_switch_points_within_1_5_db() {
             // The demo recipe asks for three gain states; a two-state DUT misses that limit.
             let code = if thresholds.len() + 1 >= 3 { 0 } else { 1 };
             let out = run_demo(&bench_with(dut), seed, code);
-            let map = csv_rows(&out.read("r/gainmap.csv"));
+            let map = csv_numbers(&out.read("r/gainmap.csv"));
             assert_eq!(map.len(), thresholds.len() + 1, "one plateau per state");
             for (g, thr) in thresholds.iter().enumerate() {
                 // State g's weakest level and state g+1's strongest are the switch levels of
@@ -98,7 +87,7 @@ fn the_gain_map_finds_switch_points_within_1_5_db() {
 #[test]
 fn per_gain_calibration_holds_range_error_where_single_state_does_not() {
     let out = run_demo(&bench_with(FOUR_STATES), "3", 0);
-    let rows = csv_rows(&out.read("r/verify.csv"));
+    let rows = csv_numbers(&out.read("r/verify.csv"));
     assert!(rows.len() >= 15, "{} levels", rows.len());
     let table: Vec<f64> = rows.iter().map(|r| r[7].abs()).collect();
     let single: Vec<f64> = rows.iter().map(|r| r[6].abs()).collect();
@@ -210,7 +199,7 @@ fn adaptive_sampling_spends_at_most_1_3_times_the_oracle() {
             ])
             .run();
         out.expect_code(0);
-        let table = csv_rows(&out.read("f/caltable.csv"));
+        let table = csv_numbers(&out.read("f/caltable.csv"));
         assert_eq!(table.len(), 3);
         for row in &table {
             assert!(row[4] <= 50.0, "every cell reaches ±50 ps: {}", row[4]);
@@ -242,7 +231,7 @@ fn adaptive_intervals_still_cover_about_95_percent() {
             ])
             .run();
         out.expect_code(0);
-        for row in csv_rows(&out.read("f/caltable.csv")) {
+        for row in csv_numbers(&out.read("f/caltable.csv")) {
             total += 1;
             if (row[3] - truth_k[row[2] as usize]).abs() <= row[4] {
                 inside += 1;
@@ -270,7 +259,7 @@ fn an_overnight_soak_recovers_each_states_temperature_drift() {
     out.expect_code(0);
     // Truth in recipes/benches/overnight-soak.toml: drift_ps_per_c = [1.2, 1.6, 2.1].
     let truth = [1.2, 1.6, 2.1];
-    let rows = csv_rows(&out.read("soak/drift.csv"));
+    let rows = csv_numbers(&out.read("soak/drift.csv"));
     assert_eq!(rows.len(), 9, "three states on three bandwidths");
     for r in rows {
         let (gain, drift, se) = (r[2] as usize, r[3], r[4]);
@@ -324,7 +313,7 @@ frames = 16
         rows[3].starts_with("5180,80,3,") && rows[3].ends_with(",modelled"),
         "{table}"
     );
-    let modelled = csv_rows(&table)[3].clone();
+    let modelled = csv_numbers(&table)[3].clone();
     assert!(
         modelled[4].is_finite() && modelled[4] > 0.0,
         "an uncertainty: {modelled:?}"

@@ -1,7 +1,7 @@
 //! Real transports against served simulated instruments: the served-versus-in-process identity,
 //! both attenuator drivers, instrument-side errors, a pty pair, and address handling.
 
-use crate::support::{repo, root, Taucal};
+use crate::support::{assert_recorded_once, assert_tables_agree, repo, root, Taucal};
 use std::io::{BufRead, BufReader};
 use std::process::{Child, Command, Stdio};
 use std::sync::mpsc;
@@ -179,11 +179,7 @@ fn served_instruments_with_every_fault_on_complete_the_demo_without_duplicates_a
         .run();
     out.expect_code(0);
     let rows = out.read("run/exchanges.csv");
-    let mut keys = std::collections::BTreeSet::new();
-    for line in rows.lines().skip(1) {
-        let key: Vec<&str> = line.split(',').take(4).collect();
-        assert!(keys.insert(key.join(",")), "recorded twice: {line}");
-    }
+    assert_recorded_once(&rows);
     assert!(
         rows.lines().any(|l| l.ends_with(",fail")),
         "failed exchanges kept"
@@ -198,37 +194,15 @@ fn served_instruments_with_every_fault_on_complete_the_demo_without_duplicates_a
     assert!(count("dut", "retries") >= 5);
     assert!(count("attenuator", "retries") >= 1);
     // Against the fault-free run (the in-process one records the same exchanges as a
-    // fault-free served one): each gain state within the 99 % bound of the difference.
+    // fault-free served one).
     let clean = Taucal::in_dir(out.dir)
         .args(["run", &repo("recipes/rx-gain-sweep.toml"), "--out", "clean"])
         .run();
     clean.expect_code(0);
-    let table = |text: String| -> Vec<Vec<f64>> {
-        text.lines()
-            .skip(1)
-            .map(|l| {
-                l.split(',')
-                    .map(|v| v.parse().unwrap_or(f64::NAN))
-                    .collect()
-            })
-            .collect()
-    };
-    let (a, b) = (
-        table(clean.read("clean/caltable.csv")),
-        table(clean.read("run/caltable.csv")),
+    assert_tables_agree(
+        &clean.read("clean/caltable.csv"),
+        &clean.read("run/caltable.csv"),
     );
-    assert_eq!(a.len(), b.len());
-    for (x, y) in a.iter().zip(&b) {
-        // Difference of two 95 % intervals, widened to 99 % (normal quantiles 2.576 / 1.960).
-        let limit = (x[4].powi(2) + y[4].powi(2)).sqrt() * 2.576 / 1.960;
-        assert!(
-            (x[3] - y[3]).abs() <= limit,
-            "gain {}: {} vs {}",
-            x[2],
-            x[3],
-            y[3]
-        );
-    }
 }
 
 #[test]

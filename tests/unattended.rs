@@ -2,7 +2,7 @@
 //! SIGINT stops it cleanly (exit 3, status `stopped`, instruments in their safe state); resume
 //! refuses what it cannot continue honestly.
 
-use crate::support::Taucal;
+use crate::support::{assert_recorded_once, assert_tables_agree, Taucal};
 use nix::sys::signal::{kill, Signal};
 use nix::unistd::Pid;
 use std::process::{Command, Stdio};
@@ -177,17 +177,6 @@ pub(crate) fn faulty_bench() -> String {
     )
 }
 
-fn table(text: &str) -> Vec<Vec<f64>> {
-    text.lines()
-        .skip(1)
-        .map(|l| {
-            l.split(',')
-                .map(|v| v.parse().unwrap_or(f64::NAN))
-                .collect()
-        })
-        .collect()
-}
-
 #[test]
 fn with_every_fault_on_the_demo_completes_without_duplicates_and_agrees() {
     let demo = crate::support::repo("recipes/rx-gain-sweep.toml");
@@ -208,19 +197,7 @@ fn with_every_fault_on_the_demo_completes_without_duplicates_and_agrees() {
         .run();
     faulty.expect_code(0);
     let rows = faulty.read("faulty/exchanges.csv");
-    let mut keys = std::collections::BTreeSet::new();
-    for line in rows.lines().skip(1) {
-        let f: Vec<&str> = line.split(',').collect();
-        assert!(
-            keys.insert((
-                f[0].to_string(),
-                f[1].to_string(),
-                f[2].to_string(),
-                f[3].to_string()
-            )),
-            "twice: {line}"
-        );
-    }
+    assert_recorded_once(&rows);
     assert!(
         rows.lines().any(|l| l.ends_with(",fail")),
         "failed exchanges are recorded"
@@ -233,22 +210,10 @@ fn with_every_fault_on_the_demo_completes_without_duplicates_and_agrees() {
             .unwrap_or(0)
             >= 1
     );
-    let (a, b) = (
-        table(&faulty.read("clean/caltable.csv")),
-        table(&faulty.read("faulty/caltable.csv")),
+    assert_tables_agree(
+        &faulty.read("clean/caltable.csv"),
+        &faulty.read("faulty/caltable.csv"),
     );
-    assert_eq!(a.len(), b.len());
-    for (x, y) in a.iter().zip(&b) {
-        // Difference of two 95 % intervals, widened to 99 % (2.576 / 1.960).
-        let limit = (x[4].powi(2) + y[4].powi(2)).sqrt() * 2.576 / 1.960;
-        assert!(
-            (x[3] - y[3]).abs() <= limit,
-            "gain {}: {} vs {}",
-            x[2],
-            x[3],
-            y[3]
-        );
-    }
 }
 
 #[test]

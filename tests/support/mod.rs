@@ -103,3 +103,42 @@ impl Outcome {
         Path::is_dir(&self.path(rel))
     }
 }
+
+/// A CSV file's data rows as numbers (a field that is not one reads as NaN).
+pub fn csv_numbers(text: &str) -> Vec<Vec<f64>> {
+    text.lines()
+        .skip(1)
+        .map(|l| {
+            l.split(',')
+                .map(|v| v.parse().unwrap_or(f64::NAN))
+                .collect()
+        })
+        .collect()
+}
+
+/// Panics if `exchanges.csv` holds any exchange (stage, point, burst, seq) twice.
+pub fn assert_recorded_once(exchanges: &str) {
+    let mut keys = std::collections::BTreeSet::new();
+    for line in exchanges.lines().skip(1) {
+        let key: Vec<&str> = line.split(',').take(4).collect();
+        assert!(keys.insert(key.join(",")), "recorded twice: {line}");
+    }
+}
+
+/// Panics unless two calibration tables have the same rows and each delay agrees within the
+/// 99 % bound of the difference of two independent estimates: the root sum of squares of the
+/// 95 % half-widths, widened by the normal quantiles 2.576 / 1.960.
+pub fn assert_tables_agree(a: &str, b: &str) {
+    let (a, b) = (csv_numbers(a), csv_numbers(b));
+    assert_eq!(a.len(), b.len());
+    for (x, y) in a.iter().zip(&b) {
+        let limit = (x[4].powi(2) + y[4].powi(2)).sqrt() * 2.576 / 1.960;
+        assert!(
+            (x[3] - y[3]).abs() <= limit,
+            "gain {}: {} vs {} (limit {limit})",
+            x[2],
+            x[3],
+            y[3]
+        );
+    }
+}
