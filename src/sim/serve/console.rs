@@ -3,14 +3,14 @@
 //! parsing are pure functions; [`serve`] moves lines over any byte stream (TCP or a pty) and
 //! applies `[sim.faults]` on the wire. A restart prints the banner again in place of the burst.
 
-use super::Medium;
+use super::{CommandReader, Medium};
 use crate::data::DeviceExchange;
 use crate::instrument::InstrumentError;
 use crate::sim::faults::{garble, CommandFault};
 use crate::sim::front::SimShared;
 use crate::sim::BurstRequest;
 use std::fmt::Write as _;
-use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
+use tokio::io::{AsyncRead, AsyncWrite, AsyncWriteExt};
 
 /// Lines the console prints when it starts: unsolicited, before any command.
 pub const BANNER: [&str; 3] = [
@@ -145,21 +145,8 @@ pub async fn serve<S: AsyncRead + AsyncWrite + Unpin>(
         stream.write_all(format!("{line}\r\n").as_bytes()).await?;
     }
     stream.flush().await?;
-    let mut framer = crate::instrument::line::LineFramer::new();
-    let mut buf = [0u8; 1024];
-    loop {
-        let line = loop {
-            match framer.next_line() {
-                Ok(Some(line)) => break line,
-                Ok(None) => {}
-                Err(_) => framer.clear(),
-            }
-            let n = stream.read(&mut buf).await?;
-            if n == 0 {
-                return Ok(());
-            }
-            framer.push(&buf[..n]);
-        };
+    let mut commands = CommandReader::default();
+    while let Some(line) = commands.next(&mut stream).await? {
         if line.trim().is_empty() {
             continue;
         }
@@ -192,6 +179,7 @@ pub async fn serve<S: AsyncRead + AsyncWrite + Unpin>(
         }
         stream.flush().await?;
     }
+    Ok(())
 }
 
 #[cfg(test)]

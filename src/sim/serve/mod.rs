@@ -26,7 +26,7 @@ use crate::sim::SimBench;
 use scpi_attenuator::ScpiAttenuator;
 use std::net::{IpAddr, SocketAddr};
 use std::sync::{Arc, Mutex};
-use tokio::io::{AsyncReadExt, AsyncWriteExt};
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWriteExt};
 use tokio::net::{TcpListener, TcpStream};
 
 /// The instruments a simulated bench can serve.
@@ -209,21 +209,8 @@ impl ServedBench {
     }
 
     async fn serve_scpi(&self, mut stream: TcpStream) -> std::io::Result<()> {
-        let mut framer = LineFramer::new();
-        let mut buf = [0u8; 1024];
-        loop {
-            let message = loop {
-                match framer.next_line() {
-                    Ok(Some(line)) => break line,
-                    Ok(None) => {}
-                    Err(_) => framer.clear(),
-                }
-                let n = stream.read(&mut buf).await?;
-                if n == 0 {
-                    return Ok(());
-                }
-                framer.push(&buf[..n]);
-            };
+        let mut commands = CommandReader::default();
+        while let Some(message) = commands.next(&mut stream).await? {
             // A query that falls silent is not carried out; a setting has no reply to withhold.
             let fault = self.shared.command_fault("attenuator").ok().flatten();
             match fault {
@@ -244,6 +231,36 @@ impl ServedBench {
             if !response.is_empty() {
                 stream.write_all(&response).await?;
             }
+        }
+        Ok(())
+    }
+}
+
+/// Reads a served instrument's commands, a line at a time, as an instrument does: a line that
+/// is not text is dropped, and the client closing the connection ends the commands.
+#[derive(Default)]
+pub struct CommandReader {
+    framer: LineFramer,
+}
+
+impl CommandReader {
+    /// The next command line; `None` once the client has closed the connection.
+    pub async fn next<S: AsyncRead + Unpin>(
+        &mut self,
+        stream: &mut S,
+    ) -> std::io::Result<Option<String>> {
+        let mut buf = [0u8; 1024];
+        loop {
+            match self.framer.next_line() {
+                Ok(Some(line)) => return Ok(Some(line)),
+                Ok(None) => {}
+                Err(_) => self.framer.clear(),
+            }
+            let n = stream.read(&mut buf).await?;
+            if n == 0 {
+                return Ok(None);
+            }
+            self.framer.push(&buf[..n]);
         }
     }
 }
