@@ -4,7 +4,7 @@
 //! Bench time comes from the reference's departure counter, unwrapped; spans longer than the
 //! counter's 281 s wrap between two exchanges fold, so long pauses look shorter than they were.
 
-use super::svg::{self, FONT, GRID, INK};
+use super::svg;
 use super::{BurstPoint, ReportData, ReportError};
 use plotters::prelude::*;
 
@@ -30,21 +30,9 @@ pub fn drift_svg(data: &ReportData) -> Result<Option<String>, ReportError> {
         return Ok(None);
     };
     svg::render("drift", |root| {
-        let mut chart = ChartBuilder::on(root)
-            .margin(16)
-            .x_label_area_size(44)
-            .y_label_area_size(72)
-            .build_cartesian_2d(x0..x1, y0..y1)?;
-        chart
-            .configure_mesh()
-            .light_line_style(TRANSPARENT)
-            .bold_line_style(GRID)
-            .axis_style(INK)
-            .x_desc(x_desc)
-            .y_desc("burst median K (ps)")
+        let mut chart = svg::chart(root, x0..x1, y0..y1)?;
+        svg::mesh(&mut chart, x_desc, "burst median K (ps)")
             .y_label_formatter(&|y| format!("{y:.0}"))
-            .label_style((FONT, 13, &INK))
-            .axis_desc_style((FONT, 14, &INK))
             .draw()?;
         chart.draw_series(pts.iter().map(|p| {
             let c = svg::state_colour(p.gain_index);
@@ -76,21 +64,8 @@ pub fn temperature_svg(data: &ReportData) -> Result<Option<String>, ReportError>
         return Ok(None);
     };
     svg::render("temperature", |root| {
-        let mut chart = ChartBuilder::on(root)
-            .margin(16)
-            .x_label_area_size(44)
-            .y_label_area_size(72)
-            .build_cartesian_2d(x0..x1, y0..y1)?;
-        chart
-            .configure_mesh()
-            .light_line_style(TRANSPARENT)
-            .bold_line_style(GRID)
-            .axis_style(INK)
-            .x_desc(x_desc)
-            .y_desc("temperature (°C)")
-            .label_style((FONT, 13, &INK))
-            .axis_desc_style((FONT, 14, &INK))
-            .draw()?;
+        let mut chart = svg::chart(root, x0..x1, y0..y1)?;
+        svg::mesh(&mut chart, x_desc, "temperature (°C)").draw()?;
         chart.draw_series(LineSeries::new(
             pts.iter().map(|(t, c)| (t / scale, *c)),
             svg::state_colour(4).stroke_width(2),

@@ -1,7 +1,7 @@
 //! The gain map: which gain state the DUT reported at each receive level over the whole run, and
 //! each state's plateau from `gainmap.csv` where the run mapped one.
 
-use super::svg::{self, FONT, GRID, INK};
+use super::svg;
 use super::{ReportData, ReportError};
 use plotters::prelude::*;
 
@@ -25,22 +25,10 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
         .max()
         .unwrap_or(0);
     svg::render("gain map", |root| {
-        let mut chart = ChartBuilder::on(root)
-            .margin(16)
-            .x_label_area_size(44)
-            .y_label_area_size(72)
-            .build_cartesian_2d(x0..x1, -0.5..f64::from(max_gain) + 0.5)?;
-        chart
-            .configure_mesh()
-            .light_line_style(TRANSPARENT)
-            .bold_line_style(GRID)
-            .axis_style(INK)
+        let mut chart = svg::chart(root, x0..x1, -0.5..f64::from(max_gain) + 0.5)?;
+        svg::mesh(&mut chart, "DUT receive level (dBm)", "reported gain state")
             .y_labels(max_gain as usize + 2)
             .y_label_formatter(&svg::whole)
-            .x_desc("DUT receive level (dBm)")
-            .y_desc("reported gain state")
-            .label_style((FONT, 13, &INK))
-            .axis_desc_style((FONT, 14, &INK))
             .draw()?;
         chart.draw_series(data.gainmap.iter().map(|g| {
             let y = f64::from(g.gain_index);

@@ -27,23 +27,11 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
         return Ok(None);
     };
     svg::render("K per gain state", |root| {
-        let mut chart = ChartBuilder::on(root)
-            .margin(16)
-            .x_label_area_size(44)
-            .y_label_area_size(72)
-            .build_cartesian_2d(-0.5..f64::from(max_gain) + 0.5, y0..y1)?;
-        chart
-            .configure_mesh()
-            .light_line_style(TRANSPARENT)
-            .bold_line_style(GRID)
-            .axis_style(INK)
+        let mut chart = svg::chart(root, -0.5..f64::from(max_gain) + 0.5, y0..y1)?;
+        svg::mesh(&mut chart, "DUT gain state", "K = TX + RX delay (ps)")
             .x_labels(max_gain as usize + 2)
             .x_label_formatter(&svg::whole)
-            .x_desc("DUT gain state")
-            .y_desc("K = TX + RX delay (ps)")
             .y_label_formatter(&|y| format!("{y:.0}"))
-            .label_style((FONT, 13, &INK))
-            .axis_desc_style((FONT, 14, &INK))
             .draw()?;
         let width = channels.len() as f64;
         for (ci, ch) in channels.iter().enumerate() {

@@ -26,21 +26,13 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
     };
     let channels: BTreeSet<(u32, u32)> = rows.iter().map(|r| (r.center_mhz, r.bw_mhz)).collect();
     svg::render("range error", |root| {
-        let mut chart = ChartBuilder::on(root)
-            .margin(16)
-            .x_label_area_size(44)
-            .y_label_area_size(72)
-            .build_cartesian_2d(x0..x1, y0..y1)?;
-        chart
-            .configure_mesh()
-            .light_line_style(TRANSPARENT)
-            .bold_line_style(GRID)
-            .axis_style(INK)
-            .x_desc("DUT receive level (dBm)")
-            .y_desc("median range error (m)")
-            .label_style((FONT, 13, &INK))
-            .axis_desc_style((FONT, 14, &INK))
-            .draw()?;
+        let mut chart = svg::chart(root, x0..x1, y0..y1)?;
+        svg::mesh(
+            &mut chart,
+            "DUT receive level (dBm)",
+            "median range error (m)",
+        )
+        .draw()?;
         chart.draw_series(LineSeries::new([(x0, 0.0), (x1, 0.0)], INK.mix(0.5)))?;
         for ch in &channels {
             let mut mine: Vec<_> = rows

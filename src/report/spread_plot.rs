@@ -4,7 +4,7 @@
 //! median, whiskers reach the furthest exchange within 1.5 interquartile ranges, and exchanges
 //! beyond are drawn one by one — late detections show there.
 
-use super::svg::{self, FONT, GRID, INK};
+use super::svg;
 use super::{CellSpread, ReportData, ReportError};
 use plotters::prelude::*;
 
@@ -87,11 +87,7 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
         .collect();
     let n = boxes.len();
     svg::render("cell spread", |root| {
-        let mut chart = ChartBuilder::on(root)
-            .margin(16)
-            .x_label_area_size(44)
-            .y_label_area_size(72)
-            .build_cartesian_2d(-0.5..n as f64 - 0.5, y0..y1)?;
+        let mut chart = svg::chart(root, -0.5..n as f64 - 0.5, y0..y1)?;
         let label = |x: &f64| {
             let i = x.round();
             if (x - i).abs() < 1e-6 && i >= 0.0 {
@@ -100,18 +96,10 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
                 String::new()
             }
         };
-        chart
-            .configure_mesh()
-            .light_line_style(TRANSPARENT)
-            .bold_line_style(GRID)
-            .axis_style(INK)
+        svg::mesh(&mut chart, "table cell", "K of each exchange (ps)")
             .x_labels(n + 1)
             .x_label_formatter(&label)
-            .x_desc("table cell")
-            .y_desc("K of each exchange (ps)")
             .y_label_formatter(&|y| format!("{y:.0}"))
-            .label_style((FONT, 13, &INK))
-            .axis_desc_style((FONT, 14, &INK))
             .draw()?;
         for (i, (cell, b)) in boxes.iter().enumerate() {
             let x = i as f64;

@@ -4,8 +4,11 @@
 //! generic font family, so no font file is read or embedded and nothing is rasterised.
 
 use super::ReportError;
+use plotters::chart::MeshStyle;
+use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
+use std::ops::Range;
 
 /// Plot width, px.
 pub const WIDTH: u32 = 760;
@@ -53,6 +56,41 @@ pub fn render<E: std::fmt::Display>(
         root.present().map_err(|e| err(&e))?;
     }
     Ok(out)
+}
+
+/// A plot's chart: linear axes on the SVG drawing area.
+pub type Chart<'a, 'b> =
+    ChartContext<'a, SVGBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
+
+/// The chart every plot draws on: the shared margins and label areas around `x` by `y`.
+pub fn chart<'a, 'b>(
+    root: &'a DrawingArea<SVGBackend<'b>, Shift>,
+    x: Range<f64>,
+    y: Range<f64>,
+) -> Result<Chart<'a, 'b>, DrawingAreaErrorKind<std::io::Error>> {
+    ChartBuilder::on(root)
+        .margin(16)
+        .x_label_area_size(44)
+        .y_label_area_size(72)
+        .build_cartesian_2d(x, y)
+}
+
+/// The shared grid, axes and fonts with the axes' descriptions; the caller adds label
+/// settings and draws it.
+pub fn mesh<'a, 'c, 'b>(
+    chart: &'c mut Chart<'a, 'b>,
+    x_desc: &str,
+    y_desc: &str,
+) -> MeshStyle<'a, 'c, RangedCoordf64, RangedCoordf64, SVGBackend<'b>> {
+    let mut mesh = chart.configure_mesh();
+    mesh.light_line_style(TRANSPARENT)
+        .bold_line_style(GRID)
+        .axis_style(INK)
+        .x_desc(x_desc)
+        .y_desc(y_desc)
+        .label_style((FONT, 13, &INK))
+        .axis_desc_style((FONT, 14, &INK));
+    mesh
 }
 
 /// The range of `values` widened by `pad` of its span on each side (and never empty).
