@@ -305,6 +305,16 @@ fn refused_with_bench(bench: &str, location: &str, words: &str) {
 }
 
 #[test]
+fn bench_with_a_timeout_on_a_simulated_role() {
+    bench_refused(
+        "dut = { driver = \"sim-ranging\", address = \"sim:\" }",
+        "dut = { driver = \"sim-ranging\", address = \"sim:\", timeout_ms = 100.0 }",
+        "b.toml:13:",
+        "`roles.dut.timeout_ms` applies to an instrument reached over a link",
+    );
+}
+
+#[test]
 fn bench_with_an_unknown_role() {
     bench_refused(
         "reference = { driver",

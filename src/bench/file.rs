@@ -405,6 +405,13 @@ impl Bench {
                 }
             }
             if binding.address.starts_with("sim:") {
+                if binding.timeout_ms.is_some() {
+                    return Err(KeyError::new(
+                        format!("roles.{role}.timeout_ms"),
+                        "applies to an instrument reached over a link, not to `sim:`",
+                        "leave it out, or give the role a driver file and an address",
+                    ));
+                }
                 let expected = SIM_DRIVERS
                     .iter()
                     .find(|(r, _)| r == role)
