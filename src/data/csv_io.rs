@@ -4,6 +4,8 @@
 //! files run to millions of rows, so it reads by column position into a reused row instead of
 //! deserializing a fresh row per line.
 
+use super::plain_line::LineParser;
+use super::record_split::{Record, Split, Splitter, BLOCK};
 use super::Exchange;
 use std::fs::File;
 use std::io::{self, BufWriter, Read};
@@ -123,197 +125,101 @@ pub enum ReadError {
     },
 }
 
-/// Records the splitting thread hands over at a time.
-const BATCH_RECORDS: usize = 4096;
+/// Rows the reading thread hands over at a time.
+const BATCH_ROWS: usize = 1024;
 
-/// Full batches waiting for the caller: bounds what the splitting thread may run ahead (a few
-/// MB at most), so memory never follows the file's size.
+/// Full batches waiting for the caller: bounds what the reading thread may run ahead (well under
+/// a megabyte), so memory never follows the file's size.
 const BATCHES_AHEAD: usize = 2;
 
 /// Streams the rows of an exchanges file, checking the header first.
 ///
-/// A file is split into records on a thread of its own while the caller parses fields and fits:
-/// on two cores the fit then costs about what splitting the file alone costs.
+/// The file is read, split and parsed on a thread of its own while the caller fits: on two
+/// cores the fit then costs about what reading the file alone costs.
 pub fn read_exchanges(path: &Path) -> Result<ExchangeRows<File>, ReadError> {
     let name = path.display().to_string();
     let file = File::open(path).map_err(|source| ReadError::Io {
         path: name.clone(),
         source,
     })?;
-    let (rdr, columns) = open_csv(file, &name)?;
+    let rows = RowReader::new(file, name.clone(), BLOCK)?;
     let (full_tx, full) = mpsc::sync_channel(BATCHES_AHEAD);
     let (recycle, recycle_rx) = mpsc::channel();
     std::thread::Builder::new()
-        .name("exchanges-split".into())
-        .spawn(move || split_records(rdr, &full_tx, &recycle_rx))
-        .map_err(|source| ReadError::Io {
-            path: name.clone(),
-            source,
-        })?;
+        .name("exchanges-read".into())
+        .spawn(move || read_batches(rows, &full_tx, &recycle_rx))
+        .map_err(|source| ReadError::Io { path: name, source })?;
     Ok(ExchangeRows {
-        source: Source::Split(Batches {
+        source: Source::Thread(Batches {
             full,
             recycle,
             current: Batch::default(),
             next: 0,
         }),
-        columns,
-        name,
     })
 }
 
-/// Streams rows from any reader (`name` labels errors), splitting on the calling thread.
+/// Streams rows from any reader (`name` labels errors), reading on the calling thread.
 pub fn read_from<R: Read>(reader: R, name: String) -> Result<ExchangeRows<R>, ReadError> {
-    let (rdr, columns) = open_csv(reader, &name)?;
     Ok(ExchangeRows {
-        source: Source::Here(rdr, csv::ByteRecord::new()),
-        columns,
-        name,
+        source: Source::Here(RowReader::new(reader, name, BLOCK)?),
     })
 }
 
-/// A csv reader past the header, and the position of each contract column in its records.
-fn open_csv<R: Read>(
-    reader: R,
-    name: &str,
-) -> Result<(csv::Reader<R>, [usize; EXCHANGES_HEADER.len()]), ReadError> {
-    // The csv crate's default 8 KiB buffer on purpose: it stays in cache between the kernel's
-    // copy and the splitter's pass. 256 KiB made the fit ~30% slower (perf: the copy doubled).
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(true)
-        .from_reader(reader);
-    let headers = rdr.byte_headers().map_err(|e| ReadError::Row {
-        path: name.to_string(),
-        line: 1,
-        message: e.to_string(),
-    })?;
-    let mut columns = [0usize; EXCHANGES_HEADER.len()];
-    for (slot, wanted) in columns.iter_mut().zip(EXCHANGES_HEADER) {
-        *slot = headers
-            .iter()
-            .position(|h| h == wanted.as_bytes())
-            .ok_or_else(|| ReadError::MissingColumn {
-                path: name.to_string(),
-                column: wanted.to_string(),
-            })?;
-    }
-    Ok((rdr, columns))
-}
-
-/// Records split by the splitting thread: `records[..filled]` are rows, then `error` if
-/// splitting failed there (the thread stops after an error or the end of the file).
-#[derive(Default)]
-struct Batch {
-    records: Vec<csv::ByteRecord>,
-    filled: usize,
-    error: Option<csv::Error>,
-}
-
-/// The splitting thread: fills batches (reusing the ones the caller has finished with) until
-/// the file ends, splitting fails, or the caller hangs up.
-fn split_records<R: Read>(
-    mut rdr: csv::Reader<R>,
-    full: &mpsc::SyncSender<Batch>,
-    recycle: &mpsc::Receiver<Vec<csv::ByteRecord>>,
-) {
-    loop {
-        let mut records = recycle
-            .try_recv()
-            .unwrap_or_else(|_| vec![csv::ByteRecord::new(); BATCH_RECORDS]);
-        let mut filled = 0;
-        let mut error = None;
-        while filled < records.len() {
-            match rdr.read_byte_record(&mut records[filled]) {
-                Ok(true) => filled += 1,
-                Ok(false) => break,
-                Err(e) => {
-                    error = Some(e);
-                    break;
-                }
-            }
-        }
-        let last = filled < records.len();
-        let batch = Batch {
-            records,
-            filled,
-            error,
-        };
-        if full.send(batch).is_err() || last {
-            return;
-        }
-    }
-}
-
-/// The caller's end of the splitting thread.
-struct Batches {
-    full: mpsc::Receiver<Batch>,
-    recycle: mpsc::Sender<Vec<csv::ByteRecord>>,
-    current: Batch,
-    next: usize,
-}
-
-impl Batches {
-    /// Index in `current` of the next record; `None` at the end. Splitting errors come in order.
-    fn advance(&mut self) -> Result<Option<usize>, csv::Error> {
-        while self.next >= self.current.filled {
-            if let Some(e) = self.current.error.take() {
-                return Err(e);
-            }
-            let Ok(batch) = self.full.recv() else {
-                return Ok(None);
-            };
-            let done = std::mem::replace(&mut self.current, batch);
-            // The thread may have finished; then the batch is simply dropped.
-            let _ = self.recycle.send(done.records);
-            self.next = 0;
-        }
-        self.next += 1;
-        Ok(Some(self.next - 1))
-    }
-}
-
-/// Where records come from.
-enum Source<R> {
-    /// Split on the calling thread, into one reused record.
-    Here(csv::Reader<R>, csv::ByteRecord),
-    /// Split on the splitting thread.
-    Split(Batches),
-}
-
-/// The rows of an exchanges file, read one at a time into a reused record.
+/// Splits records and parses their contract columns, on the thread that calls it.
 ///
 /// Fields are found by the header's column positions (looked up once) and parsed straight from
-/// bytes, so a row costs no allocation when read with [`read_into`](ExchangeRows::read_into):
-/// at millions of rows per fit, per-row `String`s and serde's name matching were most of the
-/// time. Values parse as serde's csv reader parses them (decimal or `0x` integers, Rust float
-/// syntax, empty cell = none), so both readings of a file agree to the bit.
-pub struct ExchangeRows<R> {
-    source: Source<R>,
+/// bytes, so a row costs no allocation: at millions of rows per fit, per-row `String`s and
+/// serde's name matching were most of the time. Values parse as serde's csv reader parses them
+/// (decimal or `0x` integers, Rust float syntax, empty cell = none), so both readings of a file
+/// agree to the bit.
+struct RowReader<R> {
+    split: Splitter<R>,
+    /// Reads plain lines whole, as they are split.
+    plain: LineParser,
     /// Position in the record of each contract column, in `EXCHANGES_HEADER` order.
     columns: [usize; EXCHANGES_HEADER.len()],
     name: String,
 }
 
-/// Why one field did not parse: the contract column index and what was wrong.
-struct FieldError(usize, String);
-
-impl<R: Read> ExchangeRows<R> {
-    /// Reads the next row into `row`, reusing its strings; `Ok(false)` at the end of the file.
-    pub fn read_into(&mut self, row: &mut Exchange) -> Result<bool, ReadError> {
-        let record = match &mut self.source {
-            Source::Here(rdr, record) => match rdr.read_byte_record(record) {
-                Ok(true) => Ok(Some(&*record)),
-                Ok(false) => Ok(None),
-                Err(e) => Err(e),
-            },
-            Source::Split(batches) => match batches.advance() {
-                Ok(Some(i)) => Ok(Some(&batches.current.records[i])),
-                Ok(None) => Ok(None),
-                Err(e) => Err(e),
-            },
+impl<R: Read> RowReader<R> {
+    /// Reads the header and finds the contract columns in it; `block` is the read size.
+    fn new(reader: R, name: String, block: usize) -> Result<Self, ReadError> {
+        let header_error = |e: csv::Error| ReadError::Row {
+            path: name.clone(),
+            line: 1,
+            message: e.to_string(),
         };
-        let record = match record {
-            Ok(Some(record)) => record,
+        let mut split = Splitter::new(reader, block).map_err(header_error)?;
+        let headers = split.header().map_err(header_error)?;
+        let mut columns = [0usize; EXCHANGES_HEADER.len()];
+        for (slot, wanted) in columns.iter_mut().zip(EXCHANGES_HEADER) {
+            *slot = headers
+                .iter()
+                .position(|h| h == wanted.as_bytes())
+                .ok_or_else(|| ReadError::MissingColumn {
+                    path: name.clone(),
+                    column: wanted.to_string(),
+                })?;
+        }
+        let plain = LineParser::new(&columns, headers.len());
+        Ok(RowReader {
+            split,
+            plain,
+            columns,
+            name,
+        })
+    }
+
+    /// Reads the next row into `row`, reusing its strings; `Ok(false)` at the end of the file.
+    fn read_into(&mut self, row: &mut Exchange) -> Result<bool, ReadError> {
+        let plain = &mut self.plain;
+        let record = match self
+            .split
+            .next_split(|bytes, from| plain.parse(bytes, from, row))
+        {
+            Ok(Some(Split::Parsed)) => return Ok(true),
+            Ok(Some(Split::Record(record))) => record,
             Ok(None) => return Ok(false),
             Err(e) => {
                 return Err(ReadError::Row {
@@ -323,25 +229,130 @@ impl<R: Read> ExchangeRows<R> {
                 })
             }
         };
-        fill(record, &self.columns, row)
+        fill(&record, &self.columns, row)
             .map(|()| true)
             .map_err(|FieldError(i, message)| ReadError::Row {
                 path: self.name.clone(),
-                line: record.position().map_or(0, |p| p.line()),
+                line: record.line(),
                 message: format!("column {}: {message}", self.columns[i] + 1),
             })
     }
 }
 
+/// Rows parsed by the reading thread: `rows[..filled]`, then `error` if reading failed there
+/// (the thread stops after an error or the end of the file).
+#[derive(Default)]
+struct Batch {
+    rows: Vec<Exchange>,
+    filled: usize,
+    error: Option<ReadError>,
+}
+
+/// The reading thread: fills batches (reusing the ones the caller has finished with) until the
+/// file ends, a row fails, or the caller hangs up.
+fn read_batches<R: Read>(
+    mut reader: RowReader<R>,
+    full: &mpsc::SyncSender<Batch>,
+    recycle: &mpsc::Receiver<Vec<Exchange>>,
+) {
+    loop {
+        let mut rows = recycle
+            .try_recv()
+            .unwrap_or_else(|_| vec![Exchange::default(); BATCH_ROWS]);
+        let mut filled = 0;
+        let mut error = None;
+        while filled < rows.len() {
+            match reader.read_into(&mut rows[filled]) {
+                Ok(true) => filled += 1,
+                Ok(false) => break,
+                Err(e) => {
+                    error = Some(e);
+                    break;
+                }
+            }
+        }
+        let last = filled < rows.len();
+        let batch = Batch {
+            rows,
+            filled,
+            error,
+        };
+        if full.send(batch).is_err() || last {
+            return;
+        }
+    }
+}
+
+/// The caller's end of the reading thread.
+struct Batches {
+    full: mpsc::Receiver<Batch>,
+    recycle: mpsc::Sender<Vec<Exchange>>,
+    current: Batch,
+    next: usize,
+}
+
+impl Batches {
+    /// Index in `current` of the next row; `None` at the end. Errors come in order.
+    fn advance(&mut self) -> Result<Option<usize>, ReadError> {
+        while self.next >= self.current.filled {
+            if let Some(e) = self.current.error.take() {
+                return Err(e);
+            }
+            let Ok(batch) = self.full.recv() else {
+                return Ok(None);
+            };
+            let done = std::mem::replace(&mut self.current, batch);
+            // The thread may have finished; then the batch is simply dropped.
+            let _ = self.recycle.send(done.rows);
+            self.next = 0;
+        }
+        self.next += 1;
+        Ok(Some(self.next - 1))
+    }
+}
+
+/// Where rows come from.
+enum Source<R> {
+    /// Read on the calling thread.
+    Here(RowReader<R>),
+    /// Read on the reading thread.
+    Thread(Batches),
+}
+
+/// The rows of an exchanges file, read one at a time into a reused row.
+pub struct ExchangeRows<R> {
+    source: Source<R>,
+}
+
+/// Why one field did not parse: the contract column index and what was wrong.
+struct FieldError(usize, String);
+
+impl<R: Read> ExchangeRows<R> {
+    /// Reads the next row into `row`; `Ok(false)` at the end of the file. No allocation per
+    /// row: `row`'s strings are reused, or traded for the reading thread's, which reuses them.
+    pub fn read_into(&mut self, row: &mut Exchange) -> Result<bool, ReadError> {
+        match &mut self.source {
+            Source::Here(reader) => reader.read_into(row),
+            Source::Thread(batches) => match batches.advance()? {
+                Some(i) => {
+                    std::mem::swap(row, &mut batches.current.rows[i]);
+                    Ok(true)
+                }
+                None => Ok(false),
+            },
+        }
+    }
+}
+
 /// Parses the contract columns of `record` into `row`.
 fn fill(
-    record: &csv::ByteRecord,
+    record: &Record<'_>,
     columns: &[usize; EXCHANGES_HEADER.len()],
     row: &mut Exchange,
 ) -> Result<(), FieldError> {
     let f = |i: usize| Field {
         index: i,
-        bytes: record.get(columns[i]).unwrap_or_default(),
+        bytes: record.field(columns[i]),
     };
     f(0).text_into(&mut row.stage)?;
     row.point = f(1).uint::<u32>()?;
@@ -460,20 +471,28 @@ fn decimal(bytes: &[u8]) -> Option<u64> {
 }
 
 /// The value of eight ASCII digits (first digit most significant), or `None` if one is not a
-/// digit. Loaded little-endian, byte `i` holds digit `i`; three multiply-and-shift steps combine
-/// neighbours into pairs, fours and the eight (each lane stays below its width, so no carries).
+/// digit.
 fn eight_digits(chunk: [u8; 8]) -> Option<u64> {
     const HIGH: u64 = 0xF0F0_F0F0_F0F0_F0F0;
-    const ZEROS: u64 = 0x3030_3030_3030_3030;
     let v = u64::from_le_bytes(chunk);
     // A digit's high nibble is 3, and adding 6 to it does not carry into that nibble.
     if v & HIGH != ZEROS || v.wrapping_add(0x0606_0606_0606_0606) & HIGH != ZEROS {
         return None;
     }
-    let v = v - ZEROS;
+    Some(digits_value(v))
+}
+
+/// `0` in every byte of a word.
+pub(crate) const ZEROS: u64 = 0x3030_3030_3030_3030;
+
+/// The value of a word of eight ASCII digits, loaded little-endian (byte `i` holds digit `i`,
+/// the first most significant): three multiply-and-shift steps combine neighbours into pairs,
+/// fours and the eight (each lane stays below its width, so no carries).
+pub(crate) fn digits_value(word: u64) -> u64 {
+    let v = word - ZEROS;
     let v = (v * 10 + (v >> 8)) & 0x00FF_00FF_00FF_00FF;
     let v = (v * 100 + (v >> 16)) & 0x0000_FFFF_0000_FFFF;
-    Some((v * 10_000 + (v >> 32)) & 0xFFFF_FFFF)
+    (v * 10_000 + (v >> 32)) & 0xFFFF_FFFF
 }
 
 /// Exact powers of ten up to 10^15 (every one is an f64 without rounding).
@@ -487,30 +506,46 @@ const POWERS_OF_TEN: [f64; 16] = [
 /// correctly rounded: the same bits `str::parse` gives (Clinger's fast path), without its
 /// general machinery.
 fn short_decimal(bytes: &[u8]) -> Option<f64> {
-    let (negative, rest) = match bytes.split_first() {
-        Some((b'-', rest)) => (true, rest),
-        _ => (false, bytes),
-    };
-    let (whole, fraction) = match rest.iter().position(|&b| b == b'.') {
-        Some(dot) => (&rest[..dot], &rest[dot + 1..]),
-        None => (rest, &rest[..0]),
-    };
-    if whole.is_empty()
-        || whole.len() + fraction.len() > 15
-        || (fraction.is_empty() && whole.len() < rest.len())
-    {
-        return None;
-    }
+    short_decimal_prefix(bytes).and_then(|(value, len)| (len == bytes.len()).then_some(value))
+}
+
+/// The longest start of `bytes` spelt `[-]digits[.digits]`, as [`short_decimal`] reads it,
+/// and its length; `None` if there is none or it has more than 15 digits.
+pub(crate) fn short_decimal_prefix(bytes: &[u8]) -> Option<(f64, usize)> {
+    let negative = bytes.first() == Some(&b'-');
+    let mut at = usize::from(negative);
     let mut mantissa = 0u64;
-    for &b in whole.iter().chain(fraction) {
-        let digit = b.wrapping_sub(b'0');
-        if digit > 9 {
+    // Sixteen digits at most in all, so the mantissa cannot overflow and "more than 15" shows.
+    let whole = append_digits(&bytes[at..], 16, &mut mantissa);
+    at += whole;
+    let mut fraction = 0;
+    if bytes.get(at) == Some(&b'.') {
+        fraction = append_digits(&bytes[at + 1..], 16 - whole, &mut mantissa);
+        if fraction == 0 {
             return None;
         }
-        mantissa = mantissa * 10 + u64::from(digit);
+        at += 1 + fraction;
     }
-    let value = mantissa as f64 / POWERS_OF_TEN[fraction.len()];
-    Some(if negative { -value } else { value })
+    if whole == 0 || whole + fraction > 15 {
+        return None;
+    }
+    let value = mantissa as f64 / POWERS_OF_TEN[fraction];
+    Some((if negative { -value } else { value }, at))
+}
+
+/// Appends the decimal digits at the start of `bytes`, `most` at most, to `mantissa`; returns
+/// how many there were.
+fn append_digits(bytes: &[u8], most: usize, mantissa: &mut u64) -> usize {
+    let mut count = 0;
+    for &b in bytes.iter().take(most) {
+        let digit = b.wrapping_sub(b'0');
+        if digit > 9 {
+            break;
+        }
+        *mantissa = *mantissa * 10 + u64::from(digit);
+        count += 1;
+    }
+    count
 }
 
 /// Hexadecimal parsing for the integer widths the contract uses.

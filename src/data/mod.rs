@@ -3,6 +3,8 @@
 pub mod csv_io;
 pub mod exchange;
 pub mod manifest;
+mod plain_line;
+mod record_split;
 pub mod run_dir;
 
 pub use csv_io::{read_exchanges, ExchangeWriter, ReadError, RecordSink, EXCHANGES_HEADER};

@@ -1,0 +1,315 @@
+//! Reading a plain line of an exchanges file straight into a row, without splitting it first.
+//!
+//! A line taucal writes spells every value one way: plain digits, a short decimal, an empty
+//! optional cell, a label without quotes. Each field is read where it starts, eight bytes at a
+//! time, and ends where its value ends, so the line is passed over once. A line spelt any other
+//! way is declined and left to the splitter and the field-by-field reader, which read it to the
+//! same values (they accept every spelling read here, to the same bits) or to the error.
+
+use super::csv_io::{digits_value, short_decimal_prefix, ZEROS};
+use super::record_split::{below_dash, word_at};
+use super::Exchange;
+
+/// The high bit of every byte of a word.
+const HIGH_BITS: u64 = 0x8080_8080_8080_8080;
+
+/// Ten in every byte of a word.
+const TENS: u64 = 0x0A0A_0A0A_0A0A_0A0A;
+
+/// Powers of ten up to 10^8, for the digits after the first eight.
+const POWERS_OF_TEN: [u64; 9] = [
+    1,
+    10,
+    100,
+    1_000,
+    10_000,
+    100_000,
+    1_000_000,
+    10_000_000,
+    100_000_000,
+];
+
+/// The row field a column of the file holds.
+#[derive(Clone, Copy)]
+enum Slot {
+    Other,
+    Stage,
+    Point,
+    Burst,
+    Seq,
+    Atten,
+    Center,
+    Bandwidth,
+    T1,
+    T2,
+    T3,
+    T4,
+    DutGain,
+    DutRssi,
+    RefGain,
+    Temp,
+    Status,
+}
+
+/// The contract columns' fields, in `EXCHANGES_HEADER` order.
+const CONTRACT: [Slot; 16] = [
+    Slot::Stage,
+    Slot::Point,
+    Slot::Burst,
+    Slot::Seq,
+    Slot::Atten,
+    Slot::Center,
+    Slot::Bandwidth,
+    Slot::T1,
+    Slot::T2,
+    Slot::T3,
+    Slot::T4,
+    Slot::DutGain,
+    Slot::DutRssi,
+    Slot::RefGain,
+    Slot::Temp,
+    Slot::Status,
+];
+
+/// Reads plain lines of one file, whose header fixed the columns.
+pub(crate) struct LineParser {
+    /// What each column of the file holds, in the file's order.
+    slots: Vec<Slot>,
+    /// The columns are the contract's, in its order (as taucal writes them): then the loop over
+    /// them is unrolled at compile time.
+    contract_order: bool,
+    /// The last stage and status read: rows handed to another thread come back holding labels
+    /// of rows long past, so the row's own labels are no guide to what was read last.
+    stage: Label,
+    status: Label,
+}
+
+impl LineParser {
+    /// `columns[i]` is the file column of contract column `i`; the header has `fields` columns.
+    pub(crate) fn new(columns: &[usize; CONTRACT.len()], fields: usize) -> Self {
+        let mut slots = vec![Slot::Other; fields];
+        for (&slot, &column) in CONTRACT.iter().zip(columns) {
+            slots[column] = slot;
+        }
+        LineParser {
+            contract_order: fields == CONTRACT.len() && columns.iter().copied().eq(0..fields),
+            slots,
+            stage: Label::default(),
+            status: Label::default(),
+        }
+    }
+
+    /// Reads the line whose first field starts at `from` into `row`, and returns where its last
+    /// field ends (the caller checks a line end is there); `None` as soon as a field is not
+    /// spelt plainly, with `row` partly written. `bytes` must hold eight bytes or more after
+    /// every byte up to the line's end.
+    pub(crate) fn parse(&mut self, bytes: &[u8], from: usize, row: &mut Exchange) -> Option<usize> {
+        let labels = (&mut self.stage, &mut self.status);
+        if self.contract_order {
+            read_fields(&CONTRACT, labels, bytes, from, row)
+        } else {
+            read_fields(&self.slots, labels, bytes, from, row)
+        }
+    }
+}
+
+/// The fields of a line, as [`LineParser::parse`] reads them; `labels` are the last stage and
+/// status.
+#[inline(always)]
+fn read_fields(
+    slots: &[Slot],
+    (stage, status): (&mut Label, &mut Label),
+    bytes: &[u8],
+    from: usize,
+    row: &mut Exchange,
+) -> Option<usize> {
+    let mut at = from;
+    for (i, slot) in slots.iter().enumerate() {
+        if i > 0 {
+            if bytes[at] != b',' {
+                return None;
+            }
+            at += 1;
+        }
+        at = match slot {
+            Slot::Other => field_end(bytes, at)?,
+            Slot::Stage => stage.read(bytes, at, &mut row.stage)?,
+            Slot::Point => small(bytes, at, &mut row.point)?,
+            Slot::Burst => small(bytes, at, &mut row.burst)?,
+            Slot::Seq => small(bytes, at, &mut row.seq)?,
+            Slot::Atten => float(bytes, at, &mut row.atten_db)?,
+            Slot::Center => small(bytes, at, &mut row.center_mhz)?,
+            Slot::Bandwidth => small(bytes, at, &mut row.bw_mhz)?,
+            Slot::T1 => optional(bytes, at, &mut row.t1_ps, wide)?,
+            Slot::T2 => optional(bytes, at, &mut row.t2_ps, wide)?,
+            Slot::T3 => optional(bytes, at, &mut row.t3_ps, wide)?,
+            Slot::T4 => optional(bytes, at, &mut row.t4_ps, wide)?,
+            Slot::DutGain => optional(bytes, at, &mut row.dut_gain, small)?,
+            Slot::DutRssi => optional(bytes, at, &mut row.dut_rssi_dbm, float)?,
+            Slot::RefGain => optional(bytes, at, &mut row.ref_gain, small)?,
+            Slot::Temp => optional(bytes, at, &mut row.temp_c, float)?,
+            Slot::Status => status.read(bytes, at, &mut row.status)?,
+        };
+    }
+    Some(at)
+}
+
+/// A label read before (a stage, a status): a burst repeats its stage, and most statuses are
+/// `ok`, so the next is most often the same. Kept also as words, to match it again eight bytes
+/// at a time.
+#[derive(Default)]
+struct Label {
+    text: String,
+    /// `text` as little-endian words, the last padded with zero bytes.
+    words: Vec<u64>,
+}
+
+impl Label {
+    /// The label at `at` into `out`, and where it ends. The same label as before is matched
+    /// whole, without looking for its end or checking its UTF-8 again. Declined if not UTF-8.
+    fn read(&mut self, bytes: &[u8], at: usize, out: &mut String) -> Option<usize> {
+        if !self.matches(bytes, at) {
+            let end = field_end(bytes, at)?;
+            self.set(std::str::from_utf8(&bytes[at..end]).ok()?);
+        }
+        out.clone_from(&self.text);
+        Some(at + self.text.len())
+    }
+
+    /// Whether the field at `at` is this label: its bytes, then a comma or line end.
+    fn matches(&self, bytes: &[u8], at: usize) -> bool {
+        let len = self.text.len();
+        if bytes.len() <= at + 8 * self.words.len() {
+            return false;
+        }
+        let mut left = len;
+        for (i, &word) in self.words.iter().enumerate() {
+            let mask = if left >= 8 {
+                u64::MAX
+            } else {
+                (1 << (8 * left)) - 1
+            };
+            if word_at(bytes, at + 8 * i) & mask != word {
+                return false;
+            }
+            left = left.saturating_sub(8);
+        }
+        is_separator(bytes[at + len])
+    }
+
+    fn set(&mut self, text: &str) {
+        self.text.clear();
+        self.text.push_str(text);
+        self.words.clear();
+        self.words.extend(text.as_bytes().chunks(8).map(|chunk| {
+            let mut word = [0; 8];
+            word[..chunk.len()].copy_from_slice(chunk);
+            u64::from_le_bytes(word)
+        }));
+    }
+}
+
+/// Where the field from `at` ends: at the first comma, CR or LF. Other bytes below `-` (spaces,
+/// some punctuation) are text; a quote declines the line.
+fn field_end(bytes: &[u8], mut at: usize) -> Option<usize> {
+    loop {
+        let word = word_at(bytes, at);
+        let mut below = below_dash(word);
+        while below != 0 {
+            let shift = below.trailing_zeros() - 7;
+            match (word >> shift) as u8 {
+                b',' | b'\n' | b'\r' => return Some(at + (shift / 8) as usize),
+                b'"' => return None,
+                _ => below &= below - 1,
+            }
+        }
+        at += 8;
+    }
+}
+
+/// A decimal written `[-]digits[.digits]`, 15 digits at most.
+fn float(bytes: &[u8], at: usize, out: &mut f64) -> Option<usize> {
+    let (value, len) = short_decimal_prefix(&bytes[at..])?;
+    *out = value;
+    Some(at + len)
+}
+
+/// 1 to 9 plain decimal digits (so the value fits a `u32`), one at a time: these are short.
+fn small(bytes: &[u8], at: usize, out: &mut u32) -> Option<usize> {
+    let mut value = 0u32;
+    let mut end = at;
+    loop {
+        let digit = bytes[end].wrapping_sub(b'0');
+        if digit > 9 {
+            break;
+        }
+        if end - at == 9 {
+            return None;
+        }
+        value = value * 10 + u32::from(digit);
+        end += 1;
+    }
+    *out = value;
+    (end > at).then_some(end)
+}
+
+/// 1 to 15 plain decimal digits.
+fn wide(bytes: &[u8], at: usize, out: &mut u64) -> Option<usize> {
+    let (value, end) = digits(bytes, at)?;
+    *out = value;
+    Some(end)
+}
+
+/// A field ends at a comma or a line end.
+fn is_separator(byte: u8) -> bool {
+    matches!(byte, b',' | b'\n' | b'\r')
+}
+
+/// An optional cell: empty (a separator right away) is none, else what `read` makes of it.
+fn optional<T: Default>(
+    bytes: &[u8],
+    at: usize,
+    out: &mut Option<T>,
+    read: fn(&[u8], usize, &mut T) -> Option<usize>,
+) -> Option<usize> {
+    if is_separator(bytes[at]) {
+        *out = None;
+        return Some(at);
+    }
+    let value = out.get_or_insert_with(T::default);
+    read(bytes, at, value)
+}
+
+/// The digits from `at`, 1 to 15 of them, eight at a time: their value and where they end (at
+/// a byte that is not a digit). `None` for no digit or more than 15.
+fn digits(bytes: &[u8], at: usize) -> Option<(u64, usize)> {
+    let first = word_at(bytes, at);
+    let count = non_digits(first).trailing_zeros() as usize / 8;
+    if count < 8 {
+        return (count > 0).then(|| (leading_digits(first, count), at + count));
+    }
+    let second = word_at(bytes, at + 8);
+    let count = non_digits(second).trailing_zeros() as usize / 8;
+    if count == 8 {
+        return None;
+    }
+    let value = digits_value(first) * POWERS_OF_TEN[count] + leading_digits(second, count);
+    Some((value, at + 8 + count))
+}
+
+/// The high bit of each byte of `word` that is not an ASCII digit. Per byte, with no carry
+/// between bytes: a digit less `0` is below ten, so `(b ^ 0x30 | 0x80) - 10` keeps its high bit
+/// set exactly when the low seven bits of `b ^ 0x30` are ten or more; or-ing `b ^ 0x30` back
+/// in catches the bytes whose own high bit is set.
+fn non_digits(word: u64) -> u64 {
+    let offset = word ^ ZEROS;
+    (((offset | HIGH_BITS) - TENS) | offset) & HIGH_BITS
+}
+
+/// The value of the first `count` (0 to 8) bytes of `word`, all digits: shifted up to the top
+/// of the word, below `0`s.
+fn leading_digits(word: u64, count: usize) -> u64 {
+    let bits = 8 * count as u32;
+    let top = word.checked_shl(64 - bits).unwrap_or(0);
+    digits_value(top | ZEROS.checked_shr(bits).unwrap_or(0))
+}
