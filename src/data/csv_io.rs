@@ -6,11 +6,11 @@
 
 use super::plain_line::LineParser;
 use super::record_split::{Record, Split, Splitter, BLOCK};
+use super::row_batches::{set_label, Batches, Labels, RowSource};
 use super::Exchange;
 use std::fs::File;
 use std::io::{self, BufWriter, Read};
 use std::path::Path;
-use std::sync::mpsc;
 use thiserror::Error;
 
 /// The contract header of `exchanges.csv`.
@@ -125,13 +125,6 @@ pub enum ReadError {
     },
 }
 
-/// Rows the reading thread hands over at a time.
-const BATCH_ROWS: usize = 1024;
-
-/// Full batches waiting for the caller: bounds what the reading thread may run ahead (well under
-/// a megabyte), so memory never follows the file's size.
-const BATCHES_AHEAD: usize = 2;
-
 /// Streams the rows of an exchanges file, checking the header first.
 ///
 /// The file is read, split and parsed on a thread of its own while the caller fits: on two
@@ -143,19 +136,10 @@ pub fn read_exchanges(path: &Path) -> Result<ExchangeRows<File>, ReadError> {
         source,
     })?;
     let rows = RowReader::new(file, name.clone(), BLOCK)?;
-    let (full_tx, full) = mpsc::sync_channel(BATCHES_AHEAD);
-    let (recycle, recycle_rx) = mpsc::channel();
-    std::thread::Builder::new()
-        .name("exchanges-read".into())
-        .spawn(move || read_batches(rows, &full_tx, &recycle_rx))
+    let batches = Batches::spawn(rows, "exchanges-read")
         .map_err(|source| ReadError::Io { path: name, source })?;
     Ok(ExchangeRows {
-        source: Source::Thread(Batches {
-            full,
-            recycle,
-            current: Batch::default(),
-            next: 0,
-        }),
+        source: Source::Thread(batches),
     })
 }
 
@@ -213,14 +197,26 @@ impl<R: Read> RowReader<R> {
 
     /// Reads the next row into `row`, reusing its strings; `Ok(false)` at the end of the file.
     fn read_into(&mut self, row: &mut Exchange) -> Result<bool, ReadError> {
+        let labels = self.read_next(row)?;
+        if let Some(Labels::Kept(_)) = labels {
+            let (stage, status) = self.labels();
+            set_label(&mut row.stage, stage);
+            set_label(&mut row.status, status);
+        }
+        Ok(labels.is_some())
+    }
+}
+
+impl<R: Read> RowSource<ReadError> for RowReader<R> {
+    fn read_next(&mut self, row: &mut Exchange) -> Result<Option<Labels>, ReadError> {
         let plain = &mut self.plain;
         let record = match self
             .split
             .next_split(|bytes, from| plain.parse(bytes, from, row))
         {
-            Ok(Some(Split::Parsed)) => return Ok(true),
+            Ok(Some(Split::Parsed)) => return Ok(Some(Labels::Kept(self.plain.labels_version()))),
             Ok(Some(Split::Record(record))) => record,
-            Ok(None) => return Ok(false),
+            Ok(None) => return Ok(None),
             Err(e) => {
                 return Err(ReadError::Row {
                     path: self.name.clone(),
@@ -230,84 +226,16 @@ impl<R: Read> RowReader<R> {
             }
         };
         fill(&record, &self.columns, row)
-            .map(|()| true)
+            .map(|()| Some(Labels::InRow))
             .map_err(|FieldError(i, message)| ReadError::Row {
                 path: self.name.clone(),
                 line: record.line(),
                 message: format!("column {}: {message}", self.columns[i] + 1),
             })
     }
-}
 
-/// Rows parsed by the reading thread: `rows[..filled]`, then `error` if reading failed there
-/// (the thread stops after an error or the end of the file).
-#[derive(Default)]
-struct Batch {
-    rows: Vec<Exchange>,
-    filled: usize,
-    error: Option<ReadError>,
-}
-
-/// The reading thread: fills batches (reusing the ones the caller has finished with) until the
-/// file ends, a row fails, or the caller hangs up.
-fn read_batches<R: Read>(
-    mut reader: RowReader<R>,
-    full: &mpsc::SyncSender<Batch>,
-    recycle: &mpsc::Receiver<Vec<Exchange>>,
-) {
-    loop {
-        let mut rows = recycle
-            .try_recv()
-            .unwrap_or_else(|_| vec![Exchange::default(); BATCH_ROWS]);
-        let mut filled = 0;
-        let mut error = None;
-        while filled < rows.len() {
-            match reader.read_into(&mut rows[filled]) {
-                Ok(true) => filled += 1,
-                Ok(false) => break,
-                Err(e) => {
-                    error = Some(e);
-                    break;
-                }
-            }
-        }
-        let last = filled < rows.len();
-        let batch = Batch {
-            rows,
-            filled,
-            error,
-        };
-        if full.send(batch).is_err() || last {
-            return;
-        }
-    }
-}
-
-/// The caller's end of the reading thread.
-struct Batches {
-    full: mpsc::Receiver<Batch>,
-    recycle: mpsc::Sender<Vec<Exchange>>,
-    current: Batch,
-    next: usize,
-}
-
-impl Batches {
-    /// Index in `current` of the next row; `None` at the end. Errors come in order.
-    fn advance(&mut self) -> Result<Option<usize>, ReadError> {
-        while self.next >= self.current.filled {
-            if let Some(e) = self.current.error.take() {
-                return Err(e);
-            }
-            let Ok(batch) = self.full.recv() else {
-                return Ok(None);
-            };
-            let done = std::mem::replace(&mut self.current, batch);
-            // The thread may have finished; then the batch is simply dropped.
-            let _ = self.recycle.send(done.rows);
-            self.next = 0;
-        }
-        self.next += 1;
-        Ok(Some(self.next - 1))
+    fn labels(&self) -> (&str, &str) {
+        self.plain.labels()
     }
 }
 
@@ -316,7 +244,7 @@ enum Source<R> {
     /// Read on the calling thread.
     Here(RowReader<R>),
     /// Read on the reading thread.
-    Thread(Batches),
+    Thread(Batches<ReadError>),
 }
 
 /// The rows of an exchanges file, read one at a time into a reused row.
@@ -328,18 +256,12 @@ pub struct ExchangeRows<R> {
 struct FieldError(usize, String);
 
 impl<R: Read> ExchangeRows<R> {
-    /// Reads the next row into `row`; `Ok(false)` at the end of the file. No allocation per
-    /// row: `row`'s strings are reused, or traded for the reading thread's, which reuses them.
+    /// Reads the next row into `row`, reusing its strings (no allocation per row); `Ok(false)`
+    /// at the end of the file.
     pub fn read_into(&mut self, row: &mut Exchange) -> Result<bool, ReadError> {
         match &mut self.source {
             Source::Here(reader) => reader.read_into(row),
-            Source::Thread(batches) => match batches.advance()? {
-                Some(i) => {
-                    std::mem::swap(row, &mut batches.current.rows[i]);
-                    Ok(true)
-                }
-                None => Ok(false),
-            },
+            Source::Thread(batches) => batches.read_into(row),
         }
     }
 }
@@ -513,39 +435,28 @@ fn short_decimal(bytes: &[u8]) -> Option<f64> {
 /// and its length; `None` if there is none or it has more than 15 digits.
 pub(crate) fn short_decimal_prefix(bytes: &[u8]) -> Option<(f64, usize)> {
     let negative = bytes.first() == Some(&b'-');
-    let mut at = usize::from(negative);
+    let start = usize::from(negative);
+    let mut at = start;
+    let mut dot = None;
+    // Wrapping: past 15 digits the value is refused anyway.
     let mut mantissa = 0u64;
-    // Sixteen digits at most in all, so the mantissa cannot overflow and "more than 15" shows.
-    let whole = append_digits(&bytes[at..], 16, &mut mantissa);
-    at += whole;
-    let mut fraction = 0;
-    if bytes.get(at) == Some(&b'.') {
-        fraction = append_digits(&bytes[at + 1..], 16 - whole, &mut mantissa);
-        if fraction == 0 {
-            return None;
+    while let Some(&b) = bytes.get(at) {
+        match b {
+            b'0'..=b'9' => mantissa = mantissa.wrapping_mul(10).wrapping_add(u64::from(b - b'0')),
+            b'.' if dot.is_none() => dot = Some(at),
+            _ => break,
         }
-        at += 1 + fraction;
+        at += 1;
     }
-    if whole == 0 || whole + fraction > 15 {
+    let (whole, fraction) = match dot {
+        Some(dot) => (dot - start, at - dot - 1),
+        None => (at - start, 0),
+    };
+    if whole == 0 || (dot.is_some() && fraction == 0) || whole + fraction > 15 {
         return None;
     }
     let value = mantissa as f64 / POWERS_OF_TEN[fraction];
     Some((if negative { -value } else { value }, at))
-}
-
-/// Appends the decimal digits at the start of `bytes`, `most` at most, to `mantissa`; returns
-/// how many there were.
-fn append_digits(bytes: &[u8], most: usize, mantissa: &mut u64) -> usize {
-    let mut count = 0;
-    for &b in bytes.iter().take(most) {
-        let digit = b.wrapping_sub(b'0');
-        if digit > 9 {
-            break;
-        }
-        *mantissa = *mantissa * 10 + u64::from(digit);
-        count += 1;
-    }
-    count
 }
 
 /// Hexadecimal parsing for the integer widths the contract uses.

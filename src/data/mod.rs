@@ -5,6 +5,7 @@ pub mod exchange;
 pub mod manifest;
 mod plain_line;
 mod record_split;
+mod row_batches;
 pub mod run_dir;
 
 pub use csv_io::{read_exchanges, ExchangeWriter, ReadError, RecordSink, EXCHANGES_HEADER};
