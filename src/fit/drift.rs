@@ -62,6 +62,11 @@ impl TempBins {
         b.mean_t += (temp_c - b.mean_t) / n;
     }
 
+    /// Adds the bins of `other`, which must hold other cells than these.
+    pub fn merge(&mut self, other: TempBins) {
+        self.bins.extend(other.bins);
+    }
+
     /// The drift of every cell seen at three or more temperatures.
     pub fn drift(&self) -> Vec<DriftRow> {
         let mut by_channel: BTreeMap<(u32, u32), Vec<Observation>> = BTreeMap::new();
