@@ -57,6 +57,28 @@ impl<'a> Record<'a> {
         self.range(i).map_or(&[], |range| &self.bytes[range])
     }
 
+    /// A record the csv crate read, its fields copied into `joined` with a separator after each
+    /// (`starts` takes where they start).
+    pub(crate) fn from_csv(
+        record: &csv::ByteRecord,
+        joined: &'a mut Vec<u8>,
+        starts: &'a mut Vec<usize>,
+    ) -> Self {
+        joined.clear();
+        starts.clear();
+        starts.push(0);
+        for field in record {
+            joined.extend_from_slice(field);
+            joined.push(b',');
+            starts.push(joined.len());
+        }
+        Record {
+            bytes: joined,
+            starts,
+            line: record.position().map_or(0, csv::Position::line),
+        }
+    }
+
     /// Where field `i` lies in `bytes`.
     fn range(&self, i: usize) -> Option<Range<usize>> {
         Some(*self.starts.get(i)?..*self.starts.get(i + 1)? - 1)
@@ -262,21 +284,11 @@ impl<R: Read> Splitter<R> {
         self.line = next.line();
         self.index = next.record();
         match read {
-            Ok(true) => {
-                self.joined.clear();
-                self.starts.clear();
-                self.starts.push(0);
-                for field in &self.record {
-                    self.joined.extend_from_slice(field);
-                    self.joined.push(b',');
-                    self.starts.push(self.joined.len());
-                }
-                Ok(Some(Record {
-                    bytes: &self.joined,
-                    starts: &self.starts,
-                    line: self.record.position().map_or(0, csv::Position::line),
-                }))
-            }
+            Ok(true) => Ok(Some(Record::from_csv(
+                &self.record,
+                &mut self.joined,
+                &mut self.starts,
+            ))),
             Ok(false) => Ok(None),
             Err(e) => {
                 self.failed = matches!(e.kind(), csv::ErrorKind::Io(_));
@@ -407,5 +419,155 @@ impl<R: Read> Seek for Window<R> {
             }
             _ => Err(io::Error::other("seek outside the read window")),
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    /// Hands out at most `step` bytes per read, so reads end anywhere in a line.
+    struct Trickle<'a> {
+        bytes: &'a [u8],
+        step: usize,
+    }
+
+    impl Read for Trickle<'_> {
+        fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
+            let n = self.step.min(out.len()).min(self.bytes.len());
+            out[..n].copy_from_slice(&self.bytes[..n]);
+            self.bytes = &self.bytes[n..];
+            Ok(n)
+        }
+    }
+
+    /// A reading of a file: its header, then each record's fields and line (`None` where the
+    /// caller's parser took the line whole, which names no line), or an error's text.
+    type Reading = (
+        Vec<Vec<u8>>,
+        Vec<Result<(Vec<Vec<u8>>, Option<u64>), String>>,
+    );
+
+    /// The csv crate's own reading, with the settings the splitter uses.
+    fn csv_crate_reading(bytes: &[u8]) -> Result<Reading, String> {
+        let mut rdr = csv::ReaderBuilder::new()
+            .has_headers(true)
+            .from_reader(bytes);
+        let header = rdr.byte_headers().map_err(|e| e.to_string())?;
+        let header = header.iter().map(<[u8]>::to_vec).collect();
+        let mut records = Vec::new();
+        let mut record = csv::ByteRecord::new();
+        loop {
+            match rdr.read_byte_record(&mut record) {
+                Ok(true) => records.push(Ok((
+                    record.iter().map(<[u8]>::to_vec).collect(),
+                    record.position().map(csv::Position::line),
+                ))),
+                Ok(false) => return Ok((header, records)),
+                Err(e) => records.push(Err(e.to_string())),
+            }
+        }
+    }
+
+    /// The splitter's reading in `block`-byte reads of at most `step` bytes each. With `whole`,
+    /// a parser takes every line without a quote or CR whose commas make the header's count.
+    fn splitter_reading(
+        bytes: &[u8],
+        block: usize,
+        step: usize,
+        whole: bool,
+    ) -> Result<Reading, String> {
+        let mut split = Splitter::new(Trickle { bytes, step }, block).map_err(|e| e.to_string())?;
+        let header = split.header().map_err(|e| e.to_string())?;
+        let header: Vec<Vec<u8>> = header.iter().map(<[u8]>::to_vec).collect();
+        let fields = header.len();
+        let mut records = Vec::new();
+        loop {
+            let mut taken = Vec::new();
+            let parse_line = |bytes: &[u8], from: usize| {
+                let end = from + bytes[from..].iter().position(|b| b"\"\r\n".contains(b))?;
+                let line: Vec<Vec<u8>> = bytes[from..end]
+                    .split(|&b| b == b',')
+                    .map(<[u8]>::to_vec)
+                    .collect();
+                (whole && bytes[end] != b'"' && line.len() == fields).then(|| {
+                    taken = line;
+                    end
+                })
+            };
+            match split.next_split(parse_line) {
+                Ok(Some(Split::Parsed)) => records.push(Ok((taken, None))),
+                Ok(Some(Split::Record(record))) => {
+                    let fields = (0..record.starts.len() - 1).map(|i| record.field(i).to_vec());
+                    records.push(Ok((fields.collect(), Some(record.line()))));
+                }
+                Ok(None) => return Ok((header, records)),
+                Err(e) => records.push(Err(e.to_string())),
+            }
+        }
+    }
+
+    /// Whether two readings agree: the same header, records and errors, and the same line
+    /// wherever both name one.
+    fn agree(a: &Result<Reading, String>, b: &Result<Reading, String>) -> bool {
+        match (a, b) {
+            (Ok((header_a, a)), Ok((header_b, b))) => {
+                header_a == header_b
+                    && a.len() == b.len()
+                    && a.iter().zip(b).all(|(a, b)| match (a, b) {
+                        (Ok((fields_a, line_a)), Ok((fields_b, line_b))) => {
+                            fields_a == fields_b
+                                && (line_a.is_none() || line_b.is_none() || line_a == line_b)
+                        }
+                        (Err(a), Err(b)) => a == b,
+                        _ => false,
+                    })
+            }
+            (Err(a), Err(b)) => a == b,
+            _ => false,
+        }
+    }
+
+    proptest! {
+        #[test]
+        fn splits_every_file_as_the_csv_crate_does(
+            header in "[a-c]{1,2}(,[a-c]{1,2}){0,3}\\r?\\n",
+            body in proptest::collection::vec(
+                prop::sample::select(b"a1 ,,\"\r\n\n".to_vec()),
+                0..160,
+            ),
+            block in 1usize..48,
+            step in 1usize..12,
+            whole in any::<bool>(),
+        ) {
+            // The csv crate's reader is the reference: fields, line numbers (blank lines, CR LF
+            // and quoted newlines included) and the text of every error (byte offsets and record
+            // numbers included), with reads ending anywhere.
+            let mut text = header.into_bytes();
+            text.extend(body);
+            let want = csv_crate_reading(&text);
+            let got = splitter_reading(&text, block, step, whole);
+            prop_assert!(agree(&got, &want), "{:?}\n{:?}\nvs\n{:?}", String::from_utf8_lossy(&text), got, want);
+        }
+    }
+
+    #[test]
+    fn a_long_quoted_field_and_a_long_line_grow_the_window() {
+        // The csv crate's reader is the reference; a record longer than a block must be read
+        // whole whichever way it is split.
+        let long = "x".repeat(300);
+        let text = format!("a,b\n\"{long}\n{long}\",1\n{long},2\r\nz,3");
+        let want = csv_crate_reading(text.as_bytes());
+        for block in [1, 7, 64] {
+            for whole in [false, true] {
+                let got = splitter_reading(text.as_bytes(), block, 5, whole);
+                assert!(agree(&got, &want), "block {block}: {got:?}");
+            }
+        }
+        let Ok((_, records)) = want else {
+            panic!("the csv crate reads it")
+        };
+        assert_eq!(records.len(), 3);
     }
 }
