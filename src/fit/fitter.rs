@@ -148,9 +148,23 @@ pub struct Fitter {
     pending: Vec<Pending>,
     /// Ratios of bursts that had their own estimate, for the fallback and the summary.
     ratios: Vec<f64>,
-    /// Per cell: every delay computed so far.
-    cells: BTreeMap<CellKey, Vec<Sample>>,
+    /// Per cell, in the order first seen: every delay computed so far.
+    cells: Vec<(CellKey, Vec<Sample>)>,
+    /// Where each cell is in `cells`. Looked up once per burst and cell, not per delay: a map
+    /// lookup per delay was a tenth of the fitter's streaming work.
+    cell_index: BTreeMap<CellKey, usize>,
+    /// Buffers each burst's correction reuses (allocated per burst, they cost as much as the
+    /// cell lookups).
+    burst: BurstBuffers,
     summary: FitSummary,
+}
+
+/// A burst's usable exchanges for the correction, and what it makes of them.
+#[derive(Default)]
+struct BurstBuffers {
+    items: Vec<Timed>,
+    t1_t2: Vec<(u64, u64)>,
+    delays: Vec<Option<f64>>,
 }
 
 impl Fitter {
@@ -162,7 +176,9 @@ impl Fitter {
             current_burst: None,
             pending: Vec::new(),
             ratios: Vec::new(),
-            cells: BTreeMap::new(),
+            cells: Vec::new(),
+            cell_index: BTreeMap::new(),
+            burst: BurstBuffers::default(),
             summary: FitSummary::default(),
         }
     }
@@ -208,6 +224,8 @@ impl Fitter {
         let mut ratios = self.ratios;
         self.summary.median_clock_offset_ppm = median(&mut ratios).map(|r| (r - 1.0) * 1e6);
         let options = self.options;
+        // The table's order, the cells' key order.
+        self.cells.sort_unstable_by_key(|&(cell, _)| cell);
         let queue = Mutex::new(self.cells.into_iter().enumerate());
         // Cells in turn until none is left; each cell's samples are freed once summarised.
         let summarise = || {
@@ -271,26 +289,48 @@ impl Fitter {
         self.summary.bursts += 1;
         let ratios = &self.ratios;
         let fallback = || median(&mut ratios.clone()).unwrap_or(1.0);
-        let items: Vec<Timed> = self
-            .pending
-            .iter()
-            .map(|p| (p.t_ps, p.atten_db, p.ref_gain))
-            .collect();
-        let (ratio, delays) = corrected_delays(&self.deembed, &items, fallback);
+        let BurstBuffers {
+            items,
+            t1_t2,
+            delays,
+        } = &mut self.burst;
+        items.clear();
+        items.extend(
+            self.pending
+                .iter()
+                .map(|p| (p.t_ps, p.atten_db, p.ref_gain)),
+        );
+        let ratio = corrected_delays(&self.deembed, items, fallback, t1_t2, delays);
         match ratio {
             Some(r) => self.ratios.push(r),
             None => self.summary.bursts_fallback_ratio += 1,
         }
-        for (p, k) in self.pending.drain(..).zip(delays) {
+        // The cell of the delay before, and where it is in `cells`.
+        let mut last: Option<(CellKey, usize)> = None;
+        for (p, &k) in self.pending.drain(..).zip(delays.iter()) {
             match k {
                 None => self.summary.rows_without_reference += 1,
                 Some(k) if !k.is_finite() => self.summary.rows_unusable += 1,
-                Some(k) => self.cells.entry(p.cell).or_default().push(Sample {
-                    k_ps: k,
-                    // 2^32 bursts (~7e10 exchanges) before ids repeat.
-                    burst: burst_id as u32,
-                    temp_c: p.temp_c.map_or(f32::NAN, |t| t as f32),
-                }),
+                Some(k) => {
+                    let i = match last {
+                        Some((cell, i)) if cell == p.cell => i,
+                        _ => {
+                            let cells = &mut self.cells;
+                            let i = *self.cell_index.entry(p.cell).or_insert_with(|| {
+                                cells.push((p.cell, Vec::new()));
+                                cells.len() - 1
+                            });
+                            last = Some((p.cell, i));
+                            i
+                        }
+                    };
+                    self.cells[i].1.push(Sample {
+                        k_ps: k,
+                        // 2^32 bursts (~7e10 exchanges) before ids repeat.
+                        burst: burst_id as u32,
+                        temp_c: p.temp_c.map_or(f32::NAN, |t| t as f32),
+                    });
+                }
             }
         }
     }
@@ -300,26 +340,27 @@ impl Fitter {
 /// reference gain).
 type Timed = ([u64; 4], f64, Option<u32>);
 
-/// The burst's own clock-rate ratio (if it yields one) and each exchange's de-embedded delay
-/// (`None` where the reference table has no value for its gain). `items` are the burst's usable
-/// exchanges as (t1..t4, attenuation, reference gain); `fallback` is the ratio used when the
-/// burst yields none (computed only then).
+/// The burst's own clock-rate ratio, if it yields one; each exchange's de-embedded delay goes
+/// into `delays` (`None` where the reference table has no value for its gain). `items` are the
+/// burst's usable exchanges as (t1..t4, attenuation, reference gain); `fallback` is the ratio
+/// used when the burst yields none (computed only then); `t1_t2` is a buffer.
 fn corrected_delays(
     deembed: &Deembed,
     items: &[Timed],
     fallback: impl FnOnce() -> f64,
-) -> (Option<f64>, Vec<Option<f64>>) {
-    let t1_t2: Vec<(u64, u64)> = items.iter().map(|(t, _, _)| (t[0], t[1])).collect();
-    let own = rate_ratio(&burst_offsets(&t1_t2));
+    t1_t2: &mut Vec<(u64, u64)>,
+    delays: &mut Vec<Option<f64>>,
+) -> Option<f64> {
+    t1_t2.clear();
+    t1_t2.extend(items.iter().map(|(t, _, _)| (t[0], t[1])));
+    let own = rate_ratio(&burst_offsets(t1_t2));
     let ratio = own.unwrap_or_else(fallback);
-    let delays = items
-        .iter()
-        .map(|&([t1, t2, t3, t4], atten_db, ref_gain)| {
-            let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
-            deembed.dut_k_ps(rtt_ps, atten_db, ref_gain)
-        })
-        .collect();
-    (own, delays)
+    delays.clear();
+    delays.extend(items.iter().map(|&([t1, t2, t3, t4], atten_db, ref_gain)| {
+        let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
+        deembed.dut_k_ps(rtt_ps, atten_db, ref_gain)
+    }));
+    own
 }
 
 /// De-embedded delays of one burst's rows, aligned with `rows`: `None` for an unusable row or
@@ -337,7 +378,14 @@ pub fn burst_delays(deembed: &Deembed, rows: &[Exchange], fallback_ratio: f64) -
         })
         .collect();
     let items: Vec<_> = usable.iter().map(|(_, it)| *it).collect();
-    let (_, delays) = corrected_delays(deembed, &items, || fallback_ratio);
+    let mut delays = Vec::new();
+    corrected_delays(
+        deembed,
+        &items,
+        || fallback_ratio,
+        &mut Vec::new(),
+        &mut delays,
+    );
     let mut out = vec![None; rows.len()];
     for ((i, _), k) in usable.iter().zip(delays) {
         out[*i] = k.filter(|k| k.is_finite());
@@ -761,11 +809,13 @@ mod tests {
         fitter.close_burst();
         let (mut temps, mut scratch) = (TempBins::default(), Scratch::default());
         let (mut want, mut single_bursts, mut skipped) = (Vec::new(), 0, 0);
-        for (&cell, samples) in &fitter.cells {
+        let mut cells = fitter.cells.clone();
+        cells.sort_unstable_by_key(|&(cell, _)| cell);
+        for (cell, samples) in &cells {
             let mut single_burst = false;
             let options = FitOptions::default();
             let row = cell_row(
-                cell,
+                *cell,
                 samples,
                 options,
                 &mut temps,
