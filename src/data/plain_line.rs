@@ -167,8 +167,9 @@ impl LineParser {
         Some(at)
     }
 
-    /// [`parse`](LineParser::parse) for the contract's columns in its order, spelt out: a
-    /// third faster than the loop, which jumps through a table and calls out for every field.
+    /// [`parse`](LineParser::parse) for the contract's columns in its order, spelt out: the
+    /// loop jumps through a table for every field, and the reading thread took about a tenth
+    /// more instructions with it (callgrind).
     fn read_in_contract_order(
         &mut self,
         bytes: &[u8],
@@ -243,6 +244,7 @@ impl Label {
         is_separator(bytes[at + len])
     }
 
+    /// Makes `text` the label to match.
     fn set(&mut self, text: &str) {
         self.text.clear();
         self.text.push_str(text);
