@@ -361,3 +361,66 @@ fn leading_digits(word: u64, count: usize) -> u64 {
     let top = word.checked_shl(64 - bits).unwrap_or(0);
     digits_value(top | ZEROS.checked_shr(bits).unwrap_or(0))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    /// `text` followed by a comma and the eight bytes of slack a line's reader may load.
+    fn padded(text: &str) -> Vec<u8> {
+        let mut bytes = text.as_bytes().to_vec();
+        bytes.extend_from_slice(b",\n\0\0\0\0\0\0\0\0");
+        bytes
+    }
+
+    proptest! {
+        #[test]
+        fn a_float_reads_as_the_standard_library_parses_its_digits(
+            text in "-?[0-9]{0,17}(\\.[0-9]{0,17})?[.e,x]?",
+        ) {
+            // Reference: Rust's `str::parse::<f64>`, correctly rounded (IEEE 754
+            // round-to-nearest), over the longest `[-]digits[.digits]` start of the text; the
+            // word-at-a-time path and the byte-by-byte one must read the same span to the bit.
+            let bytes = padded(&text);
+            let mut got = f64::NAN;
+            let read = float(&bytes, 0, &mut got);
+            prop_assert_eq!(read, short_decimal_prefix(&bytes).map(|(_, len)| len));
+            if let Some(end) = read {
+                let want: f64 = text[..end].parse().expect("a decimal");
+                prop_assert_eq!(got.to_bits(), want.to_bits(), "{}", &text[..end]);
+            }
+        }
+
+        #[test]
+        fn a_count_reads_as_the_standard_library_parses_it(text in "[0-9]{0,11}[,a.]?") {
+            // Reference: Rust's `str::parse::<u32>` over the leading digits, for one to nine of
+            // them; ten or more are declined (the field-by-field reader takes the line).
+            let bytes = padded(&text);
+            let digits = text.bytes().take_while(u8::is_ascii_digit).count();
+            let mut got = u32::MAX;
+            let read = small(&bytes, 0, &mut got);
+            if (1..=9).contains(&digits) {
+                prop_assert_eq!(read, Some(digits));
+                prop_assert_eq!(got, text[..digits].parse::<u32>().expect("digits"));
+            } else {
+                prop_assert_eq!(read, None);
+            }
+        }
+
+        #[test]
+        fn a_timestamp_reads_as_the_standard_library_parses_it(text in "[0-9]{0,17}[,a.]?") {
+            // Reference: Rust's `str::parse::<u64>`, for one to fifteen digits.
+            let bytes = padded(&text);
+            let digits = text.bytes().take_while(u8::is_ascii_digit).count();
+            let mut got = u64::MAX;
+            let read = wide(&bytes, 0, &mut got);
+            if (1..=15).contains(&digits) {
+                prop_assert_eq!(read, Some(digits));
+                prop_assert_eq!(got, text[..digits].parse::<u64>().expect("digits"));
+            } else {
+                prop_assert_eq!(read, None);
+            }
+        }
+    }
+}
