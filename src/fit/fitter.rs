@@ -141,6 +141,10 @@ struct Pending {
 }
 
 /// Streaming fitter: [`push`](Fitter::push) rows in file order, then [`finish`](Fitter::finish).
+///
+/// A file can also be fitted in two parts at once: a [`Fitter::new`] for the rows up to a burst
+/// boundary, a [`Fitter::continuing`] for the rest, then [`append`](Fitter::append) the second
+/// to the first; the result is the same to the bit.
 pub struct Fitter {
     deembed: Deembed,
     options: FitOptions,
@@ -148,15 +152,80 @@ pub struct Fitter {
     pending: Vec<Pending>,
     /// Ratios of bursts that had their own estimate, for the fallback and the summary.
     ratios: Vec<f64>,
-    /// Per cell, in the order first seen: every delay computed so far.
-    cells: Vec<(CellKey, Vec<Sample>)>,
-    /// Where each cell is in `cells`. Looked up once per burst and cell, not per delay: a map
-    /// lookup per delay was a tenth of the fitter's streaming work.
-    cell_index: BTreeMap<CellKey, usize>,
+    cells: Cells,
     /// Buffers each burst's correction reuses (allocated per burst, they cost as much as the
     /// cell lookups).
     burst: BurstBuffers,
+    /// Set for a fitter that does not start at the file's start: it cannot know the earlier
+    /// bursts' ratios a burst without its own would take the median of, so such bursts wait
+    /// in `deferred` for [`append`](Fitter::append).
+    continuing: bool,
+    deferred: Vec<Deferred>,
     summary: FitSummary,
+}
+
+/// A burst without its own clock-rate ratio, waiting for the ratios of the bursts before it.
+struct Deferred {
+    /// The burst's number among the continuing fitter's bursts.
+    burst_id: u64,
+    /// How many of the continuing fitter's own ratios came before it.
+    ratios_before: usize,
+    exchanges: Vec<Pending>,
+}
+
+/// Every delay computed so far, per cell, with the cells in the order first seen.
+#[derive(Default)]
+struct Cells {
+    list: Vec<(CellKey, Vec<Sample>)>,
+    /// Where each cell is in `list`. Looked up once per burst and cell, not per delay: a map
+    /// lookup per delay was a tenth of the fitter's streaming work.
+    index: BTreeMap<CellKey, usize>,
+}
+
+impl Cells {
+    /// Where `cell` is in `list`, adding it if new.
+    fn slot(&mut self, cell: CellKey) -> usize {
+        let list = &mut self.list;
+        *self.index.entry(cell).or_insert_with(|| {
+            list.push((cell, Vec::new()));
+            list.len() - 1
+        })
+    }
+
+    /// Files burst `burst_id`'s delays (aligned with its exchanges) under their cells, counting
+    /// those it cannot use.
+    fn file(
+        &mut self,
+        burst_id: u64,
+        exchanges: impl IntoIterator<Item = Pending>,
+        delays: &[Option<f64>],
+        summary: &mut FitSummary,
+    ) {
+        // The cell of the delay before, and where it is in `list`.
+        let mut last: Option<(CellKey, usize)> = None;
+        for (p, &k) in exchanges.into_iter().zip(delays) {
+            match k {
+                None => summary.rows_without_reference += 1,
+                Some(k) if !k.is_finite() => summary.rows_unusable += 1,
+                Some(k) => {
+                    let i = match last {
+                        Some((cell, i)) if cell == p.cell => i,
+                        _ => {
+                            let i = self.slot(p.cell);
+                            last = Some((p.cell, i));
+                            i
+                        }
+                    };
+                    self.list[i].1.push(Sample {
+                        k_ps: k,
+                        // 2^32 bursts (~7e10 exchanges) before ids repeat.
+                        burst: burst_id as u32,
+                        temp_c: p.temp_c.map_or(f32::NAN, |t| t as f32),
+                    });
+                }
+            }
+        }
+    }
 }
 
 /// A burst's usable exchanges for the correction, and what it makes of them.
@@ -176,11 +245,84 @@ impl Fitter {
             current_burst: None,
             pending: Vec::new(),
             ratios: Vec::new(),
-            cells: Vec::new(),
-            cell_index: BTreeMap::new(),
+            cells: Cells::default(),
             burst: BurstBuffers::default(),
+            continuing: false,
+            deferred: Vec::new(),
             summary: FitSummary::default(),
         }
+    }
+
+    /// A fitter for rows that continue another fitter's from a burst boundary, to be
+    /// [`append`](Fitter::append)ed to it.
+    pub fn continuing(deembed: Deembed, options: FitOptions) -> Self {
+        Self {
+            continuing: true,
+            ..Self::new(deembed, options)
+        }
+    }
+
+    /// Takes over `later`, a [`continuing`](Fitter::continuing) fitter given the rows that
+    /// follow this one's, from a burst boundary: afterwards this fitter is as if it had been
+    /// given all the rows itself, and can take more.
+    pub fn append(&mut self, later: Fitter) {
+        self.close_burst();
+        let offset = self.summary.bursts;
+        // Bursts are numbered in file order: the later fitter's follow this one's.
+        let renumber = |s: Sample| Sample {
+            burst: s.burst.wrapping_add(offset as u32),
+            ..s
+        };
+        for (cell, samples) in later.cells.list {
+            let i = self.cells.slot(cell);
+            self.cells.list[i]
+                .1
+                .extend(samples.into_iter().map(renumber));
+        }
+        let mut late_cells = Vec::new();
+        if self.continuing {
+            // This fitter does not know the earlier ratios either: the bursts wait on.
+            let before = self.ratios.len();
+            self.deferred
+                .extend(later.deferred.into_iter().map(|burst| Deferred {
+                    burst_id: burst.burst_id + offset,
+                    ratios_before: before + burst.ratios_before,
+                    exchanges: burst.exchanges,
+                }));
+        } else {
+            for burst in later.deferred {
+                let mut earlier = self.ratios.clone();
+                earlier.extend(&later.ratios[..burst.ratios_before]);
+                let ratio = median(&mut earlier).unwrap_or(1.0);
+                let mut delays = Vec::new();
+                corrected_delays(&self.deembed, &timed(&burst.exchanges), ratio, &mut delays);
+                late_cells.extend(burst.exchanges.iter().map(|p| p.cell));
+                self.cells.file(
+                    burst.burst_id + offset,
+                    burst.exchanges,
+                    &delays,
+                    &mut self.summary,
+                );
+            }
+        }
+        // A deferred burst's delays were filed after later bursts': back into file order (a
+        // stable sort keeps each burst's own order), so sums run as they would have.
+        late_cells.sort_unstable();
+        late_cells.dedup();
+        for cell in late_cells {
+            if let Some(&i) = self.cells.index.get(&cell) {
+                self.cells.list[i].1.sort_by_key(|s| s.burst);
+            }
+        }
+        self.ratios.extend(later.ratios);
+        let (mine, theirs) = (&mut self.summary, later.summary);
+        mine.rows_pushed += theirs.rows_pushed;
+        mine.rows_unusable += theirs.rows_unusable;
+        mine.rows_without_reference += theirs.rows_without_reference;
+        mine.bursts += theirs.bursts;
+        mine.bursts_fallback_ratio += theirs.bursts_fallback_ratio;
+        self.current_burst = later.current_burst;
+        self.pending = later.pending;
     }
 
     /// Take one row. Consecutive rows with the same (stage, point, burst) form a burst; a key
@@ -225,8 +367,9 @@ impl Fitter {
         self.summary.median_clock_offset_ppm = median(&mut ratios).map(|r| (r - 1.0) * 1e6);
         let options = self.options;
         // The table's order, the cells' key order.
-        self.cells.sort_unstable_by_key(|&(cell, _)| cell);
-        let queue = Mutex::new(self.cells.into_iter().enumerate());
+        let mut cells = self.cells.list;
+        cells.sort_unstable_by_key(|&(cell, _)| cell);
+        let queue = Mutex::new(cells.into_iter().enumerate());
         // Cells in turn until none is left; each cell's samples are freed once summarised.
         let summarise = || {
             let mut temps = TempBins::default();
@@ -287,8 +430,6 @@ impl Fitter {
         }
         let burst_id = self.summary.bursts;
         self.summary.bursts += 1;
-        let ratios = &self.ratios;
-        let fallback = || median(&mut ratios.clone()).unwrap_or(1.0);
         let BurstBuffers {
             items,
             t1_t2,
@@ -300,39 +441,30 @@ impl Fitter {
                 .iter()
                 .map(|p| (p.t_ps, p.atten_db, p.ref_gain)),
         );
-        let ratio = corrected_delays(&self.deembed, items, fallback, t1_t2, delays);
-        match ratio {
-            Some(r) => self.ratios.push(r),
-            None => self.summary.bursts_fallback_ratio += 1,
-        }
-        // The cell of the delay before, and where it is in `cells`.
-        let mut last: Option<(CellKey, usize)> = None;
-        for (p, &k) in self.pending.drain(..).zip(delays.iter()) {
-            match k {
-                None => self.summary.rows_without_reference += 1,
-                Some(k) if !k.is_finite() => self.summary.rows_unusable += 1,
-                Some(k) => {
-                    let i = match last {
-                        Some((cell, i)) if cell == p.cell => i,
-                        _ => {
-                            let cells = &mut self.cells;
-                            let i = *self.cell_index.entry(p.cell).or_insert_with(|| {
-                                cells.push((p.cell, Vec::new()));
-                                cells.len() - 1
-                            });
-                            last = Some((p.cell, i));
-                            i
-                        }
-                    };
-                    self.cells[i].1.push(Sample {
-                        k_ps: k,
-                        // 2^32 bursts (~7e10 exchanges) before ids repeat.
-                        burst: burst_id as u32,
-                        temp_c: p.temp_c.map_or(f32::NAN, |t| t as f32),
-                    });
-                }
+        t1_t2.clear();
+        t1_t2.extend(items.iter().map(|(t, _, _)| (t[0], t[1])));
+        let ratio = match rate_ratio(&burst_offsets(t1_t2)) {
+            Some(r) => {
+                self.ratios.push(r);
+                r
             }
-        }
+            None if self.continuing => {
+                self.summary.bursts_fallback_ratio += 1;
+                self.deferred.push(Deferred {
+                    burst_id,
+                    ratios_before: self.ratios.len(),
+                    exchanges: std::mem::take(&mut self.pending),
+                });
+                return;
+            }
+            None => {
+                self.summary.bursts_fallback_ratio += 1;
+                median(&mut self.ratios.clone()).unwrap_or(1.0)
+            }
+        };
+        corrected_delays(&self.deembed, items, ratio, delays);
+        self.cells
+            .file(burst_id, self.pending.drain(..), delays, &mut self.summary);
     }
 }
 
@@ -340,27 +472,23 @@ impl Fitter {
 /// reference gain).
 type Timed = ([u64; 4], f64, Option<u32>);
 
-/// The burst's own clock-rate ratio, if it yields one; each exchange's de-embedded delay goes
-/// into `delays` (`None` where the reference table has no value for its gain). `items` are the
-/// burst's usable exchanges as (t1..t4, attenuation, reference gain); `fallback` is the ratio
-/// used when the burst yields none (computed only then); `t1_t2` is a buffer.
-fn corrected_delays(
-    deembed: &Deembed,
-    items: &[Timed],
-    fallback: impl FnOnce() -> f64,
-    t1_t2: &mut Vec<(u64, u64)>,
-    delays: &mut Vec<Option<f64>>,
-) -> Option<f64> {
-    t1_t2.clear();
-    t1_t2.extend(items.iter().map(|(t, _, _)| (t[0], t[1])));
-    let own = rate_ratio(&burst_offsets(t1_t2));
-    let ratio = own.unwrap_or_else(fallback);
+/// The exchanges of a burst as the correction needs them.
+fn timed(exchanges: &[Pending]) -> Vec<Timed> {
+    exchanges
+        .iter()
+        .map(|p| (p.t_ps, p.atten_db, p.ref_gain))
+        .collect()
+}
+
+/// Each exchange's de-embedded delay into `delays` (`None` where the reference table has no
+/// value for its gain), its RTT corrected with the burst's clock-rate `ratio`. `items` are the
+/// burst's usable exchanges.
+fn corrected_delays(deembed: &Deembed, items: &[Timed], ratio: f64, delays: &mut Vec<Option<f64>>) {
     delays.clear();
     delays.extend(items.iter().map(|&([t1, t2, t3, t4], atten_db, ref_gain)| {
         let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
         deembed.dut_k_ps(rtt_ps, atten_db, ref_gain)
     }));
-    own
 }
 
 /// De-embedded delays of one burst's rows, aligned with `rows`: `None` for an unusable row or
@@ -378,14 +506,10 @@ pub fn burst_delays(deembed: &Deembed, rows: &[Exchange], fallback_ratio: f64) -
         })
         .collect();
     let items: Vec<_> = usable.iter().map(|(_, it)| *it).collect();
+    let pairs: Vec<_> = items.iter().map(|(t, _, _)| (t[0], t[1])).collect();
+    let ratio = rate_ratio(&burst_offsets(&pairs)).unwrap_or(fallback_ratio);
     let mut delays = Vec::new();
-    corrected_delays(
-        deembed,
-        &items,
-        || fallback_ratio,
-        &mut Vec::new(),
-        &mut delays,
-    );
+    corrected_delays(deembed, &items, ratio, &mut delays);
     let mut out = vec![None; rows.len()];
     for ((i, _), k) in usable.iter().zip(delays) {
         out[*i] = k.filter(|k| k.is_finite());
@@ -783,6 +907,112 @@ mod tests {
         );
     }
 
+    /// Rows with something for every part of a fit to do: three points of bursts whose clock
+    /// ratios differ, two bandwidths, seven temperatures, outliers, an unusable row, and lone
+    /// exchanges (bursts without a ratio of their own) early, in the middle and last.
+    fn varied_rows() -> Vec<Exchange> {
+        let (mut rows, _) = sweep(6, 10);
+        for (i, row) in rows.iter_mut().enumerate() {
+            let skew = u64::from(row.seq * (row.point + 1) * 1000);
+            row.t2_ps = row.t2_ps.map(|t| t + skew);
+            row.t3_ps = row.t3_ps.map(|t| t + skew);
+            if row.burst % 2 == 0 {
+                row.bw_mhz = 40;
+            }
+            row.temp_c = Some(20.0 + (i % 7) as f64);
+        }
+        rows[33].status = "lost".into();
+        for (at, burst) in [(20, 100), (95, 101), (150, 102), (rows.len(), 103)] {
+            let lone = Exchange {
+                burst,
+                ..rows[at - 1].clone()
+            };
+            rows.insert(at, lone);
+        }
+        rows
+    }
+
+    /// No rejection: every delay, a lone exchange's too, counts in its cell's mean.
+    const KEEP_ALL: FitOptions = FitOptions { reject_mad: 1e12 };
+
+    /// A kept delay to the bit: (delay bits, burst, temperature bits).
+    type KeptBits = (u64, u32, u32);
+
+    /// Every cell's delays as kept, cells in key order, once the last burst is closed.
+    fn kept_delays(fitter: &mut Fitter) -> Vec<(CellKey, Vec<KeptBits>)> {
+        fitter.close_burst();
+        let mut cells: Vec<_> = fitter
+            .cells
+            .list
+            .iter()
+            .map(|(cell, samples)| {
+                let samples = samples.iter();
+                let kept = samples.map(|s| (s.k_ps.to_bits(), s.burst, s.temp_c.to_bits()));
+                (*cell, kept.collect())
+            })
+            .collect();
+        cells.sort_by_key(|&(cell, _)| cell);
+        cells
+    }
+
+    /// A fitter per part of `rows` (split at the given row indices), appended in turn: the
+    /// later ones first, so a continuing fitter takes one over too.
+    fn fitter_in_parts(rows: &[Exchange], cuts: &[usize]) -> Fitter {
+        let bounds: Vec<usize> = std::iter::once(0)
+            .chain(cuts.iter().copied())
+            .chain(std::iter::once(rows.len()))
+            .collect();
+        let mut fitters: Vec<Fitter> = bounds
+            .windows(2)
+            .enumerate()
+            .map(|(i, part)| {
+                let mut fitter = if i == 0 {
+                    Fitter::new(deembed(), KEEP_ALL)
+                } else {
+                    Fitter::continuing(deembed(), KEEP_ALL)
+                };
+                for row in &rows[part[0]..part[1]] {
+                    fitter.push(row);
+                }
+                fitter
+            })
+            .collect();
+        while fitters.len() > 1 {
+            let last = fitters.pop().expect("two or more");
+            fitters.last_mut().expect("one or more").append(last);
+        }
+        fitters.pop().expect("one")
+    }
+
+    #[test]
+    fn a_fit_in_parts_appended_is_the_fit_in_one_to_the_bit() {
+        // The reference is the fit of all rows by one fitter; split at every burst boundary
+        // (and at two at once) the appended parts must give the same table, drift and counts,
+        // bursts without their own ratio included (they take the median of every earlier
+        // burst's, which a continuing fitter learns only when appended).
+        let rows = varied_rows();
+        let mut one = Fitter::new(deembed(), KEEP_ALL);
+        for row in &rows {
+            one.push(row);
+        }
+        let delays = kept_delays(&mut one);
+        let whole = one.finish();
+        assert!(whole.summary.bursts_fallback_ratio >= 4);
+        assert!(!whole.drift.is_empty());
+        let boundaries: Vec<usize> = (1..rows.len())
+            .filter(|&i| (rows[i].point, rows[i].burst) != (rows[i - 1].point, rows[i - 1].burst))
+            .collect();
+        assert!(boundaries.len() > 20);
+        // Each cell's delays in file order too, so every sum runs as in one fitter.
+        let cut_sets = boundaries.iter().map(|&cut| vec![cut]);
+        let pairs = boundaries.windows(7).map(|w| vec![w[0], w[6]]);
+        for cuts in cut_sets.chain(pairs) {
+            let mut parts = fitter_in_parts(&rows, &cuts);
+            assert_eq!(kept_delays(&mut parts), delays, "cuts at rows {cuts:?}");
+            assert_eq!(parts.finish(), whole, "cuts at rows {cuts:?}");
+        }
+    }
+
     #[test]
     fn cells_summarised_on_two_threads_match_one_pass_over_the_cells_in_order() {
         // The reference is how the table was computed before cells got a second thread: one
@@ -809,7 +1039,7 @@ mod tests {
         fitter.close_burst();
         let (mut temps, mut scratch) = (TempBins::default(), Scratch::default());
         let (mut want, mut single_bursts, mut skipped) = (Vec::new(), 0, 0);
-        let mut cells = fitter.cells.clone();
+        let mut cells = fitter.cells.list.clone();
         cells.sort_unstable_by_key(|&(cell, _)| cell);
         for (cell, samples) in &cells {
             let mut single_burst = false;
