@@ -276,6 +276,15 @@ impl<R: Read> ExchangeRows<R> {
             Source::Thread(batches) => batches.read_into(row),
         }
     }
+
+    /// Whether every line read so far was plain: no quote, blank line, bare CR or error (see
+    /// [`Splitter`]). Rows read on the reading thread do not say: false.
+    pub(crate) fn all_plain(&self) -> bool {
+        match &self.source {
+            Source::Here(reader) => reader.split.all_plain(),
+            Source::Thread(_) => false,
+        }
+    }
 }
 
 /// Parses the contract columns of `record` into `row`.

@@ -2,6 +2,7 @@
 
 pub mod csv_io;
 pub mod exchange;
+pub mod file_halves;
 pub mod manifest;
 mod plain_line;
 mod record_split;

@@ -110,6 +110,9 @@ pub(crate) struct Splitter<R> {
     index: u64,
     /// Set after an I/O error: the csv crate reads nothing more after one either.
     failed: bool,
+    /// Set once the csv crate has read a record or met an error: a quote, a blank line, a
+    /// bare CR, a field count other than the header's, a last line without its end.
+    unusual: bool,
 }
 
 /// What the scan made of the line at `at`.
@@ -146,6 +149,7 @@ impl<R: Read> Splitter<R> {
             starts: vec![0; fields + 1],
             fields,
             failed: false,
+            unusual: false,
         })
     }
 
@@ -267,6 +271,11 @@ impl<R: Read> Splitter<R> {
         }
     }
 
+    /// Whether every line so far was plain (no line went to the csv crate).
+    pub(crate) fn all_plain(&self) -> bool {
+        !self.unusual
+    }
+
     /// Has the csv crate read the record at `at`, then carries on after it.
     fn by_csv(&mut self) -> csv::Result<Option<Record<'_>>> {
         if self.failed {
@@ -284,6 +293,7 @@ impl<R: Read> Splitter<R> {
         self.at = self.csv.get_ref().offset_of(next.byte());
         self.line = next.line();
         self.index = next.record();
+        self.unusual |= !matches!(read, Ok(false));
         match read {
             Ok(true) => Ok(Some(Record::from_csv(
                 &self.record,
