@@ -2,7 +2,7 @@
 
 pub mod csv_io;
 pub mod exchange;
-pub mod file_halves;
+pub mod file_parts;
 pub mod manifest;
 mod plain_line;
 mod record_split;
