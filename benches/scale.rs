@@ -8,9 +8,10 @@
 //!    file.
 //! 2. `recipes/overnight-soak.toml` dry-run on its simulated bench: `bench_time_s / wall_time_s`
 //!    from the run's manifest.
-//! 3. One SCPI `*IDN?` query through the runner's instrument layer (blocking handle, owner task,
-//!    SCPI client, line link) against the served simulated attenuator on loopback, against a bare
-//!    tokio socket sending the same bytes to the same server.
+//! 3. One SCPI `*IDN?` query through the runner's instrument layer (blocking handle on the
+//!    instrument's own runtime, SCPI client, line link) against the served simulated attenuator
+//!    on loopback, against a bare tokio socket sending the same bytes to the same server from a
+//!    current-thread runtime (and, for comparison, from a multi-thread one).
 //!
 //! Generated files are cached in the work directory by row count and generator version, so a
 //! repeat run skips generation. Every loop is bounded; everything stays on 127.0.0.1.
@@ -490,13 +491,14 @@ fn scpi_section(s: &Settings) -> Result<(f64, f64), Error> {
         .and_then(|(_, p)| p.parse().ok())
         .ok_or("no port in the served address")?;
     let bench = served_bench.reconnect(&[format!("attenuator={address}")])?;
-    // The runner's runtime, as `taucal run` builds it.
+    // A runtime like the one `taucal run` keeps for signals, for the second bare client: the
+    // instruments run on runtimes of their own.
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
         .build()?;
     let clock = Arc::new(BenchClock::new(ClockMode::Virtual));
-    let instruments = connect(&bench, clock, 1, rt.handle()).map_err(|d| d.message.clone())?;
+    let instruments = connect(&bench, clock, 1).map_err(|d| d.message.clone())?;
     let attenuator = instruments.attenuator;
     let bare_rt = tokio::runtime::Builder::new_current_thread()
         .enable_all()
@@ -550,11 +552,11 @@ fn main() -> Result<(), Error> {
         ratios.push(("overnight-soak bench / wall (≥ 3000)".to_string(), r));
     }
     let (vs_current, vs_multi) = scpi_section(&s)?;
-    ratios.push(("SCPI layer / bare, current-thread".to_string(), vs_current));
     ratios.push((
-        "SCPI layer / bare, multi-thread (≤ 1.3)".to_string(),
-        vs_multi,
+        "SCPI layer / bare, current-thread (≤ 1.3)".to_string(),
+        vs_current,
     ));
+    ratios.push(("SCPI layer / bare, multi-thread".to_string(), vs_multi));
     println!("\n== ratios (medians over rounds)");
     for (name, r) in ratios {
         println!("  {name:<42} {r:>10.2}");

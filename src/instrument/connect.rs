@@ -7,7 +7,9 @@ use super::driven_console::DrivenConsole;
 use super::driver_file::{DriverFile, DriverKind};
 use super::scpi_client::ScpiClient;
 use super::transport::{Address, Link};
-use super::{Attenuator, AttenuatorHandle, ChamberHandle, Owned, RangingDevice, RangingHandle};
+use super::{
+    Attenuator, AttenuatorHandle, Chamber, ChamberHandle, Owned, RangingDevice, RangingHandle,
+};
 use crate::bench::Bench;
 use crate::diagnostic::{Diagnostic, KeyError};
 use crate::runner::BenchClock;
@@ -32,14 +34,14 @@ pub struct Instruments {
 /// Where a chamber's safe state leaves its setpoint: room temperature (common practice).
 const ROOM_C: f64 = 25.0;
 
-/// Starts the bench's instruments on `rt`. `seed` overrides a simulated bench's own seed.
+/// Starts the bench's instruments, each on a runtime of its own. `seed` overrides a simulated
+/// bench's own seed.
 /// Driven instruments connect on their first command, so an unreachable instrument stops the
 /// run (with its data kept) rather than failing validation.
 pub fn connect(
     bench: &Bench,
     clock: Arc<BenchClock>,
     seed: u64,
-    rt: &tokio::runtime::Handle,
 ) -> Result<Instruments, Diagnostic> {
     let in_process = |role: &str| bench.roles.get(role).is_none_or(|b| b.address == "sim:");
     let shared = if in_process("attenuator") || in_process("dut") {
@@ -84,16 +86,26 @@ pub fn connect(
     let chamber = match (&shared, bench.roles.get("chamber")) {
         (Some((shared, _)), Some(b)) if b.address == "sim:" => {
             let front = SimChamberFront::new(shared.clone(), ROOM_C);
-            Some(ChamberHandle(Owned::spawn(rt, "chamber", Box::new(front))))
+            let front: Box<dyn Chamber> = Box::new(front);
+            Some(ChamberHandle(spawn("chamber", front)?))
         }
         (_, Some(_)) => return Err(unreachable_role(bench, "chamber")),
         (_, None) => None,
     };
     Ok(Instruments {
-        attenuator: AttenuatorHandle(Owned::spawn(rt, "attenuator", attenuator)),
-        dut: RangingHandle(Owned::spawn(rt, "dut", dut)),
+        attenuator: AttenuatorHandle(spawn("attenuator", attenuator)?),
+        dut: RangingHandle(spawn("dut", dut)?),
         chamber,
     })
+}
+
+/// [`Owned::spawn`], its failure (no runtime could be started) as a diagnostic.
+fn spawn<T: ?Sized + Send + 'static>(
+    role: &str,
+    instrument: Box<T>,
+) -> Result<Owned<T>, Diagnostic> {
+    Owned::spawn(role, instrument)
+        .map_err(|e| Diagnostic::plain(format!("cannot start the runtime for the {role}: {e}")))
 }
 
 /// The driver and link of a role not served in-process (validated when the bench was loaded).

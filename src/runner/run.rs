@@ -158,12 +158,13 @@ pub fn execute(
         (false, _) => ClockMode::Wall,
     };
     let clock = Arc::new(BenchClock::new(mode));
+    // Listens for Ctrl-C; the instruments run on runtimes of their own.
     let rt = tokio::runtime::Builder::new_multi_thread()
-        .worker_threads(2)
+        .worker_threads(1)
         .enable_all()
         .build()
-        .map_err(|e| Diagnostic::plain(format!("cannot start the instrument runtime: {e}")))?;
-    let instruments = connect(&bench, clock.clone(), seed, rt.handle())?;
+        .map_err(|e| Diagnostic::plain(format!("cannot start the signal runtime: {e}")))?;
+    let instruments = connect(&bench, clock.clone(), seed)?;
     let exchanges_path = dir.join(files::EXCHANGES);
     let stop = StopFlag::default();
     stop.listen(rt.handle());

@@ -579,13 +579,17 @@ mod tests {
         }
     }
 
-    fn session(rt: &tokio::runtime::Runtime, failures: u32) -> Session {
+    fn session(failures: u32) -> Session {
         let flaky = Flaky { failures, db: 10.0 };
         Session::new(
             Arc::new(Bench::built_in().expect("demo bench")),
             Arc::new(BenchClock::new(ClockMode::Virtual)),
-            AttenuatorHandle(Owned::spawn(rt.handle(), "attenuator", Box::new(flaky))),
-            RangingHandle(Owned::spawn(rt.handle(), "dut", Box::new(Idle))),
+            AttenuatorHandle(
+                Owned::<dyn Attenuator>::spawn("attenuator", Box::new(flaky)).expect("runtime"),
+            ),
+            RangingHandle(
+                Owned::<dyn RangingDevice>::spawn("dut", Box::new(Idle)).expect("runtime"),
+            ),
             Box::new(Vec::<Exchange>::new()),
             "rows",
         )
@@ -593,15 +597,11 @@ mod tests {
 
     #[test]
     fn the_safe_state_is_retried_as_the_policy_retries_commands() {
-        let rt = tokio::runtime::Builder::new_current_thread()
-            .enable_all()
-            .build()
-            .expect("runtime");
         // The default policy retries three times: three passing faults still end safe.
-        let s = session(&rt, 3);
+        let s = session(3);
         assert!(s.safe_state().is_empty());
         assert_eq!(s.atten.atten_db(), Ok(95.0));
-        let s = session(&rt, 4);
+        let s = session(4);
         let errs = s.safe_state();
         assert_eq!(errs.len(), 1, "{errs:?}");
         assert_eq!(s.atten.atten_db(), Ok(10.0));
