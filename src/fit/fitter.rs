@@ -176,10 +176,29 @@ struct Deferred {
 /// Every delay computed so far, per cell, with the cells in the order first seen.
 #[derive(Default)]
 struct Cells {
-    list: Vec<(CellKey, Vec<Sample>)>,
+    list: Vec<(CellKey, Vec<Segment>)>,
     /// Where each cell is in `list`. Looked up once per burst and cell, not per delay: a map
     /// lookup per delay was a tenth of the fitter's streaming work.
     index: BTreeMap<CellKey, usize>,
+}
+
+/// A cell's delays from one run of bursts, in file order. A fitter files into one segment per
+/// cell; an appended fitter's segments are taken over whole, without copying their delays.
+#[derive(Debug, Clone, Default)]
+struct Segment {
+    /// Added to each delay's burst number for the burst's number in the file.
+    offset: u32,
+    samples: Vec<Sample>,
+}
+
+impl Segment {
+    /// The delays with their bursts' numbers in the file.
+    fn numbered(&self) -> impl Iterator<Item = Sample> + Clone + '_ {
+        self.samples.iter().map(|s| Sample {
+            burst: s.burst.wrapping_add(self.offset),
+            ..*s
+        })
+    }
 }
 
 impl Cells {
@@ -201,6 +220,8 @@ impl Cells {
         delays: &[Option<f64>],
         summary: &mut FitSummary,
     ) {
+        // 2^32 bursts (~7e10 exchanges) before ids repeat.
+        let burst = burst_id as u32;
         // The cell of the delay before, and where it is in `list`.
         let mut last: Option<(CellKey, usize)> = None;
         for (p, &k) in exchanges.into_iter().zip(delays) {
@@ -216,16 +237,33 @@ impl Cells {
                             i
                         }
                     };
-                    self.list[i].1.push(Sample {
+                    let segment = segment_for(&mut self.list[i].1, burst);
+                    segment.samples.push(Sample {
                         k_ps: k,
-                        // 2^32 bursts (~7e10 exchanges) before ids repeat.
-                        burst: burst_id as u32,
+                        burst: burst.wrapping_sub(segment.offset),
                         temp_c: p.temp_c.map_or(f32::NAN, |t| t as f32),
                     });
                 }
             }
         }
     }
+}
+
+/// The segment a delay of `burst` goes into: the last that starts at or before it, or a new
+/// first one. Bursts are filed in order, so it is nearly always the last.
+fn segment_for(segments: &mut Vec<Segment>, burst: u32) -> &mut Segment {
+    let at = segments.partition_point(|s| s.offset <= burst);
+    if at == 0 {
+        segments.insert(
+            0,
+            Segment {
+                offset: burst,
+                samples: Vec::new(),
+            },
+        );
+        return &mut segments[0];
+    }
+    &mut segments[at - 1]
 }
 
 /// A burst's usable exchanges for the correction, and what it makes of them.
@@ -269,15 +307,14 @@ impl Fitter {
         self.close_burst();
         let offset = self.summary.bursts;
         // Bursts are numbered in file order: the later fitter's follow this one's.
-        let renumber = |s: Sample| Sample {
-            burst: s.burst.wrapping_add(offset as u32),
-            ..s
-        };
-        for (cell, samples) in later.cells.list {
+        for (cell, segments) in later.cells.list {
             let i = self.cells.slot(cell);
             self.cells.list[i]
                 .1
-                .extend(samples.into_iter().map(renumber));
+                .extend(segments.into_iter().map(|segment| Segment {
+                    offset: segment.offset.wrapping_add(offset as u32),
+                    ..segment
+                }));
         }
         let mut late_cells = Vec::new();
         if self.continuing {
@@ -311,7 +348,11 @@ impl Fitter {
         late_cells.dedup();
         for cell in late_cells {
             if let Some(&i) = self.cells.index.get(&cell) {
-                self.cells.list[i].1.sort_by_key(|s| s.burst);
+                for segment in &mut self.cells.list[i].1 {
+                    if !segment.samples.is_sorted_by_key(|s| s.burst) {
+                        segment.samples.sort_by_key(|s| s.burst);
+                    }
+                }
             }
         }
         self.ratios.extend(later.ratios);
@@ -535,7 +576,7 @@ struct CellOutcome {
 /// `single_burst` is set when the kept samples all come from one burst.
 fn cell_row(
     (center_mhz, bw_mhz, gain_index): CellKey,
-    samples: &[Sample],
+    segments: &[Segment],
     options: FitOptions,
     temps: &mut TempBins,
     scratch: &mut Scratch,
@@ -543,13 +584,14 @@ fn cell_row(
 ) -> Option<CalRow> {
     let values = &mut scratch.values;
     values.clear();
-    values.extend(samples.iter().map(|s| s.k_ps));
+    let samples = || segments.iter().flat_map(Segment::numbered);
+    values.extend(samples().map(|s| s.k_ps));
     let center = median(values)?;
     // The median of deviations does not depend on their order, so reusing the reordered
     // values gives the same spread as a fresh copy.
     let spread = mad_scaled(values, center)?.max(MAD_FLOOR_PS);
     let limit = options.reject_mad * spread;
-    let kept_samples = samples.iter().filter(|s| (s.k_ps - center).abs() <= limit);
+    let kept_samples = samples().filter(|s| (s.k_ps - center).abs() <= limit);
     for s in kept_samples.clone().filter(|s| s.temp_c.is_finite()) {
         temps.add(
             (center_mhz, bw_mhz, gain_index),
@@ -586,7 +628,7 @@ fn cell_row(
         delay_ps,
         ci95_ps,
         n_used: n as u64,
-        n_rejected: (samples.len() - n) as u64,
+        n_rejected: (samples().count() - n) as u64,
         n_bursts,
         sd_ps,
         source: RowSource::Measured,
@@ -908,8 +950,9 @@ mod tests {
     }
 
     /// Rows with something for every part of a fit to do: three points of bursts whose clock
-    /// ratios differ, two bandwidths, seven temperatures, outliers, an unusable row, and lone
-    /// exchanges (bursts without a ratio of their own) early, in the middle and last.
+    /// ratios differ, three bandwidths, seven temperatures, outliers, an unusable row, and lone
+    /// exchanges (bursts without a ratio of their own) early, in the middle (one in a cell
+    /// that has no delays before it) and last.
     fn varied_rows() -> Vec<Exchange> {
         let (mut rows, _) = sweep(6, 10);
         for (i, row) in rows.iter_mut().enumerate() {
@@ -922,6 +965,10 @@ mod tests {
             row.temp_c = Some(20.0 + (i % 7) as f64);
         }
         rows[33].status = "lost".into();
+        // A cell first filled after a lone exchange in it: 160 MHz, gain state 2.
+        for row in rows.iter_mut().filter(|r| r.point == 2 && r.burst % 3 == 0) {
+            row.bw_mhz = 160;
+        }
         for (at, burst) in [(20, 100), (95, 101), (150, 102), (rows.len(), 103)] {
             let lone = Exchange {
                 burst,
@@ -929,6 +976,8 @@ mod tests {
             };
             rows.insert(at, lone);
         }
+        rows[95].bw_mhz = 160;
+        rows[95].dut_gain = Some(2);
         rows
     }
 
@@ -945,8 +994,8 @@ mod tests {
             .cells
             .list
             .iter()
-            .map(|(cell, samples)| {
-                let samples = samples.iter();
+            .map(|(cell, segments)| {
+                let samples = segments.iter().flat_map(Segment::numbered);
                 let kept = samples.map(|s| (s.k_ps.to_bits(), s.burst, s.temp_c.to_bits()));
                 (*cell, kept.collect())
             })
