@@ -366,6 +366,14 @@ impl Fitter {
         self.pending = later.pending;
     }
 
+    /// Gives back the room the delays kept so far were growing into: for a fitter whose rows
+    /// have ended but that waits to be [`append`](Fitter::append)ed, while others still read.
+    pub fn shrink_to_fit(&mut self) {
+        for (_, segments) in &mut self.cells.list {
+            segments.iter_mut().for_each(|s| s.samples.shrink_to_fit());
+        }
+    }
+
     /// Take one row. Consecutive rows with the same (stage, point, burst) form a burst; a key
     /// seen again after another burst starts a new burst.
     pub fn push(&mut self, x: &Exchange) {

@@ -207,6 +207,8 @@ fn fit_part<R: Read>(
     settings: &FitSettings,
 ) -> Option<(Fitter, Bursts)> {
     let bursts = feed(&mut rows, &mut fitter, settings).ok()?;
+    // Parts wait for each other: growth room held meanwhile would add to the peak.
+    fitter.shrink_to_fit();
     rows.all_plain().then_some((fitter, bursts))
 }
 
