@@ -153,6 +153,14 @@ pub struct FaultPolicy {
     pub skip_failed_points: bool,
 }
 
+impl FaultPolicy {
+    /// The wait before retry number `attempt` (from 1): the backoff, doubled for each retry
+    /// after the first (capped at 2^16 times).
+    pub fn wait_before_ms(&self, attempt: u32) -> f64 {
+        self.backoff_ms * f64::from(1u32 << attempt.saturating_sub(1).min(16))
+    }
+}
+
 impl Default for FaultPolicy {
     fn default() -> Self {
         FaultPolicy {
@@ -867,4 +875,21 @@ fn script(
         channel,
         source: code,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn retry_waits_double_from_the_backoff() {
+        // Exponential backoff, doubling per retry (common practice), capped at 2^16 times.
+        let policy = FaultPolicy {
+            backoff_ms: 200.0,
+            ..FaultPolicy::default()
+        };
+        let waits: Vec<f64> = (1..=4).map(|a| policy.wait_before_ms(a)).collect();
+        assert_eq!(waits, [200.0, 400.0, 800.0, 1600.0]);
+        assert_eq!(policy.wait_before_ms(40), 200.0 * 65536.0);
+    }
 }

@@ -457,7 +457,7 @@ impl Session {
             }
             attempt += 1;
             tally.retries += 1;
-            let wait_ms = self.policy.backoff_ms * f64::from(1u32 << (attempt - 1).min(16));
+            let wait_ms = self.policy.wait_before_ms(attempt);
             tracing::warn!(
                 "{e}; retry {attempt} of {} in {wait_ms} ms",
                 self.policy.retries
@@ -517,7 +517,7 @@ impl Session {
                 Err(e) if attempt >= self.policy.retries => return Err(e),
                 Err(e) => {
                     attempt += 1;
-                    let wait_ms = self.policy.backoff_ms * f64::from(1u32 << (attempt - 1).min(16));
+                    let wait_ms = self.policy.wait_before_ms(attempt);
                     tracing::warn!("safe state: {e}; retry {attempt} in {wait_ms} ms");
                     std::thread::sleep(self.clock.spend(BenchClock::ms_to_ps(wait_ms)));
                 }
