@@ -1,4 +1,4 @@
-//! Typed handles over the owner tasks, one per capability.
+//! Typed handles over the owned instruments, one per capability.
 
 use super::capability::{Attenuator, BurstSpec, Chamber, RangingDevice};
 use super::owner::Owned;
