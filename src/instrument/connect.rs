@@ -1,4 +1,5 @@
-//! From a bench's role bindings to running instruments: each behind its lock on a runtime of its own, handles returned.
+//! From a bench's role bindings to running instruments, each behind its lock on a runtime of its
+//! own; handles returned.
 //! A role at `sim:` is served by the in-process simulated bench; any other address is driven
 //! by the role's driver file over the transport its address names.
 
