@@ -40,6 +40,10 @@ const SPLIT_FROM_BYTES: u64 = 8 << 20;
 /// neighbour on its core) takes fewer, and all end within about a part of each other.
 const PARTS_PER_THREAD: usize = 4;
 
+/// The most threads a fit uses: every part holds its file open until it is read, so parts are
+/// kept to a few dozen however many cores there are.
+const MAX_THREADS: usize = 16;
+
 /// Streams `exchanges` through the fitter with the bench's path and reference delays; rows of
 /// verification stages are set aside and de-embedded burst by burst instead.
 pub fn fit_file(
@@ -61,7 +65,7 @@ fn fit_file_split_from(
     let options = FitOptions {
         reject_mad: settings.reject_mad,
     };
-    let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let threads = std::thread::available_parallelism().map_or(1, |n| n.get().min(MAX_THREADS));
     let in_parts = (threads > 1)
         .then(|| split_at_bursts(exchanges, split_from, threads * PARTS_PER_THREAD))
         .flatten()
