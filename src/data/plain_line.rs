@@ -374,6 +374,29 @@ mod tests {
         bytes
     }
 
+    /// Checks that `read` takes the leading digits of `text` to the value `str::parse` gives
+    /// when there are one to `most` of them, and declines them otherwise.
+    fn reads_as_parse<T>(
+        text: &str,
+        most: usize,
+        read: fn(&[u8], usize, &mut T) -> Option<usize>,
+    ) -> Result<(), TestCaseError>
+    where
+        T: std::str::FromStr + Default + PartialEq + std::fmt::Debug,
+    {
+        let bytes = padded(text);
+        let digits = text.bytes().take_while(u8::is_ascii_digit).count();
+        let mut got = T::default();
+        let end = read(&bytes, 0, &mut got);
+        if (1..=most).contains(&digits) {
+            prop_assert_eq!(end, Some(digits));
+            prop_assert_eq!(Some(got), text[..digits].parse::<T>().ok());
+        } else {
+            prop_assert_eq!(end, None);
+        }
+        Ok(())
+    }
+
     proptest! {
         #[test]
         fn a_float_reads_as_the_standard_library_parses_its_digits(
@@ -396,31 +419,13 @@ mod tests {
         fn a_count_reads_as_the_standard_library_parses_it(text in "[0-9]{0,11}[,a.]?") {
             // Reference: Rust's `str::parse::<u32>` over the leading digits, for one to nine of
             // them; ten or more are declined (the field-by-field reader takes the line).
-            let bytes = padded(&text);
-            let digits = text.bytes().take_while(u8::is_ascii_digit).count();
-            let mut got = u32::MAX;
-            let read = small(&bytes, 0, &mut got);
-            if (1..=9).contains(&digits) {
-                prop_assert_eq!(read, Some(digits));
-                prop_assert_eq!(got, text[..digits].parse::<u32>().expect("digits"));
-            } else {
-                prop_assert_eq!(read, None);
-            }
+            reads_as_parse(&text, 9, small)?;
         }
 
         #[test]
         fn a_timestamp_reads_as_the_standard_library_parses_it(text in "[0-9]{0,17}[,a.]?") {
             // Reference: Rust's `str::parse::<u64>`, for one to fifteen digits.
-            let bytes = padded(&text);
-            let digits = text.bytes().take_while(u8::is_ascii_digit).count();
-            let mut got = u64::MAX;
-            let read = wide(&bytes, 0, &mut got);
-            if (1..=15).contains(&digits) {
-                prop_assert_eq!(read, Some(digits));
-                prop_assert_eq!(got, text[..digits].parse::<u64>().expect("digits"));
-            } else {
-                prop_assert_eq!(read, None);
-            }
+            reads_as_parse(&text, 15, wide)?;
         }
     }
 }

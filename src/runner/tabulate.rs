@@ -284,13 +284,19 @@ mod tests {
         }
     }
 
-    #[test]
-    fn a_file_fitted_in_parts_gives_what_one_pass_gives_to_the_bit() {
-        // Reference: the same file fitted in one pass, never split.
+    /// The demo bench and a [`simulated_file`] of `rounds` rounds in a temporary directory.
+    fn demo_and_file(rounds: u32) -> (Bench, tempfile::TempDir, std::path::PathBuf) {
         let bench = Bench::built_in().expect("demo bench");
         let dir = tempfile::tempdir().expect("temp dir");
         let path = dir.path().join("exchanges.csv");
-        simulated_file(&path, &bench, 300);
+        simulated_file(&path, &bench, rounds);
+        (bench, dir, path)
+    }
+
+    #[test]
+    fn a_file_fitted_in_parts_gives_what_one_pass_gives_to_the_bit() {
+        // Reference: the same file fitted in one pass, never split.
+        let (bench, _dir, path) = demo_and_file(300);
         let settings = FitSettings {
             reject_mad: 5.0,
             verify_stages: vec!["verify".into()],
@@ -327,10 +333,7 @@ mod tests {
     #[test]
     fn a_bad_row_in_any_part_is_reported_as_one_pass_reports_it() {
         // Reference: the error of the one-pass reader, with its line and column.
-        let bench = Bench::built_in().expect("demo bench");
-        let dir = tempfile::tempdir().expect("temp dir");
-        let path = dir.path().join("exchanges.csv");
-        simulated_file(&path, &bench, 60);
+        let (bench, _dir, path) = demo_and_file(60);
         let text = std::fs::read_to_string(&path).expect("read");
         let settings = FitSettings {
             reject_mad: 5.0,
