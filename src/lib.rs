@@ -7,6 +7,7 @@ pub mod data;
 pub mod diagnostic;
 pub mod export;
 pub mod fit;
+pub mod in_turn;
 pub mod instrument;
 pub mod recipe;
 pub mod report;

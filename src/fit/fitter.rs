@@ -13,8 +13,8 @@ use crate::fit::deembed::Deembed;
 use crate::fit::drift::{DriftRow, TempBins};
 use crate::fit::rtt::{burst_offsets, corrected_rtt_from_counters_ps, rate_ratio};
 use crate::fit::stats::{cluster_robust_se, mad_scaled, mean, median, sample_sd, t975};
+use crate::in_turn::in_turn;
 use std::collections::BTreeMap;
-use std::sync::{Mutex, PoisonError};
 
 /// Smallest spread the rejection rule trusts, one counter tick. Below the counters' resolution
 /// the spread is quantisation, not noise, and a zero MAD (many identical values) would otherwise
@@ -426,47 +426,24 @@ impl Fitter {
         // The table's order, the cells' key order.
         let mut cells = self.cells.list;
         cells.sort_unstable_by_key(|&(cell, _)| cell);
-        let queue = Mutex::new(cells.into_iter().enumerate());
-        // Cells in turn until none is left; each cell's samples are freed once summarised.
-        let summarise = || {
-            let mut temps = TempBins::default();
-            let mut scratch = Scratch::default();
-            let mut done = Vec::new();
-            loop {
-                let next = queue.lock().unwrap_or_else(PoisonError::into_inner).next();
-                let Some((i, (cell, samples))) = next else {
-                    return (done, temps);
-                };
+        // Each cell's samples are freed once summarised.
+        let (done, states) = in_turn(
+            cells,
+            2,
+            "fit-cells",
+            || (TempBins::default(), Scratch::default()),
+            |(temps, scratch), (cell, segments)| {
                 let mut single_burst = false;
-                let row = cell_row(
-                    cell,
-                    &samples,
-                    options,
-                    &mut temps,
-                    &mut scratch,
-                    &mut single_burst,
-                );
-                done.push((i, CellOutcome { row, single_burst }));
-            }
-        };
-        let (mut done, temps) = std::thread::scope(|scope| {
-            let helper = std::thread::Builder::new()
-                .name("fit-cells".into())
-                .spawn_scoped(scope, summarise);
-            // Without a second thread, this one summarises every cell.
-            let (mut done, mut temps) = summarise();
-            if let Ok(helper) = helper {
-                let (theirs, their_temps) = helper
-                    .join()
-                    .unwrap_or_else(|panic| std::panic::resume_unwind(panic));
-                done.extend(theirs);
-                temps.merge(their_temps);
-            }
-            (done, temps)
-        });
-        done.sort_by_key(|&(i, _)| i);
+                let row = cell_row(cell, &segments, options, temps, scratch, &mut single_burst);
+                CellOutcome { row, single_burst }
+            },
+        );
+        let mut temps = TempBins::default();
+        for (theirs, _) in states {
+            temps.merge(theirs);
+        }
         let mut rows = Vec::with_capacity(done.len());
-        for (_, cell) in done {
+        for cell in done {
             self.summary.cells_single_burst += u64::from(cell.single_burst);
             match cell.row {
                 Some(row) => rows.push(row),

@@ -9,9 +9,10 @@ use crate::data::{read_exchanges, Exchange, ReadError};
 use crate::fit::model::{fill_table, ModelOptions};
 use crate::fit::verify::Checked;
 use crate::fit::{burst_delays, caltable, Deembed, FitOptions, FitResult, Fitter};
+use crate::in_turn::in_turn;
 use std::io::Read;
 use std::path::Path;
-use std::sync::{Mutex, PoisonError};
+use std::sync::atomic::{AtomicBool, Ordering};
 
 /// How the table is fitted.
 #[derive(Debug, Clone, PartialEq)]
@@ -152,49 +153,28 @@ fn fit_parts(
     options: FitOptions,
     settings: &FitSettings,
 ) -> Option<(Fitter, Bursts)> {
-    let count = parts.len();
-    let queue = Mutex::new(parts.into_iter().enumerate());
-    let fitted: Mutex<Vec<Option<(Fitter, Bursts)>>> =
-        Mutex::new(std::iter::repeat_with(|| None).take(count).collect());
-    // Parts in turn until none is left; a part that is not plain fails the whole split.
-    let work = || loop {
-        let next = queue.lock().unwrap_or_else(PoisonError::into_inner).next();
-        let Some((i, rows)) = next else {
-            return true;
-        };
-        let fitter = if i == 0 {
-            Fitter::new(deembed.clone(), options)
-        } else {
-            Fitter::continuing(deembed.clone(), options)
-        };
-        let Some(done) = fit_part(rows, fitter, settings) else {
-            return false;
-        };
-        fitted.lock().unwrap_or_else(PoisonError::into_inner)[i] = Some(done);
-    };
-    let all_plain = std::thread::scope(|scope| {
-        let helpers: Vec<_> = (1..threads.min(count))
-            .filter_map(|n| {
-                let builder = std::thread::Builder::new().name(format!("fit-parts-{n}"));
-                builder.spawn_scoped(scope, work).ok()
-            })
-            .collect();
-        // Without helpers, this thread fits every part.
-        let mine = work();
-        helpers.into_iter().fold(mine, |ok, helper| {
-            let theirs = helper
-                .join()
-                .unwrap_or_else(|panic| std::panic::resume_unwind(panic));
-            ok && theirs
-        })
-    });
-    if !all_plain {
-        return None;
-    }
-    let mut fitted = fitted
-        .into_inner()
-        .unwrap_or_else(PoisonError::into_inner)
-        .into_iter();
+    // A part that is not plain fails the whole split: the parts not yet taken are skipped.
+    let failed = AtomicBool::new(false);
+    let (fitted, _) = in_turn(
+        parts.into_iter().enumerate().collect(),
+        threads,
+        "fit-parts",
+        || (),
+        |(), (i, rows)| {
+            if failed.load(Ordering::Relaxed) {
+                return None;
+            }
+            let fitter = if i == 0 {
+                Fitter::new(deembed.clone(), options)
+            } else {
+                Fitter::continuing(deembed.clone(), options)
+            };
+            let done = fit_part(rows, fitter, settings);
+            failed.fetch_or(done.is_none(), Ordering::Relaxed);
+            done
+        },
+    );
+    let mut fitted = fitted.into_iter();
     let (mut fitter, mut bursts) = fitted.next()??;
     for part in fitted {
         let (later, later_bursts) = part?;
