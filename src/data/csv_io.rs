@@ -500,6 +500,7 @@ impl Num for u64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::data::record_split::Trickle;
 
     fn row(seq: u32) -> Exchange {
         Exchange {
@@ -800,23 +801,9 @@ mod tests {
         }
     }
 
-    /// Hands out at most `step` bytes per read, so reads end anywhere in a line.
-    struct Trickle {
-        bytes: std::io::Cursor<Vec<u8>>,
-        step: usize,
-    }
-
-    impl Read for Trickle {
-        fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
-            let n = self.step.min(out.len());
-            self.bytes.read(&mut out[..n])
-        }
-    }
-
     /// The reader on this thread, reading `block` bytes at a time, `step` at most per read.
     fn read_here(text: &str, block: usize, step: usize) -> ExchangeRows<Trickle> {
-        let bytes = std::io::Cursor::new(text.as_bytes().to_vec());
-        let reader = RowReader::new(Trickle { bytes, step }, "e.csv".into(), block);
+        let reader = RowReader::new(Trickle::new(text.as_bytes(), step), "e.csv".into(), block);
         ExchangeRows {
             source: Source::Here(Box::new(reader.expect("header"))),
         }
@@ -824,8 +811,7 @@ mod tests {
 
     /// The reader on its own thread, in batches, reading `block` bytes at a time.
     fn read_on_thread(text: &str, block: usize, step: usize) -> ExchangeRows<Trickle> {
-        let bytes = std::io::Cursor::new(text.as_bytes().to_vec());
-        let reader = RowReader::new(Trickle { bytes, step }, "e.csv".into(), block);
+        let reader = RowReader::new(Trickle::new(text.as_bytes(), step), "e.csv".into(), block);
         let batches = Batches::spawn(reader.expect("header"), "test-read").expect("thread");
         ExchangeRows {
             source: Source::Thread(batches),

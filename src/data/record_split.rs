@@ -433,25 +433,37 @@ impl<R: Read> Seek for Window<R> {
     }
 }
 
+/// A reader for tests that hands out at most `step` bytes per read, so reads end anywhere in a
+/// line.
+#[cfg(test)]
+pub(crate) struct Trickle {
+    bytes: io::Cursor<Vec<u8>>,
+    step: usize,
+}
+
+#[cfg(test)]
+impl Trickle {
+    /// Reads a copy of `bytes`.
+    pub(crate) fn new(bytes: &[u8], step: usize) -> Self {
+        Trickle {
+            bytes: io::Cursor::new(bytes.to_vec()),
+            step,
+        }
+    }
+}
+
+#[cfg(test)]
+impl Read for Trickle {
+    fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
+        let n = self.step.min(out.len());
+        self.bytes.read(&mut out[..n])
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
     use proptest::prelude::*;
-
-    /// Hands out at most `step` bytes per read, so reads end anywhere in a line.
-    struct Trickle<'a> {
-        bytes: &'a [u8],
-        step: usize,
-    }
-
-    impl Read for Trickle<'_> {
-        fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
-            let n = self.step.min(out.len()).min(self.bytes.len());
-            out[..n].copy_from_slice(&self.bytes[..n]);
-            self.bytes = &self.bytes[n..];
-            Ok(n)
-        }
-    }
 
     /// A reading of a file: its header, then each record's fields and line (`None` where the
     /// caller's parser took the line whole, which names no line), or an error's text.
@@ -489,7 +501,8 @@ mod tests {
         step: usize,
         whole: bool,
     ) -> Result<Reading, String> {
-        let mut split = Splitter::new(Trickle { bytes, step }, block).map_err(|e| e.to_string())?;
+        let mut split =
+            Splitter::new(Trickle::new(bytes, step), block).map_err(|e| e.to_string())?;
         let header = split.header().map_err(|e| e.to_string())?;
         let header: Vec<Vec<u8>> = header.iter().map(<[u8]>::to_vec).collect();
         let fields = header.len();
