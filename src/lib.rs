@@ -14,3 +14,4 @@ pub mod report;
 pub mod runner;
 pub mod script;
 pub mod sim;
+pub mod toml_input;

@@ -1,7 +1,7 @@
 //! A battery of bad inputs: each ends with exit status 2, a message that names the file, line
 //! and column where there is one, no panic, and no run directory.
 
-use crate::support::{repo, Taucal};
+use crate::support::{repo, Outcome, Taucal};
 
 const GOOD: &str = r#"[recipe]
 name = "probe"
@@ -111,6 +111,128 @@ fn receiver_protection_refuses_a_level_above_max_input() {
         &[],
         "r.toml:12:12",
         "above its max_input_dbm",
+    );
+}
+
+#[test]
+fn receiver_protection_holds_at_the_exact_limit() {
+    // The demo bench: the reference's 15 dBm less 8 dB of fixed loss may put at most −10 dBm
+    // into the DUT, so 17 dB is the least attenuation allowed (README, "Bench files").
+    refused(
+        &edit("[40.0, 50.0]", "[16.75]"),
+        &[],
+        "r.toml:12:12",
+        "16.75 dB puts -9.75 dBm into the DUT",
+    );
+    Taucal::new()
+        .file("r.toml", &edit("[40.0, 50.0]", "[17.0]"))
+        .args(["check", "r.toml"])
+        .run()
+        .expect_code(0);
+}
+
+#[test]
+fn receiver_protection_checks_every_point_of_a_list() {
+    refused(
+        &edit("[40.0, 50.0]", "[40.0, 45.0, 16.75, 50.0, 60.0]"),
+        &[],
+        "r.toml:12:12",
+        "16.75 dB puts",
+    );
+}
+
+/// The demo bench with the DUT transmitting `dut_tx` dBm and the reference `ref_tx` dBm and
+/// taking at most `ref_max` dBm; `check` of a one-point recipe at `atten_db` on it.
+fn checked_on_asymmetric_bench(dut_tx: f64, ref_tx: f64, ref_max: f64, atten_db: f64) -> Outcome {
+    let bench = std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("demo");
+    let bench = bench
+        .replacen(
+            "[dut]\ntx_power_dbm = 15.0",
+            &format!("[dut]\ntx_power_dbm = {dut_tx:.1}"),
+            1,
+        )
+        .replacen(
+            "tx_power_dbm = 15.0\nmax_input_dbm = -10.0\nmin_input_dbm = -82.0\n\n[sim]",
+            &format!(
+                "tx_power_dbm = {ref_tx:.1}\nmax_input_dbm = {ref_max:.1}\nmin_input_dbm = -82.0\n\n[sim]"
+            ),
+            1,
+        );
+    assert!(bench.contains(&format!(
+        "max_input_dbm = {ref_max:.1}\nmin_input_dbm = -82.0\n\n[sim]"
+    )));
+    Taucal::new()
+        .file("r.toml", &edit("[40.0, 50.0]", &format!("[{atten_db:.2}]")))
+        .file("b.toml", &bench)
+        .args(["check", "r.toml", "--bench", "b.toml"])
+        .run()
+}
+
+#[test]
+fn receiver_protection_on_an_asymmetric_bench_uses_the_other_units_power() {
+    // Each receiver takes the other unit's transmit power (README, "Bench files"), less 8 dB of
+    // fixed loss and the attenuation A; the DUT takes at most −10 dBm.
+    // 1. The DUT transmits 20 dBm, the reference 5 dBm and takes at most −25 dBm: into the DUT
+    //    5 − 8 − A ≤ −10 needs A ≥ 7, into the reference 20 − 8 − A ≤ −25 needs A ≥ 37.
+    let out = checked_on_asymmetric_bench(20.0, 5.0, -25.0, 36.75);
+    out.expect_code(2);
+    assert!(
+        out.stderr
+            .contains("36.75 dB puts -24.75 dBm into the reference unit"),
+        "{}",
+        out.stderr
+    );
+    checked_on_asymmetric_bench(20.0, 5.0, -25.0, 37.0).expect_code(0);
+    // 2. The reference transmits 20 dBm, the DUT 5 dBm, both take at most −10 dBm: into the DUT
+    //    20 − 8 − A ≤ −10 needs A ≥ 22, into the reference 5 − 8 − A ≤ −10 needs A ≥ 7.
+    let out = checked_on_asymmetric_bench(5.0, 20.0, -10.0, 21.75);
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains("21.75 dB puts -9.75 dBm into the DUT"),
+        "{}",
+        out.stderr
+    );
+    checked_on_asymmetric_bench(5.0, 20.0, -10.0, 22.0).expect_code(0);
+}
+
+#[test]
+fn non_finite_numbers_in_a_bench_are_refused_where_they_stand() {
+    for (from, to) in [
+        ("max_input_dbm = -10.0", "max_input_dbm = nan"),
+        ("min_input_dbm = -82.0", "min_input_dbm = -inf"),
+        ("tx_power_dbm = 15.0", "tx_power_dbm = nan"),
+        ("fixed_loss_db = 8.0", "fixed_loss_db = inf"),
+    ] {
+        let bench = std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("demo");
+        let at = bench.find(from).expect(from);
+        let line = bench[..at].matches('\n').count() + 1;
+        bench_refused(from, to, &format!("b.toml:{line}:"), "not a finite number");
+    }
+}
+
+#[test]
+fn a_power_level_no_bench_can_have_is_refused() {
+    bench_refused(
+        "max_input_dbm = -10.0",
+        "max_input_dbm = 1e6",
+        "`dut.max_input_dbm`",
+        "not a power level",
+    );
+}
+
+#[test]
+fn non_finite_numbers_in_a_recipe_are_refused() {
+    refused(
+        &edit("[40.0, 50.0]", "[40.0, nan]"),
+        &[],
+        "r.toml:12:",
+        "not a finite number",
+    );
+    refused(
+        &edit("bursts = 2", "bursts = 2\nlevel = inf"),
+        &[],
+        "r.toml:6:9",
+        "not a finite number",
     );
 }
 

@@ -1,7 +1,7 @@
 //! Reading a bench file: raw TOML structs, then a validated [`Bench`].
 
 use super::{PathFacts, PerGain, TimingFacts};
-use crate::diagnostic::{self, Diagnostic, KeyError, SourceFile};
+use crate::diagnostic::{Diagnostic, KeyError, SourceFile};
 use crate::instrument::driver_file::{
     DriverFile, DriverKind, KIND_ATTENUATOR, KIND_RANGING_CONSOLE,
 };
@@ -16,6 +16,16 @@ pub const BUILT_IN_DEMO: &str = include_str!("../../recipes/benches/sim-demo.tom
 
 /// Label under which the built-in bench appears in messages and manifests.
 pub const BUILT_IN_LABEL: &str = "<built-in sim-demo bench>";
+
+/// Power levels a bench may declare: below −200 dBm nothing is measurable, above +60 dBm (a
+/// kilowatt) no bench of this kind transmits; anything outside is a typo.
+pub const LEVEL_DBM: std::ops::RangeInclusive<f64> = -200.0..=60.0;
+
+/// True only when `level` is a number no higher than `limit`. Protection asks this question
+/// rather than "is it above?", which a NaN would answer no.
+fn within(level: f64, limit: f64) -> bool {
+    level <= limit
+}
 
 /// The roles every bench fills.
 pub const ROLES: [&str; 3] = ["attenuator", "dut", "reference"];
@@ -154,8 +164,7 @@ impl Bench {
 
     /// Parses and validates bench text.
     pub fn parse(source: SourceFile) -> Result<Bench, Diagnostic> {
-        let raw: RawBench =
-            toml::from_str(&source.text).map_err(|e| diagnostic::from_toml(&source, &e))?;
+        let raw: RawBench = crate::toml_input::parse(&source)?;
         let bench = Bench {
             name: raw.bench.name,
             description: raw.bench.description,
@@ -265,8 +274,23 @@ impl Bench {
                         "use a multiple of the driver's step",
                     ));
                 }
+                if let Some((exposed, _)) = self.exposes_receivers(a.safe_atten_db) {
+                    return Err(KeyError::new(
+                        key,
+                        format!(
+                            "`{}`'s safe state leaves the receivers exposed: {exposed}",
+                            driver.name
+                        ),
+                        format!(
+                            "a safe state must protect both receivers: set the driver's \
+                             [safe_state] atten_db to at least {:.2} dB, or leave it out \
+                             (maximum attenuation)",
+                            self.min_safe_atten_db()
+                        ),
+                    ));
+                }
                 let into = self.dut.tx_power_dbm.max(self.reference.tx_power_dbm);
-                if into > a.max_input_dbm {
+                if !within(into, a.max_input_dbm) {
                     return Err(KeyError::new(
                         "attenuator",
                         format!("can receive {into} dBm, above driver `{}`'s max_input_dbm {} dBm", driver.name, a.max_input_dbm),
@@ -281,7 +305,7 @@ impl Bench {
                 } else {
                     self.reference.max_input_dbm
                 };
-                if limit > c.max_input_dbm {
+                if !within(limit, c.max_input_dbm) {
                     return Err(KeyError::new(
                         format!("{role}.max_input_dbm"),
                         format!(
@@ -311,24 +335,38 @@ impl Bench {
         self.dut.tx_power_dbm - self.path.fixed_loss_db - atten_db
     }
 
+    /// The lowest attenuation at which neither receiver gets more than its `max_input_dbm`,
+    /// each receiving the other unit's transmit power. NaN when any input is not finite, which
+    /// every caller must treat as "no setting is safe".
+    pub fn min_safe_atten_db(&self) -> f64 {
+        let loss = self.path.fixed_loss_db;
+        let into_dut = self.reference.tx_power_dbm - loss - self.dut.max_input_dbm;
+        let into_reference = self.dut.tx_power_dbm - loss - self.reference.max_input_dbm;
+        // f64::max would drop a NaN and keep the other side: protection must not.
+        if into_dut.is_finite() && into_reference.is_finite() {
+            into_dut.max(into_reference)
+        } else {
+            f64::NAN
+        }
+    }
+
     /// The attenuation range in which both receivers stay between their minimum and maximum
-    /// input levels and the attenuator can go, snapped inward to its step grid.
+    /// input levels and the attenuator can go, snapped inward to its step grid. `None` when
+    /// there is none, or when any level it depends on is not finite.
     pub fn usable_atten_db(&self) -> Option<(f64, f64)> {
         let loss = self.path.fixed_loss_db;
-        let lo = [
-            self.attenuator.range_db[0],
-            self.reference.tx_power_dbm - loss - self.dut.max_input_dbm,
-            self.dut.tx_power_dbm - loss - self.reference.max_input_dbm,
-        ]
-        .into_iter()
-        .fold(f64::MIN, f64::max);
-        let hi = [
+        let lowest = [self.attenuator.range_db[0], self.min_safe_atten_db()];
+        let highest = [
             self.attenuator.range_db[1],
             self.reference.tx_power_dbm - loss - self.dut.min_input_dbm,
             self.dut.tx_power_dbm - loss - self.reference.min_input_dbm,
-        ]
-        .into_iter()
-        .fold(f64::MAX, f64::min);
+        ];
+        // f64::max and min drop a NaN: look at every term first.
+        if !lowest.iter().chain(&highest).all(|v| v.is_finite()) {
+            return None;
+        }
+        let lo = lowest.into_iter().fold(f64::MIN, f64::max);
+        let hi = highest.into_iter().fold(f64::MAX, f64::min);
         let step = self.attenuator.step_db;
         let (lo, hi) = ((lo / step).ceil() * step, (hi / step).floor() * step);
         (lo <= hi).then_some((lo, hi))
@@ -338,14 +376,14 @@ impl Bench {
     /// range or grid, or a receive level above a receiver's maximum input.
     pub fn refuse_atten(&self, atten_db: f64) -> Option<(String, String)> {
         let [lo, hi] = self.attenuator.range_db;
-        if !atten_db.is_finite() || atten_db < lo - 1e-9 || atten_db > hi + 1e-9 {
+        if !(atten_db.is_finite() && atten_db >= lo - 1e-9 && atten_db <= hi + 1e-9) {
             return Some((
                 format!("{atten_db} dB is outside the attenuator's range {lo}..{hi} dB"),
                 format!("choose settings between {lo} and {hi} dB"),
             ));
         }
         let steps = atten_db / self.attenuator.step_db;
-        if (steps - steps.round()).abs() > 1e-6 {
+        if !within((steps - steps.round()).abs(), 1e-6) {
             return Some((
                 format!(
                     "{atten_db} dB is not on the attenuator's {} dB grid",
@@ -354,30 +392,47 @@ impl Bench {
                 format!("use multiples of {} dB", self.attenuator.step_db),
             ));
         }
-        let dut = self.dut_rx_dbm(atten_db);
-        if dut > self.dut.max_input_dbm {
+        self.exposes_receivers(atten_db)
+    }
+
+    /// Why `atten_db` would put more than a receiver's `max_input_dbm` into it, if it would.
+    /// Written so that any non-finite level is refused: every comparison asks "is it safe?",
+    /// which NaN answers no.
+    pub fn exposes_receivers(&self, atten_db: f64) -> Option<(String, String)> {
+        let keep = |min_db: f64| {
+            format!(
+                "RF power above a receiver's limit can destroy it: keep attenuation at or above \
+                 {min_db:.2} dB (the bench's powers, losses and limits must all be finite)"
+            )
+        };
+        let min_safe_db = self.min_safe_atten_db();
+        if !min_safe_db.is_finite() {
             return Some((
                 format!(
-                    "{atten_db} dB puts {dut:.1} dBm into the DUT, above its max_input_dbm {:.1} dBm",
+                    "{atten_db} dB cannot be judged safe: the bench's transmit powers, fixed loss \
+                     or input limits are not all finite numbers"
+                ),
+                "give every power, loss and limit as a finite number".to_string(),
+            ));
+        }
+        let dut = self.dut_rx_dbm(atten_db);
+        if !within(dut, self.dut.max_input_dbm) {
+            return Some((
+                format!(
+                    "{atten_db} dB puts {dut:.2} dBm into the DUT, above its max_input_dbm {:.2} dBm",
                     self.dut.max_input_dbm
                 ),
-                format!(
-                    "RF power above a receiver's limit can destroy it: keep attenuation at or above {:.1} dB",
-                    self.reference.tx_power_dbm - self.path.fixed_loss_db - self.dut.max_input_dbm
-                ),
+                keep(min_safe_db),
             ));
         }
         let reference = self.reference_rx_dbm(atten_db);
-        if reference > self.reference.max_input_dbm {
+        if !within(reference, self.reference.max_input_dbm) {
             return Some((
                 format!(
-                    "{atten_db} dB puts {reference:.1} dBm into the reference unit, above its max_input_dbm {:.1} dBm",
+                    "{atten_db} dB puts {reference:.2} dBm into the reference unit, above its max_input_dbm {:.2} dBm",
                     self.reference.max_input_dbm
                 ),
-                format!(
-                    "RF power above a receiver's limit can destroy it: keep attenuation at or above {:.1} dB",
-                    self.dut.tx_power_dbm - self.path.fixed_loss_db - self.reference.max_input_dbm
-                ),
+                keep(min_safe_db),
             ));
         }
         None
@@ -530,6 +585,24 @@ impl Bench {
             ));
         }
         for (unit, f) in [("dut", &self.dut), ("reference", &self.reference_levels())] {
+            for (key, v) in [
+                ("tx_power_dbm", f.tx_power_dbm),
+                ("max_input_dbm", f.max_input_dbm),
+                ("min_input_dbm", f.min_input_dbm),
+            ] {
+                if !(v.is_finite() && LEVEL_DBM.contains(&v)) {
+                    return Err(KeyError::new(
+                        format!("{unit}.{key}"),
+                        format!("{v} dBm is not a power level a bench can have"),
+                        format!(
+                            "give a finite level from {} to {} dBm; receiver protection is \
+                             computed from it",
+                            LEVEL_DBM.start(),
+                            LEVEL_DBM.end()
+                        ),
+                    ));
+                }
+            }
             if f.min_input_dbm >= f.max_input_dbm {
                 return Err(KeyError::new(
                     format!("{unit}.min_input_dbm"),
@@ -560,6 +633,139 @@ impl Bench {
             tx_power_dbm: self.reference.tx_power_dbm,
             max_input_dbm: self.reference.max_input_dbm,
             min_input_dbm: self.reference.min_input_dbm,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn demo() -> Bench {
+        Bench::built_in().expect("demo bench")
+    }
+
+    /// Every setting of the demo attenuator's grid, 0 to 95 dB in 0.25 dB.
+    fn every_setting() -> impl Iterator<Item = f64> {
+        (0..=380).map(|k| f64::from(k) * 0.25)
+    }
+
+    #[test]
+    fn the_demo_limit_is_17_db_exactly() {
+        // 15 dBm − 8 dB − A ≤ −10 dBm ⇔ A ≥ 17 dB, for both receivers (README, "Bench files").
+        let b = demo();
+        assert_eq!(b.min_safe_atten_db(), 17.0);
+        let (why, _) = b.refuse_atten(16.75).expect("refused");
+        assert!(why.contains("puts -9.75 dBm into the DUT"), "{why}");
+        assert_eq!(b.refuse_atten(17.0), None);
+        assert_eq!(b.usable_atten_db(), Some((17.0, 89.0)));
+    }
+
+    #[test]
+    fn a_non_finite_level_anywhere_in_the_computation_refuses_every_setting() {
+        // A bench built in code skips the file checks: protection must hold on its own.
+        let spoilers: [(&str, fn(&mut Bench)); 7] = [
+            ("dut.max_input_dbm", |b| b.dut.max_input_dbm = f64::NAN),
+            ("reference.max_input_dbm", |b| {
+                b.reference.max_input_dbm = f64::NAN
+            }),
+            ("dut.tx_power_dbm", |b| b.dut.tx_power_dbm = f64::NAN),
+            ("reference.tx_power_dbm", |b| {
+                b.reference.tx_power_dbm = f64::INFINITY
+            }),
+            ("path.fixed_loss_db", |b| b.path.fixed_loss_db = f64::NAN),
+            ("dut.min_input_dbm", |b| b.dut.min_input_dbm = f64::NAN),
+            ("dut.max_input_dbm = inf", |b| {
+                b.dut.max_input_dbm = f64::INFINITY
+            }),
+        ];
+        for (what, spoil) in spoilers {
+            let mut b = demo();
+            spoil(&mut b);
+            assert_eq!(b.usable_atten_db(), None, "{what}");
+            if what != "dut.min_input_dbm" {
+                for a in every_setting() {
+                    assert!(b.refuse_atten(a).is_some(), "{what}: {a} dB allowed");
+                }
+            }
+        }
+        assert!(demo().refuse_atten(f64::NAN).is_some());
+    }
+
+    #[test]
+    fn the_file_checks_refuse_non_finite_and_impossible_levels() {
+        for (from, to, key) in [
+            (
+                "max_input_dbm = -10.0",
+                "max_input_dbm = nan",
+                "dut.max_input_dbm",
+            ),
+            (
+                "tx_power_dbm = 15.0",
+                "tx_power_dbm = inf",
+                "dut.tx_power_dbm",
+            ),
+            (
+                "min_input_dbm = -82.0",
+                "min_input_dbm = -1e9",
+                "dut.min_input_dbm",
+            ),
+        ] {
+            let text = BUILT_IN_DEMO.replacen(from, to, 1);
+            let e = Bench::parse(SourceFile::new("b.toml", text)).expect_err(to);
+            assert!(e.message.contains(key), "{to}: {}", e.message);
+        }
+    }
+
+    /// The demo bench with its attenuator driven by the first attenuator driver file shipped
+    /// in `drivers/`, its `[safe_state]` replaced by `safe_state`.
+    fn driven_bench(safe_state: &str) -> Result<Bench, Diagnostic> {
+        let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("drivers");
+        let mut files: Vec<_> = std::fs::read_dir(&shipped)
+            .expect("drivers folder")
+            .map(|e| e.expect("entry").path())
+            .collect();
+        files.sort();
+        let driver = files
+            .iter()
+            .map(|p| std::fs::read_to_string(p).expect("driver"))
+            .find(|t| t.contains("kind = \"attenuator\"") && t.contains("\n[safe_state]\n"))
+            .expect("an attenuator driver");
+        let at = driver.find("\n[safe_state]\n").expect("safe state table");
+        let driver = format!("{}\n[safe_state]\n{safe_state}\n", &driver[..at]);
+        let dir = tempfile::tempdir().expect("temp dir");
+        std::fs::create_dir(dir.path().join("drivers")).expect("mkdir");
+        std::fs::write(dir.path().join("drivers/att.toml"), driver).expect("write");
+        let text = BUILT_IN_DEMO.replacen(
+            "attenuator = { driver = \"sim-attenuator\", address = \"sim:\" }",
+            "attenuator = { driver = \"att\", address = \"tcp:127.0.0.1:5025\" }",
+            1,
+        );
+        let text = text.replacen("[bench]\n", "[bench]\ndrivers_dir = \"drivers\"\n", 1);
+        Bench::parse(SourceFile::new(dir.path().join("b.toml"), text))
+    }
+
+    #[test]
+    fn a_driver_safe_state_must_protect_the_receivers() {
+        let e = driven_bench("atten_db = 0.0").expect_err("0 dB is no safe state");
+        assert!(e.message.contains("leaves the receivers exposed"), "{e}");
+        assert!(
+            e.hint
+                .as_deref()
+                .unwrap_or("")
+                .contains("at least 17.00 dB"),
+            "{e}"
+        );
+        let e = driven_bench("atten_db = 16.75").expect_err("just under the limit");
+        assert!(e.message.contains("exposed"), "{e}");
+        let b = driven_bench("atten_db = 17.0").expect("the limit itself protects");
+        let b2 = driven_bench("").expect("maximum by default");
+        for (bench, want) in [(b, 17.0), (b2, 95.0)] {
+            let Some(DriverKind::Attenuator(a)) = bench.drivers.get("attenuator").map(|d| &d.kind)
+            else {
+                panic!("driven attenuator");
+            };
+            assert_eq!(a.safe_atten_db, want);
         }
     }
 }

@@ -117,7 +117,8 @@ fn significant(v: f64) -> String {
 fn failure_text(f: &crate::runner::RunError) -> String {
     match f {
         crate::runner::RunError::Script(d) => d.to_string(),
-        crate::runner::RunError::Refused { message, hint } => {
+        crate::runner::RunError::Refused { message, hint }
+        | crate::runner::RunError::Exposed { message, hint } => {
             Diagnostic::plain(format!("run stopped: {message}"))
                 .with_hint(hint.clone())
                 .to_string()

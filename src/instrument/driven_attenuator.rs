@@ -4,7 +4,7 @@
 
 use super::driver_file::AttenuatorDriver;
 use super::scpi_client::{ScpiClient, ScpiError};
-use super::template::Value;
+use super::template::{same_setting, Value};
 use super::{Attenuator, InstrumentError};
 use async_trait::async_trait;
 use std::collections::BTreeMap;
@@ -86,6 +86,15 @@ impl Attenuator for DrivenAttenuator {
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
         if let Some(why) = self.refuse(db) {
             return Err(self.failed(why));
+        }
+        // What the instrument will read must be what the bench's protection checked (a driver
+        // file's format is checked at load time too; this holds for any value asked for).
+        let sent = self.driver.set_atten.as_sent("db", db);
+        if !sent.is_some_and(|sent| same_setting(sent, db)) {
+            return Err(self.failed(format!(
+                "the driver's set_atten format would send {} for {db} dB; nothing was sent",
+                sent.map_or("no number".to_string(), |v| format!("{v} dB"))
+            )));
         }
         let command = self
             .driver

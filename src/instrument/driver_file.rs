@@ -7,7 +7,7 @@
 //! line, like recipe and bench errors. Nothing here talks to an instrument.
 
 use super::template::{ParamKind, Template};
-use crate::diagnostic::{self, did_you_mean, Diagnostic, KeyError, SourceFile};
+use crate::diagnostic::{did_you_mean, Diagnostic, KeyError, SourceFile};
 use regex::Regex;
 use serde::Deserialize;
 use std::collections::BTreeMap;
@@ -228,8 +228,7 @@ impl DriverFile {
 
     /// Parses and validates driver-file text.
     pub fn parse(name: &str, source: SourceFile) -> Result<DriverFile, Diagnostic> {
-        let raw: RawDriver =
-            toml::from_str(&source.text).map_err(|e| diagnostic::from_toml(&source, &e))?;
+        let raw: RawDriver = crate::toml_input::parse(&source)?;
         build(name, raw)
             .map_err(|e| source.key_error(e))
             .map(|mut d| {
@@ -481,18 +480,32 @@ fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
         raw.timing.settle_ms.unwrap_or(0.0),
         "5.0",
     )?;
-    let safe_atten_db = raw.safe_state.atten_db.ok_or_else(|| {
-        KeyError::new(
-            "safe_state",
-            "has no `atten_db`",
-            format!("the safe state is the highest attenuation: `atten_db = {hi}`"),
-        )
-    })?;
-    if !(safe_atten_db.is_finite() && (lo..=hi).contains(&safe_atten_db)) {
+    // Maximum attenuation unless the file says otherwise; a bench then checks that the
+    // setting protects its receivers (`Bench::fits`).
+    let safe_atten_db = raw.safe_state.atten_db.unwrap_or(hi);
+    let safe_steps = (safe_atten_db - lo) / step_db;
+    if !(safe_atten_db.is_finite()
+        && (lo..=hi).contains(&safe_atten_db)
+        && (safe_steps - safe_steps.round()).abs() <= 1e-6)
+    {
         return Err(KeyError::new(
             "safe_state.atten_db",
-            format!("{safe_atten_db} dB is outside range_db"),
-            format!("use the highest setting, {hi}"),
+            format!(
+                "{safe_atten_db} dB is not a setting of this attenuator (range_db and step_db)"
+            ),
+            format!("use the highest setting, {hi}, or leave the key out (that is the default)"),
+        ));
+    }
+    if let Some(sent) = set_atten.misrendered("db", lo, hi, step_db) {
+        return Err(KeyError::new(
+            "command.set_atten",
+            format!(
+                "would send {} dB for the setting {} dB: its format has fewer decimals than the \
+                 {step_db} dB grid needs",
+                sent.1, sent.0
+            ),
+            "give `{db}` (exact) or `{db:.N}` with enough digits for step_db, e.g. `{db:.2}` for 0.25 dB; \
+             what is sent must be what was checked against the receivers' limits",
         ));
     }
     Ok(AttenuatorDriver {
@@ -748,7 +761,7 @@ mod tests {
         let e = broken(0, "set_atten =", "set_atten_db =");
         assert!(e.contains("did you mean `set_atten`"), "{e}");
         let e = broken(0, "atten_db = 95.0", "atten_db = 120.0");
-        assert!(e.contains("outside range_db"), "{e}");
+        assert!(e.contains("not a setting of this attenuator"), "{e}");
         let e = broken(0, "max_input_dbm = 30.0", "max_input_dbm = nan");
         assert!(e.contains("max_input_dbm"), "{e}");
         let e = broken(0, "line_ending = \"lf\"", "line_ending = \"cr\"");
@@ -764,5 +777,34 @@ mod tests {
         );
         let e = broken(2, "command = \"range halt\"", "");
         assert!(e.contains("safe_state"), "{e}");
+    }
+
+    #[test]
+    fn a_setting_format_coarser_than_the_grid_is_refused() {
+        // Whole dB for a 0.25 dB grid: 0.25 would go out as "0", 17.25 as "17".
+        let e = broken(0, "{db:.2}", "{db:.0}");
+        assert!(e.contains("command.set_atten"), "{e}");
+        assert!(e.contains("would send 0 dB for the setting 0.25 dB"), "{e}");
+        let e = broken(0, "{db:.2}", "{db:.1}");
+        assert!(e.contains("would send 0.2"), "{e}");
+    }
+
+    #[test]
+    fn the_safe_state_is_a_setting_of_the_attenuator_and_maximum_by_default() {
+        let e = broken(0, "atten_db = 95.0", "atten_db = 94.9");
+        assert!(e.contains("not a setting of this attenuator"), "{e}");
+        let text = SHIPPED[0].1;
+        let line = text
+            .lines()
+            .find(|l| l.starts_with("atten_db ="))
+            .expect("safe state line");
+        let Ok(DriverFile {
+            kind: DriverKind::Attenuator(a),
+            ..
+        }) = parse(&text.replacen(line, "", 1))
+        else {
+            panic!("attenuator without a safe-state setting");
+        };
+        assert_eq!(a.safe_atten_db, a.range_db[1]);
     }
 }

@@ -113,11 +113,8 @@ impl Template {
             match piece {
                 Piece::Text(t) => out.push_str(t),
                 Piece::Param { name, precision } => match (values.get(name.as_str()), precision) {
-                    (Some(Value::Real(v)), Some(p)) => {
-                        let _ = write!(out, "{v:.p$}");
-                    }
-                    (Some(Value::Real(v)), None) => {
-                        let _ = write!(out, "{v}");
+                    (Some(Value::Real(v)), precision) => {
+                        out.push_str(&real_text(*v, *precision));
                     }
                     (Some(Value::Integer(v)), _) => {
                         let _ = write!(out, "{v}");
@@ -129,10 +126,52 @@ impl Template {
         out
     }
 
+    /// The value an instrument reads when real parameter `name` is sent as `v`: what the
+    /// template's format leaves of it. `None` when the template has no such parameter or the
+    /// text does not read back as a number.
+    pub fn as_sent(&self, name: &str, v: f64) -> Option<f64> {
+        self.pieces.iter().find_map(|piece| match piece {
+            Piece::Param { name: n, precision } if n == name => {
+                real_text(v, *precision).parse().ok()
+            }
+            _ => None,
+        })
+    }
+
+    /// The first setting of the grid `lo, lo + step, …, hi` that real parameter `name` would not
+    /// send as itself (a format with too few decimals), with the text it would send instead.
+    pub fn misrendered(&self, name: &str, lo: f64, hi: f64, step: f64) -> Option<(f64, String)> {
+        let precision = self.pieces.iter().find_map(|piece| match piece {
+            Piece::Param { name: n, precision } if n == name => Some(*precision),
+            _ => None,
+        })?;
+        let settings = ((hi - lo) / step).round() as u64;
+        (0..=settings).map(|k| lo + k as f64 * step).find_map(|v| {
+            let text = real_text(v, precision);
+            let back = text.parse::<f64>().unwrap_or(f64::NAN);
+            (!same_setting(back, v)).then_some((v, text))
+        })
+    }
+
     /// Fills a template that takes no parameters.
     pub fn text(&self) -> String {
         self.render(&BTreeMap::new())
     }
+}
+
+/// A real number as a template writes it: with `precision` decimals, or else the shortest text
+/// that reads back as the same number.
+fn real_text(v: f64, precision: Option<usize>) -> String {
+    match precision {
+        Some(p) => format!("{v:.p$}"),
+        None => format!("{v}"),
+    }
+}
+
+/// Two attenuator settings are the same when they differ by far less than any step (grid
+/// arithmetic in binary floating point leaves a few ulps).
+pub fn same_setting(a: f64, b: f64) -> bool {
+    (a - b).abs() <= 1e-9
 }
 
 #[cfg(test)]
@@ -163,6 +202,32 @@ mod tests {
             ])),
             "range start n=16 bw=80 {raw}"
         );
+    }
+
+    #[test]
+    fn a_format_coarser_than_the_grid_is_found_and_an_exact_one_passes() {
+        // 17.25 dB with no decimals is sent as "17", below a 17.1 dB protection limit.
+        let coarse = Template::parse("ATT {db:.0}", DB).expect("parse");
+        assert_eq!(coarse.as_sent("db", 17.25), Some(17.0));
+        assert_eq!(
+            coarse.misrendered("db", 0.0, 95.0, 0.25),
+            Some((0.25, "0".to_string()))
+        );
+        // One decimal is still too coarse for quarter-dB steps (0.25 has two).
+        let one = Template::parse("ATT {db:.1}", DB).expect("parse");
+        assert_eq!(
+            one.misrendered("db", 0.0, 95.0, 0.25).map(|m| m.0),
+            Some(0.25)
+        );
+        for exact in ["ATT {db:.2}", "ATT {db}"] {
+            let t = Template::parse(exact, DB).expect("parse");
+            assert_eq!(t.misrendered("db", 0.0, 95.0, 0.25), None, "{exact}");
+            // A tenth-dB grid from a non-zero start, with its binary rounding, also passes.
+            assert_eq!(t.misrendered("db", 1.5, 31.5, 0.1), None, "{exact}");
+            assert_eq!(t.as_sent("db", 17.25), Some(17.25));
+        }
+        // Whole-dB steps need no decimals.
+        assert_eq!(coarse.misrendered("db", 0.0, 95.0, 1.0), None);
     }
 
     #[test]

@@ -35,8 +35,7 @@ pub fn parse(
     bench: &Bench,
     base_dir: &Path,
 ) -> Result<Plan, Diagnostic> {
-    let raw: raw::RawRecipe =
-        toml::from_str(&source.text).map_err(|e| diagnostic::from_toml(&source, &e))?;
+    let raw: raw::RawRecipe = crate::toml_input::parse(&source)?;
     let mut vars = Vars(raw.vars.clone());
     for (name, value) in &vars.0 {
         if !matches!(

@@ -26,6 +26,14 @@ pub enum RunError {
         /// What to do instead.
         hint: String,
     },
+    /// After its safe state the attenuator reads a setting that exposes a receiver.
+    #[error("receivers exposed: {message}")]
+    Exposed {
+        /// What the attenuator reads and what that puts into which receiver.
+        message: String,
+        /// What to do.
+        hint: String,
+    },
     /// SIGINT or SIGTERM asked the run to stop.
     #[error("stopped on request (SIGINT or SIGTERM)")]
     Interrupted,

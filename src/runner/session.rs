@@ -490,7 +490,16 @@ impl Session {
             errs.push(e.into());
         }
         match self.persistently(|s| s.atten.safe_state().and_then(|()| s.atten.atten_db())) {
-            Ok(db) => tracing::info!("safe state: attenuator at {db} dB, ranging stopped"),
+            // The read-back is checked too: a safe state that is not safe must be heard.
+            Ok(db) => match self.bench.exposes_receivers(db) {
+                None => tracing::info!("safe state: attenuator at {db} dB, ranging stopped"),
+                Some((message, hint)) => errs.push(RunError::Exposed {
+                    message: format!(
+                        "after its safe state the attenuator reads {db} dB: {message}"
+                    ),
+                    hint: format!("switch the RF off at once; {hint}"),
+                }),
+            },
             Err(e) => errs.push(e.into()),
         }
         if let Some(chamber) = &self.chamber {
@@ -579,13 +588,42 @@ mod tests {
         }
     }
 
+    /// An attenuator that logs every setting it receives; its safe state is `safe_db`.
+    struct Logging {
+        log: Arc<std::sync::Mutex<Vec<f64>>>,
+        db: f64,
+        safe_db: f64,
+    }
+
+    #[async_trait]
+    impl Attenuator for Logging {
+        async fn identify(&mut self) -> Result<String, InstrumentError> {
+            Ok("logging".into())
+        }
+        async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
+            self.log.lock().expect("log").push(db);
+            self.db = db;
+            Ok(())
+        }
+        async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
+            Ok(self.db)
+        }
+        async fn safe_state(&mut self) -> Result<(), InstrumentError> {
+            let db = self.safe_db;
+            self.set_atten_db(db).await
+        }
+    }
+
     fn session(failures: u32) -> Session {
-        let flaky = Flaky { failures, db: 10.0 };
+        session_with(Box::new(Flaky { failures, db: 10.0 }))
+    }
+
+    fn session_with(attenuator: Box<dyn Attenuator>) -> Session {
         Session::new(
             Arc::new(Bench::built_in().expect("demo bench")),
             Arc::new(BenchClock::new(ClockMode::Virtual)),
             AttenuatorHandle(
-                Owned::<dyn Attenuator>::spawn("attenuator", Box::new(flaky)).expect("runtime"),
+                Owned::<dyn Attenuator>::spawn("attenuator", attenuator).expect("runtime"),
             ),
             RangingHandle(
                 Owned::<dyn RangingDevice>::spawn("dut", Box::new(Idle)).expect("runtime"),
@@ -605,5 +643,45 @@ mod tests {
         let errs = s.safe_state();
         assert_eq!(errs.len(), 1, "{errs:?}");
         assert_eq!(s.atten.atten_db(), Ok(10.0));
+    }
+
+    fn logging(safe_db: f64) -> (Session, Arc<std::sync::Mutex<Vec<f64>>>) {
+        let log = Arc::new(std::sync::Mutex::new(Vec::new()));
+        let attenuator = Logging {
+            log: log.clone(),
+            db: 95.0,
+            safe_db,
+        };
+        (session_with(Box::new(attenuator)), log)
+    }
+
+    #[test]
+    fn a_refused_setting_never_reaches_the_attenuator() {
+        // The demo bench needs at least 17 dB (15 dBm − 8 dB − A ≤ −10 dBm).
+        let (mut s, log) = logging(95.0);
+        for db in [16.75, 0.0, 17.1, 95.25, f64::NAN, f64::INFINITY] {
+            let refused = s.set_atten(db);
+            assert!(
+                matches!(refused, Err(RunError::Refused { .. })),
+                "{db}: {refused:?}"
+            );
+        }
+        assert!(log.lock().expect("log").is_empty());
+        s.set_atten(17.0).expect("the limit itself is allowed");
+        s.set_atten(40.0).expect("allowed");
+        assert_eq!(*log.lock().expect("log"), vec![17.0, 40.0]);
+    }
+
+    #[test]
+    fn a_safe_state_that_leaves_a_receiver_exposed_is_reported() {
+        let (s, _) = logging(10.0);
+        let errs = s.safe_state();
+        assert!(
+            errs.iter().any(|e| matches!(e, RunError::Exposed { .. })),
+            "{errs:?}"
+        );
+        let (s, log) = logging(95.0);
+        assert!(s.safe_state().is_empty());
+        assert_eq!(*log.lock().expect("log"), vec![95.0]);
     }
 }

@@ -89,6 +89,15 @@ impl SimShared {
         })
     }
 
+    /// Where a simulated attenuator stands when it powers up: at its safe state, so a bench
+    /// switched on before any command has its receivers protected. Takes no switching time.
+    pub fn power_up_atten_db(&self, db: f64) {
+        // A poisoned lock cannot happen before the first command; nothing to power up then.
+        if let Ok(mut m) = self.model.lock() {
+            m.bench.set_atten_db(db);
+        }
+    }
+
     /// The fault, if any, that strikes the next command sent to the bench's instruments (one
     /// stream for all of them, drawn in the order commands arrive).
     pub fn command_fault(&self, role: &str) -> Result<Option<CommandFault>, InstrumentError> {
@@ -190,8 +199,9 @@ pub struct SimAttenuatorFront {
 }
 
 impl SimAttenuatorFront {
-    /// An attenuator whose safe state is `max_db`.
+    /// An attenuator whose safe state is `max_db`; it powers up there.
     pub fn new(shared: SimShared, switch_ms: f64, max_db: f64) -> Self {
+        shared.power_up_atten_db(max_db);
         SimAttenuatorFront {
             shared,
             switch_ps: BenchClock::ms_to_ps(switch_ms),

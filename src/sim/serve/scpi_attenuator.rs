@@ -53,8 +53,10 @@ impl Device for ScpiAttenuator {
 }
 
 impl ScpiAttenuator {
-    /// An attenuator on `shared` with the bench's range and step.
+    /// An attenuator on `shared` with the bench's range and step. It powers up in its reset
+    /// state, maximum attenuation, as a real one must.
     pub fn new(shared: SimShared, range_db: [f64; 2], step_db: f64, switch_ms: f64) -> Self {
+        shared.power_up_atten_db(range_db[1]);
         ScpiAttenuator {
             shared,
             identity: format!(
@@ -496,7 +498,14 @@ mod tests {
         assert_eq!(ask(&mut d, "SYST:ERR?"), "0,\"No error\"\n");
         assert_eq!(ask(&mut d, "*ESR?"), "48\n");
         assert_eq!(ask(&mut d, "*ESR?"), "0\n");
-        assert_eq!(ask(&mut d, "ATT?"), "0.0\n");
+        // Refused settings leave it where it powered up: maximum attenuation.
+        assert_eq!(ask(&mut d, "ATT?"), "95.0\n");
+    }
+
+    #[test]
+    fn it_powers_up_at_maximum_attenuation_before_any_command() {
+        let d = device();
+        assert_eq!(d.shared.atten_db(), Ok(95.0));
     }
 
     #[test]
