@@ -52,6 +52,15 @@ pub struct BenchInfo {
     pub simulated: bool,
 }
 
+/// A file the run read besides its recipe and bench: a script file or a driver file.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct InputFile {
+    /// Path as read.
+    pub path: String,
+    /// SHA-256 of its bytes, hex.
+    pub sha256: String,
+}
+
 /// Exchange counts.
 #[derive(Debug, Clone, Default, Serialize, Deserialize)]
 pub struct Counts {
@@ -142,6 +151,9 @@ pub struct Manifest {
     pub recipe: RecipeInfo,
     /// The bench.
     pub bench: BenchInfo,
+    /// Script files (`script.STAGE`) and driver files (`driver.ROLE`) the run read.
+    #[serde(default)]
+    pub inputs: BTreeMap<String, InputFile>,
     /// Identity each instrument reported, by role.
     pub instruments: BTreeMap<String, String>,
     /// Counts.

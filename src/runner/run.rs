@@ -53,6 +53,8 @@ pub struct Resumption {
     pub manifest: Manifest,
     /// Its exchanges up to the last checkpoint (the file is already cut there).
     pub replay: Vec<crate::data::Exchange>,
+    /// The directory's lock, held from before the record was cut until the run ends.
+    pub lock: crate::data::run_lock::RunLock,
 }
 
 /// How a run ended.
@@ -86,10 +88,13 @@ pub fn execute(
 ) -> Result<RunReport, Diagnostic> {
     let wall = Instant::now();
     let now = time::OffsetDateTime::now_utc();
-    let dir = match &req.resume {
-        Some(r) => r.dir.clone(),
-        None => run_dir::create(req.out.as_deref(), &req.plan.name, now)
-            .map_err(|e| Diagnostic::plain(format!("cannot create the run directory: {e}")))?,
+    // A resumption holds its directory's lock already (it took it before cutting the record).
+    let (dir, _lock) = match &req.resume {
+        Some(r) => (r.dir.clone(), None),
+        None => {
+            let (dir, lock) = super::claim::fresh(req.out.as_deref(), &req.plan.name, now)?;
+            (dir, Some(lock))
+        }
     };
     on_dir(&dir);
     let bench = req.bench;
@@ -122,6 +127,7 @@ pub fn execute(
             sha256: sha256_hex(bench.source.text.as_bytes()),
             simulated,
         },
+        inputs: super::inputs::input_files(&req.plan, &bench),
         instruments: BTreeMap::new(),
         counts: Default::default(),
         acceptance: Vec::new(),
