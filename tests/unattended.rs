@@ -363,3 +363,65 @@ fn resume_refuses_a_changed_script_file() {
     restored.expect_code(3);
     assert!(restored.stderr.contains("not yet"), "{}", restored.stderr);
 }
+
+/// A tmpfs of `size` mounted on a fresh folder, unmounted when dropped.
+struct SmallDisk {
+    dir: tempfile::TempDir,
+}
+
+impl SmallDisk {
+    /// `None` where this process may not mount (not root): the caller says so and skips.
+    fn mount(size: &str) -> Option<SmallDisk> {
+        let dir = tempfile::tempdir().expect("tempdir");
+        let ok = Command::new("mount")
+            .args(["-t", "tmpfs", "-o", &format!("size={size}"), "tmpfs"])
+            .arg(dir.path())
+            .stderr(Stdio::null())
+            .status()
+            .is_ok_and(|s| s.success());
+        ok.then_some(SmallDisk { dir })
+    }
+}
+
+impl Drop for SmallDisk {
+    fn drop(&mut self) {
+        let _ = Command::new("umount").arg(self.dir.path()).status();
+    }
+}
+
+#[test]
+fn a_full_disk_fails_the_run_in_its_manifest_and_leaves_no_partial_files() {
+    // The issue: on a full disk the manifest stayed `running`. A real full disk: a 96 KiB
+    // tmpfs, which the demo's records overflow. Mounting needs root (as CI runs).
+    let Some(disk) = SmallDisk::mount("96k") else {
+        eprintln!("skipped: mounting a tmpfs needs root");
+        return;
+    };
+    let out_dir = disk.dir.path().join("run");
+    let out = Taucal::new()
+        .args([
+            "run",
+            &crate::support::repo("recipes/rx-gain-sweep.toml"),
+            "--out",
+            &out_dir.display().to_string(),
+        ])
+        .run();
+    out.expect_code(3);
+    let m: toml::Table =
+        toml::from_str(&std::fs::read_to_string(out_dir.join("manifest.toml")).expect("manifest"))
+            .expect("a whole manifest");
+    assert_eq!(m["status"].as_str(), Some("failed"), "{m:?}");
+    let error = m["error"].as_str().unwrap_or_default();
+    assert!(error.contains("No space left on device"), "{error}");
+    let left: Vec<String> = std::fs::read_dir(&out_dir)
+        .expect("run dir")
+        .filter_map(|e| e.ok().map(|e| e.file_name().to_string_lossy().into_owned()))
+        .filter(|n| n.ends_with(".tmp"))
+        .collect();
+    assert!(left.is_empty(), "partial files left: {left:?}");
+    assert!(
+        out.stderr.contains("No space left on device"),
+        "{}",
+        out.stderr
+    );
+}

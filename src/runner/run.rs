@@ -69,6 +69,9 @@ pub struct RunReport {
     pub verify: Vec<VerifyRow>,
     /// Why the run stopped early, if it did.
     pub failure: Option<RunError>,
+    /// Why the final manifest could not be written, if it could not: the one on disk may
+    /// still say `running`.
+    pub manifest_unwritten: Option<String>,
 }
 
 impl RunReport {
@@ -310,7 +313,9 @@ pub fn execute(
     manifest.bench_time_s = clock.now_s();
     manifest.wall_time_s = earlier_wall_s + wall.elapsed().as_secs_f64();
     manifest.finished_utc = Some(run_dir::rfc3339(time::OffsetDateTime::now_utc()));
+    let mut manifest_unwritten = None;
     if let Err(e) = manifest.write(&manifest_path) {
+        manifest_unwritten = Some(e.to_string());
         failure = failure.or(Some(io_err(&manifest_path, e)));
     }
     // The report is read from the files just written, exactly as `taucal report` reads them; a
@@ -324,6 +329,7 @@ pub fn execute(
         fit,
         verify: verify_rows,
         failure,
+        manifest_unwritten,
     })
 }
 
