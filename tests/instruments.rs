@@ -20,8 +20,14 @@ impl Server {
     }
 
     fn start_bench(bench: &str, listen: &[&str]) -> Server {
+        Server::start_with(bench, listen, &[])
+    }
+
+    /// Serves `bench` with further arguments (`--realtime`).
+    fn start_with(bench: &str, listen: &[&str], extra: &[&str]) -> Server {
         let mut cmd = Command::new(env!("CARGO_BIN_EXE_taucal"));
         cmd.args(["sim", "serve", "--bench", bench, "--seed", "1"]);
+        cmd.args(extra);
         for l in listen {
             cmd.args(["--listen", l]);
         }
@@ -476,4 +482,52 @@ fn every_driver_file_in_drivers_is_valid() {
             panic!("{name}: {d}");
         }
     }
+}
+
+#[test]
+fn the_served_console_refuses_bursts_beyond_its_limits_and_stops_on_sigterm_mid_burst() {
+    // The issue: `n=100000000` was accepted, grew the server to 19 GB and SIGTERM went unheard.
+    // The Wren-6 takes 1 to 1024 exchanges a burst (its driver file's [limits]).
+    use std::io::Write;
+    let mut server = Server::start_with(
+        &repo("recipes/benches/sim-demo.toml"),
+        &["dut=tcp:127.0.0.1:0"],
+        &["--realtime"],
+    );
+    let address = server.address("dut");
+    let stream = std::net::TcpStream::connect(address.trim_start_matches("tcp:")).expect("connect");
+    stream
+        .set_read_timeout(Some(Duration::from_secs(20)))
+        .expect("timeout");
+    let mut writer = stream.try_clone().expect("clone");
+    let mut lines = BufReader::new(stream).lines();
+    let mut next = || lines.next().expect("a line").expect("read");
+    for _ in 0..3 {
+        next(); // the boot banner
+    }
+    for n in ["1025", "100000000"] {
+        writer
+            .write_all(format!("range go n={n} ch=5180 bw=80\r\n").as_bytes())
+            .expect("send");
+        assert_eq!(next(), "range fail n must be 1..1024", "n={n}");
+    }
+    // A paced burst of the most the console takes; the stop comes while it is under way.
+    writer
+        .write_all(b"range go n=1024 ch=5180 bw=80\r\n")
+        .expect("send");
+    assert_eq!(next(), "range ack");
+    let pid = nix::unistd::Pid::from_raw(server.child.id() as i32);
+    nix::sys::signal::kill(pid, nix::sys::signal::Signal::SIGTERM).expect("SIGTERM");
+    let start = std::time::Instant::now();
+    let status = loop {
+        if let Some(status) = server.child.try_wait().expect("wait") {
+            break status;
+        }
+        assert!(
+            start.elapsed() < Duration::from_secs(20),
+            "sim serve ignored SIGTERM"
+        );
+        std::thread::sleep(Duration::from_millis(20));
+    };
+    assert_eq!(status.code(), Some(0));
 }
