@@ -531,3 +531,129 @@ fn the_served_console_refuses_bursts_beyond_its_limits_and_stops_on_sigterm_mid_
     };
     assert_eq!(status.code(), Some(0));
 }
+
+/// Rows of an exchanges file (its header left out).
+fn data_rows(text: &str) -> u64 {
+    text.lines().skip(1).count() as u64
+}
+
+#[test]
+fn a_served_run_resumes_cut_back_to_its_checkpoint_and_refuses_changed_files() {
+    // Resume through served (not simulated) instruments and the real drivers, with rows past
+    // the last checkpoint on disk: the resumed run must cut them off and redo their point,
+    // and must refuse a changed bench file or driver file.
+    let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"]);
+    let bench = served_bench(
+        "brackwater-bw95a",
+        &server.address("attenuator"),
+        &server.address("dut"),
+        "drivers",
+    );
+    let driver =
+        std::fs::read_to_string(root().join("drivers/brackwater-bw95a.toml")).expect("driver");
+    let console =
+        std::fs::read_to_string(root().join("drivers/wren6-console.toml")).expect("console");
+    let recipe = crate::unattended::RECIPE.replace("settle_ms = 30.0", "settle_ms = 100.0");
+    let setup = Taucal::new()
+        .file("drivers/brackwater-bw95a.toml", &driver)
+        .file("drivers/wren6-console.toml", &console)
+        .file("served.toml", &bench)
+        .file("r.toml", &recipe);
+    let dir = setup
+        .args(["check", "r.toml", "--bench", "served.toml"])
+        .run();
+    dir.expect_code(0);
+    let dir = dir.dir;
+    let mut child = Command::new(env!("CARGO_BIN_EXE_taucal"))
+        .args(["run", "r.toml", "--bench", "served.toml", "--out", "cut"])
+        .current_dir(dir.path())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("start taucal");
+    // Killed once a few bursts are on disk: as a power cut would.
+    let exchanges = dir.path().join("cut/exchanges.csv");
+    let start = std::time::Instant::now();
+    while std::fs::read_to_string(&exchanges).map_or(0, |t| data_rows(&t)) < 40 {
+        assert!(start.elapsed() < Duration::from_secs(30), "no exchanges");
+        std::thread::sleep(Duration::from_millis(5));
+    }
+    child.kill().expect("SIGKILL");
+    child.wait().expect("reap");
+    // Keep only the checkpoints below what is on disk: the state of a process killed after
+    // syncing a point's rows but before journaling it.
+    let recorded = std::fs::read_to_string(&exchanges).expect("exchanges");
+    let rows_on_disk = data_rows(&recorded);
+    let journal = dir.path().join("cut/journal.log");
+    let kept: Vec<String> = std::fs::read_to_string(&journal)
+        .expect("journal")
+        .lines()
+        .filter(|l| {
+            l.split_whitespace()
+                .find_map(|w| w.strip_prefix("rows="))
+                .and_then(|r| r.parse::<u64>().ok())
+                .is_some_and(|r| r < rows_on_disk)
+        })
+        .map(str::to_string)
+        .collect();
+    let checkpoint_rows: u64 = kept
+        .last()
+        .and_then(|l| l.split_whitespace().find_map(|w| w.strip_prefix("rows=")))
+        .and_then(|r| r.parse().ok())
+        .expect("a checkpoint");
+    std::fs::write(&journal, kept.join("\n") + "\n").expect("journal");
+    assert!(checkpoint_rows < rows_on_disk, "rows past the checkpoint");
+
+    // A changed bench file, then a changed driver file: refused, nothing touched.
+    for (file, from, to, words) in [
+        (
+            "served.toml",
+            "fixed_loss_db = 8.0",
+            "fixed_loss_db = 9.0",
+            "the bench changed since the run began",
+        ),
+        (
+            "drivers/brackwater-bw95a.toml",
+            "settle_ms = 2.0",
+            "settle_ms = 3.0",
+            "the driver file changed since the run began",
+        ),
+    ] {
+        let path = dir.path().join(file);
+        let original = std::fs::read_to_string(&path).expect("file");
+        assert!(original.contains(from), "{file}: {from}");
+        std::fs::write(&path, original.replace(from, to)).expect("edit");
+        let out = Command::new(env!("CARGO_BIN_EXE_taucal"))
+            .args(["resume", "cut"])
+            .current_dir(dir.path())
+            .output()
+            .expect("resume");
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{file}: {stderr}");
+        assert!(stderr.contains(words), "{file}: {stderr}");
+        assert_eq!(
+            std::fs::read_to_string(&exchanges).expect("exchanges"),
+            recorded,
+            "{file}: the record was touched"
+        );
+        std::fs::write(&path, original).expect("restore");
+    }
+
+    let resumed = Taucal::in_dir(dir).args(["resume", "cut"]).run();
+    resumed.expect_code(0);
+    let rows = resumed.read("cut/exchanges.csv");
+    assert_recorded_once(&rows);
+    let kept_lines: Vec<&str> = recorded
+        .lines()
+        .take(1 + checkpoint_rows as usize)
+        .collect();
+    let now_lines: Vec<&str> = rows.lines().take(1 + checkpoint_rows as usize).collect();
+    assert_eq!(
+        kept_lines, now_lines,
+        "the rows up to the checkpoint are kept as they were"
+    );
+    assert!(data_rows(&rows) > rows_on_disk);
+    let m: toml::Table = toml::from_str(&resumed.read("cut/manifest.toml")).expect("manifest");
+    assert_eq!(m["status"].as_str(), Some("completed"));
+    assert_eq!(m["resumes"].as_integer(), Some(1));
+}
