@@ -425,3 +425,47 @@ fn a_full_disk_fails_the_run_in_its_manifest_and_leaves_no_partial_files() {
         out.stderr
     );
 }
+
+#[test]
+fn a_report_that_cannot_be_written_leaves_the_old_one_and_no_partial_file() {
+    // A completed run on a small tmpfs, then the disk filled: `taucal report` must say it could
+    // not write, keep the report that was there and leave no temporary copy (root, as CI runs).
+    let Some(disk) = SmallDisk::mount("4m") else {
+        eprintln!("skipped: mounting a tmpfs needs root");
+        return;
+    };
+    let out_dir = disk.dir.path().join("run");
+    let run_dir = out_dir.display().to_string();
+    let out = Taucal::new()
+        .args([
+            "run",
+            &crate::support::repo("recipes/rx-gain-sweep.toml"),
+            "--out",
+            &run_dir,
+        ])
+        .run();
+    out.expect_code(0);
+    let report = std::fs::read(out_dir.join("report.html")).expect("report");
+    {
+        use std::io::Write;
+        let mut ballast = std::fs::File::create(disk.dir.path().join("ballast")).expect("ballast");
+        let chunk = vec![0u8; 64 << 10];
+        while ballast.write_all(&chunk).is_ok() {}
+    }
+    let again = Taucal::in_dir(out.dir).args(["report", &run_dir]).run();
+    again.expect_code(2);
+    assert!(
+        again.stderr.contains("cannot make the report")
+            && again.stderr.contains("No space left on device"),
+        "{}",
+        again.stderr
+    );
+    assert_eq!(
+        std::fs::read(out_dir.join("report.html")).expect("report"),
+        report
+    );
+    assert!(
+        std::fs::symlink_metadata(out_dir.join("report.tmp")).is_err(),
+        "a partial report.tmp was left"
+    );
+}
