@@ -20,8 +20,14 @@ impl Server {
     }
 
     fn start_bench(bench: &str, listen: &[&str]) -> Server {
+        Server::start_with(bench, listen, &[])
+    }
+
+    /// Serves `bench` with further arguments (`--realtime`).
+    fn start_with(bench: &str, listen: &[&str], extra: &[&str]) -> Server {
         let mut cmd = Command::new(env!("CARGO_BIN_EXE_taucal"));
         cmd.args(["sim", "serve", "--bench", bench, "--seed", "1"]);
+        cmd.args(extra);
         for l in listen {
             cmd.args(["--listen", l]);
         }
@@ -476,4 +482,178 @@ fn every_driver_file_in_drivers_is_valid() {
             panic!("{name}: {d}");
         }
     }
+}
+
+#[test]
+fn the_served_console_refuses_bursts_beyond_its_limits_and_stops_on_sigterm_mid_burst() {
+    // The issue: `n=100000000` was accepted, grew the server to 19 GB and SIGTERM went unheard.
+    // The Wren-6 takes 1 to 1024 exchanges a burst (its driver file's [limits]).
+    use std::io::Write;
+    let mut server = Server::start_with(
+        &repo("recipes/benches/sim-demo.toml"),
+        &["dut=tcp:127.0.0.1:0"],
+        &["--realtime"],
+    );
+    let address = server.address("dut");
+    let stream = std::net::TcpStream::connect(address.trim_start_matches("tcp:")).expect("connect");
+    stream
+        .set_read_timeout(Some(Duration::from_secs(20)))
+        .expect("timeout");
+    let mut writer = stream.try_clone().expect("clone");
+    let mut lines = BufReader::new(stream).lines();
+    let mut next = || lines.next().expect("a line").expect("read");
+    for _ in 0..3 {
+        next(); // the boot banner
+    }
+    for n in ["1025", "100000000"] {
+        writer
+            .write_all(format!("range go n={n} ch=5180 bw=80\r\n").as_bytes())
+            .expect("send");
+        assert_eq!(next(), "range fail n must be 1..1024", "n={n}");
+    }
+    // A paced burst of the most the console takes; the stop comes while it is under way.
+    writer
+        .write_all(b"range go n=1024 ch=5180 bw=80\r\n")
+        .expect("send");
+    assert_eq!(next(), "range ack");
+    let pid = nix::unistd::Pid::from_raw(server.child.id() as i32);
+    nix::sys::signal::kill(pid, nix::sys::signal::Signal::SIGTERM).expect("SIGTERM");
+    let start = std::time::Instant::now();
+    let status = loop {
+        if let Some(status) = server.child.try_wait().expect("wait") {
+            break status;
+        }
+        assert!(
+            start.elapsed() < Duration::from_secs(20),
+            "sim serve ignored SIGTERM"
+        );
+        std::thread::sleep(Duration::from_millis(20));
+    };
+    assert_eq!(status.code(), Some(0));
+}
+
+/// Rows of an exchanges file (its header left out).
+fn data_rows(text: &str) -> u64 {
+    text.lines().skip(1).count() as u64
+}
+
+#[test]
+fn a_served_run_resumes_cut_back_to_its_checkpoint_and_refuses_changed_files() {
+    // Resume through served (not simulated) instruments and the real drivers, with rows past
+    // the last checkpoint on disk: the resumed run must cut them off and redo their point,
+    // and must refuse a changed bench file or driver file.
+    let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"]);
+    let bench = served_bench(
+        "brackwater-bw95a",
+        &server.address("attenuator"),
+        &server.address("dut"),
+        "drivers",
+    );
+    let driver =
+        std::fs::read_to_string(root().join("drivers/brackwater-bw95a.toml")).expect("driver");
+    let console =
+        std::fs::read_to_string(root().join("drivers/wren6-console.toml")).expect("console");
+    let recipe = crate::unattended::RECIPE.replace("settle_ms = 30.0", "settle_ms = 100.0");
+    let setup = Taucal::new()
+        .file("drivers/brackwater-bw95a.toml", &driver)
+        .file("drivers/wren6-console.toml", &console)
+        .file("served.toml", &bench)
+        .file("r.toml", &recipe);
+    let dir = setup
+        .args(["check", "r.toml", "--bench", "served.toml"])
+        .run();
+    dir.expect_code(0);
+    let dir = dir.dir;
+    let mut child = Command::new(env!("CARGO_BIN_EXE_taucal"))
+        .args(["run", "r.toml", "--bench", "served.toml", "--out", "cut"])
+        .current_dir(dir.path())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("start taucal");
+    // Killed once a few bursts are on disk: as a power cut would.
+    let exchanges = dir.path().join("cut/exchanges.csv");
+    let start = std::time::Instant::now();
+    while std::fs::read_to_string(&exchanges).map_or(0, |t| data_rows(&t)) < 40 {
+        assert!(start.elapsed() < Duration::from_secs(30), "no exchanges");
+        std::thread::sleep(Duration::from_millis(5));
+    }
+    child.kill().expect("SIGKILL");
+    child.wait().expect("reap");
+    // Keep only the checkpoints below what is on disk: the state of a process killed after
+    // syncing a point's rows but before journaling it.
+    let recorded = std::fs::read_to_string(&exchanges).expect("exchanges");
+    let rows_on_disk = data_rows(&recorded);
+    let journal = dir.path().join("cut/journal.log");
+    let kept: Vec<String> = std::fs::read_to_string(&journal)
+        .expect("journal")
+        .lines()
+        .filter(|l| {
+            l.split_whitespace()
+                .find_map(|w| w.strip_prefix("rows="))
+                .and_then(|r| r.parse::<u64>().ok())
+                .is_some_and(|r| r < rows_on_disk)
+        })
+        .map(str::to_string)
+        .collect();
+    let checkpoint_rows: u64 = kept
+        .last()
+        .and_then(|l| l.split_whitespace().find_map(|w| w.strip_prefix("rows=")))
+        .and_then(|r| r.parse().ok())
+        .expect("a checkpoint");
+    std::fs::write(&journal, kept.join("\n") + "\n").expect("journal");
+    assert!(checkpoint_rows < rows_on_disk, "rows past the checkpoint");
+
+    // A changed bench file, then a changed driver file: refused, nothing touched.
+    for (file, from, to, words) in [
+        (
+            "served.toml",
+            "fixed_loss_db = 8.0",
+            "fixed_loss_db = 9.0",
+            "the bench changed since the run began",
+        ),
+        (
+            "drivers/brackwater-bw95a.toml",
+            "settle_ms = 2.0",
+            "settle_ms = 3.0",
+            "the driver file changed since the run began",
+        ),
+    ] {
+        let path = dir.path().join(file);
+        let original = std::fs::read_to_string(&path).expect("file");
+        assert!(original.contains(from), "{file}: {from}");
+        std::fs::write(&path, original.replace(from, to)).expect("edit");
+        let out = Command::new(env!("CARGO_BIN_EXE_taucal"))
+            .args(["resume", "cut"])
+            .current_dir(dir.path())
+            .output()
+            .expect("resume");
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{file}: {stderr}");
+        assert!(stderr.contains(words), "{file}: {stderr}");
+        assert_eq!(
+            std::fs::read_to_string(&exchanges).expect("exchanges"),
+            recorded,
+            "{file}: the record was touched"
+        );
+        std::fs::write(&path, original).expect("restore");
+    }
+
+    let resumed = Taucal::in_dir(dir).args(["resume", "cut"]).run();
+    resumed.expect_code(0);
+    let rows = resumed.read("cut/exchanges.csv");
+    assert_recorded_once(&rows);
+    let kept_lines: Vec<&str> = recorded
+        .lines()
+        .take(1 + checkpoint_rows as usize)
+        .collect();
+    let now_lines: Vec<&str> = rows.lines().take(1 + checkpoint_rows as usize).collect();
+    assert_eq!(
+        kept_lines, now_lines,
+        "the rows up to the checkpoint are kept as they were"
+    );
+    assert!(data_rows(&rows) > rows_on_disk);
+    let m: toml::Table = toml::from_str(&resumed.read("cut/manifest.toml")).expect("manifest");
+    assert_eq!(m["status"].as_str(), Some("completed"));
+    assert_eq!(m["resumes"].as_integer(), Some(1));
 }

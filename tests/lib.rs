@@ -12,5 +12,6 @@ mod instruments;
 mod plan_preview;
 mod report;
 mod science;
+mod script_limits;
 mod truth;
 mod unattended;

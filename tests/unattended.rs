@@ -10,7 +10,7 @@ use std::time::{Duration, Instant};
 
 /// A recipe of ~1.6 s of bench time: a gain map, then mid-plateau points, so the later stage
 /// depends on what the earlier one found.
-const RECIPE: &str = r#"
+pub(crate) const RECIPE: &str = r#"
 [recipe]
 name = "unattended"
 
@@ -246,4 +246,226 @@ fn a_point_that_keeps_failing_stops_the_run_or_is_skipped_as_the_recipe_says() {
     let skipped = m["skipped_points"].as_array().map_or(0, Vec::len);
     assert!(skipped >= 1, "{m:?}");
     assert_eq!(m["status"].as_str(), Some("completed"));
+}
+
+/// Waits until the run directory `dir` has a manifest (its run has claimed it).
+fn wait_for_manifest(dir: &std::path::Path) {
+    let start = Instant::now();
+    while !dir.join("manifest.toml").is_file() {
+        assert!(start.elapsed() < Duration::from_secs(30), "no manifest");
+        std::thread::sleep(Duration::from_millis(10));
+    }
+}
+
+#[test]
+fn a_run_directory_in_use_is_refused_to_a_second_process() {
+    // The issue: a `run` and a `resume` (or two resumes) on one directory both drove the
+    // instruments and interleaved the journal. Exit 2, the directory named, nothing touched.
+    let slow = RECIPE.replace("settle_ms = 30.0", "settle_ms = 100.0");
+    let full = Taucal::new()
+        .file("r.toml", &slow)
+        .args(["run", "r.toml", "--seed", "4", "--out", "full"])
+        .run();
+    full.expect_code(0);
+    let dir = full.dir;
+    let mut first = Command::new(env!("CARGO_BIN_EXE_taucal"))
+        .args([
+            "run",
+            "r.toml",
+            "--seed",
+            "4",
+            "--realtime",
+            "--out",
+            "busy",
+        ])
+        .current_dir(dir.path())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("start taucal");
+    wait_for_manifest(&dir.path().join("busy"));
+    let mut seconds = Vec::new();
+    for args in [
+        vec!["resume", "busy"],
+        vec!["run", "r.toml", "--seed", "4", "--out", "busy"],
+    ] {
+        let out = Command::new(env!("CARGO_BIN_EXE_taucal"))
+            .args(&args)
+            .current_dir(dir.path())
+            .output()
+            .expect("second taucal");
+        seconds.push((
+            args.join(" "),
+            out.status.code(),
+            String::from_utf8_lossy(&out.stderr).into_owned(),
+        ));
+    }
+    let code = first.wait().expect("first run").code();
+    for (args, code, stderr) in &seconds {
+        assert_eq!(*code, Some(2), "{args}: {stderr}");
+        assert!(
+            stderr.contains("busy is in use by another taucal process"),
+            "{args}: {stderr}"
+        );
+    }
+    assert_eq!(code, Some(0));
+    let read = |p: &str| std::fs::read_to_string(dir.path().join(p)).expect(p);
+    assert_eq!(
+        read("full/exchanges.csv"),
+        read("busy/exchanges.csv"),
+        "the first run went on alone"
+    );
+    assert_eq!(status(dir.path(), "busy"), "completed");
+    // Once the holder has ended, the directory is free again (here: to be refused as complete).
+    let again = Taucal::in_dir(dir).args(["resume", "busy"]).run();
+    again.expect_code(2);
+    assert!(
+        again.stderr.contains("already completed"),
+        "{}",
+        again.stderr
+    );
+}
+
+#[test]
+fn resume_refuses_a_changed_script_file() {
+    // The script fails after recording one burst, so the run ends `failed` and is resumable.
+    let recipe = "[recipe]\nname = \"scripted\"\n\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"s.rhai\"\n";
+    let script = "set_atten(40.0);\nburst(8);\nthrow \"not yet\";\n";
+    let out = Taucal::new()
+        .file("r.toml", recipe)
+        .file("s.rhai", script)
+        .args(["run", "r.toml", "--out", "x"])
+        .run();
+    out.expect_code(3);
+    let m: toml::Table = toml::from_str(&out.read("x/manifest.toml")).expect("manifest");
+    assert!(
+        m["inputs"]["script.s"]["sha256"].as_str().is_some(),
+        "{m:?}"
+    );
+    let edited = Taucal::in_dir(out.dir)
+        .file("s.rhai", &script.replace("throw \"not yet\";", "burst(8);"))
+        .args(["resume", "x"])
+        .run();
+    edited.expect_code(2);
+    assert!(
+        edited
+            .stderr
+            .contains("the script file changed since the run began"),
+        "{}",
+        edited.stderr
+    );
+    assert!(edited.stderr.contains("s.rhai"), "{}", edited.stderr);
+    // Restored, it resumes (and fails again where the script says so).
+    let restored = Taucal::in_dir(edited.dir)
+        .file("s.rhai", script)
+        .args(["resume", "x"])
+        .run();
+    restored.expect_code(3);
+    assert!(restored.stderr.contains("not yet"), "{}", restored.stderr);
+}
+
+/// A tmpfs of `size` mounted on a fresh folder, unmounted when dropped.
+struct SmallDisk {
+    dir: tempfile::TempDir,
+}
+
+impl SmallDisk {
+    /// `None` where this process may not mount (not root): the caller says so and skips.
+    fn mount(size: &str) -> Option<SmallDisk> {
+        let dir = tempfile::tempdir().expect("tempdir");
+        let ok = Command::new("mount")
+            .args(["-t", "tmpfs", "-o", &format!("size={size}"), "tmpfs"])
+            .arg(dir.path())
+            .stderr(Stdio::null())
+            .status()
+            .is_ok_and(|s| s.success());
+        ok.then_some(SmallDisk { dir })
+    }
+}
+
+impl Drop for SmallDisk {
+    fn drop(&mut self) {
+        let _ = Command::new("umount").arg(self.dir.path()).status();
+    }
+}
+
+#[test]
+fn a_full_disk_fails_the_run_in_its_manifest_and_leaves_no_partial_files() {
+    // The issue: on a full disk the manifest stayed `running`. A real full disk: a 96 KiB
+    // tmpfs, which the demo's records overflow. Mounting needs root (as CI runs).
+    let Some(disk) = SmallDisk::mount("96k") else {
+        eprintln!("skipped: mounting a tmpfs needs root");
+        return;
+    };
+    let out_dir = disk.dir.path().join("run");
+    let out = Taucal::new()
+        .args([
+            "run",
+            &crate::support::repo("recipes/rx-gain-sweep.toml"),
+            "--out",
+            &out_dir.display().to_string(),
+        ])
+        .run();
+    out.expect_code(3);
+    let m: toml::Table =
+        toml::from_str(&std::fs::read_to_string(out_dir.join("manifest.toml")).expect("manifest"))
+            .expect("a whole manifest");
+    assert_eq!(m["status"].as_str(), Some("failed"), "{m:?}");
+    let error = m["error"].as_str().unwrap_or_default();
+    assert!(error.contains("No space left on device"), "{error}");
+    let left: Vec<String> = std::fs::read_dir(&out_dir)
+        .expect("run dir")
+        .filter_map(|e| e.ok().map(|e| e.file_name().to_string_lossy().into_owned()))
+        .filter(|n| n.ends_with(".tmp"))
+        .collect();
+    assert!(left.is_empty(), "partial files left: {left:?}");
+    assert!(
+        out.stderr.contains("No space left on device"),
+        "{}",
+        out.stderr
+    );
+}
+
+#[test]
+fn a_report_that_cannot_be_written_leaves_the_old_one_and_no_partial_file() {
+    // A completed run on a small tmpfs, then the disk filled: `taucal report` must say it could
+    // not write, keep the report that was there and leave no temporary copy (root, as CI runs).
+    let Some(disk) = SmallDisk::mount("4m") else {
+        eprintln!("skipped: mounting a tmpfs needs root");
+        return;
+    };
+    let out_dir = disk.dir.path().join("run");
+    let run_dir = out_dir.display().to_string();
+    let out = Taucal::new()
+        .args([
+            "run",
+            &crate::support::repo("recipes/rx-gain-sweep.toml"),
+            "--out",
+            &run_dir,
+        ])
+        .run();
+    out.expect_code(0);
+    let report = std::fs::read(out_dir.join("report.html")).expect("report");
+    {
+        use std::io::Write;
+        let mut ballast = std::fs::File::create(disk.dir.path().join("ballast")).expect("ballast");
+        let chunk = vec![0u8; 64 << 10];
+        while ballast.write_all(&chunk).is_ok() {}
+    }
+    let again = Taucal::in_dir(out.dir).args(["report", &run_dir]).run();
+    again.expect_code(2);
+    assert!(
+        again.stderr.contains("cannot make the report")
+            && again.stderr.contains("No space left on device"),
+        "{}",
+        again.stderr
+    );
+    assert_eq!(
+        std::fs::read(out_dir.join("report.html")).expect("report"),
+        report
+    );
+    assert!(
+        std::fs::symlink_metadata(out_dir.join("report.tmp")).is_err(),
+        "a partial report.tmp was left"
+    );
 }

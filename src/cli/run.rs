@@ -83,6 +83,20 @@ pub fn outcome(report: &RunReport) -> Exit {
             c.limit
         );
     }
+    if let Some(why) = &report.manifest_unwritten {
+        let reason = m
+            .error
+            .as_deref()
+            .map_or(String::new(), |e| format!(": {e}"));
+        eprint!(
+            "{}",
+            Diagnostic::plain(format!(
+                "the run's manifest could not be written ({why}); it may still say `running`, but the run ended {}{reason}",
+                status_word(m.status)
+            ))
+            .with_hint("free some disk space; `taucal resume` continues the run from its journal")
+        );
+    }
     if let Some(f) = &report.failure {
         eprintln!("{}", failure_text(f));
         let how = if matches!(f, RunError::Interrupted) {
@@ -102,6 +116,16 @@ pub fn outcome(report: &RunReport) -> Exit {
     } else {
         println!("status: completed, but an acceptance limit was not met");
         Exit::LimitFailed
+    }
+}
+
+/// The manifest's word for a status.
+fn status_word(status: crate::data::RunStatus) -> &'static str {
+    match status {
+        crate::data::RunStatus::Running => "running",
+        crate::data::RunStatus::Completed => "completed",
+        crate::data::RunStatus::Stopped => "stopped",
+        crate::data::RunStatus::Failed => "failed",
     }
 }
 

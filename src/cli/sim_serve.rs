@@ -58,6 +58,12 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
         .or(bench.sim.as_ref().map(|s| s.seed))
         .unwrap_or(1);
     let served = ServedBench::new(&bench, seed, args.realtime)?;
+    // SIGINT and SIGTERM are blocked before the runtime's threads exist (they inherit the mask)
+    // and waited for on this thread alone, so a stop is seen however busy the servers are.
+    let stop_signals = stop_signals();
+    stop_signals
+        .thread_block()
+        .map_err(|e| Diagnostic::plain(format!("cannot watch for SIGINT/SIGTERM: {e}")))?;
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
@@ -99,18 +105,22 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
                 );
             }
         }
-        wait_for_stop().await
+        Ok::<(), Diagnostic>(())
     })?;
-    eprintln!("taucal: stopped");
+    let signal = stop_signals
+        .wait()
+        .map_err(|e| Diagnostic::plain(format!("cannot wait for SIGINT/SIGTERM: {e}")))?;
+    // Served bursts are short (the console's limits), but nothing a client asked for may keep
+    // the process alive once it is told to stop: work still running is abandoned.
+    rt.shutdown_timeout(std::time::Duration::from_millis(200));
+    eprintln!("taucal: stopped ({})", signal.as_str());
     Ok(Exit::Ok)
 }
 
-async fn wait_for_stop() -> Result<(), Diagnostic> {
-    let mut term = tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate())
-        .map_err(|e| Diagnostic::plain(format!("cannot watch for SIGTERM: {e}")))?;
-    tokio::select! {
-        _ = tokio::signal::ctrl_c() => {}
-        _ = term.recv() => {}
-    }
-    Ok(())
+fn stop_signals() -> nix::sys::signal::SigSet {
+    use nix::sys::signal::{SigSet, Signal};
+    let mut set = SigSet::empty();
+    set.add(Signal::SIGINT);
+    set.add(Signal::SIGTERM);
+    set
 }

@@ -52,6 +52,15 @@ pub struct BenchInfo {
     pub simulated: bool,
 }
 
+/// A file the run read besides its recipe and bench: a script file or a driver file.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct InputFile {
+    /// Path as read.
+    pub path: String,
+    /// SHA-256 of its bytes, hex.
+    pub sha256: String,
+}
+
 /// Exchange counts.
 #[derive(Debug, Clone, Default, Serialize, Deserialize)]
 pub struct Counts {
@@ -142,6 +151,9 @@ pub struct Manifest {
     pub recipe: RecipeInfo,
     /// The bench.
     pub bench: BenchInfo,
+    /// Script files (`script.STAGE`) and driver files (`driver.ROLE`) the run read.
+    #[serde(default)]
+    pub inputs: BTreeMap<String, InputFile>,
     /// Identity each instrument reported, by role.
     pub instruments: BTreeMap<String, String>,
     /// Counts.
@@ -168,10 +180,17 @@ pub struct Manifest {
 }
 
 impl Manifest {
-    /// Writes the manifest atomically to `path`.
+    /// Writes the manifest atomically to `path`. On a full disk, where the temporary copy finds
+    /// no room, it is rewritten in place instead: the old manifest's own blocks hold the new one,
+    /// and a manifest that says how the run ended is worth the small risk of a torn write.
     pub fn write(&self, path: &Path) -> io::Result<()> {
         let text = toml::to_string_pretty(self).map_err(io::Error::other)?;
-        write_atomic(path, text.as_bytes())
+        match write_atomic(path, text.as_bytes()) {
+            Err(e) if e.kind() == io::ErrorKind::StorageFull => {
+                overwrite(path, text.as_bytes()).map_err(|_| e)
+            }
+            other => other,
+        }
     }
 
     /// Reads a manifest.
@@ -181,15 +200,30 @@ impl Manifest {
     }
 }
 
-/// Writes `bytes` to `path` through a synced temporary file and a rename.
+/// Writes `bytes` to `path` through a synced temporary file and a rename. On failure the
+/// temporary file is removed, so a file that cannot be written leaves no partial copy behind.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> io::Result<()> {
     let tmp = path.with_extension("tmp");
-    {
+    let write = || -> io::Result<()> {
         let mut f = std::fs::File::create(&tmp)?;
         f.write_all(bytes)?;
         f.sync_all()?;
-    }
-    std::fs::rename(&tmp, path)
+        std::fs::rename(&tmp, path)
+    };
+    write().inspect_err(|_| {
+        let _ = std::fs::remove_file(&tmp);
+    })
+}
+
+/// Rewrites the file at `path` in place, reusing its blocks.
+fn overwrite(path: &Path, bytes: &[u8]) -> io::Result<()> {
+    let mut f = std::fs::OpenOptions::new()
+        .write(true)
+        .truncate(false)
+        .open(path)?;
+    f.write_all(bytes)?;
+    f.set_len(bytes.len() as u64)?;
+    f.sync_all()
 }
 
 /// Lower-case hex SHA-256 of `bytes`.

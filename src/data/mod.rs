@@ -8,6 +8,7 @@ mod plain_line;
 mod record_split;
 mod row_batches;
 pub mod run_dir;
+pub mod run_lock;
 
 pub use csv_io::{read_exchanges, ExchangeWriter, ReadError, RecordSink, EXCHANGES_HEADER};
 pub use exchange::{DeviceExchange, Exchange, Taken, STATUS_OK};

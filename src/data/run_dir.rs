@@ -1,5 +1,6 @@
 //! The run directory: `runs/<UTC time>-<recipe name>/` and the names of the files in it.
 
+use super::run_lock::{RunLock, RunLockError};
 use std::io;
 use std::path::{Path, PathBuf};
 use time::OffsetDateTime;
@@ -26,12 +27,32 @@ pub mod files {
     pub const JSON_LOG: &str = "run.jsonl";
     /// The run report.
     pub const REPORT: &str = "report.html";
+    /// Held by the process driving the run (see `run_lock`).
+    pub const LOCK: &str = "taucal.lock";
 }
 
-/// Creates a fresh run directory: `out` itself when given (it must not hold a manifest yet),
-/// else `runs/<UTC time>-<name>` with a numeric suffix if that exists.
-pub fn create(out: Option<&Path>, name: &str, now: OffsetDateTime) -> io::Result<PathBuf> {
+/// Why a run directory could not be made.
+#[derive(Debug, thiserror::Error)]
+pub enum CreateError {
+    /// The directory could not be created, or already holds a run.
+    #[error("cannot create the run directory: {0}")]
+    Io(#[from] io::Error),
+    /// Another process holds it.
+    #[error(transparent)]
+    Locked(#[from] RunLockError),
+}
+
+/// Creates a fresh run directory and locks it: `out` itself when given (it must not hold a
+/// manifest yet, which is checked under the lock, so two runs given the same `--out` cannot both
+/// start), else `runs/<UTC time>-<name>` with a numeric suffix if that exists.
+pub fn create(
+    out: Option<&Path>,
+    name: &str,
+    now: OffsetDateTime,
+) -> Result<(PathBuf, RunLock), CreateError> {
     if let Some(dir) = out {
+        std::fs::create_dir_all(dir)?;
+        let lock = RunLock::acquire(dir)?;
         if dir.join(files::MANIFEST).exists() {
             return Err(io::Error::new(
                 io::ErrorKind::AlreadyExists,
@@ -39,10 +60,10 @@ pub fn create(out: Option<&Path>, name: &str, now: OffsetDateTime) -> io::Result
                     "{} already holds a run (manifest.toml); choose another --out",
                     dir.display()
                 ),
-            ));
+            )
+            .into());
         }
-        std::fs::create_dir_all(dir)?;
-        return Ok(dir.to_path_buf());
+        return Ok((dir.to_path_buf(), lock));
     }
     let stamp = format!(
         "{:04}{:02}{:02}T{:02}{:02}{:02}Z",
@@ -54,14 +75,23 @@ pub fn create(out: Option<&Path>, name: &str, now: OffsetDateTime) -> io::Result
         now.second()
     );
     let base = Path::new("runs").join(format!("{stamp}-{name}"));
-    let mut dir = base.clone();
+    std::fs::create_dir_all("runs")?;
+    // `create_dir` (not `_all`) fails on a directory that exists, so two runs started in the same
+    // second each get their own.
     let mut n = 1;
-    while dir.exists() {
-        n += 1;
-        dir = PathBuf::from(format!("{}-{n}", base.display()));
+    let mut dir = base.clone();
+    loop {
+        match std::fs::create_dir(&dir) {
+            Ok(()) => break,
+            Err(e) if e.kind() == io::ErrorKind::AlreadyExists => {
+                n += 1;
+                dir = PathBuf::from(format!("{}-{n}", base.display()));
+            }
+            Err(e) => return Err(e.into()),
+        }
     }
-    std::fs::create_dir_all(&dir)?;
-    Ok(dir)
+    let lock = RunLock::acquire(&dir)?;
+    Ok((dir, lock))
 }
 
 /// RFC 3339 text of a UTC time.

@@ -85,7 +85,24 @@ pub struct Script {
     pub channel: Channel,
     /// The code and where it came from.
     pub source: ScriptSource,
+    /// What the stage may spend.
+    pub limits: ScriptLimits,
 }
+
+/// A script stage's limits (keys `time_limit_s`, `compute_limit_s`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ScriptLimits {
+    /// Bench time the stage may take, s.
+    pub time_limit_s: f64,
+    /// Wall time the script may spend computing outside bench calls, s.
+    pub compute_limit_s: f64,
+}
+
+/// Bench time a script stage may take unless it says otherwise: an hour.
+pub const DEFAULT_SCRIPT_TIME_LIMIT_S: f64 = 3600.0;
+/// Computing a script stage may do unless it says otherwise. Generous: the demo's script
+/// computes for milliseconds, and 50 million operations take seconds.
+pub const DEFAULT_SCRIPT_COMPUTE_LIMIT_S: f64 = 60.0;
 
 /// A soak: set the chamber and wait until the DUT's temperature has settled.
 #[derive(Debug, Clone, PartialEq)]
@@ -429,6 +446,8 @@ fn allow_only(key: &str, kind: &str, st: &RawStage, allowed: &[&str]) -> Result<
         ("timeout_s", st.timeout_s.is_some()),
         ("script", st.script.is_some()),
         ("file", st.file.is_some()),
+        ("time_limit_s", st.time_limit_s.is_some()),
+        ("compute_limit_s", st.compute_limit_s.is_some()),
     ];
     match present
         .iter()
@@ -855,9 +874,47 @@ fn script(
         key,
         "script",
         st,
-        &["center_mhz", "bw_mhz", "script", "file"],
+        &[
+            "center_mhz",
+            "bw_mhz",
+            "script",
+            "file",
+            "time_limit_s",
+            "compute_limit_s",
+        ],
     )
     .map_err(located)?;
+    let limit = |name: &str, v: &Option<toml::Value>, default: f64, max: f64| match v {
+        None => Ok(default),
+        Some(v) => {
+            let k = format!("{key}.{name}");
+            let s = positive(vars, &k, v)?;
+            if s > max {
+                return Err(KeyError::new(
+                    k,
+                    format!("{s} s is more than {max} s"),
+                    format!("give at most {max} s"),
+                ));
+            }
+            Ok(s)
+        }
+    };
+    let limits = ScriptLimits {
+        time_limit_s: limit(
+            "time_limit_s",
+            &st.time_limit_s,
+            DEFAULT_SCRIPT_TIME_LIMIT_S,
+            7.0 * 86_400.0,
+        )
+        .map_err(located)?,
+        compute_limit_s: limit(
+            "compute_limit_s",
+            &st.compute_limit_s,
+            DEFAULT_SCRIPT_COMPUTE_LIMIT_S,
+            86_400.0,
+        )
+        .map_err(located)?,
+    };
     let channel = channel(key, st, vars).map_err(located)?;
     let code = match (&st.script, &st.file) {
         (Some(_), None) => ScriptSource::inline(source, &format!("stage.{index}.script"))?,
@@ -874,6 +931,7 @@ fn script(
         name: st.name.clone(),
         channel,
         source: code,
+        limits,
     })
 }
 

@@ -112,4 +112,8 @@ pub struct RawStage {
     pub script: Option<String>,
     /// Script: path of a Rhai file, relative to the recipe.
     pub file: Option<String>,
+    /// Script: bench time the stage may take, s.
+    pub time_limit_s: Option<toml::Value>,
+    /// Script: wall time the script may compute outside bench calls, s.
+    pub compute_limit_s: Option<toml::Value>,
 }

@@ -1,10 +1,12 @@
 //! The runner: executes a plan's stages against instrument handles, through one clock, into a
 //! record sink.
 
+pub mod claim;
 pub mod clock;
 pub mod error;
 pub mod estimate;
 pub mod events;
+pub mod inputs;
 pub mod journal;
 pub mod resume;
 pub mod run;

@@ -15,13 +15,21 @@ use std::sync::Arc;
 /// Everything `execute` needs to continue the run in `dir`.
 pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
     let manifest_path = dir.join(files::MANIFEST);
-    let manifest = Manifest::read(&manifest_path).map_err(|e| {
-        Diagnostic::in_file(
-            &manifest_path,
-            format!("cannot read the run's manifest: {e}"),
-        )
-        .with_hint("give the directory of a run that taucal started")
-    })?;
+    let read = || {
+        Manifest::read(&manifest_path).map_err(|e| {
+            Diagnostic::in_file(
+                &manifest_path,
+                format!("cannot read the run's manifest: {e}"),
+            )
+            .with_hint("give the directory of a run that taucal started")
+        })
+    };
+    // Not a run directory: say so before touching it. A run still going must not have its
+    // record cut under it, so the lock comes before anything else is read, and the manifest
+    // is read again under it (the other process may have finished meanwhile).
+    read()?;
+    let lock = super::claim::existing(dir)?;
+    let manifest = read()?;
     if manifest.status == RunStatus::Completed {
         return Err(
             Diagnostic::plain(format!("{} already completed", dir.display()))
@@ -50,6 +58,7 @@ pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
         &plan.source.text,
         &manifest.recipe.sha256,
     )?;
+    super::inputs::unchanged(&manifest.inputs, &super::inputs::input_files(&plan, &bench))?;
     for stage in &plan.stages {
         if let crate::recipe::Stage::Script(s) = stage {
             crate::script::check(&s.source)?;
@@ -76,6 +85,7 @@ pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
             dir: dir.to_path_buf(),
             manifest,
             replay,
+            lock,
         }),
     })
 }

@@ -53,6 +53,8 @@ pub struct Resumption {
     pub manifest: Manifest,
     /// Its exchanges up to the last checkpoint (the file is already cut there).
     pub replay: Vec<crate::data::Exchange>,
+    /// The directory's lock, held from before the record was cut until the run ends.
+    pub lock: crate::data::run_lock::RunLock,
 }
 
 /// How a run ended.
@@ -67,6 +69,9 @@ pub struct RunReport {
     pub verify: Vec<VerifyRow>,
     /// Why the run stopped early, if it did.
     pub failure: Option<RunError>,
+    /// Why the final manifest could not be written, if it could not: the one on disk may
+    /// still say `running`.
+    pub manifest_unwritten: Option<String>,
 }
 
 impl RunReport {
@@ -86,10 +91,13 @@ pub fn execute(
 ) -> Result<RunReport, Diagnostic> {
     let wall = Instant::now();
     let now = time::OffsetDateTime::now_utc();
-    let dir = match &req.resume {
-        Some(r) => r.dir.clone(),
-        None => run_dir::create(req.out.as_deref(), &req.plan.name, now)
-            .map_err(|e| Diagnostic::plain(format!("cannot create the run directory: {e}")))?,
+    // A resumption holds its directory's lock already (it took it before cutting the record).
+    let (dir, _lock) = match &req.resume {
+        Some(r) => (r.dir.clone(), None),
+        None => {
+            let (dir, lock) = super::claim::fresh(req.out.as_deref(), &req.plan.name, now)?;
+            (dir, Some(lock))
+        }
     };
     on_dir(&dir);
     let bench = req.bench;
@@ -122,6 +130,7 @@ pub fn execute(
             sha256: sha256_hex(bench.source.text.as_bytes()),
             simulated,
         },
+        inputs: super::inputs::input_files(&req.plan, &bench),
         instruments: BTreeMap::new(),
         counts: Default::default(),
         acceptance: Vec::new(),
@@ -304,7 +313,9 @@ pub fn execute(
     manifest.bench_time_s = clock.now_s();
     manifest.wall_time_s = earlier_wall_s + wall.elapsed().as_secs_f64();
     manifest.finished_utc = Some(run_dir::rfc3339(time::OffsetDateTime::now_utc()));
+    let mut manifest_unwritten = None;
     if let Err(e) = manifest.write(&manifest_path) {
+        manifest_unwritten = Some(e.to_string());
         failure = failure.or(Some(io_err(&manifest_path, e)));
     }
     // The report is read from the files just written, exactly as `taucal report` reads them; a
@@ -318,6 +329,7 @@ pub fn execute(
         fit,
         verify: verify_rows,
         failure,
+        manifest_unwritten,
     })
 }
 

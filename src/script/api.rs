@@ -2,6 +2,7 @@
 //! instrument or limit failure is parked in `fault` so the runner reports the real cause, and the
 //! script sees an error at the calling line.
 
+use super::budget::Budget;
 use crate::data::Exchange;
 use crate::recipe::plan::BANDWIDTHS_MHZ;
 use crate::recipe::{Channel, Vars};
@@ -13,16 +14,26 @@ use std::rc::Rc;
 type Shared<T> = Rc<RefCell<T>>;
 type Res<T> = Result<T, Box<EvalAltResult>>;
 
-/// The session and the slot where the first run failure is kept.
+/// The session, the slot where the first run failure is kept, and the stage's budget.
 #[derive(Clone)]
 pub struct Bridge {
     /// The run's session.
     pub session: Shared<Session>,
     /// The failure behind a script error, if it came from the run rather than the script.
     pub fault: Shared<Option<RunError>>,
+    /// What the stage may still spend.
+    pub budget: Rc<Budget>,
 }
 
 impl Bridge {
+    /// Runs a bench call on the session; its wall time is waiting on the bench, not computing.
+    fn call<T>(&self, op: impl FnOnce(&mut Session) -> Result<T, RunError>) -> Res<T> {
+        let start = std::time::Instant::now();
+        let r = op(&mut self.session.borrow_mut());
+        self.budget.in_calls(start.elapsed());
+        self.park(r)
+    }
+
     fn park<T>(&self, r: Result<T, RunError>) -> Res<T> {
         r.map_err(|e| {
             let text = e.to_string();
@@ -85,8 +96,7 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
     let b = bridge.clone();
     engine.register_fn("set_atten", move |db: Dynamic| -> Res<()> {
         let db = number("set_atten", db)?;
-        let r = b.session.borrow_mut().set_atten(db);
-        b.park(r)
+        b.call(|s| s.set_atten(db))
     });
     let b = bridge.clone();
     engine.register_fn("atten", move || -> Res<Dynamic> {
@@ -101,8 +111,15 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
         if !(0.0..=86_400_000.0).contains(&ms) {
             return Err(format!("wait_ms({ms}): give 0 to 86400000 ms").into());
         }
-        let r = b.session.borrow_mut().wait_ms(ms);
-        b.park(r)
+        let now_s = b.session.borrow().clock().now_s();
+        if !b.budget.wait_fits(now_s, ms) {
+            return Err(format!(
+                "wait_ms({ms}) would take the stage past its time_limit_s of {} s",
+                b.budget.time_limit_s()
+            )
+            .into());
+        }
+        b.call(|s| s.wait_ms(ms))
     });
     let b = bridge.clone();
     engine.register_fn("channel", move |center: INT, bw: INT| -> Res<()> {
@@ -114,11 +131,12 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
             )
             .into());
         }
-        let r = b.session.borrow_mut().set_channel(Channel {
-            center_mhz: center as u32,
-            bw_mhz: bw as u32,
-        });
-        b.park(r)
+        b.call(|s| {
+            s.set_channel(Channel {
+                center_mhz: center as u32,
+                bw_mhz: bw as u32,
+            })
+        })
     });
     let b = bridge.clone();
     engine.register_fn("burst", move |frames: INT| -> Res<Array> {
@@ -129,8 +147,7 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
             )
             .into());
         }
-        let r = b.session.borrow_mut().burst(frames as u32);
-        let rows = b.park(r)?;
+        let rows = b.call(|s| s.burst(frames as u32))?;
         Ok(rows
             .iter()
             .map(|x| Dynamic::from_map(exchange_map(x)))
@@ -204,8 +221,23 @@ pub fn register(engine: &mut Engine, bridge: &Bridge, vars: &Vars) {
         b.session.borrow_mut().results.insert(name.to_string(), v);
         Ok(())
     });
-    engine.register_fn("log", |msg: &str| tracing::info!(target: "script", "{msg}"));
-    engine.on_print(|msg| tracing::info!(target: "script", "{msg}"));
+    // `log` refuses at the calling line once the stage has logged too much; `print` cannot
+    // fail, so it drops the line and the progress hook stops the script at its next operation.
+    let budget = bridge.budget.clone();
+    engine.register_fn("log", move |msg: &str| -> Res<()> {
+        if !budget.log(msg.len()) {
+            let (message, _) = super::budget::Exceeded::LogVolume.describe();
+            return Err(message.into());
+        }
+        tracing::info!(target: "script", "{msg}");
+        Ok(())
+    });
+    let budget = bridge.budget.clone();
+    engine.on_print(move |msg| {
+        if budget.log(msg.len()) {
+            tracing::info!(target: "script", "{msg}");
+        }
+    });
     engine.on_debug(|msg, _, pos| tracing::debug!(target: "script", "{pos:?}: {msg}"));
     let vars = vars.clone();
     engine.register_fn("var", move |name: &str| -> Res<Dynamic> {

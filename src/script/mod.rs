@@ -1,6 +1,8 @@
-//! Rhai scripts in recipes: the registered API, the sandbox, and running a script stage.
+//! Rhai scripts in recipes: the registered API, the sandbox, a stage's budget (time, computing,
+//! log volume), and running a script stage.
 
 pub mod api;
+pub mod budget;
 pub mod limits;
 pub mod stage;
 

@@ -1,6 +1,7 @@
 //! Running a script stage, and compiling one for `taucal check`.
 
 use super::api::{self, Bridge};
+use super::budget::Budget;
 use super::limits::sandboxed_engine;
 use crate::diagnostic::Diagnostic;
 use crate::recipe::{Script, ScriptSource, Vars};
@@ -34,6 +35,12 @@ fn describe(e: &EvalAltResult) -> String {
             format!("in `{name}`: {}", describe(inner))
         }
         EvalAltResult::ErrorRuntime(msg, _) => msg.to_string(),
+        EvalAltResult::ErrorDataTooLarge(what, _) => format!(
+            "{what} grew past the sandbox's limit (arrays {} elements, maps {} entries, strings {} bytes)",
+            super::limits::MAX_ARRAY_SIZE,
+            super::limits::MAX_MAP_SIZE,
+            super::limits::MAX_STRING_BYTES
+        ),
         other => {
             let text = other.to_string();
             text.split(" (line ").next().unwrap_or(&text).to_string()
@@ -51,14 +58,25 @@ pub fn run_script(
         .borrow_mut()
         .begin_stage(&script.name, script.channel)?;
     let stop = session.borrow().stop().clone();
+    let bench_s = session.borrow().clock().now_s();
     let bridge = Bridge {
-        session,
+        session: session.clone(),
         fault: Rc::new(RefCell::new(None)),
+        budget: Rc::new(Budget::start(script.limits, bench_s)),
     };
     let mut engine = sandboxed_engine();
     api::register(&mut engine, &bridge, vars);
-    // A stop request ends a script between operations, even one that never calls the bench.
-    engine.on_progress(move |_| stop.requested().then_some(rhai::Dynamic::UNIT));
+    // A stop request or a spent budget ends a script between operations, even one that never
+    // calls the bench. The clocks are read every 256 operations (a few microseconds apart).
+    let budget = bridge.budget.clone();
+    engine.on_progress(move |ops| {
+        let stopped = stop.requested() || budget.over().is_some();
+        let spent = ops % 256 == 0
+            && session
+                .try_borrow()
+                .is_ok_and(|s| budget.exceeded(s.clock().now_s()).is_some());
+        (stopped || spent).then_some(rhai::Dynamic::UNIT)
+    });
     let src = &script.source;
     let ast = engine.compile(&src.code).map_err(|e| {
         RunError::Script(Box::new(located(
@@ -75,6 +93,16 @@ pub fn run_script(
         Ok(()) => Ok(()),
         Err(e) => {
             let fault = bridge.fault.borrow_mut().take();
+            if let Some(over) = bridge.budget.over() {
+                let (message, hint) = over.describe();
+                let mut d = located(
+                    src,
+                    e.position(),
+                    format!("script stage `{}`: {message}", script.name),
+                );
+                d.hint = Some(hint);
+                return Err(RunError::Script(Box::new(d)));
+            }
             if matches!(*e, EvalAltResult::ErrorTerminated(..)) {
                 return Err(RunError::Interrupted);
             }

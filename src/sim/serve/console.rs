@@ -19,6 +19,15 @@ pub const BANNER: [&str; 3] = [
     "fw 2.3.1 ready",
 ];
 
+/// Exchanges per burst the console accepts: the Wren-6's `[limits] frames` in
+/// `drivers/wren6-console.toml`. The served console refuses what the device would, so no
+/// request can make the server build an endless burst.
+pub const FRAMES: [u32; 2] = [1, 1024];
+/// Center frequencies it accepts, MHz (the driver file's `center_mhz`).
+pub const CENTER_MHZ: [u32; 2] = [2412, 7115];
+/// Bandwidths it accepts, MHz (the driver file's `bw_mhz`).
+pub const BW_MHZ: [u32; 4] = [20, 40, 80, 160];
+
 /// A console command.
 #[derive(Debug, Clone, PartialEq)]
 pub enum ConsoleCommand {
@@ -53,16 +62,26 @@ pub fn parse_command(line: &str) -> Result<ConsoleCommand, String> {
                     _ => return Err("range fail unknown argument".into()),
                 }
             }
-            match (n, ch, bw) {
-                (Some(frames), Some(center_mhz), Some(bw_mhz)) if frames > 0 => {
-                    Ok(ConsoleCommand::Burst(BurstRequest {
-                        frames,
-                        center_mhz,
-                        bw_mhz,
-                    }))
-                }
-                _ => Err("range fail need n>0, ch and bw".into()),
+            let (Some(frames), Some(center_mhz), Some(bw_mhz)) = (n, ch, bw) else {
+                return Err("range fail need n, ch and bw".into());
+            };
+            if !(FRAMES[0]..=FRAMES[1]).contains(&frames) {
+                return Err(format!("range fail n must be {}..{}", FRAMES[0], FRAMES[1]));
             }
+            if !(CENTER_MHZ[0]..=CENTER_MHZ[1]).contains(&center_mhz) {
+                return Err(format!(
+                    "range fail ch must be {}..{}",
+                    CENTER_MHZ[0], CENTER_MHZ[1]
+                ));
+            }
+            if !BW_MHZ.contains(&bw_mhz) {
+                return Err("range fail bw must be 20, 40, 80 or 160".into());
+            }
+            Ok(ConsoleCommand::Burst(BurstRequest {
+                frames,
+                center_mhz,
+                bw_mhz,
+            }))
         }
         _ => Err(format!("err unknown command `{}`", line.trim())),
     }
@@ -199,8 +218,33 @@ mod tests {
         assert_eq!(parse_command("who"), Ok(ConsoleCommand::Identify));
         assert_eq!(parse_command("range halt"), Ok(ConsoleCommand::Halt));
         assert!(parse_command("range go n=0 ch=5180 bw=80").is_err());
+        // A burst the device could not run is refused before any of it is built.
+        assert_eq!(
+            parse_command("range go n=100000000 ch=5180 bw=80"),
+            Err("range fail n must be 1..1024".into())
+        );
+        assert!(parse_command("range go n=1024 ch=7115 bw=160").is_ok());
+        assert!(parse_command("range go n=16 ch=7200 bw=80").is_err());
+        assert!(parse_command("range go n=16 ch=5180 bw=320").is_err());
         assert!(parse_command("range go n=x").is_err());
         assert!(parse_command("launch").is_err_and(|r| r.starts_with("err unknown command")));
+    }
+
+    #[test]
+    fn the_served_limits_are_the_shipped_drivers() {
+        use crate::diagnostic::SourceFile;
+        use crate::instrument::driver_file::{DriverFile, DriverKind};
+        let text = include_str!("../../../drivers/wren6-console.toml");
+        let Ok(DriverFile {
+            kind: DriverKind::RangingConsole(driver),
+            ..
+        }) = DriverFile::parse("wren6-console", SourceFile::new("wren6-console.toml", text))
+        else {
+            panic!("driver");
+        };
+        assert_eq!(driver.frames, FRAMES);
+        assert_eq!(driver.center_mhz, CENTER_MHZ);
+        assert_eq!(driver.bw_mhz, BW_MHZ);
     }
 
     #[test]

@@ -29,6 +29,10 @@ use std::sync::{Arc, Mutex};
 use tokio::io::{AsyncRead, AsyncReadExt, AsyncWriteExt};
 use tokio::net::{TcpListener, TcpStream};
 
+/// Clients served at once on one role's socket; more are closed as they connect. A bench has
+/// one client per instrument, so this leaves room for a stray connection or two.
+pub const MAX_CLIENTS: usize = 8;
+
 /// The instruments a simulated bench can serve.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ServedRole {
@@ -182,9 +186,18 @@ impl ServedBench {
                 let listener = TcpListener::bind(socket).await?;
                 let bound = listener.local_addr()?;
                 let me = self.clone();
+                let clients = Arc::new(tokio::sync::Semaphore::new(MAX_CLIENTS));
                 tokio::spawn(async move {
                     loop {
                         let Ok((stream, peer)) = listener.accept().await else {
+                            continue;
+                        };
+                        // Each client costs a buffer and a task: past the cap, close at once.
+                        let Ok(permit) = clients.clone().try_acquire_owned() else {
+                            tracing::warn!(
+                                "{}: client {peer} refused: {MAX_CLIENTS} already connected",
+                                role.name()
+                            );
                             continue;
                         };
                         tracing::info!("{}: client {peer} connected", role.name());
@@ -200,6 +213,7 @@ impl ServedBench {
                             if let Err(e) = outcome {
                                 tracing::info!("{}: client {peer}: {e}", role.name());
                             }
+                            drop(permit);
                         });
                     }
                 });
