@@ -2,7 +2,7 @@
 //! measured side by side in one run, repeated, reported as median and spread.
 //!
 //! 1. `taucal fit` (the release binary, a child process) on generated exchanges with known
-//!    truth, against the pandas baseline (`../shared/bench/baseline_fit.py`, same computation)
+//!    truth, against the pandas baseline (`benches/baseline_fit.py`, same computation)
 //!    and against a bare csv `ByteRecord` loop over the same file (the parse limit); the fit's K
 //!    is checked against the simulator's truth, and the fit's peak RSS is measured on a larger
 //!    file.
@@ -66,7 +66,7 @@ impl Settings {
             pandas_repeats: 3,
             pings: 20_000,
             python: std::env::var("TAUCAL_BENCH_PYTHON").unwrap_or_else(|_| "python3".into()),
-            baseline: root.join("../shared/bench/baseline_fit.py"),
+            baseline: root.join("benches/baseline_fit.py"),
             dir: std::env::temp_dir().join("taucal-bench"),
             soak: true,
         };

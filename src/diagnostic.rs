@@ -1,8 +1,8 @@
 //! Errors that point into a source file, and their rendering.
 //!
 //! Library code produces [`Diagnostic`]s (or [`KeyError`]s that name a key path and are located
-//! later); only the binary's edge renders them, once, as `file:line:col`, the source line, a caret
-//! under the fault and a hint.
+//! later); only the binary's edge renders them, once: a first line naming the file, line and
+//! column, the quoted line with a marker row under the fault, and what would be right.
 
 use std::fmt;
 use std::ops::Range;
@@ -150,44 +150,52 @@ impl Diagnostic {
     }
 }
 
+/// Indent of the quoted line, the marker row and the advice under the first line.
+const INDENT: &str = "    ";
+
+/// Renders taucal's own error layout:
+///
+/// ```text
+/// taucal: r.toml line 2, column 10: `x.bursts` must be positive
+///     bursts = -1
+///              ==
+///     what would be right: use 1 or more
+/// ```
 impl fmt::Display for Diagnostic {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        writeln!(f, "error: {}", self.message)?;
-        if let Some(file) = &self.file {
-            match &self.span {
-                Some(span) if !file.text.is_empty() => {
-                    let (line, col) = file.line_col(span.start);
-                    let gutter = line.to_string().len();
-                    writeln!(
-                        f,
-                        "{:gutter$}--> {}:{}:{}",
-                        "",
-                        file.path.display(),
-                        line,
-                        col
-                    )?;
-                    let src = file.text.lines().nth(line - 1).unwrap_or("");
-                    let width = file.text[span.clone()]
-                        .lines()
-                        .next()
-                        .map_or(1, |l| l.chars().count().max(1))
-                        .min(src.chars().count().saturating_sub(col - 1).max(1));
-                    writeln!(f, "{:gutter$} |", "")?;
-                    writeln!(f, "{line} | {src}")?;
-                    writeln!(
-                        f,
-                        "{:gutter$} | {:pad$}{}",
-                        "",
-                        "",
-                        "^".repeat(width),
-                        pad = col - 1
-                    )?;
-                }
-                _ => writeln!(f, " --> {}", file.path.display())?,
+        let mut quoted = None;
+        match (&self.file, &self.span) {
+            (Some(file), Some(span)) if !file.text.is_empty() => {
+                let (line, col) = file.line_col(span.start);
+                write!(
+                    f,
+                    "taucal: {} line {line}, column {col}: ",
+                    file.path.display()
+                )?;
+                quoted = Some((file, span, line, col));
             }
+            (Some(file), _) => write!(f, "taucal: {}: ", file.path.display())?,
+            (None, _) => write!(f, "taucal: ")?,
+        }
+        writeln!(f, "{}", self.message)?;
+        if let Some((file, span, line, col)) = quoted {
+            let src = file.text.lines().nth(line - 1).unwrap_or("");
+            let width = file.text[span.clone()]
+                .lines()
+                .next()
+                .map_or(1, |l| l.chars().count().max(1))
+                .min(src.chars().count().saturating_sub(col - 1).max(1));
+            // Tabs before the column are kept so the marker lines up however tabs are shown.
+            let pad: String = src
+                .chars()
+                .take(col - 1)
+                .map(|c| if c == '\t' { '\t' } else { ' ' })
+                .collect();
+            writeln!(f, "{INDENT}{src}")?;
+            writeln!(f, "{INDENT}{pad}{}", "=".repeat(width))?;
         }
         if let Some(hint) = &self.hint {
-            writeln!(f, "  = hint: {hint}")?;
+            writeln!(f, "{INDENT}what would be right: {hint}")?;
         }
         Ok(())
     }
@@ -209,7 +217,15 @@ pub fn from_toml(file: &SourceFile, e: &toml::de::Error) -> Diagnostic {
 
 fn toml_hint(message: &str) -> Option<String> {
     if let Some(rest) = message.split("expected one of ").nth(1) {
-        return Some(format!("the keys allowed here are {rest}"));
+        let allowed = format!("the keys allowed here are {rest}");
+        let unknown = message
+            .strip_prefix("unknown field `")
+            .and_then(|m| m.split('`').next());
+        let candidates = rest.split(", ").map(|c| c.trim_matches('`'));
+        return Some(match unknown.and_then(|u| did_you_mean(u, candidates)) {
+            Some(near) => format!("did you mean `{near}`? {allowed}"),
+            None => allowed,
+        });
     }
     if message.starts_with("missing field") {
         return Some("add the key; see README.md for the file format".into());
@@ -271,17 +287,37 @@ mod tests {
     }
 
     #[test]
-    fn renders_file_line_caret_and_hint() {
+    fn renders_file_line_marker_and_advice() {
         let f = SourceFile::new("r.toml", "[x]\nbursts = -1\n");
         let d = f.key_error(KeyError::new(
             "x.bursts",
             "must be positive",
             "use 1 or more",
         ));
-        let text = d.to_string();
-        assert!(text.contains("--> r.toml:2:10"), "{text}");
-        assert!(text.contains("2 | bursts = -1"), "{text}");
-        assert!(text.contains("  |          ^^"), "{text}");
-        assert!(text.contains("hint: use 1 or more"), "{text}");
+        assert_eq!(
+            d.to_string(),
+            "taucal: r.toml line 2, column 10: `x.bursts` must be positive\n\
+             \x20   bursts = -1\n\
+             \x20            ==\n\
+             \x20   what would be right: use 1 or more\n"
+        );
+    }
+
+    #[test]
+    fn the_marker_keeps_tabs_and_errors_without_a_place_say_so_plainly() {
+        let f = SourceFile::new("t.toml", "[x]\n\tk =\t7\n");
+        let span = f.span_of_key("x.k").expect("span");
+        let text = Diagnostic::at(&f, Some(span), "bad").to_string();
+        assert!(text.ends_with("    \tk =\t7\n    \t   \t=\n"), "{text:?}");
+        assert_eq!(
+            Diagnostic::plain("no such run")
+                .with_hint("give a run directory")
+                .to_string(),
+            "taucal: no such run\n    what would be right: give a run directory\n"
+        );
+        assert_eq!(
+            Diagnostic::in_file(Path::new("m.toml"), "cannot read").to_string(),
+            "taucal: m.toml: cannot read\n"
+        );
     }
 }

@@ -30,10 +30,15 @@ fn refused(recipe: &str, extra: &[&str], location: &str, words: &str) {
             .args(args)
             .run();
         out.expect_code(2);
-        assert!(out.stderr.contains("error:"), "{cmd}: {}", out.stderr);
+        // A place in a file opens the message's first line.
+        let wanted = if location.contains(" line ") {
+            format!("taucal: {location}")
+        } else {
+            location.to_string()
+        };
         assert!(
-            out.stderr.contains(location),
-            "{cmd}: wanted {location:?} in\n{}",
+            out.stderr.contains(&wanted),
+            "{cmd}: wanted {wanted:?} in\n{}",
             out.stderr
         );
         assert!(
@@ -64,14 +69,19 @@ fn toml_syntax_error() {
     refused(
         &edit("name = \"probe\"", "name = \"probe"),
         &[],
-        "r.toml:2:",
+        "r.toml line 2, column ",
         "string",
     );
 }
 
 #[test]
 fn unknown_table() {
-    refused(&edit("[vars]", "[varz]"), &[], "r.toml:4:", "unknown field");
+    refused(
+        &edit("[vars]", "[varz]"),
+        &[],
+        "r.toml line 4, column ",
+        "unknown field",
+    );
 }
 
 #[test]
@@ -79,8 +89,20 @@ fn unknown_stage_key_lists_the_allowed_ones() {
     refused(
         &edit("frames = 8", "frames = 8\nburts = 3"),
         &[],
-        "r.toml:15:",
+        "r.toml line 15, column ",
         "atten_db",
+    );
+    refused(
+        &edit("frames = 8", "frames = 8\nburts = 3"),
+        &[],
+        "r.toml line 15, column ",
+        "did you mean `bursts`?",
+    );
+    refused(
+        &edit("frames = 8", "frames = 8\nzzzzzz = 3"),
+        &[],
+        "r.toml line 15, column ",
+        "what would be right: the keys allowed here are",
     );
 }
 
@@ -89,7 +111,7 @@ fn unknown_stage_kind() {
     refused(
         &edit("kind = \"sweep\"", "kind = \"sweeep\""),
         &[],
-        "r.toml:9:8",
+        "r.toml line 9, column 8:",
         "not a stage kind",
     );
 }
@@ -99,7 +121,7 @@ fn missing_frames() {
     refused(
         &edit("frames = 8\n", ""),
         &[],
-        "r.toml:7:1",
+        "r.toml line 7, column 1:",
         "needs `frames`",
     );
 }
@@ -109,7 +131,7 @@ fn receiver_protection_refuses_a_level_above_max_input() {
     refused(
         &edit("[40.0, 50.0]", "[10.0, 50.0]"),
         &[],
-        "r.toml:12:12",
+        "r.toml line 12, column 12:",
         "above its max_input_dbm",
     );
 }
@@ -238,7 +260,12 @@ fn non_finite_numbers_in_a_recipe_are_refused() {
 
 #[test]
 fn attenuation_off_the_grid() {
-    refused(&edit("[40.0, 50.0]", "[40.1]"), &[], "r.toml:12:12", "grid");
+    refused(
+        &edit("[40.0, 50.0]", "[40.1]"),
+        &[],
+        "r.toml line 12, column 12:",
+        "grid",
+    );
 }
 
 #[test]
@@ -246,7 +273,7 @@ fn attenuation_outside_the_range() {
     refused(
         &edit("[40.0, 50.0]", "[120.0]"),
         &[],
-        "r.toml:12:12",
+        "r.toml line 12, column 12:",
         "outside the attenuator's range",
     );
 }
@@ -256,7 +283,7 @@ fn bandwidth_that_is_no_channel_width() {
     refused(
         &edit("bw_mhz = 80", "bw_mhz = 30"),
         &[],
-        "r.toml:11:10",
+        "r.toml line 11, column 10:",
         "not a channel width",
     );
 }
@@ -266,7 +293,7 @@ fn center_outside_the_wifi_bands() {
     refused(
         &edit("center_mhz = 5180", "center_mhz = 1000"),
         &[],
-        "r.toml:10:14",
+        "r.toml line 10, column 14:",
         "not a Wi-Fi channel center",
     );
 }
@@ -276,7 +303,7 @@ fn misspelt_variable_reference() {
     refused(
         &edit("\"$bursts\"", "\"$burst\""),
         &[],
-        "r.toml:13:10",
+        "r.toml line 13, column 10:",
         "did you mean `$bursts`",
     );
 }
@@ -286,7 +313,7 @@ fn zero_bursts() {
     refused(
         &edit("bursts = 2", "bursts = 0"),
         &[],
-        "r.toml:13:10",
+        "r.toml line 13, column 10:",
         "whole number from 1",
     );
 }
@@ -296,7 +323,7 @@ fn fractional_frames() {
     refused(
         &edit("frames = 8", "frames = 2.5"),
         &[],
-        "r.toml:14:10",
+        "r.toml line 14, column 10:",
         "whole number",
     );
 }
@@ -304,7 +331,7 @@ fn fractional_frames() {
 #[test]
 fn duplicate_stage_names() {
     let text = format!("{GOOD}\n[[stage]]\nname = \"sweep\"\nkind = \"sweep\"\ncenter_mhz = 5180\nbw_mhz = 80\natten_db = [40.0]\nframes = 8\n");
-    refused(&text, &[], "r.toml:17:8", "earlier stage");
+    refused(&text, &[], "r.toml line 17, column 8:", "earlier stage");
 }
 
 #[test]
@@ -312,19 +339,19 @@ fn script_syntax_error_points_into_the_recipe() {
     let text = format!(
         "{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nscript = '''\nset_atten(40.0);\nlet x = ;\n'''\n"
     );
-    refused(&text, &[], "r.toml:23:9", "script syntax");
+    refused(&text, &[], "r.toml line 23, column 9:", "script syntax");
 }
 
 #[test]
 fn script_syntax_error_in_a_script_file() {
     let text = format!("{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"bad.rhai\"\n");
-    refused(&text, &[], "bad.rhai:1:9", "script syntax");
+    refused(&text, &[], "bad.rhai line 1, column 9:", "script syntax");
 }
 
 #[test]
 fn missing_script_file() {
     let text = format!("{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"nowhere.rhai\"\n");
-    refused(&text, &[], "r.toml:21:8", "cannot read");
+    refused(&text, &[], "r.toml line 21, column 8:", "cannot read");
 }
 
 #[test]
@@ -335,7 +362,7 @@ fn sweep_key_in_a_script_stage() {
     refused(
         &text,
         &[],
-        "r.toml:21:10",
+        "r.toml line 21, column 10:",
         "does not belong in a script stage",
     );
 }
@@ -345,7 +372,7 @@ fn descending_range() {
     refused(
         &edit("[40.0, 50.0]", "{ from = 60.0, to = 40.0, step = 2.0 }"),
         &[],
-        "r.toml:12:12",
+        "r.toml line 12, column 12:",
         "ascending",
     );
 }
@@ -355,7 +382,7 @@ fn step_off_the_attenuator_grid() {
     refused(
         &edit("[40.0, 50.0]", "{ from = 40.0, to = 50.0, step = 0.3 }"),
         &[],
-        "r.toml:12:",
+        "r.toml line 12, column ",
         "multiple of the attenuator's 0.25 dB step",
     );
 }
@@ -365,7 +392,7 @@ fn a_recipe_without_stages() {
     refused(
         "[recipe]\nname = \"empty\"\n",
         &[],
-        "r.toml:1:1",
+        "r.toml line 1, column 1:",
         "no stages",
     );
 }
@@ -375,7 +402,7 @@ fn reject_threshold_too_small() {
     refused(
         &format!("{GOOD}\n[fit]\nreject_mad = 1.0\n"),
         &[],
-        "r.toml:17:14",
+        "r.toml line 17, column 14:",
         "reject much of a clean",
     );
 }
@@ -431,7 +458,7 @@ fn bench_with_a_timeout_on_a_simulated_role() {
     bench_refused(
         "dut = { driver = \"sim-ranging\", address = \"sim:\" }",
         "dut = { driver = \"sim-ranging\", address = \"sim:\", timeout_ms = 100.0 }",
-        "b.toml:13:",
+        "b.toml line 13, column ",
         "`roles.dut.timeout_ms` applies to an instrument reached over a link",
     );
 }
@@ -441,7 +468,7 @@ fn bench_with_an_unknown_role() {
     bench_refused(
         "reference = { driver",
         "referense = { driver",
-        "b.toml:",
+        "taucal: b.toml line ",
         "has no `reference` role",
     );
 }
@@ -451,7 +478,7 @@ fn bench_thresholds_not_descending() {
     bench_refused(
         "[-30.0, -55.0]",
         "[-55.0, -30.0]",
-        "b.toml:",
+        "taucal: b.toml line ",
         "strictly descending",
     );
 }
@@ -461,7 +488,7 @@ fn bench_delay_table_and_thresholds_disagree() {
     bench_refused(
         "[900.0, 1150.0, 1400.0]",
         "[900.0, 1150.0]",
-        "b.toml:",
+        "taucal: b.toml line ",
         "thresholds for 2 gain states",
     );
 }
@@ -471,7 +498,7 @@ fn bench_input_window_upside_down() {
     bench_refused(
         "min_input_dbm = -82.0",
         "min_input_dbm = 0.0",
-        "b.toml:",
+        "taucal: b.toml line ",
         "not below max_input_dbm",
     );
 }
@@ -481,7 +508,7 @@ fn bench_value_of_the_wrong_type() {
     bench_refused(
         "cable_delay_ps = 6100.0",
         "cable_delay_ps = \"long\"",
-        "b.toml:",
+        "taucal: b.toml line ",
         "invalid type",
     );
 }

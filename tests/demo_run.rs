@@ -142,7 +142,11 @@ set_atten(12.0);
         .args(["run", "fault.toml", "--out", "f"])
         .run();
     out.expect_code(3);
-    assert!(out.stderr.contains("fault.toml:21:1"), "{}", out.stderr);
+    assert!(
+        out.stderr.contains("fault.toml line 21, column 1:"),
+        "{}",
+        out.stderr
+    );
     assert!(out.stderr.contains("max_input_dbm"), "{}", out.stderr);
     let m = manifest(&out.read("f/manifest.toml"));
     assert_eq!(m["status"].as_str(), Some("failed"));
@@ -178,5 +182,5 @@ loop {
         .run();
     out.expect_code(3);
     assert!(out.stderr.contains("endless loop"), "{}", out.stderr);
-    assert!(out.stderr.contains("spin.toml:1"), "{}", out.stderr);
+    assert!(out.stderr.contains("spin.toml line 1"), "{}", out.stderr);
 }

@@ -1,6 +1,10 @@
-//! Every recipe and bench file shipped in the repository stays valid.
+//! Every recipe and bench file shipped in the repository stays valid, and every example in
+//! README.md runs as printed: the fenced blocks are parsed out of README.md itself, so the README
+//! and these tests cannot drift apart, and a block no test recognises fails
+//! `every_readme_block_is_run_by_a_test`.
 
-use crate::support::{repo, root, Taucal};
+use crate::instruments::{in_process_exchanges, Server};
+use crate::support::{repo, root, Outcome, Taucal};
 
 fn toml_files(dir: &str) -> Vec<String> {
     let mut files: Vec<String> = std::fs::read_dir(root().join(dir))
@@ -18,26 +22,80 @@ fn every_recipe_passes_check_on_its_bench() {
     let recipes = toml_files("recipes");
     assert!(recipes.iter().any(|r| r.ends_with("rx-gain-sweep.toml")));
     for recipe in recipes {
-        // A recipe that needs a special simulated bench has a bench file of its own name.
-        let name = std::path::Path::new(&recipe)
-            .file_name()
-            .map(|n| n.to_string_lossy().to_string())
-            .unwrap_or_default();
-        let own = root().join("recipes/benches").join(&name);
-        let bench = if own.is_file() {
-            own.display().to_string()
-        } else {
-            repo("recipes/benches/sim-demo.toml")
-        };
-        let out = Taucal::new()
-            .args(["check", recipe.as_str(), "--bench", &bench])
-            .run();
+        // Without --bench: the bench the recipe names, else the built-in demo bench.
+        let out = Taucal::new().args(["check", recipe.as_str()]).run();
         out.expect_code(0);
         assert!(
             out.stdout.contains("check passed"),
             "{recipe}: {}",
             out.stdout
         );
+    }
+}
+
+#[test]
+fn a_recipe_names_its_default_bench_and_bench_overrides_it() {
+    let soak = repo("recipes/overnight-soak.toml");
+    let out = Taucal::new().args(["check", &soak]).run();
+    out.expect_code(0);
+    assert!(
+        out.stdout
+            .contains("bench `saltmarsh-bench-3 with chamber (simulated)` is SIMULATED"),
+        "{}",
+        out.stdout
+    );
+    assert!(
+        out.stderr
+            .contains("benches/overnight-soak.toml, the bench the recipe names"),
+        "{}",
+        out.stderr
+    );
+    // --bench wins: the demo bench has no chamber, so the soak stages are refused.
+    let out = Taucal::new()
+        .args([
+            "check",
+            &soak,
+            "--bench",
+            &repo("recipes/benches/sim-demo.toml"),
+        ])
+        .run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("chamber"), "{}", out.stderr);
+    // A recipe that names no bench keeps the built-in one.
+    let out = Taucal::new()
+        .args(["check", &repo("recipes/rx-gain-sweep.toml")])
+        .run();
+    out.expect_code(0);
+    assert!(
+        out.stdout
+            .contains("bench `saltmarsh-bench-3 (simulated)` is SIMULATED"),
+        "{}",
+        out.stdout
+    );
+}
+
+#[test]
+fn a_default_bench_that_is_missing_or_not_a_path_is_refused_at_its_key() {
+    let recipe = "[recipe]\nname = \"x\"\nbench = BENCH\n\n[[stage]]\nname = \"s\"\nkind = \"sweep\"\ncenter_mhz = 5180\nbw_mhz = 80\natten_db = [40.0]\n";
+    for (bench, words) in [
+        ("\"benches/none.toml\"", "which is not a file"),
+        ("3", "is not a string (found integer)"),
+    ] {
+        for cmd in ["check", "run"] {
+            let out = Taucal::new()
+                .file("r.toml", &recipe.replace("BENCH", bench))
+                .args([cmd, "r.toml"])
+                .run();
+            out.expect_code(2);
+            assert!(
+                out.stderr
+                    .contains("taucal: r.toml line 3, column 9: `recipe.bench`"),
+                "{}",
+                out.stderr
+            );
+            assert!(out.stderr.contains(words), "{}", out.stderr);
+            assert!(!out.has_dir("runs"));
+        }
     }
 }
 
@@ -87,4 +145,517 @@ fn check_prints_the_plan() {
     );
     assert!(out.stdout.contains("nothing was run"), "{}", out.stdout);
     assert!(!out.has_dir("runs"));
+}
+
+/// One fenced block of README.md, its indentation removed.
+#[derive(Debug, Clone)]
+struct Block {
+    /// The fence's language tag (`sh`, `toml`, or empty).
+    lang: String,
+    /// The lines between the fences.
+    text: String,
+    /// 1-based line of the opening fence.
+    line: usize,
+}
+
+/// What a README block is, and so which test runs it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Kind {
+    /// `cargo run --release -- …` and `cargo test --release`.
+    QuickStart,
+    /// The command synopsis.
+    Synopsis,
+    /// `taucal sim serve` and a run through the served instruments.
+    Served,
+    /// The printed error.
+    ErrorScreen,
+    /// The annotated recipe.
+    Recipe,
+    /// The annotated simulated bench.
+    SimBench,
+    /// Roles on real instruments.
+    RealRoles,
+    /// A real bench's `[timing]`.
+    Timing,
+    /// The annotated driver file.
+    Driver,
+    /// A recipe's `[faults]`.
+    Faults,
+    /// Lines of `taucal` commands on the repository's files.
+    Commands,
+    /// The exact stdout of the single command in the block before it.
+    Output,
+    /// The Performance section's reproduction.
+    Performance,
+}
+
+fn readme() -> String {
+    std::fs::read_to_string(root().join("README.md")).expect("README.md")
+}
+
+fn readme_blocks() -> Vec<Block> {
+    let mut blocks = Vec::new();
+    let mut open: Option<(usize, Block)> = None;
+    for (i, line) in readme().lines().enumerate() {
+        let body = line.trim_start();
+        let indent = line.len() - body.len();
+        match open.take() {
+            None => {
+                if let Some(lang) = body.strip_prefix("```") {
+                    let block = Block {
+                        lang: lang.trim().to_string(),
+                        text: String::new(),
+                        line: i + 1,
+                    };
+                    open = Some((indent, block));
+                }
+            }
+            Some((fence_indent, block)) if body == "```" && indent == fence_indent => {
+                blocks.push(block);
+            }
+            Some((fence_indent, mut block)) => {
+                block
+                    .text
+                    .push_str(line.get(fence_indent..).unwrap_or(body));
+                block.text.push('\n');
+                open = Some((fence_indent, block));
+            }
+        }
+    }
+    assert!(open.is_none(), "README.md ends inside a code block");
+    blocks
+}
+
+/// The block's commands: non-empty lines without their trailing `# comment`.
+fn commands(block: &Block) -> Vec<String> {
+    block
+        .text
+        .lines()
+        .map(|l| l.split(" #").next().unwrap_or("").trim().to_string())
+        .filter(|l| !l.is_empty())
+        .collect()
+}
+
+fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
+    let text = block.text.as_str();
+    let single_command =
+        |b: &Block| kind_of(b, None) == Some(Kind::Commands) && commands(b).len() == 1;
+    Some(match block.lang.as_str() {
+        "sh" if text.contains("cargo run --release --") => Kind::QuickStart,
+        "sh" if text.contains("cargo bench --bench scale") => Kind::Performance,
+        "sh" if text.contains("taucal sim serve") => Kind::Served,
+        "sh" if commands(block).iter().all(|c| c.starts_with("taucal ")) => Kind::Commands,
+        "" if text.starts_with("taucal run RECIPE") => Kind::Synopsis,
+        "" if text.starts_with("taucal: my-recipe.toml") => Kind::ErrorScreen,
+        "" if previous.is_some_and(single_command) => Kind::Output,
+        "toml" if text.starts_with("[recipe]") => Kind::Recipe,
+        "toml" if text.starts_with("[bench]\nname") => Kind::SimBench,
+        "toml" if text.starts_with("[bench]\ndrivers_dir") => Kind::RealRoles,
+        "toml" if text.starts_with("[timing]") => Kind::Timing,
+        "toml" if text.starts_with("[driver]") => Kind::Driver,
+        "toml" if text.starts_with("[faults]") => Kind::Faults,
+        _ => return None,
+    })
+}
+
+/// Every block of a kind, with the block after each (an `Output` belongs to the one before).
+fn blocks_of(kind: Kind) -> Vec<(Block, Option<Block>)> {
+    let blocks = readme_blocks();
+    let mut found = Vec::new();
+    for (i, b) in blocks.iter().enumerate() {
+        let previous = i.checked_sub(1).map(|p| &blocks[p]);
+        if kind_of(b, previous) == Some(kind) {
+            let next = blocks
+                .get(i + 1)
+                .filter(|n| kind_of(n, Some(b)) == Some(Kind::Output))
+                .cloned();
+            found.push((b.clone(), next));
+        }
+    }
+    assert!(!found.is_empty(), "README.md has no {kind:?} block");
+    found
+}
+
+fn the_block(kind: Kind) -> Block {
+    let mut all = blocks_of(kind);
+    assert_eq!(all.len(), 1, "one {kind:?} block expected");
+    all.remove(0).0
+}
+
+/// A README command line as arguments of the binary (no quoting is used in the README).
+fn taucal_args(command: &str) -> Vec<String> {
+    let rest = command
+        .strip_prefix("taucal ")
+        .unwrap_or_else(|| panic!("not a taucal command: {command}"));
+    rest.split_whitespace().map(String::from).collect()
+}
+
+/// Runs a README command in a copy of the repository's recipes, drivers and demo data.
+fn run_as_printed(command: &str) -> Outcome {
+    Taucal::new()
+        .with_repo(&["recipes", "drivers", "demo-data"])
+        .args(taucal_args(command))
+        .run()
+}
+
+#[test]
+fn every_readme_block_is_run_by_a_test() {
+    let blocks = readme_blocks();
+    assert!(blocks.len() >= 12, "{} blocks", blocks.len());
+    for (i, b) in blocks.iter().enumerate() {
+        let previous = i.checked_sub(1).map(|p| &blocks[p]);
+        assert!(
+            kind_of(b, previous).is_some(),
+            "README.md line {}: a ```{} block no test runs:\n{}",
+            b.line,
+            b.lang,
+            b.text
+        );
+    }
+}
+
+#[test]
+fn readme_quick_start_runs_as_printed() {
+    let block = the_block(Kind::QuickStart);
+    for command in commands(&block) {
+        if command == "cargo test --release" {
+            continue; // the suite this test is part of
+        }
+        let args = command
+            .strip_prefix("cargo run --release -- ")
+            .unwrap_or_else(|| panic!("unexpected quick-start line: {command}"));
+        let out = Taucal::new()
+            .with_repo(&["recipes"])
+            .args(args.split_whitespace())
+            .run();
+        out.expect_code(0);
+        assert!(out.stdout.contains("calibration table"), "{}", out.stdout);
+        assert!(
+            out.stderr.contains("SIMULATED"),
+            "it says so: {}",
+            out.stderr
+        );
+        let runs: Vec<_> = std::fs::read_dir(out.path("runs"))
+            .expect("runs/")
+            .filter_map(|e| e.ok())
+            .map(|e| e.file_name().to_string_lossy().into_owned())
+            .collect();
+        assert!(
+            runs.len() == 1 && runs[0].ends_with("-rx-gain-sweep"),
+            "{runs:?}"
+        );
+    }
+}
+
+#[test]
+fn readme_synopsis_matches_the_commands_and_their_options() {
+    let block = the_block(Kind::Synopsis);
+    let lines = commands(&block);
+    for line in &lines {
+        let words: Vec<&str> = line.split_whitespace().skip(1).collect();
+        let sub: Vec<&str> = words
+            .iter()
+            .take_while(|w| w.chars().all(|c| c.is_ascii_lowercase()))
+            .copied()
+            .collect();
+        assert!(!sub.is_empty(), "{line}");
+        let help = Taucal::new()
+            .args(sub.iter().copied())
+            .args(["--help"])
+            .run();
+        help.expect_code(0);
+        for flag in line
+            .split(|c: char| c.is_whitespace() || "[]=".contains(c))
+            .filter(|w| w.starts_with("--"))
+        {
+            assert!(
+                help.stdout.contains(flag),
+                "`taucal {}` has no {flag}:\n{}",
+                sub.join(" "),
+                help.stdout
+            );
+        }
+    }
+    // And every command taucal has is in the synopsis.
+    let help = Taucal::new().args(["--help"]).run();
+    let listed: Vec<&str> = help
+        .stdout
+        .lines()
+        .skip_while(|l| !l.starts_with("Commands:"))
+        .skip(1)
+        .take_while(|l| !l.trim().is_empty())
+        .filter_map(|l| l.split_whitespace().next())
+        .filter(|c| *c != "help")
+        .collect();
+    assert!(listed.len() >= 9, "{}", help.stdout);
+    for command in listed {
+        assert!(
+            lines
+                .iter()
+                .any(|l| l.starts_with(&format!("taucal {command} "))),
+            "`taucal {command}` is missing from the README's synopsis"
+        );
+    }
+}
+
+#[test]
+fn readme_served_run_records_the_in_process_exchanges() {
+    let block = the_block(Kind::Served);
+    let lines = commands(&block);
+    assert_eq!(lines.len(), 2, "{lines:?}");
+    // Port 5025 may be taken on a shared machine: the same listeners on free ports.
+    let listen: Vec<String> = taucal_args(&lines[0])
+        .windows(2)
+        .filter(|w| w[0] == "--listen")
+        .map(|w| w[1].replace("tcp:127.0.0.1:5025", "tcp:127.0.0.1:0"))
+        .collect();
+    assert_eq!(listen.len(), 2, "{listen:?}");
+    let listen: Vec<&str> = listen.iter().map(String::as_str).collect();
+    let server = Server::start_bench(&repo("recipes/benches/sim-demo.toml"), &listen);
+    let dut = server.address("dut");
+    assert!(dut.starts_with("serial:/dev/pts/"), "{dut}");
+    let mut args: Vec<String> = taucal_args(&lines[1])
+        .into_iter()
+        .map(|a| a.replace("serial:/dev/pts/N", &dut))
+        .collect();
+    args.extend([
+        "--connect".into(),
+        format!("attenuator={}", server.address("attenuator")),
+        "--out".into(),
+        "run".into(),
+    ]);
+    let out = Taucal::new()
+        .with_repo(&["recipes", "drivers"])
+        .args(args)
+        .run();
+    out.expect_code(0);
+    assert!(
+        out.read("run/exchanges.csv") == in_process_exchanges(),
+        "served and in-process exchanges differ"
+    );
+}
+
+#[test]
+fn readme_error_screen_is_what_check_prints() {
+    let screen = the_block(Kind::ErrorScreen);
+    // Line 14 holds the stage's atten_db, as in the README's example.
+    let recipe = "[recipe]\n\
+                  name = \"my-recipe\"\n\
+                  description = \"A sweep that starts too close to the DUT\"\n\
+                  \n\
+                  [vars]\n\
+                  bursts_per_point = 4\n\
+                  \n\
+                  [[stage]]\n\
+                  name = \"sweep\"\n\
+                  kind = \"sweep\"\n\
+                  center_mhz = 5180\n\
+                  bw_mhz = 80\n\
+                  frames = 16\n\
+                  atten_db = [10.0, 20.0]\n\
+                  bursts = \"$bursts_per_point\"\n";
+    for cmd in ["check", "run"] {
+        let out = Taucal::new()
+            .file("my-recipe.toml", recipe)
+            .args([cmd, "my-recipe.toml"])
+            .run();
+        out.expect_code(2);
+        assert!(
+            out.stderr.contains(&screen.text),
+            "{cmd} printed\n{}\nthe README shows\n{}",
+            out.stderr,
+            screen.text
+        );
+    }
+}
+
+#[test]
+fn readme_recipe_checks_and_runs_as_printed() {
+    let recipe = the_block(Kind::Recipe);
+    let out = Taucal::new()
+        .file("r.toml", &recipe.text)
+        .args(["check", "r.toml"])
+        .run();
+    out.expect_code(0);
+    let out = Taucal::in_dir(out.dir)
+        .args(["run", "r.toml", "--out", "run"])
+        .run();
+    out.expect_code(0);
+    for file in ["caltable.csv", "verify.csv", "manifest.toml"] {
+        assert!(out.path(&format!("run/{file}")).is_file(), "{file}");
+    }
+    // With the README's [faults] added, it is still a valid recipe.
+    let faults = the_block(Kind::Faults);
+    let out = Taucal::new()
+        .file("f.toml", &format!("{}\n{}", recipe.text, faults.text))
+        .args(["check", "f.toml"])
+        .run();
+    out.expect_code(0);
+}
+
+#[test]
+fn readme_simulated_bench_is_valid() {
+    let bench = the_block(Kind::SimBench);
+    let out = Taucal::new()
+        .with_repo(&["recipes"])
+        .file("b.toml", &bench.text)
+        .args(["check", "recipes/rx-gain-sweep.toml", "--bench", "b.toml"])
+        .run();
+    out.expect_code(0);
+    assert!(out.stdout.contains("is SIMULATED"), "{}", out.stdout);
+}
+
+/// The README's simulated bench with the README's real roles (its `[sim]` stays, for the
+/// reference, which this build does not drive).
+fn readme_real_bench(attenuator_driver: &str, timing: Option<&str>) -> String {
+    let mut bench: toml::Table =
+        toml::from_str(&the_block(Kind::SimBench).text).expect("bench block");
+    let roles: toml::Table = toml::from_str(&the_block(Kind::RealRoles).text).expect("roles block");
+    for (key, value) in roles {
+        match (bench.get_mut(&key), value) {
+            (Some(toml::Value::Table(into)), toml::Value::Table(from)) => into.extend(from),
+            (_, value) => {
+                bench.insert(key, value);
+            }
+        }
+    }
+    if let Some(toml::Value::Table(roles)) = bench.get_mut("roles") {
+        if let Some(toml::Value::Table(att)) = roles.get_mut("attenuator") {
+            att.insert("driver".into(), attenuator_driver.into());
+        }
+    }
+    let mut text = toml::to_string(&bench).expect("toml");
+    if let Some(t) = timing {
+        text.push('\n');
+        text.push_str(t);
+    }
+    text
+}
+
+#[test]
+fn readme_real_bench_driver_and_timing_pass_check() {
+    let timing = the_block(Kind::Timing);
+    let driver = the_block(Kind::Driver);
+    let timing_line = |stdout: &str| {
+        stdout
+            .lines()
+            .find(|l| l.contains("burst setup"))
+            .unwrap_or_else(|| panic!("no timing line in\n{stdout}"))
+            .split(": ")
+            .nth(1)
+            .unwrap_or_default()
+            .to_string()
+    };
+    let check = |bench: String| {
+        let out = Taucal::new()
+            .with_repo(&["recipes", "drivers"])
+            .file("drivers/readme-attenuator.toml", &driver.text)
+            .file("recipes/benches/real.toml", &bench)
+            .args([
+                "check",
+                "recipes/rx-gain-sweep.toml",
+                "--bench",
+                "recipes/benches/real.toml",
+            ])
+            .run();
+        out.expect_code(0);
+        assert!(
+            out.stdout.contains("drives real instruments"),
+            "{}",
+            out.stdout
+        );
+        out
+    };
+    // As printed (the shipped attenuator driver), without [timing]: the defaults, said so.
+    let plain = check(readme_real_bench("brackwater-tidegate95", None));
+    assert!(
+        plain
+            .stdout
+            .contains("timing by default (the bench file has no [timing])"),
+        "{}",
+        plain.stdout
+    );
+    // The README's driver file in its place, with the README's [timing], which shows the
+    // defaults: the same durations, now from the bench.
+    let timed = check(readme_real_bench("readme-attenuator", Some(&timing.text)));
+    assert!(
+        timed.stdout.contains("timing from the bench's [timing]"),
+        "{}",
+        timed.stdout
+    );
+    assert_eq!(timing_line(&plain.stdout), timing_line(&timed.stdout));
+}
+
+#[test]
+fn readme_commands_on_the_demo_data_run_as_printed() {
+    let mut ran = 0;
+    for (block, output) in blocks_of(Kind::Commands) {
+        for command in commands(&block) {
+            let out = run_as_printed(&command);
+            out.expect_code(0);
+            ran += 1;
+            if let Some(expected) = &output {
+                assert_eq!(
+                    out.stdout, expected.text,
+                    "README.md line {}: {command}",
+                    block.line
+                );
+            }
+            let args = taucal_args(&command);
+            match args[0].as_str() {
+                // "prints the run's caltable.csv again"
+                "fit" => {
+                    let table = args[1].replace("exchanges.csv", "caltable.csv");
+                    assert_eq!(out.stdout, out.read(&table), "{command}");
+                }
+                "report" => {
+                    let page = out.read(&format!("{}/report.html", args[1]));
+                    assert!(page.contains("<svg"), "{command}");
+                }
+                "export" => {
+                    let doc: serde_json::Value =
+                        serde_json::from_str(&out.stdout).expect("JSON document");
+                    assert_eq!(doc["format"], "taucal-k-table", "{command}");
+                }
+                _ => {}
+            }
+        }
+    }
+    assert!(ran >= 5, "{ran} commands");
+}
+
+#[test]
+fn readme_performance_options_are_the_benchmarks_own() {
+    let text = readme();
+    let section = text
+        .split("\n## Performance")
+        .nth(1)
+        .and_then(|s| s.split("\n## ").next())
+        .expect("Performance section");
+    let bench = std::fs::read_to_string(root().join("benches/scale.rs")).expect("scale.rs");
+    let mut options: Vec<&str> = section
+        .split(|c: char| !(c.is_ascii_alphanumeric() || c == '-'))
+        .filter(|w| w.starts_with("--") && w[2..].starts_with(|c: char| c.is_ascii_lowercase()))
+        .collect();
+    options.sort_unstable();
+    options.dedup();
+    assert!(options.len() >= 8, "{options:?}");
+    for option in options {
+        assert!(
+            bench.contains(&format!("\"{option}\" =>")),
+            "README's {option} is not an option of benches/scale.rs"
+        );
+    }
+    // The baseline it names is in the repository, and the bench runs that file.
+    assert!(section.contains("`benches/baseline_fit.py`"));
+    let baseline =
+        std::fs::read_to_string(root().join("benches/baseline_fit.py")).expect("baseline");
+    assert!(baseline.contains("import pandas") && baseline.contains("import numpy"));
+    assert!(bench.contains("root.join(\"benches/baseline_fit.py\")"));
+    let block = the_block(Kind::Performance);
+    assert!(
+        block.text.contains("pip install pandas numpy"),
+        "{}",
+        block.text
+    );
 }

@@ -48,7 +48,7 @@ proptest! {
         let bench = Bench::built_in().expect("demo bench");
         let text = mutate(&read("recipes/rx-gain-sweep.toml"), &e);
         if let Err(d) = taucal::recipe::parse(SourceFile::new("r.toml", text), &[], &bench, Path::new(".")) {
-            prop_assert!(d.to_string().starts_with("error: "));
+            prop_assert!(d.to_string().starts_with("taucal: "));
         }
     }
 

@@ -8,7 +8,7 @@ use std::sync::mpsc;
 use std::time::Duration;
 
 /// A running `taucal sim serve`, killed when dropped.
-struct Server {
+pub(crate) struct Server {
     child: Child,
     addresses: Vec<(String, String)>,
 }
@@ -19,7 +19,7 @@ impl Server {
         Server::start_bench(&repo("recipes/benches/sim-demo.toml"), listen)
     }
 
-    fn start_bench(bench: &str, listen: &[&str]) -> Server {
+    pub(crate) fn start_bench(bench: &str, listen: &[&str]) -> Server {
         Server::start_with(bench, listen, &[])
     }
 
@@ -54,7 +54,7 @@ impl Server {
         Server { child, addresses }
     }
 
-    fn address(&self, role: &str) -> String {
+    pub(crate) fn address(&self, role: &str) -> String {
         self.addresses
             .iter()
             .find(|(r, _)| r == role)
@@ -87,7 +87,7 @@ fn served_bench(attenuator_driver: &str, attenuator: &str, dut: &str, drivers_di
     )
 }
 
-fn in_process_exchanges() -> String {
+pub(crate) fn in_process_exchanges() -> String {
     let out = Taucal::new()
         .args([
             "run",
@@ -109,7 +109,7 @@ fn served_instruments_over_tcp_and_a_pty_record_the_in_process_exchanges() {
     let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=pty"]);
     let drivers = root().join("drivers").display().to_string();
     let bench = served_bench(
-        "brackwater-bw95a",
+        "brackwater-tidegate95",
         &server.address("attenuator"),
         &server.address("dut"),
         &drivers,
@@ -156,7 +156,7 @@ fn served_instruments_with_every_fault_on_complete_the_demo_without_duplicates_a
     let drivers = root().join("drivers").display().to_string();
     let (attenuator, dut) = (server.address("attenuator"), server.address("dut"));
     // Short timeouts so the silent commands cost little; quick backoff for the same reason.
-    let bench = served_bench("brackwater-bw95a", &attenuator, &dut, &drivers)
+    let bench = served_bench("brackwater-tidegate95", &attenuator, &dut, &drivers)
         .replace(
             &format!("address = \"{attenuator}\" }}"),
             &format!("address = \"{attenuator}\", timeout_ms = 250.0 }}"),
@@ -245,11 +245,11 @@ fn an_instrument_side_error_stops_the_run_with_its_code_and_text() {
     // SCPI 1999 Vol 2 §21.8 (from memory): an unknown header queues -113 "Undefined header";
     // the client drains SYST:ERR? after the setting and the run stops (exit 3) naming it.
     let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"]);
-    let wrong = std::fs::read_to_string(root().join("drivers/brackwater-bw95a.toml"))
+    let wrong = std::fs::read_to_string(root().join("drivers/brackwater-tidegate95.toml"))
         .expect("driver")
         .replace(
-            "set_atten = \"ATTenuation {db:.2}\"",
-            "set_atten = \"ATTX {db:.2}\"",
+            "set_atten = \"DAMPer:SETTing {db:.2}\"",
+            "set_atten = \"DAMPX {db:.2}\"",
         );
     let console =
         std::fs::read_to_string(root().join("drivers/wren6-console.toml")).expect("console");
@@ -278,7 +278,7 @@ fn an_instrument_side_error_stops_the_run_with_its_code_and_text() {
         "{}",
         out.stderr
     );
-    assert!(out.stderr.contains("ATTX"), "{}", out.stderr);
+    assert!(out.stderr.contains("DAMPX"), "{}", out.stderr);
     assert!(out
         .read("run/manifest.toml")
         .contains("status = \"failed\""));
@@ -291,7 +291,7 @@ fn an_unreachable_instrument_stops_the_run_and_says_where() {
     let port = listener.local_addr().expect("addr").port();
     drop(listener);
     let bench = served_bench(
-        "brackwater-bw95a",
+        "brackwater-tidegate95",
         &format!("tcp:127.0.0.1:{port}"),
         &format!("tcp:127.0.0.1:{port}"),
         &drivers,
@@ -322,7 +322,7 @@ fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
     for (bench, args, want) in [
         (
             served_bench(
-                "brackwater-bw95a",
+                "brackwater-tidegate95",
                 "tcp:localhost",
                 "tcp:127.0.0.1:1",
                 &drivers,
@@ -352,7 +352,7 @@ fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
         ),
         (
             served_bench(
-                "brackwater-bw95a",
+                "brackwater-tidegate95",
                 "tcp:127.0.0.1:1",
                 "tcp:127.0.0.1:1",
                 &drivers,
@@ -362,7 +362,7 @@ fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
         ),
         (
             served_bench(
-                "brackwater-bw95a",
+                "brackwater-tidegate95",
                 "tcp:127.0.0.1:1",
                 "tcp:127.0.0.1:1",
                 &drivers,
@@ -372,7 +372,7 @@ fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
         ),
         (
             served_bench(
-                "brackwater-bw95a",
+                "brackwater-tidegate95",
                 "tcp:127.0.0.1:1",
                 "tcp:127.0.0.1:1",
                 &drivers,
@@ -382,7 +382,7 @@ fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
                 "address = \"tcp:127.0.0.1:1\", timeout_ms = 0.0 }",
             ),
             vec![],
-            "`roles.attenuator.timeout_ms` 0 ms is not a usable timeout\n  --> b.toml:13:87",
+            "taucal: b.toml line 13, column 92: `roles.attenuator.timeout_ms` 0 ms is not a usable timeout",
         ),
     ] {
         let out = Taucal::new()

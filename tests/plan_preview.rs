@@ -136,3 +136,43 @@ fn a_real_bench_timing_table_changes_the_estimate() {
         out.stderr
     );
 }
+
+#[test]
+fn check_counts_in_plain_words_and_numbers_stages_as_the_run_does() {
+    let recipe = "[recipe]\nname = \"words\"\n\
+                  [[stage]]\nname = \"one\"\nkind = \"sweep\"\ncenter_mhz = 5180\nbw_mhz = 80\n\
+                  atten_db = [40.0]\nbursts = 1\nframes = 2\n\
+                  [[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\n\
+                  script = \"burst(4);\"\n";
+    let out = Taucal::new()
+        .file("w.toml", recipe)
+        .args(["check", "w.toml"])
+        .run();
+    out.expect_code(0);
+    for line in [
+        "stage 1/2 `one` sweep on 5180 MHz / 80 MHz: 1 point 40..40 dB, 1 burst × 2 exchanges each",
+        "  plan: 1 point, 1 burst, 2 exchanges, ",
+        "stage 2/2 `s` script (1 line)",
+        "plan: 2 stages, 1 point, 2 exchanges\n",
+        "timing from the simulation's [sim.ftm] and [sim.attenuator]",
+    ] {
+        assert!(out.stdout.contains(line), "no {line:?} in\n{}", out.stdout);
+    }
+    assert!(!out.stdout.contains("stage 0"), "{}", out.stdout);
+
+    // A soak records nothing: its time, not "0 points".
+    let soak = check(&repo("recipes/overnight-soak.toml"), &[]);
+    assert!(soak.contains(", no exchanges (soak: "), "{soak}");
+    assert!(!soak.contains(" 0 points"), "{soak}");
+
+    // A bench of real instruments without [timing] is estimated with the defaults, and says so.
+    let served = check(
+        &repo("recipes/rx-gain-sweep.toml"),
+        &["--bench", &repo("recipes/benches/sim-served.toml")],
+    );
+    assert!(
+        served.contains("timing by default (the bench file has no [timing])"),
+        "{served}"
+    );
+    assert!(!served.contains("the bench's [timing]"), "{served}");
+}

@@ -54,14 +54,22 @@ fn pairs_name_the_file_and_line_of_bad_input() {
         .args(["pairs", "pairs.csv"])
         .run();
     out.expect_code(2);
-    assert!(out.stderr.contains("pairs.csv:3:1"), "{}", out.stderr);
+    assert!(
+        out.stderr.contains("pairs.csv line 3, column 1:"),
+        "{}",
+        out.stderr
+    );
     assert!(out.stderr.contains("`five`"), "{}", out.stderr);
     let out = Taucal::new()
         .file("pairs.csv", "a,b,c\n1,2,3\n")
         .args(["pairs", "pairs.csv"])
         .run();
     out.expect_code(2);
-    assert!(out.stderr.contains("pairs.csv:1:1"), "{}", out.stderr);
+    assert!(
+        out.stderr.contains("pairs.csv line 1, column 1:"),
+        "{}",
+        out.stderr
+    );
     let out = Taucal::new().args(["pairs", "missing.csv"]).run();
     out.expect_code(2);
     assert!(out.stderr.contains("missing.csv"), "{}", out.stderr);

@@ -469,3 +469,47 @@ fn a_report_that_cannot_be_written_leaves_the_old_one_and_no_partial_file() {
         "a partial report.tmp was left"
     );
 }
+
+#[test]
+fn a_diverged_resume_does_not_call_its_limits_met() {
+    let recipe = "[recipe]\nname = \"probe\"\n\n[accept]\nmin_gain_states = 1\n\n\
+                  [[stage]]\nname = \"sweep\"\nkind = \"sweep\"\ncenter_mhz = 5180\nbw_mhz = 80\n\
+                  atten_db = [40.0, 50.0]\nbursts = 2\nframes = 8\n";
+    let out = Taucal::new()
+        .file("g.toml", recipe)
+        .args(["run", "g.toml", "--out", "g"])
+        .run();
+    out.expect_code(0);
+    // As if the process had died after the last checkpoint, with the record no longer matching
+    // what the bench regenerates: the first exchange's t1 is one picosecond off.
+    let manifest = out.read("g/manifest.toml");
+    std::fs::write(
+        out.path("g/manifest.toml"),
+        manifest.replace("status = \"completed\"", "status = \"running\""),
+    )
+    .expect("manifest");
+    let exchanges = out.read("g/exchanges.csv");
+    let mut lines: Vec<String> = exchanges.lines().map(String::from).collect();
+    let mut fields: Vec<String> = lines[1].split(',').map(String::from).collect();
+    fields[7] = (fields[7].parse::<u64>().expect("t1_ps") + 1).to_string();
+    lines[1] = fields.join(",");
+    std::fs::write(out.path("g/exchanges.csv"), lines.join("\n") + "\n").expect("exchanges");
+    let resumed = Taucal::in_dir(out.dir).args(["resume", "g"]).run();
+    resumed.expect_code(3);
+    assert!(resumed.stderr.contains("diverged"), "{}", resumed.stderr);
+    assert!(
+        resumed
+            .stdout
+            .contains("acceptance min_gain_states: 1 ≥ 1 — not judged: the run did not finish"),
+        "{}",
+        resumed.stdout
+    );
+    let log = resumed.read("g/run.log");
+    let last = log.lines().rfind(|l| l.contains("acceptance"));
+    assert!(
+        last.is_some_and(
+            |l| l.ends_with("min_gain_states: 1 ≥ 1 — not judged: the run did not finish")
+        ),
+        "{log}"
+    );
+}

@@ -49,8 +49,7 @@ struct RawBench {
     dut: UnitFacts,
     path: PathFacts,
     reference: ReferenceFacts,
-    #[serde(default)]
-    timing: TimingFacts,
+    timing: Option<TimingFacts>,
     sim: Option<SimTruth>,
 }
 
@@ -137,8 +136,9 @@ pub struct Bench {
     pub path: PathFacts,
     /// The reference unit.
     pub reference: ReferenceFacts,
-    /// How long actions take on a real bench (for estimates only).
-    pub timing: TimingFacts,
+    /// How long actions take on a real bench (for estimates only); `None` when the file has no
+    /// `[timing]`, and the defaults apply.
+    pub timing: Option<TimingFacts>,
     /// Simulation truth, present on a simulated bench.
     pub sim: Option<SimTruth>,
     /// Folder of driver files, as the bench file gives it (relative to the bench's folder).
@@ -402,7 +402,7 @@ impl Bench {
         let keep = |min_db: f64| {
             format!(
                 "RF power above a receiver's limit can destroy it: keep attenuation at or above \
-                 {min_db:.2} dB (the bench's powers, losses and limits must all be finite)"
+                 {min_db:.2} dB"
             )
         };
         let min_safe_db = self.min_safe_atten_db();
@@ -621,7 +621,9 @@ impl Bench {
                 "check tx_power_dbm, path.fixed_loss_db and the input limits",
             ));
         }
-        self.timing.validate()?;
+        if let Some(timing) = &self.timing {
+            timing.validate()?;
+        }
         if let Some(sim) = &self.sim {
             sim.validate()?;
         }

@@ -110,7 +110,8 @@ pub struct SimServeArgs {
 /// Bench selection shared by the commands.
 #[derive(Debug, Args)]
 pub struct BenchArg {
-    /// Bench file; without it, the built-in simulated demo bench.
+    /// Bench file; without it, the bench the recipe names (`[recipe] bench`), else the built-in
+    /// simulated demo bench.
     #[arg(long, value_name = "FILE")]
     pub bench: Option<PathBuf>,
 }

@@ -4,6 +4,7 @@ use super::args::BenchArg;
 use crate::bench::file::BUILT_IN_LABEL;
 use crate::bench::Bench;
 use crate::diagnostic::Diagnostic;
+use std::path::Path;
 
 /// Loads `--bench`, or the built-in demo bench with a note on stderr saying so.
 pub fn load(arg: &BenchArg) -> Result<Bench, Diagnostic> {
@@ -16,6 +17,21 @@ pub fn load(arg: &BenchArg) -> Result<Bench, Diagnostic> {
             Bench::built_in()
         }
     }
+}
+
+/// The bench for a recipe: `--bench`, else the bench the recipe names (`[recipe] bench`), else
+/// the built-in demo bench; stderr says which when the command line named none.
+pub fn for_recipe(arg: &BenchArg, recipe: &Path) -> Result<Bench, Diagnostic> {
+    if arg.bench.is_none() {
+        if let Some(path) = crate::recipe::default_bench(recipe)? {
+            eprintln!(
+                "taucal: no --bench given: using {}, the bench the recipe names",
+                path.display()
+            );
+            return Bench::load(&path);
+        }
+    }
+    load(arg)
 }
 
 /// One line saying whether the bench is simulated, for every command that uses one.

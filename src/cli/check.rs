@@ -4,11 +4,13 @@ use super::args::CheckArgs;
 use super::{bench_arg, Exit};
 use crate::diagnostic::Diagnostic;
 use crate::recipe::{Points, Stage, Sweep};
-use crate::runner::estimate::{estimate, human_duration, Bound, Estimate, StageEstimate};
+use crate::runner::estimate::{
+    estimate, human_duration, Bound, Estimate, StageEstimate, TimingSource,
+};
 
 /// Validates the recipe and bench, compiles scripts, prints the plan.
 pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
-    let bench = bench_arg::load(&args.bench)?;
+    let bench = bench_arg::for_recipe(&args.bench, &args.recipe)?;
     let plan = crate::recipe::load(&args.recipe, &args.set, &bench)?;
     println!("recipe `{}`: {}", plan.name, plan.description.trim());
     println!("{}", bench_arg::describe(&bench, None));
@@ -20,11 +22,14 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
         );
     }
     let est = estimate(&plan, &bench);
-    for (i, (stage, stage_est)) in plan.stages.iter().zip(&est.stages).enumerate() {
+    let count = plan.stages.len();
+    for (index, (stage, stage_est)) in plan.stages.iter().zip(&est.stages).enumerate() {
+        // Numbered from 1 of the total, as the progress display numbers them while running.
+        let i = format!("{}/{count}", index + 1);
         match stage {
-            Stage::Sweep(s) | Stage::GainMap(s) => describe(i, stage, s),
+            Stage::Sweep(s) | Stage::GainMap(s) => describe(&i, stage, s),
             Stage::Verify(v) => {
-                describe(i, stage, &v.sweep);
+                describe(&i, stage, &v.sweep);
                 println!(
                     "  verifies range error against receive level; single-state calibration at {} dBm",
                     v.single_state_rx_dbm
@@ -37,9 +42,9 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
             Stage::Script(s) => {
                 crate::script::check(&s.source)?;
                 println!(
-                    "stage {i} `{}` script ({} lines), starts on {} MHz / {} MHz; its exchanges depend on its logic",
+                    "stage {i} `{}` script ({}), starts on {} MHz / {} MHz; its exchanges depend on its logic",
                     s.name,
-                    s.source.code.lines().count(),
+                    plural(s.source.code.lines().count() as u64, "line"),
                     s.channel.center_mhz,
                     s.channel.bw_mhz
                 );
@@ -52,7 +57,10 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
         println!("accept: every cell's 95 % half-width ≤ {l} ps");
     }
     if let Some(l) = plan.accept.min_gain_states {
-        println!("accept: at least {l} DUT gain states measured");
+        println!(
+            "accept: at least {} measured",
+            plural(u64::from(l), "DUT gain state")
+        );
     }
     if let Some(l) = plan.accept.max_range_error_m {
         println!("accept: verified range error within {l} m at every level");
@@ -61,15 +69,29 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
     Ok(Exit::Ok)
 }
 
+/// `n` and the noun, plural unless `n` is 1.
+fn plural(n: u64, noun: &str) -> String {
+    if n == 1 {
+        format!("1 {noun}")
+    } else {
+        format!("{n} {noun}s")
+    }
+}
+
 /// One stage's estimate, indented under its description.
 fn stage_line(e: &StageEstimate) -> String {
-    let counted = format!(
-        "{} points, {} bursts, {} exchanges, {} of bench time",
-        e.points,
-        e.bursts,
-        e.exchanges,
-        human_duration(e.bench_s)
-    );
+    let time = format!("{} of bench time", human_duration(e.bench_s));
+    // A stage that records nothing (a soak) says so rather than counting zeros.
+    let counted = if e.points == 0 && e.exchanges == 0 {
+        format!("{time}, no exchanges")
+    } else {
+        format!(
+            "{}, {}, {}, {time}",
+            plural(e.points, "point"),
+            plural(e.bursts, "burst"),
+            plural(e.exchanges, "exchange")
+        )
+    };
     let note = e.note.as_ref().map_or(String::new(), |n| format!(" ({n})"));
     match e.bound {
         Bound::Estimate => format!("  plan: {counted}"),
@@ -81,10 +103,10 @@ fn stage_line(e: &StageEstimate) -> String {
 /// The plan's totals and the estimated bench time, saying what it leaves out.
 fn plan_summary(est: &Estimate) -> String {
     let t = est.timing;
-    let from = if t.simulated {
-        "the simulation's [sim.ftm] and [sim.attenuator]"
-    } else {
-        "the bench's [timing]"
+    let from = match t.source {
+        TimingSource::Simulation => "timing from the simulation's [sim.ftm] and [sim.attenuator]",
+        TimingSource::BenchFile => "timing from the bench's [timing]",
+        TimingSource::Defaults => "timing by default (the bench file has no [timing])",
     };
     let lower = match est.bound {
         Bound::Estimate => String::new(),
@@ -99,12 +121,12 @@ fn plan_summary(est: &Estimate) -> String {
         }
     };
     format!(
-        "plan: {} stages, {} points, {} exchanges\n\
+        "plan: {}, {}, {}\n\
          estimated bench time: {:.3} s{}{lower}\n\
-         timing from {from}: burst setup {} ms, {} µs per exchange, attenuator switch {} ms\n",
-        est.stages.len(),
-        est.points(),
-        est.exchanges(),
+         {from}: burst setup {} ms, {} µs per exchange, attenuator switch {} ms\n",
+        plural(est.stages.len() as u64, "stage"),
+        plural(est.points(), "point"),
+        plural(est.exchanges(), "exchange"),
         est.bench_s,
         if est.bench_s >= 120.0 {
             format!(" ({})", human_duration(est.bench_s))
@@ -118,7 +140,7 @@ fn plan_summary(est: &Estimate) -> String {
 }
 
 /// Prints one measurement stage.
-fn describe(i: usize, stage: &Stage, s: &Sweep) {
+fn describe(i: &str, stage: &Stage, s: &Sweep) {
     let kind = match stage {
         Stage::GainMap(_) => "gain map (swept up, then down)",
         Stage::Verify(_) => "verification",
@@ -130,8 +152,9 @@ fn describe(i: usize, stage: &Stage, s: &Sweep) {
     );
     let adaptive = s.adaptive.map_or(String::new(), |a| {
         format!(
-            ", adaptive until the 95 % half-width is {} ps (at most {} bursts)",
-            a.target_ci95_ps, a.max_bursts
+            ", adaptive until the 95 % half-width is {} ps (at most {})",
+            a.target_ci95_ps,
+            plural(u64::from(a.max_bursts), "burst")
         )
     });
     match &s.points {
@@ -144,10 +167,10 @@ fn describe(i: usize, stage: &Stage, s: &Sweep) {
                 ""
             };
             println!(
-                "{head} {} points {first}..{last} dB{direction}, {} bursts × {} exchanges each{adaptive}, settle {} ms",
-                p.len(),
-                s.bursts,
-                s.frames,
+                "{head} {} {first}..{last} dB{direction}, {} × {} each{adaptive}, settle {} ms",
+                plural(p.len() as u64, "point"),
+                plural(u64::from(s.bursts), "burst"),
+                plural(u64::from(s.frames), "exchange"),
                 s.settle_ms
             );
         }
@@ -157,8 +180,11 @@ fn describe(i: usize, stage: &Stage, s: &Sweep) {
             margin_db,
         } => {
             println!(
-                "{head} {per_state} points per gain state mid-plateau (≥ {margin_db} dB from switch points, from `{map_stage}`), {} bursts × {} exchanges each{adaptive}, settle {} ms",
-                s.bursts, s.frames, s.settle_ms
+                "{head} {} per gain state mid-plateau (≥ {margin_db} dB from switch points, from `{map_stage}`), {} × {} each{adaptive}, settle {} ms",
+                plural(u64::from(*per_state), "point"),
+                plural(u64::from(s.bursts), "burst"),
+                plural(u64::from(s.frames), "exchange"),
+                s.settle_ms
             );
         }
     }

@@ -37,11 +37,16 @@ impl Progress {
         let style = ProgressStyle::with_template(template)
             .ok()?
             .progress_chars("█▌░");
-        let len = (estimate.bench_s * TICKS_PER_S).ceil().max(1.0) as u64;
-        let bar = ProgressBar::with_draw_target(Some(len), ProgressDrawTarget::stderr());
+        let bar = ProgressBar::with_draw_target(None, ProgressDrawTarget::stderr());
         bar.set_style(style);
         log::set_progress(Some(bar.clone()));
-        Some(Progress {
+        Some(Progress::on(bar, estimate))
+    }
+
+    /// A display drawing on `bar`, whose length it sets from the estimate.
+    fn on(bar: ProgressBar, estimate: &Estimate) -> Progress {
+        bar.set_length((estimate.bench_s * TICKS_PER_S).ceil().max(1.0) as u64);
+        Progress {
             bar,
             estimate_s: estimate.bench_s,
             lower_bound: estimate.bound != Bound::Estimate,
@@ -49,15 +54,16 @@ impl Progress {
             point: String::new(),
             exchanges: 0,
             bench_s: 0.0,
-        })
+        }
     }
 
     fn redraw(&self) {
-        let pos = (self.bench_s * TICKS_PER_S) as u64;
-        if self.bar.length().is_some_and(|len| pos >= len) {
-            // Past the estimate (it was a lower bound): keep the bar just short of full.
-            self.bar.set_length(pos + pos / 20 + 1);
-        }
+        // Past the estimate (it was a lower bound) the bar holds just short of full: growing
+        // its length instead would move the bar backwards each time.
+        let len = self.bar.length().unwrap_or(1);
+        let pos = ((self.bench_s * TICKS_PER_S) as u64)
+            .min(len.saturating_sub(1))
+            .max(self.bar.position());
         self.bar.set_position(pos);
         let about = if self.lower_bound { "≥" } else { "≈" };
         let left = (self.estimate_s - self.bench_s).max(0.0);
@@ -102,5 +108,44 @@ impl RunObserver for Progress {
             }
         }
         self.redraw();
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::runner::estimate::{Timing, TimingSource};
+
+    #[test]
+    fn the_bar_never_moves_backwards_past_a_lower_bound() {
+        let estimate = Estimate {
+            stages: Vec::new(),
+            bench_s: 2.0,
+            bound: Bound::AtLeast,
+            timing: Timing {
+                burst_setup_ms: 5.0,
+                frame_interval_us: 1000.0,
+                atten_switch_ms: 2.0,
+                source: TimingSource::Simulation,
+            },
+        };
+        let mut p = Progress::on(ProgressBar::hidden(), &estimate);
+        let mut shown = 0.0;
+        for (i, bench_time_s) in [0.5, 1.9, 2.0, 2.1, 2.3, 3.0, 5.0, 9.5]
+            .into_iter()
+            .enumerate()
+        {
+            p.event(&RunEvent::BurstRecorded {
+                exchanges: 16 * (i as u64 + 1),
+                exchanges_ok: 16 * (i as u64 + 1),
+                bench_time_s,
+            });
+            let len = p.bar.length().expect("length") as f64;
+            let fraction = p.bar.position() as f64 / len;
+            assert!(fraction >= shown, "{bench_time_s} s: {fraction} < {shown}");
+            assert!(fraction < 1.0, "{bench_time_s} s: full before the run ends");
+            shown = fraction;
+        }
+        assert!(shown > 0.99, "{shown}");
     }
 }

@@ -12,7 +12,7 @@ use std::sync::Arc;
 
 /// Validates, runs, fits, and reports.
 pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
-    let bench = bench_arg::load(&args.bench)?.reconnect(&args.connect)?;
+    let bench = bench_arg::for_recipe(&args.bench, &args.recipe)?.reconnect(&args.connect)?;
     let plan = crate::recipe::load(&args.recipe, &args.set, &bench)?;
     for stage in &plan.stages {
         if let crate::recipe::Stage::Script(s) = stage {
@@ -70,18 +70,7 @@ pub fn outcome(report: &RunReport) -> Exit {
         );
     }
     for c in &m.acceptance {
-        let (op, verdict) = match (c.name.starts_with("max"), c.passed) {
-            (true, true) => ("≤", "met"),
-            (true, false) => ("≤", "NOT MET"),
-            (false, true) => ("≥", "met"),
-            (false, false) => ("≥", "NOT MET"),
-        };
-        println!(
-            "acceptance {}: {} {op} {} — {verdict}",
-            c.name,
-            significant(c.value),
-            c.limit
-        );
+        println!("acceptance {}", c.summary(report.failure.is_none()));
     }
     if let Some(why) = &report.manifest_unwritten {
         let reason = m
@@ -127,15 +116,6 @@ fn status_word(status: crate::data::RunStatus) -> &'static str {
         crate::data::RunStatus::Stopped => "stopped",
         crate::data::RunStatus::Failed => "failed",
     }
-}
-
-/// A number with four significant digits, the way a limit is read.
-fn significant(v: f64) -> String {
-    if v.fract() == 0.0 || !v.is_finite() {
-        return v.to_string();
-    }
-    let decimals = (3 - v.abs().log10().floor() as i32).clamp(0, 9) as usize;
-    format!("{v:.decimals$}")
 }
 
 fn failure_text(f: &crate::runner::RunError) -> String {

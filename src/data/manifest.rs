@@ -87,6 +87,46 @@ pub struct AcceptCheck {
     pub passed: bool,
 }
 
+impl AcceptCheck {
+    /// One line for the log and the terminal: the value to four significant digits, the
+    /// relation it truly has to the limit, and the verdict — or, when the run did not finish
+    /// (`judged` false), that its data were not judged.
+    pub fn summary(&self, judged: bool) -> String {
+        let verdict = match (judged, self.passed) {
+            (false, _) => "not judged: the run did not finish",
+            (true, true) => "met",
+            (true, false) => "NOT MET",
+        };
+        let limit = self.limit;
+        if !self.value.is_finite() {
+            return format!(
+                "{}: nothing measured (limit {limit}) — {verdict}",
+                self.name
+            );
+        }
+        let op = match (self.name.starts_with("max"), self.value <= self.limit) {
+            (true, true) => "≤",
+            (true, false) => ">",
+            (false, _) if self.value >= self.limit => "≥",
+            (false, _) => "<",
+        };
+        format!(
+            "{}: {} {op} {limit} — {verdict}",
+            self.name,
+            significant(self.value)
+        )
+    }
+}
+
+/// A number with four significant digits, the way a limit is read.
+fn significant(v: f64) -> String {
+    if v.fract() == 0.0 || !v.is_finite() {
+        return v.to_string();
+    }
+    let decimals = (3 - v.abs().log10().floor() as i32).clamp(0, 9) as usize;
+    format!("{v:.decimals$}")
+}
+
 /// The single-state calibration a verification compared against.
 #[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct SingleState {
@@ -238,6 +278,43 @@ pub fn sha256_hex(bytes: &[u8]) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn check(name: &str, limit: f64, value: f64, passed: bool) -> AcceptCheck {
+        AcceptCheck {
+            name: name.into(),
+            limit,
+            value,
+            passed,
+        }
+    }
+
+    #[test]
+    fn an_acceptance_summary_states_the_true_relation_rounded() {
+        assert_eq!(
+            check("max_ci95_ps", 50.0, 57.938_765, false).summary(true),
+            "max_ci95_ps: 57.94 > 50 — NOT MET"
+        );
+        assert_eq!(
+            check("max_ci95_ps", 60.0, 41.123_456, true).summary(true),
+            "max_ci95_ps: 41.12 ≤ 60 — met"
+        );
+        assert_eq!(
+            check("min_gain_states", 3.0, 2.0, false).summary(true),
+            "min_gain_states: 2 < 3 — NOT MET"
+        );
+        assert_eq!(
+            check("max_range_error_m", 0.05, 0.012_345_6, true).summary(true),
+            "max_range_error_m: 0.01235 ≤ 0.05 — met"
+        );
+        assert_eq!(
+            check("max_range_error_m", 0.05, f64::NAN, false).summary(true),
+            "max_range_error_m: nothing measured (limit 0.05) — NOT MET"
+        );
+        assert_eq!(
+            check("min_gain_states", 3.0, 3.0, true).summary(false),
+            "min_gain_states: 3 ≥ 3 — not judged: the run did not finish"
+        );
+    }
 
     #[test]
     fn sha256_matches_the_fips_180_2_example() {

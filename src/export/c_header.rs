@@ -104,18 +104,25 @@ fn c_int(v: i32) -> String {
     }
 }
 
-/// Text safe inside a C block comment: no comment terminator, no line breaks, ASCII only.
+/// Text safe inside a C block comment: no comment terminator, no comment opener (`-Wcomment`
+/// would refuse it under `-Werror`), no line breaks, ASCII only. A space goes between every `*`
+/// and `/` that meet, in either order, so no replacement can form a new pair.
 fn comment_safe(s: &str) -> String {
-    s.replace("*/", "* /")
-        .chars()
-        .map(|c| {
-            if c.is_ascii() && !c.is_ascii_control() {
-                c
-            } else {
-                '?'
-            }
-        })
-        .collect()
+    let mut out = String::with_capacity(s.len());
+    let mut last = ' ';
+    for c in s.chars() {
+        let c = if c.is_ascii() && !c.is_ascii_control() {
+            c
+        } else {
+            '?'
+        };
+        if matches!((last, c), ('*', '/') | ('/', '*')) {
+            out.push(' ');
+        }
+        out.push(c);
+        last = c;
+    }
+    out
 }
 
 #[cfg(test)]
@@ -139,6 +146,21 @@ mod tests {
             assert!(text.contains(needle), "missing `{needle}` in\n{text}");
         }
         assert!(text.contains(&format!("sha256 {}", "ab".repeat(32))));
+    }
+
+    #[test]
+    fn names_cannot_open_or_close_the_comment() {
+        for name in ["x/*/y", "a*/b", "/*", "*/*/", "**//", "end*", "/start"] {
+            let mut t = table();
+            t.run.bench_name = name.into();
+            t.run.recipe_name = name.into();
+            let text = render(&t).expect("renders");
+            let comment = &text[..text.find("*/\n").expect("comment ends") + 2];
+            assert_eq!(comment.matches("/*").count(), 1, "{name}: {comment}");
+            assert_eq!(comment.matches("*/").count(), 1, "{name}: {comment}");
+        }
+        assert_eq!(comment_safe("x/*/y"), "x/ * /y");
+        assert_eq!(comment_safe("é\n"), "??");
     }
 
     #[test]

@@ -425,13 +425,18 @@ fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
     let set_atten = template(
         "command",
         "set_atten",
-        required("command", &raw.command, "set_atten", "\"ATT {db:.2}\"")?,
+        required(
+            "command",
+            &raw.command,
+            "set_atten",
+            "\"DAMP:SETT {db:.2}\"",
+        )?,
         &[("db", ParamKind::Real)],
     )?;
     let get_atten = template(
         "command",
         "get_atten",
-        required("command", &raw.command, "get_atten", "\"ATT?\"")?,
+        required("command", &raw.command, "get_atten", "\"DAMP:SETT?\"")?,
         &[],
     )?;
     let get_atten_reply = pattern(
@@ -704,8 +709,8 @@ mod tests {
 
     const SHIPPED: [(&str, &str); 3] = [
         (
-            "brackwater-bw95a",
-            include_str!("../../drivers/brackwater-bw95a.toml"),
+            "brackwater-tidegate95",
+            include_str!("../../drivers/brackwater-tidegate95.toml"),
         ),
         (
             "olvenmark-step8",
@@ -748,10 +753,10 @@ mod tests {
 
     #[test]
     fn errors_name_the_key_and_its_line() {
-        let e = broken(0, "ATTenuation {db:.2}", "ATTenuation {dB:.2}");
+        let e = broken(0, "DAMPer:SETTing {db:.2}", "DAMPer:SETTing {dB:.2}");
         assert!(e.contains("command.set_atten"), "{e}");
         assert!(e.contains("unknown parameter `dB`"), "{e}");
-        assert!(e.contains("test.toml:20:13"), "{e}");
+        assert!(e.contains("test.toml line 20, column 13:"), "{e}");
         let e = broken(0, "'^(?P<db>", "'^(?P<level>");
         assert!(e.contains("does not capture the field `db`"), "{e}");
         let e = broken(0, "'^(?P<db>", "'^((?P<db>");

@@ -134,8 +134,8 @@ mod tests {
             Some((-113, "Undefined header".into()))
         );
         assert_eq!(
-            parse_error_entry("-222,\"Data out of range;ATT 120\""),
-            Some((-222, "Data out of range;ATT 120".into()))
+            parse_error_entry("-222,\"Data out of range;DAMP:SETT 120\""),
+            Some((-222, "Data out of range;DAMP:SETT 120".into()))
         );
         assert_eq!(parse_error_entry("garbage"), None);
     }

@@ -1,5 +1,5 @@
 //! Command templates from driver files: literal text with typed, formatted parameters, e.g.
-//! `ATT {db:.2}` or `range start n={frames} f={center_mhz} bw={bw_mhz}`.
+//! `DAMP:SETT {db:.2}` or `range start n={frames} f={center_mhz} bw={bw_mhz}`.
 //!
 //! Parsing checks every placeholder against the parameters its command offers, so a typo in a
 //! driver file is an error at load time, never a malformed command on the wire.
@@ -182,10 +182,10 @@ mod tests {
 
     #[test]
     fn renders_typed_formatted_parameters() {
-        let t = Template::parse("ATT {db:.2}", DB).expect("parse");
+        let t = Template::parse("DAMP:SETT {db:.2}", DB).expect("parse");
         assert_eq!(
             t.render(&BTreeMap::from([("db", Value::Real(17.5))])),
-            "ATT 17.50"
+            "DAMP:SETT 17.50"
         );
         let t = Template::parse(
             "range start n={frames} bw={bw_mhz} {{raw}}",
@@ -233,10 +233,10 @@ mod tests {
     #[test]
     fn refuses_unknown_parameters_and_bad_formats() {
         for (text, want) in [
-            ("ATT {dB}", "unknown parameter `dB`"),
-            ("ATT {db:2}", "a format is `.N`"),
-            ("ATT {db:.x}", "a format is `.N`"),
-            ("ATT }", "lone"),
+            ("DAMP:SETT {dB}", "unknown parameter `dB`"),
+            ("DAMP:SETT {db:2}", "a format is `.N`"),
+            ("DAMP:SETT {db:.x}", "a format is `.N`"),
+            ("DAMP:SETT }", "lone"),
             ("", "empty"),
         ] {
             let e = Template::parse(text, DB).expect_err(text);
@@ -245,7 +245,7 @@ mod tests {
         let e = Template::parse("n={frames:.1}", &[("frames", ParamKind::Integer)])
             .expect_err("integer format");
         assert!(e.contains("integer"), "{e}");
-        let e = Template::parse("ATT? {db}", &[]).expect_err("no parameters");
+        let e = Template::parse("DAMP:SETT? {db}", &[]).expect_err("no parameters");
         assert!(e.contains("takes no parameters"), "{e}");
     }
 }

@@ -15,7 +15,7 @@ pub use vars::Vars;
 
 use crate::bench::Bench;
 use crate::diagnostic::{self, Diagnostic, SourceFile};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// Reads a recipe, applies `--set` overrides and validates it against `bench`.
 pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Diagnostic> {
@@ -26,6 +26,42 @@ pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Di
     let source = SourceFile::new(path, text);
     let base = path.parent().unwrap_or(Path::new("."));
     parse(source, overrides, bench, base)
+}
+
+/// The bench a recipe names as its own (`[recipe] bench`, relative to the recipe's folder), for
+/// a run or check without `--bench`. Read ahead of the recipe proper, which is validated against
+/// the bench; a recipe that cannot be read or parsed gives `None` here and its error in [`load`].
+pub fn default_bench(path: &Path) -> Result<Option<PathBuf>, Diagnostic> {
+    let Ok(text) = std::fs::read_to_string(path) else {
+        return Ok(None);
+    };
+    let Ok(doc) = text.parse::<toml::Table>() else {
+        return Ok(None);
+    };
+    let Some(value) = doc
+        .get("recipe")
+        .and_then(toml::Value::as_table)
+        .and_then(|t| t.get("bench"))
+    else {
+        return Ok(None);
+    };
+    let source = SourceFile::new(path, text.clone());
+    let Some(rel) = value.as_str() else {
+        return Err(source.key_error(diagnostic::KeyError::new(
+            "recipe.bench",
+            format!("is not a string (found {})", value.type_str()),
+            "give the bench file's path as a string, relative to the recipe's folder",
+        )));
+    };
+    let bench = path.parent().unwrap_or(Path::new(".")).join(rel);
+    if !bench.is_file() {
+        return Err(source.key_error(diagnostic::KeyError::new(
+            "recipe.bench",
+            format!("names {}, which is not a file", bench.display()),
+            "give a bench file's path relative to the recipe's folder, or pass --bench",
+        )));
+    }
+    Ok(Some(bench))
 }
 
 /// Parses and validates recipe text; `base_dir` resolves script files.

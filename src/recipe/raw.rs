@@ -36,6 +36,9 @@ pub struct RawMeta {
     /// Free text.
     #[serde(default)]
     pub description: String,
+    /// The bench used when the command line names none, relative to the recipe's folder
+    /// (read before the rest, by [`crate::recipe::default_bench`]).
+    pub bench: Option<String>,
 }
 
 /// `[fit]`.

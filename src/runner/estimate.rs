@@ -21,8 +21,19 @@ pub struct Timing {
     pub frame_interval_us: f64,
     /// Attenuator switching time.
     pub atten_switch_ms: f64,
-    /// True when taken from the simulation's truth, false when from the bench's `[timing]`.
-    pub simulated: bool,
+    /// Where the durations come from.
+    pub source: TimingSource,
+}
+
+/// Where an estimate's durations come from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TimingSource {
+    /// The simulation's truth: what a simulated bench's instruments spend.
+    Simulation,
+    /// The bench file's `[timing]`.
+    BenchFile,
+    /// The defaults, on a real bench whose file has no `[timing]`.
+    Defaults,
 }
 
 impl Timing {
@@ -34,14 +45,21 @@ impl Timing {
                 burst_setup_ms: sim.ftm.burst_setup_ms,
                 frame_interval_us: sim.ftm.frame_interval_us,
                 atten_switch_ms: sim.attenuator.switch_ms,
-                simulated: true,
+                source: TimingSource::Simulation,
             },
-            None => Timing {
-                burst_setup_ms: bench.timing.burst_setup_ms,
-                frame_interval_us: bench.timing.frame_interval_us,
-                atten_switch_ms: bench.timing.atten_switch_ms,
-                simulated: false,
-            },
+            None => {
+                let facts = bench.timing.unwrap_or_default();
+                Timing {
+                    burst_setup_ms: facts.burst_setup_ms,
+                    frame_interval_us: facts.frame_interval_us,
+                    atten_switch_ms: facts.atten_switch_ms,
+                    source: if bench.timing.is_some() {
+                        TimingSource::BenchFile
+                    } else {
+                        TimingSource::Defaults
+                    },
+                }
+            }
         }
     }
 
@@ -156,10 +174,12 @@ impl Walk {
 /// Estimates `plan` on `bench`.
 pub fn estimate(plan: &Plan, bench: &Bench) -> Estimate {
     let timing = Timing::of(bench);
-    // The simulated attenuator starts at 0 dB; a real one's setting is unknown until set.
+    // The simulated attenuator powers up at maximum attenuation; a real one's setting is
+    // unknown until set.
     let mut walk = Walk {
         timing,
-        atten_db: timing.simulated.then_some(0.0),
+        atten_db: (timing.source == TimingSource::Simulation)
+            .then_some(bench.attenuator.range_db[1]),
     };
     let mut stages = Vec::with_capacity(plan.stages.len());
     for stage in &plan.stages {

@@ -296,13 +296,7 @@ pub fn execute(
         .as_ref()
         .map_or_else(Vec::new, |f| acceptance(&req.plan.accept, f, &verify_rows));
     for c in &manifest.acceptance {
-        let verdict = if c.passed { "met" } else { "NOT met" };
-        tracing::info!(
-            "acceptance {}: {} against limit {} — {verdict}",
-            c.name,
-            c.value,
-            c.limit
-        );
+        tracing::info!("acceptance {}", c.summary(failure.is_none()));
     }
     manifest.status = match &failure {
         None => RunStatus::Completed,

@@ -43,6 +43,16 @@ impl Taucal {
         }
     }
 
+    /// Copies folders of the repository (`recipes`, `drivers`, `demo-data` …) into the working
+    /// directory, so a command written with the repository's relative paths runs as printed
+    /// without writing into the repository.
+    pub fn with_repo(self, folders: &[&str]) -> Self {
+        for folder in folders {
+            copy_tree(&root().join(folder), &self.dir.path().join(folder));
+        }
+        self
+    }
+
     pub fn args<I, S>(mut self, args: I) -> Self
     where
         I: IntoIterator<Item = S>,
@@ -101,6 +111,20 @@ impl Outcome {
 
     pub fn has_dir(&self, rel: &str) -> bool {
         Path::is_dir(&self.path(rel))
+    }
+}
+
+/// Copies a folder and everything in it.
+fn copy_tree(from: &Path, to: &Path) {
+    std::fs::create_dir_all(to).expect("mkdir");
+    for entry in std::fs::read_dir(from).expect("read folder") {
+        let entry = entry.expect("folder entry");
+        let target = to.join(entry.file_name());
+        if entry.file_type().expect("file type").is_dir() {
+            copy_tree(&entry.path(), &target);
+        } else {
+            std::fs::copy(entry.path(), &target).expect("copy");
+        }
     }
 }
 

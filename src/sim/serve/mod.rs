@@ -356,13 +356,13 @@ mod tests {
         };
         let at = serve(faults, ServedRole::Attenuator).await;
         let mut c = Client::connect(at).await;
-        c.send("ATT 30").await;
-        c.send("ATT?").await;
+        c.send("DAMP:SETT 30").await;
+        c.send("DAMP:SETT?").await;
         assert_eq!(c.line().await.as_deref(), Some("30.0"));
-        c.send("ATT 40").await;
+        c.send("DAMP:SETT 40").await;
         assert_eq!(c.line().await.as_deref(), Some("<closed>"));
         let mut again = Client::connect(at).await;
-        again.send("ATT?").await;
+        again.send("DAMP:SETT?").await;
         assert_eq!(
             again.line().await.as_deref(),
             Some("30.0"),
@@ -379,11 +379,11 @@ mod tests {
         let at = serve(faults, ServedRole::Attenuator).await;
         let mut c = Client::connect(at).await;
         for db in ["12.5", "20.0", "31.25", "47.0"] {
-            c.send(&format!("ATT {db}")).await;
+            c.send(&format!("DAMP:SETT {db}")).await;
         }
         let mut replies = Vec::new();
         for _ in 0..12 {
-            c.send("ATT?").await;
+            c.send("DAMP:SETT?").await;
             replies.push(c.line().await);
         }
         assert!(replies.contains(&None), "{replies:?}");

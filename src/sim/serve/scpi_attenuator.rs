@@ -1,7 +1,7 @@
 //! The simulated step attenuator as a SCPI instrument, built on the `scpi` crate's parser and
 //! command tree: the IEEE 488.2 mandatory common commands, the SCPI error queue with the
 //! standard codes, and the setting commands of both shipped attenuator driver files
-//! (`ATTenuation` and `LOSS[:LEVel]`), so either driver can be tried against it unchanged.
+//! (`DAMPer:SETTing` and `LOSS[:LEVel]`), so either driver can be tried against it unchanged.
 //!
 //! Pure with respect to I/O: a message goes in, a response comes out; the server moves bytes.
 
@@ -407,10 +407,14 @@ const ROOT: Node<ScpiAttenuator> = Branch {
                 },
             ],
         },
-        Leaf {
-            name: b"ATTenuation",
+        Branch {
+            name: b"DAMPer",
             default: false,
-            handler: &Atten,
+            sub: &[Leaf {
+                name: b"SETTing",
+                default: true,
+                handler: &Atten,
+            }],
         },
         Branch {
             name: b"LOSS",
@@ -463,14 +467,15 @@ mod tests {
             ("*OPC?", "1\n".to_string()),
             // SCPI 1999 Vol 2 §21.8: an empty queue reads 0,"No error".
             ("SYST:ERR?", "0,\"No error\"\n".to_string()),
-            ("ATT 17.5", String::new()),
-            ("ATT?", "17.5\n".to_string()),
+            ("DAMPer:SETTing 17.5", String::new()),
+            ("DAMP:SETT?", "17.5\n".to_string()),
+            ("DAMP?", "17.5\n".to_string()),
             (":LOSS:LEVel 20.25", String::new()),
             (":LOSS:LEV?", "20.25\n".to_string()),
             ("LOSS?", "20.25\n".to_string()),
             // IEEE 488.2 §10.32: *TST? answers 0 when the self-test passes.
             ("*TST?", "0\n".to_string()),
-            ("ATT 10;*OPC?", "1\n".to_string()),
+            ("DAMP:SETT 10;*OPC?", "1\n".to_string()),
             ("SYSTem:VERSion?", "1999.0\n".to_string()),
         ] {
             assert_eq!(ask(&mut d, send), want, "{send}");
@@ -483,8 +488,8 @@ mod tests {
         // SCPI 1999 Vol 2 §21.8.9 (from memory): -113 Undefined header.
         assert_eq!(ask(&mut d, "FREQ 5"), "");
         // -222 Data out of range; -224 Illegal parameter value (SCPI 1999 Vol 2 §21.8.10).
-        assert_eq!(ask(&mut d, "ATT 120"), "");
-        assert_eq!(ask(&mut d, "ATT 10.1"), "");
+        assert_eq!(ask(&mut d, "DAMP 120"), "");
+        assert_eq!(ask(&mut d, "DAMP 10.1"), "");
         // IEEE 488.2 §11.2: STB bit 2 (4) set while the queue holds errors; ESR bit 5 (32)
         // Command Error and bit 4 (16) Execution Error.
         assert_eq!(ask(&mut d, "*STB?"), "4\n");
@@ -499,7 +504,10 @@ mod tests {
         assert_eq!(ask(&mut d, "*ESR?"), "48\n");
         assert_eq!(ask(&mut d, "*ESR?"), "0\n");
         // Refused settings leave it where it powered up: maximum attenuation.
-        assert_eq!(ask(&mut d, "ATT?"), "95.0\n");
+        assert_eq!(ask(&mut d, "DAMP?"), "95.0\n");
+        // The bare root-level command of no shipped driver is not understood.
+        assert_eq!(ask(&mut d, "ATT 20"), "");
+        assert_eq!(ask(&mut d, "SYST:ERR?"), "-113,\"Undefined header\"\n");
     }
 
     #[test]
@@ -525,6 +533,6 @@ mod tests {
         assert_eq!(ask(&mut d, "SYST:ERR?"), "0,\"No error\"\n");
         // *RST puts the attenuator in its safe state, maximum attenuation.
         ask(&mut d, "*RST");
-        assert_eq!(ask(&mut d, "ATT?"), "95.0\n");
+        assert_eq!(ask(&mut d, "DAMP?"), "95.0\n");
     }
 }
