@@ -143,7 +143,7 @@ fn receiver_protection_holds_at_the_exact_limit() {
     refused(
         &edit("[40.0, 50.0]", "[16.75]"),
         &[],
-        "r.toml:12:12",
+        "r.toml line 12, column 12",
         "16.75 dB puts -9.75 dBm into the DUT",
     );
     Taucal::new()
@@ -158,7 +158,7 @@ fn receiver_protection_checks_every_point_of_a_list() {
     refused(
         &edit("[40.0, 50.0]", "[40.0, 45.0, 16.75, 50.0, 60.0]"),
         &[],
-        "r.toml:12:12",
+        "r.toml line 12, column 12",
         "16.75 dB puts",
     );
 }
@@ -228,7 +228,12 @@ fn non_finite_numbers_in_a_bench_are_refused_where_they_stand() {
         let bench = std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("demo");
         let at = bench.find(from).expect(from);
         let line = bench[..at].matches('\n').count() + 1;
-        bench_refused(from, to, &format!("b.toml:{line}:"), "not a finite number");
+        bench_refused(
+            from,
+            to,
+            &format!("b.toml line {line}, column"),
+            "not a finite number",
+        );
     }
 }
 
@@ -247,13 +252,13 @@ fn non_finite_numbers_in_a_recipe_are_refused() {
     refused(
         &edit("[40.0, 50.0]", "[40.0, nan]"),
         &[],
-        "r.toml:12:",
+        "r.toml line 12, column 19",
         "not a finite number",
     );
     refused(
         &edit("bursts = 2", "bursts = 2\nlevel = inf"),
         &[],
-        "r.toml:6:9",
+        "r.toml line 6, column 9",
         "not a finite number",
     );
 }

@@ -544,18 +544,18 @@ fn a_served_run_resumes_cut_back_to_its_checkpoint_and_refuses_changed_files() {
     // and must refuse a changed bench file or driver file.
     let server = Server::start(&["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"]);
     let bench = served_bench(
-        "brackwater-bw95a",
+        "brackwater-tidegate95",
         &server.address("attenuator"),
         &server.address("dut"),
         "drivers",
     );
     let driver =
-        std::fs::read_to_string(root().join("drivers/brackwater-bw95a.toml")).expect("driver");
+        std::fs::read_to_string(root().join("drivers/brackwater-tidegate95.toml")).expect("driver");
     let console =
         std::fs::read_to_string(root().join("drivers/wren6-console.toml")).expect("console");
     let recipe = crate::unattended::RECIPE.replace("settle_ms = 30.0", "settle_ms = 100.0");
     let setup = Taucal::new()
-        .file("drivers/brackwater-bw95a.toml", &driver)
+        .file("drivers/brackwater-tidegate95.toml", &driver)
         .file("drivers/wren6-console.toml", &console)
         .file("served.toml", &bench)
         .file("r.toml", &recipe);
@@ -613,7 +613,7 @@ fn a_served_run_resumes_cut_back_to_its_checkpoint_and_refuses_changed_files() {
             "the bench changed since the run began",
         ),
         (
-            "drivers/brackwater-bw95a.toml",
+            "drivers/brackwater-tidegate95.toml",
             "settle_ms = 2.0",
             "settle_ms = 3.0",
             "the driver file changed since the run began",

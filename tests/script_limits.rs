@@ -32,7 +32,7 @@ fn a_growing_array_is_stopped_by_its_size_or_the_computing_limit() {
         "let a = [];\nloop {\n    a.push(1);\n}",
     );
     assert!(
-        err.contains("r.toml:13:") || err.contains("r.toml:12:"),
+        err.contains("r.toml line 13,") || err.contains("r.toml line 12,"),
         "{err}"
     );
     assert!(
@@ -49,7 +49,7 @@ fn computing_past_compute_limit_s_is_stopped_at_its_line() {
         "let n = 0;\nloop {\n    n += 1;\n}",
     );
     assert!(err.contains("compute_limit_s of 0.5 s"), "{err}");
-    assert!(err.contains("r.toml:1"), "{err}");
+    assert!(err.contains("r.toml line 1"), "{err}");
 }
 
 #[test]
@@ -66,7 +66,7 @@ fn waiting_past_time_limit_s_is_stopped_before_or_as_it_happens() {
         err.contains("wait_ms(2000) would take the stage past its time_limit_s"),
         "{err}"
     );
-    assert!(err.contains("r.toml:12:"), "{err}");
+    assert!(err.contains("r.toml line 12,"), "{err}");
 }
 
 #[test]
@@ -88,7 +88,11 @@ fn logging_past_the_volume_limit_is_stopped_and_the_log_stays_small() {
             "{call}: {}",
             out.stderr
         );
-        assert!(out.stderr.contains("r.toml:1"), "{call}: {}", out.stderr);
+        assert!(
+            out.stderr.contains("r.toml line 1"),
+            "{call}: {}",
+            out.stderr
+        );
         let log = std::fs::metadata(out.path("x/run.log"))
             .expect("run.log")
             .len();
@@ -109,6 +113,10 @@ fn limits_that_are_not_positive_durations_are_refused() {
             .run();
         out.expect_code(2);
         assert!(out.stderr.contains(words), "{keys}: {}", out.stderr);
-        assert!(out.stderr.contains("r.toml:9:"), "{keys}: {}", out.stderr);
+        assert!(
+            out.stderr.contains("r.toml line 9,"),
+            "{keys}: {}",
+            out.stderr
+        );
     }
 }
