@@ -666,7 +666,8 @@ mod tests {
     #[test]
     fn a_non_finite_level_anywhere_in_the_computation_refuses_every_setting() {
         // A bench built in code skips the file checks: protection must hold on its own.
-        let spoilers: [(&str, fn(&mut Bench)); 7] = [
+        type Spoiler = (&'static str, fn(&mut Bench));
+        let spoilers: [Spoiler; 7] = [
             ("dut.max_input_dbm", |b| b.dut.max_input_dbm = f64::NAN),
             ("reference.max_input_dbm", |b| {
                 b.reference.max_input_dbm = f64::NAN
