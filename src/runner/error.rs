@@ -47,3 +47,13 @@ pub enum RunError {
     #[error("{0}")]
     Script(Box<Diagnostic>),
 }
+
+impl RunError {
+    /// A run file at `path` that could not be written.
+    pub fn io(path: &std::path::Path, source: std::io::Error) -> RunError {
+        RunError::Io {
+            path: path.display().to_string(),
+            source,
+        }
+    }
+}

@@ -1,13 +1,19 @@
 //! The runner: executes a plan's stages against instrument handles, through one clock, into a
 //! record sink.
 
+pub mod accept;
 pub mod claim;
 pub mod clock;
+pub mod connect;
 pub mod error;
 pub mod estimate;
 pub mod events;
+pub mod finalise;
 pub mod inputs;
 pub mod journal;
+pub mod outputs;
+pub mod prepare;
+pub mod record;
 pub mod resume;
 pub mod run;
 pub mod session;
