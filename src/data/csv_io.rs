@@ -4,6 +4,7 @@
 //! files run to millions of rows, so it reads by column position into a reused row instead of
 //! deserializing a fresh row per line.
 
+use super::digits::{digits_value, short_decimal_prefix, ZEROS};
 use super::plain_line::LineParser;
 use super::record_split::{Record, Split, Splitter, BLOCK};
 use super::row_batches::{set_label, Batches, Labels, RowSource};
@@ -425,24 +426,6 @@ fn eight_digits(chunk: [u8; 8]) -> Option<u64> {
     Some(digits_value(v))
 }
 
-/// `0` in every byte of a word.
-pub(crate) const ZEROS: u64 = 0x3030_3030_3030_3030;
-
-/// The value of a word of eight ASCII digits, loaded little-endian (byte `i` holds digit `i`,
-/// the first most significant): three multiply-and-shift steps combine neighbours into pairs,
-/// fours and the eight (each lane stays below its width, so no carries).
-pub(crate) fn digits_value(word: u64) -> u64 {
-    let v = word - ZEROS;
-    let v = (v * 10 + (v >> 8)) & 0x00FF_00FF_00FF_00FF;
-    let v = (v * 100 + (v >> 16)) & 0x0000_FFFF_0000_FFFF;
-    (v * 10_000 + (v >> 32)) & 0xFFFF_FFFF
-}
-
-/// Exact powers of ten up to 10^15 (every one is an f64 without rounding).
-const POWERS_OF_TEN: [f64; 16] = [
-    1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
-];
-
 /// A float written `[-]digits[.digits]` with at most 15 digits in all (attenuations, levels and
 /// temperatures as taucal writes them), or `None` for any other spelling. The digits form an
 /// integer below 2^53 and the divisor is an exact power of ten, so the one division is
@@ -450,34 +433,6 @@ const POWERS_OF_TEN: [f64; 16] = [
 /// general machinery.
 fn short_decimal(bytes: &[u8]) -> Option<f64> {
     short_decimal_prefix(bytes).and_then(|(value, len)| (len == bytes.len()).then_some(value))
-}
-
-/// The longest start of `bytes` spelt `[-]digits[.digits]`, as [`short_decimal`] reads it,
-/// and its length; `None` if there is none or it has more than 15 digits.
-pub(crate) fn short_decimal_prefix(bytes: &[u8]) -> Option<(f64, usize)> {
-    let negative = bytes.first() == Some(&b'-');
-    let start = usize::from(negative);
-    let mut at = start;
-    let mut dot = None;
-    // Wrapping: past 15 digits the value is refused anyway.
-    let mut mantissa = 0u64;
-    while let Some(&b) = bytes.get(at) {
-        match b {
-            b'0'..=b'9' => mantissa = mantissa.wrapping_mul(10).wrapping_add(u64::from(b - b'0')),
-            b'.' if dot.is_none() => dot = Some(at),
-            _ => break,
-        }
-        at += 1;
-    }
-    let (whole, fraction) = match dot {
-        Some(dot) => (dot - start, at - dot - 1),
-        None => (at - start, 0),
-    };
-    if whole == 0 || (dot.is_some() && fraction == 0) || whole + fraction > 15 {
-        return None;
-    }
-    let value = mantissa as f64 / POWERS_OF_TEN[fraction];
-    Some((if negative { -value } else { value }, at))
 }
 
 /// Hexadecimal parsing for the integer widths the contract uses.

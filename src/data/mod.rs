@@ -1,6 +1,7 @@
 //! Records and the files that hold them: exchanges, the run directory and its manifest.
 
 pub mod csv_io;
+mod digits;
 pub mod exchange;
 pub mod file_parts;
 pub mod manifest;

@@ -6,7 +6,7 @@
 //! way is declined and left to the splitter and the field-by-field reader, which read it to the
 //! same values (they accept every spelling read here, to the same bits) or to the error.
 
-use super::csv_io::{digits_value, short_decimal_prefix, ZEROS};
+use super::digits::{digits_value, short_decimal_prefix, ZEROS};
 use super::record_split::{below_dash, word_at};
 use super::Exchange;
 
