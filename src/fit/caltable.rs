@@ -3,7 +3,7 @@
 //! Writing and reading live together so the format has one definition; the reader is for tests
 //! and for tools that apply or compare tables, and names the line of any bad input.
 
-use crate::fit::fitter::{CalRow, RowSource};
+use crate::fit::cal_row::{CalRow, RowSource};
 use std::io::{Read, Write};
 use thiserror::Error;
 

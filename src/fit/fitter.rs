@@ -9,6 +9,7 @@
 //! one attenuation setting yields two gain states, so grouping by sweep point would mix them.
 
 use crate::data::Exchange;
+use crate::fit::cal_row::{CalRow, RowSource};
 use crate::fit::deembed::Deembed;
 use crate::fit::drift::{DriftRow, TempBins};
 use crate::fit::rtt::{burst_offsets, corrected_rtt_from_counters_ps, rate_ratio};
@@ -34,50 +35,6 @@ impl Default for FitOptions {
     fn default() -> Self {
         Self { reject_mad: 5.0 }
     }
-}
-
-/// Where a calibration row's delay comes from.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum RowSource {
-    /// Estimated from exchanges taken in that cell.
-    Measured,
-    /// Filled in by a model across cells.
-    Modelled,
-}
-
-impl RowSource {
-    /// The `source` column value of `caltable.csv`.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            RowSource::Measured => "measured",
-            RowSource::Modelled => "modelled",
-        }
-    }
-}
-
-/// One cell of the calibration table with the statistics behind it.
-#[derive(Debug, Clone, PartialEq)]
-pub struct CalRow {
-    /// Channel center frequency.
-    pub center_mhz: u32,
-    /// Channel bandwidth.
-    pub bw_mhz: u32,
-    /// DUT receive gain state.
-    pub gain_index: u32,
-    /// The DUT's K (TX + RX delay): mean of the kept samples.
-    pub delay_ps: f64,
-    /// Half-width of the two-sided 95 % Student-t interval of `delay_ps`.
-    pub ci95_ps: f64,
-    /// Samples kept.
-    pub n_used: u64,
-    /// Samples rejected as outliers.
-    pub n_rejected: u64,
-    /// Distinct bursts among the kept samples.
-    pub n_bursts: u64,
-    /// Sample standard deviation of the kept samples.
-    pub sd_ps: f64,
-    /// Measured or modelled.
-    pub source: RowSource,
 }
 
 /// What the fitter saw and which fallbacks it took, for the log and the report.
@@ -1099,12 +1056,5 @@ mod tests {
         assert_eq!(got.drift, temps.drift());
         assert_eq!(got.summary.cells_single_burst, single_bursts);
         assert_eq!(got.summary.cells_skipped, skipped);
-    }
-
-    #[test]
-    fn source_labels_match_the_contract() {
-        // Design §4 caltable.csv contract: `measured` or `modelled`.
-        assert_eq!(RowSource::Measured.as_str(), "measured");
-        assert_eq!(RowSource::Modelled.as_str(), "modelled");
     }
 }

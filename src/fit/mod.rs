@@ -1,5 +1,6 @@
 //! The fitter: pure functions from recorded exchanges to a calibration table.
 
+pub mod cal_row;
 pub mod caltable;
 pub mod deembed;
 pub mod drift;
@@ -13,8 +14,9 @@ pub mod rtt;
 pub mod stats;
 pub mod verify;
 
+pub use cal_row::{CalRow, RowSource};
 pub use caltable::{
     read_caltable, write_caltable, write_table_rows, CalTableError, TableRow, CALTABLE_HEADER,
 };
 pub use deembed::Deembed;
-pub use fitter::{burst_delays, fit, CalRow, FitOptions, FitResult, FitSummary, Fitter, RowSource};
+pub use fitter::{burst_delays, fit, FitOptions, FitResult, FitSummary, Fitter};

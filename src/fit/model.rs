@@ -20,7 +20,7 @@
 //! Pure: no I/O. Modelled rows are always flagged [`RowSource::Modelled`]; measured rows are never
 //! altered.
 
-use crate::fit::fitter::{CalRow, RowSource};
+use crate::fit::cal_row::{CalRow, RowSource};
 use crate::fit::lsq::{self, LsqError, LsqFit};
 use crate::fit::stats::t975;
 use std::collections::{BTreeMap, BTreeSet};
