@@ -61,6 +61,17 @@ pub struct InputFile {
     pub sha256: String,
 }
 
+/// Faults seen on one instrument.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct FaultTally {
+    /// Failed commands.
+    pub faults: u64,
+    /// Retries made.
+    pub retries: u64,
+    /// Device restarts detected.
+    pub restarts: u64,
+}
+
 /// Exchange counts.
 #[derive(Debug, Clone, Default, Serialize, Deserialize)]
 pub struct Counts {
@@ -213,7 +224,7 @@ pub struct Manifest {
     pub resumes: u32,
     /// Instrument faults and retries, by role.
     #[serde(default)]
-    pub faults: BTreeMap<String, crate::runner::session::FaultTally>,
+    pub faults: BTreeMap<String, FaultTally>,
     /// Points skipped after their retries ran out.
     #[serde(default)]
     pub skipped_points: Vec<String>,

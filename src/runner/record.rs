@@ -5,11 +5,10 @@ use super::connect::Connected;
 use super::journal::Journal;
 use super::prepare::Prepared;
 use super::run::RunRequest;
-use super::session::FaultTally;
 use super::{
     run_gain_map, run_soak, run_sweep, run_verify, RunError, RunEvent, RunObserver, Session,
 };
-use crate::data::manifest::Counts;
+use crate::data::manifest::{Counts, FaultTally};
 use crate::data::run_dir::files;
 use crate::data::ExchangeWriter;
 use crate::fit::gainmap::GainMap;

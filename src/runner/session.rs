@@ -5,7 +5,7 @@
 use super::journal::{Checkpoint, Journal};
 use super::{BenchClock, RunError, RunEvent, RunObserver, StopFlag, Unobserved};
 use crate::bench::Bench;
-use crate::data::manifest::Counts;
+use crate::data::manifest::{Counts, FaultTally};
 use crate::data::{Exchange, RecordSink, Taken, STATUS_OK};
 use crate::fit::gainmap::GainMap;
 use crate::instrument::{
@@ -31,17 +31,6 @@ pub struct PointSummary {
     pub ok_by_gain: BTreeMap<u32, u64>,
     /// Exchanges that failed.
     pub failed: u64,
-}
-
-/// Faults seen on one instrument.
-#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
-pub struct FaultTally {
-    /// Failed commands.
-    pub faults: u64,
-    /// Retries made.
-    pub retries: u64,
-    /// Device restarts detected.
-    pub restarts: u64,
 }
 
 /// Rows an interrupted run recorded, being replayed by its resumption.
