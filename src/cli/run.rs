@@ -6,7 +6,9 @@ use super::progress::Progress;
 use super::{bench_arg, table, Exit};
 use crate::data::run_dir::files;
 use crate::diagnostic::Diagnostic;
-use crate::runner::run::{execute, RunReport, RunRequest};
+use crate::runner::finalise::RunReport;
+use crate::runner::request::RunRequest;
+use crate::runner::run::execute;
 use crate::runner::RunError;
 use std::sync::Arc;
 

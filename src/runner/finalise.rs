@@ -4,11 +4,37 @@
 use super::outputs::Outputs;
 use super::prepare::Prepared;
 use super::record::Recorded;
-use super::run::RunReport;
 use super::RunError;
 use crate::bench::Bench;
 use crate::data::manifest::AcceptCheck;
-use crate::data::{run_dir, RunStatus};
+use crate::data::{run_dir, Manifest, RunStatus};
+use crate::fit::verify::VerifyRow;
+use crate::fit::FitResult;
+use std::path::PathBuf;
+
+/// How a run ended.
+pub struct RunReport {
+    /// The run directory.
+    pub dir: PathBuf,
+    /// The final manifest, as written.
+    pub manifest: Manifest,
+    /// The table fitted from what was recorded (absent if the exchanges could not be read).
+    pub fit: Option<FitResult>,
+    /// Verification rows, when the recipe verifies.
+    pub verify: Vec<VerifyRow>,
+    /// Why the run stopped early, if it did.
+    pub failure: Option<RunError>,
+    /// Why the final manifest could not be written, if it could not: the one on disk may
+    /// still say `running`.
+    pub manifest_unwritten: Option<String>,
+}
+
+impl RunReport {
+    /// True when every acceptance limit was met.
+    pub fn accepted(&self) -> bool {
+        self.manifest.acceptance.iter().all(|c| c.passed)
+    }
+}
 
 /// Writes the final manifest and the report. `ended` is the run's first failure, if any; a
 /// manifest that cannot be written fails the run too (after the fact, so only the returned

@@ -14,6 +14,7 @@ pub mod journal;
 pub mod outputs;
 pub mod prepare;
 pub mod record;
+pub mod request;
 pub mod resume;
 pub mod run;
 pub mod session;

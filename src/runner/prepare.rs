@@ -1,7 +1,7 @@
 //! A run's first phase: its directory, a manifest there saying the run is under way, and the
 //! bench clock. No instrument is touched yet, so a failure here is a [`Diagnostic`].
 
-use super::run::RunRequest;
+use super::request::RunRequest;
 use super::{BenchClock, ClockMode};
 use crate::data::manifest::{sha256_hex, BenchInfo, FitInfo, RecipeInfo};
 use crate::data::run_dir::{self, files};

@@ -4,7 +4,7 @@
 use super::connect::Connected;
 use super::journal::Journal;
 use super::prepare::Prepared;
-use super::run::RunRequest;
+use super::request::RunRequest;
 use super::{
     run_gain_map, run_soak, run_sweep, run_verify, RunError, RunEvent, RunObserver, Session,
 };

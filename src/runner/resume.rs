@@ -3,7 +3,7 @@
 //! redone from its start, so nothing is lost and nothing is recorded twice.
 
 use super::journal::last_checkpoint;
-use super::run::{Resumption, RunRequest};
+use super::request::{Resumption, RunRequest};
 use crate::bench::Bench;
 use crate::data::manifest::sha256_hex;
 use crate::data::run_dir::files;
