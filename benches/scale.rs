@@ -21,11 +21,11 @@ use std::process::{Command, Stdio};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 use taucal::bench::Bench;
+use taucal::clock::{BenchClock, ClockMode};
 use taucal::data::{Exchange, ExchangeWriter, RecordSink, Taken};
-use taucal::instrument::connect::connect;
-use taucal::runner::{BenchClock, ClockMode};
 use taucal::sim::serve::{Listen, ServedBench};
 use taucal::sim::{BurstRequest, SimBench};
+use taucal::wiring::connect;
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
 
 /// Bumped whenever the generator's output changes, so cached files are not reused.

@@ -3,6 +3,7 @@
 
 pub mod bench;
 pub mod cli;
+pub mod clock;
 pub mod data;
 pub mod diagnostic;
 pub mod export;
@@ -15,3 +16,4 @@ pub mod runner;
 pub mod script;
 pub mod sim;
 pub mod toml_input;
+pub mod wiring;

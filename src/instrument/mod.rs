@@ -3,7 +3,6 @@
 //! capability without a recompile.
 
 pub mod capability;
-pub mod connect;
 pub mod driven_attenuator;
 pub mod driven_console;
 pub mod driver_file;

@@ -1,12 +1,12 @@
 //! A run's second phase: the bench's instruments started and asked who they are, and a stop
 //! flag listening for SIGINT and SIGTERM.
 
-use super::BenchClock;
 use super::{RunError, StopFlag};
 use crate::bench::Bench;
+use crate::clock::BenchClock;
 use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
-use crate::instrument::connect::{connect as start_instruments, Instruments};
+use crate::wiring::{connect as start_instruments, Instruments};
 use std::sync::Arc;
 
 /// The instruments of a run and what stops it.

@@ -3,7 +3,6 @@
 
 pub mod accept;
 pub mod claim;
-pub mod clock;
 pub mod connect;
 pub mod error;
 pub mod estimate;
@@ -22,7 +21,6 @@ pub mod stop;
 pub mod sweep;
 pub mod tabulate;
 
-pub use clock::{BenchClock, ClockMode};
 pub use error::RunError;
 pub use events::{RunEvent, RunObserver, Unobserved};
 pub use session::{PointSummary, Session};

@@ -2,7 +2,7 @@
 //! bench clock. No instrument is touched yet, so a failure here is a [`Diagnostic`].
 
 use super::request::RunRequest;
-use super::{BenchClock, ClockMode};
+use crate::clock::{BenchClock, ClockMode};
 use crate::data::manifest::{sha256_hex, BenchInfo, FitInfo, RecipeInfo};
 use crate::data::run_dir::{self, files};
 use crate::data::run_lock::RunLock;

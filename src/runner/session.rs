@@ -3,8 +3,9 @@
 //! obey the same limits and number their records the same way.
 
 use super::journal::{Checkpoint, Journal};
-use super::{BenchClock, RunError, RunEvent, RunObserver, StopFlag, Unobserved};
+use super::{RunError, RunEvent, RunObserver, StopFlag, Unobserved};
 use crate::bench::Bench;
+use crate::clock::BenchClock;
 use crate::data::manifest::{Counts, FaultTally};
 use crate::data::{Exchange, RecordSink, Taken, STATUS_OK};
 use crate::fit::gainmap::GainMap;
@@ -527,9 +528,9 @@ impl Session {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::clock::ClockMode;
     use crate::data::DeviceExchange;
     use crate::instrument::{Attenuator, BurstSpec, Owned, RangingDevice};
-    use crate::runner::ClockMode;
     use async_trait::async_trait;
 
     /// An attenuator whose first `failures` commands fail as a flaky link would.

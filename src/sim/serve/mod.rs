@@ -17,9 +17,9 @@ pub mod pty;
 pub mod scpi_attenuator;
 
 use crate::bench::Bench;
+use crate::clock::{BenchClock, ClockMode};
 use crate::diagnostic::Diagnostic;
 use crate::instrument::line::LineFramer;
-use crate::runner::{BenchClock, ClockMode};
 use crate::sim::faults::{garble, CommandFault, FaultInjector};
 use crate::sim::front::{SimShared, SimWorld};
 use crate::sim::SimBench;

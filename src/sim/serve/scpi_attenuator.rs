@@ -5,8 +5,8 @@
 //!
 //! Pure with respect to I/O: a message goes in, a response comes out; the server moves bytes.
 
+use crate::clock::BenchClock;
 use crate::instrument::InstrumentError;
-use crate::runner::BenchClock;
 use crate::sim::front::SimShared;
 use scpi::error::{ErrorCode, ErrorQueue, VecErrorQueue};
 use scpi::parser::format::Character;
@@ -432,7 +432,7 @@ const ROOT: Node<ScpiAttenuator> = Branch {
 mod tests {
     use super::*;
     use crate::bench::Bench;
-    use crate::runner::ClockMode;
+    use crate::clock::ClockMode;
     use crate::sim::SimBench;
     use std::sync::Arc;
 

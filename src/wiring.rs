@@ -1,19 +1,21 @@
 //! From a bench's role bindings to running instruments, each behind its lock on a runtime of its
 //! own; handles returned.
 //! A role at `sim:` is served by the in-process simulated bench; any other address is driven
-//! by the role's driver file over the transport its address names.
+//! by the role's driver file over the transport its address names. It sits above `instrument/`
+//! and `sim/` because it chooses between them, so `instrument/` needs neither `sim/` nor the
+//! runner.
 
-use super::driven_attenuator::DrivenAttenuator;
-use super::driven_console::DrivenConsole;
-use super::driver_file::{DriverFile, DriverKind};
-use super::scpi_client::ScpiClient;
-use super::transport::{Address, Link};
-use super::{
+use crate::bench::Bench;
+use crate::clock::BenchClock;
+use crate::diagnostic::{Diagnostic, KeyError};
+use crate::instrument::driven_attenuator::DrivenAttenuator;
+use crate::instrument::driven_console::DrivenConsole;
+use crate::instrument::driver_file::{DriverFile, DriverKind};
+use crate::instrument::scpi_client::ScpiClient;
+use crate::instrument::transport::{Address, Link};
+use crate::instrument::{
     Attenuator, AttenuatorHandle, Chamber, ChamberHandle, Owned, RangingDevice, RangingHandle,
 };
-use crate::bench::Bench;
-use crate::diagnostic::{Diagnostic, KeyError};
-use crate::runner::BenchClock;
 use crate::sim::chamber::SimChamber;
 use crate::sim::faults::FaultInjector;
 use crate::sim::front::{
