@@ -28,7 +28,7 @@ pub mod files {
     /// The run report.
     pub const REPORT: &str = "report.html";
     /// Held by the process driving the run (see `run_lock`).
-    pub const LOCK: &str = "taucal.lock";
+    pub const LOCK: &str = super::super::run_lock::LOCK_FILE;
 }
 
 /// Why a run directory could not be made.

@@ -8,6 +8,9 @@ use nix::fcntl::{Flock, FlockArg};
 use std::fs::{File, OpenOptions};
 use std::path::{Path, PathBuf};
 
+/// The lock file's name in a run directory.
+pub const LOCK_FILE: &str = "taucal.lock";
+
 /// A held run-directory lock; dropping it releases the directory.
 #[derive(Debug)]
 pub struct RunLock {
@@ -37,7 +40,7 @@ impl RunLock {
     /// Locks `dir` (which must exist) without waiting: a directory another process holds is
     /// refused at once rather than waited for, since that process may run for hours.
     pub fn acquire(dir: &Path) -> Result<RunLock, RunLockError> {
-        let path = dir.join(super::run_dir::files::LOCK);
+        let path = dir.join(LOCK_FILE);
         let file = OpenOptions::new()
             .create(true)
             .truncate(false)
