@@ -79,6 +79,31 @@ fn the_gain_map_finds_switch_points_within_1_5_db() {
                         hysteresis_db / 2.0
                     );
                 }
+                // The appended columns: the fitted switch attenuations against the truth (the
+                // demo bench's 15 dBm less 8 dB of fixed loss puts threshold T at 7 − T dB of
+                // attenuation, the band's edges h/2 either side), within twice their 95 %
+                // half-widths (about 4 sigma).
+                let row = &map[g];
+                assert_eq!(row[7], (g + 1) as f64, "next state");
+                let center_db = 7.0 - thr;
+                for (value, ci, truth) in [
+                    (row[8], row[9], center_db + hysteresis_db / 2.0),
+                    (row[10], row[11], center_db - hysteresis_db / 2.0),
+                ] {
+                    assert!(
+                        ci > 0.0 && (value - truth).abs() <= 2.0 * ci,
+                        "switch {g}: {value} ± {ci} dB vs {truth}"
+                    );
+                }
+            }
+            if hysteresis_db == 0.0 {
+                // No hysteresis to find: these seeds' intervals reach zero, and the file says
+                // so instead of giving a number.
+                let row = out.read("r/gainmap.csv").lines().nth(1).map(str::to_string);
+                assert!(
+                    row.as_deref().is_some_and(|l| l.ends_with(",,,false")),
+                    "{row:?}"
+                );
             }
         }
     }
