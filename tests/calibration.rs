@@ -303,44 +303,89 @@ fn an_overnight_soak_recovers_each_states_temperature_drift() {
     assert!(m["instruments"]["chamber"].as_str().is_some());
 }
 
-#[test]
-fn unmeasured_gain_states_get_modelled_rows() {
-    let recipe = r#"
+/// A sweep recipe on 5180/80 at `atten_db` (a TOML array), telling the fitter the DUT has
+/// `states` gain states, `bursts` bursts of 16 per point.
+fn sweep_recipe(states: u32, atten_db: &str, bursts: u32) -> String {
+    format!(
+        r#"
 [recipe]
-name = "three-of-four"
+name = "some-states-unmeasured"
 
 [fit]
-gain_states = 4
+gain_states = {states}
 
 [[stage]]
 name = "cal"
 kind = "sweep"
 center_mhz = 5180
 bw_mhz = 80
-atten_db = [20.0, 26.0, 37.0, 43.0, 54.0, 60.0]
-bursts = 6
+atten_db = {atten_db}
+bursts = {bursts}
 frames = 16
-"#;
+"#
+    )
+}
+
+#[test]
+fn three_measured_states_give_no_modelled_row_and_say_why() {
+    // Three states allow only a constant model; state 3 (truth 1700 + 1600 = 3300 ps) would be
+    // given the mean of the others. It is left out instead, and the log says so.
     let out = Taucal::new()
-        .file("r.toml", recipe)
+        .file(
+            "r.toml",
+            &sweep_recipe(4, "[20.0, 26.0, 37.0, 43.0, 54.0, 60.0]", 6),
+        )
         .file("b.toml", &bench_with(FOUR_STATES))
         .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
         .run();
     out.expect_code(0);
     let table = out.read("m/caltable.csv");
     let rows: Vec<&str> = table.lines().skip(1).collect();
-    assert_eq!(rows.len(), 4, "{table}");
+    assert_eq!(rows.len(), 3, "{table}");
+    assert!(rows.iter().all(|r| r.ends_with(",measured")), "{table}");
     assert!(
-        rows[..3].iter().all(|r| r.ends_with(",measured")),
-        "{table}"
+        out.stderr.contains("left out of the table")
+            && out
+                .stderr
+                .contains("3 measured cells cannot choose and check a model"),
+        "{}",
+        out.stderr
     );
+}
+
+#[test]
+fn a_modelled_state_among_five_measured_matches_the_simulators_truth() {
+    // Six states whose RX delay is a smooth ladder, 800 + 120 g + 10 g² ps (K = 1500 + that);
+    // the sweep skips state 3 (49–59 dB of attenuation on this bench), which the model fills.
+    // Enough bursts that the curvature shows above the cells' errors: a straight line then
+    // fails the χ² check and the curve is used.
+    let dut = "tx_delay_ps = 1500.0
+rx_delay_ps = [800.0, 930.0, 1080.0, 1250.0, 1440.0, 1650.0]
+gain_thresholds_dbm = [-22.0, -32.0, -42.0, -52.0, -62.0]
+clock_ppm = 14.0
+jitter_ps = 300.0
+outlier_rate = 0.01";
+    let points = "[18.0, 22.0, 32.0, 36.0, 42.0, 46.0, 62.0, 66.0, 73.0, 78.0]";
+    let out = Taucal::new()
+        .file("r.toml", &sweep_recipe(6, points, 30))
+        .file("b.toml", &bench_with(dut))
+        .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
+        .run();
+    out.expect_code(0);
+    let table = out.read("m/caltable.csv");
+    let rows: Vec<&str> = table.lines().skip(1).collect();
+    assert_eq!(rows.len(), 6, "{table}");
     assert!(
         rows[3].starts_with("5180,80,3,") && rows[3].ends_with(",modelled"),
         "{table}"
     );
-    let modelled = csv_numbers(&table)[3].clone();
+    let modelled = &csv_numbers(&table)[3];
+    let (k_ps, ci95_ps) = (modelled[3], modelled[4]);
+    let truth_ps = 1500.0 + 1250.0;
+    // Within twice the 95 % half-width (about 4 sigma), and the half-width a useful one:
+    // under half the 170–190 ps between the neighbouring states (three states gave ±554 ps).
     assert!(
-        modelled[4].is_finite() && modelled[4] > 0.0,
-        "an uncertainty: {modelled:?}"
+        (k_ps - truth_ps).abs() <= 2.0 * ci95_ps && ci95_ps < 85.0,
+        "{k_ps:.1} ± {ci95_ps:.1} ps vs {truth_ps}"
     );
 }
