@@ -142,8 +142,7 @@ fn taucal_report_rebuilds_the_same_bytes() {
             .map(|c| text(&c))
             .collect();
         let number = |s: &str| -> f64 {
-            s.trim()
-                .split_whitespace()
+            s.split_whitespace()
                 .next()
                 .unwrap_or("")
                 .parse()
