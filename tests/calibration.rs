@@ -79,6 +79,31 @@ fn the_gain_map_finds_switch_points_within_1_5_db() {
                         hysteresis_db / 2.0
                     );
                 }
+                // The appended columns: the fitted switch attenuations against the truth (the
+                // demo bench's 15 dBm less 8 dB of fixed loss puts threshold T at 7 − T dB of
+                // attenuation, the band's edges h/2 either side), within twice their 95 %
+                // half-widths (about 4 sigma).
+                let row = &map[g];
+                assert_eq!(row[7], (g + 1) as f64, "next state");
+                let center_db = 7.0 - thr;
+                for (value, ci, truth) in [
+                    (row[8], row[9], center_db + hysteresis_db / 2.0),
+                    (row[10], row[11], center_db - hysteresis_db / 2.0),
+                ] {
+                    assert!(
+                        ci > 0.0 && (value - truth).abs() <= 2.0 * ci,
+                        "switch {g}: {value} ± {ci} dB vs {truth}"
+                    );
+                }
+            }
+            if hysteresis_db == 0.0 {
+                // No hysteresis to find: these seeds' intervals reach zero, and the file says
+                // so instead of giving a number.
+                let row = out.read("r/gainmap.csv").lines().nth(1).map(str::to_string);
+                assert!(
+                    row.as_deref().is_some_and(|l| l.ends_with(",,,false")),
+                    "{row:?}"
+                );
             }
         }
     }
@@ -278,44 +303,89 @@ fn an_overnight_soak_recovers_each_states_temperature_drift() {
     assert!(m["instruments"]["chamber"].as_str().is_some());
 }
 
-#[test]
-fn unmeasured_gain_states_get_modelled_rows() {
-    let recipe = r#"
+/// A sweep recipe on 5180/80 at `atten_db` (a TOML array), telling the fitter the DUT has
+/// `states` gain states, `bursts` bursts of 16 per point.
+fn sweep_recipe(states: u32, atten_db: &str, bursts: u32) -> String {
+    format!(
+        r#"
 [recipe]
-name = "three-of-four"
+name = "some-states-unmeasured"
 
 [fit]
-gain_states = 4
+gain_states = {states}
 
 [[stage]]
 name = "cal"
 kind = "sweep"
 center_mhz = 5180
 bw_mhz = 80
-atten_db = [20.0, 26.0, 37.0, 43.0, 54.0, 60.0]
-bursts = 6
+atten_db = {atten_db}
+bursts = {bursts}
 frames = 16
-"#;
+"#
+    )
+}
+
+#[test]
+fn three_measured_states_give_no_modelled_row_and_say_why() {
+    // Three states allow only a constant model; state 3 (truth 1700 + 1600 = 3300 ps) would be
+    // given the mean of the others. It is left out instead, and the log says so.
     let out = Taucal::new()
-        .file("r.toml", recipe)
+        .file(
+            "r.toml",
+            &sweep_recipe(4, "[20.0, 26.0, 37.0, 43.0, 54.0, 60.0]", 6),
+        )
         .file("b.toml", &bench_with(FOUR_STATES))
         .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
         .run();
     out.expect_code(0);
     let table = out.read("m/caltable.csv");
     let rows: Vec<&str> = table.lines().skip(1).collect();
-    assert_eq!(rows.len(), 4, "{table}");
+    assert_eq!(rows.len(), 3, "{table}");
+    assert!(rows.iter().all(|r| r.ends_with(",measured")), "{table}");
     assert!(
-        rows[..3].iter().all(|r| r.ends_with(",measured")),
-        "{table}"
+        out.stderr.contains("left out of the table")
+            && out
+                .stderr
+                .contains("3 measured cells cannot choose and check a model"),
+        "{}",
+        out.stderr
     );
+}
+
+#[test]
+fn a_modelled_state_among_five_measured_matches_the_simulators_truth() {
+    // Six states whose RX delay is a smooth ladder, 800 + 120 g + 10 g² ps (K = 1500 + that);
+    // the sweep skips state 3 (49–59 dB of attenuation on this bench), which the model fills.
+    // Enough bursts that the curvature shows above the cells' errors: a straight line then
+    // fails the χ² check and the curve is used.
+    let dut = "tx_delay_ps = 1500.0
+rx_delay_ps = [800.0, 930.0, 1080.0, 1250.0, 1440.0, 1650.0]
+gain_thresholds_dbm = [-22.0, -32.0, -42.0, -52.0, -62.0]
+clock_ppm = 14.0
+jitter_ps = 300.0
+outlier_rate = 0.01";
+    let points = "[18.0, 22.0, 32.0, 36.0, 42.0, 46.0, 62.0, 66.0, 73.0, 78.0]";
+    let out = Taucal::new()
+        .file("r.toml", &sweep_recipe(6, points, 30))
+        .file("b.toml", &bench_with(dut))
+        .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
+        .run();
+    out.expect_code(0);
+    let table = out.read("m/caltable.csv");
+    let rows: Vec<&str> = table.lines().skip(1).collect();
+    assert_eq!(rows.len(), 6, "{table}");
     assert!(
         rows[3].starts_with("5180,80,3,") && rows[3].ends_with(",modelled"),
         "{table}"
     );
-    let modelled = csv_numbers(&table)[3].clone();
+    let modelled = &csv_numbers(&table)[3];
+    let (k_ps, ci95_ps) = (modelled[3], modelled[4]);
+    let truth_ps = 1500.0 + 1250.0;
+    // Within twice the 95 % half-width (about 4 sigma), and the half-width a useful one:
+    // under half the 170–190 ps between the neighbouring states (three states gave ±554 ps).
     assert!(
-        modelled[4].is_finite() && modelled[4] > 0.0,
-        "an uncertainty: {modelled:?}"
+        (k_ps - truth_ps).abs() <= 2.0 * ci95_ps && ci95_ps < 85.0,
+        "{k_ps:.1} ± {ci95_ps:.1} ps vs {truth_ps}"
     );
 }

@@ -42,7 +42,11 @@ fn demo_without_bench_says_simulated_and_writes_the_contract_files() {
     assert!(!out.read("demo/run.log").is_empty());
     assert_eq!(
         out.read("demo/gainmap.csv").lines().next(),
-        Some("center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm")
+        Some(
+            "center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm,\
+             next_gain_index,switch_rising_db,switch_rising_ci95_db,switch_falling_db,\
+             switch_falling_ci95_db,hysteresis_db,hysteresis_ci95_db,hysteresis_resolved"
+        )
     );
     assert_eq!(
         out.read("demo/verify.csv").lines().next(),

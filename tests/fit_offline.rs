@@ -49,6 +49,18 @@ fn fit_reproduces_the_runs_table_to_a_hundredth_of_a_picosecond() {
         }
         assert_eq!(x[5..], y[5..], "same counts and source");
     }
+    // Agreeing with itself says nothing about being right: the refit table against the truth
+    // declared in recipes/benches/sim-demo.toml (K = tx_delay_ps 1500 + rx_delay_ps
+    // [900, 1150, 1400]), within twice each row's 95 % half-width (about 4 sigma).
+    for row in &b {
+        let gain: usize = row[2].parse().expect("gain");
+        let truth_ps = 1500.0 + [900.0, 1150.0, 1400.0][gain];
+        let (k, ci): (f64, f64) = (row[3].parse().expect("k"), row[4].parse().expect("ci"));
+        assert!(
+            (k - truth_ps).abs() <= 2.0 * ci,
+            "gain {gain}: {k} ± {ci} ps vs {truth_ps}"
+        );
+    }
 }
 
 #[test]

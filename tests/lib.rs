@@ -8,6 +8,7 @@ mod demo_run;
 mod examples;
 mod fit_offline;
 mod fuzz;
+mod gain_switch;
 mod instruments;
 mod plan_preview;
 mod report;

@@ -2,7 +2,7 @@
 //! them, through the real binary. The HTML is parsed with an HTML5 parser (scraper, built on
 //! html5ever), so the checks see the document a browser sees.
 
-use crate::support::{repo, root, Outcome, Taucal};
+use crate::support::{repo, root, skip_without, Outcome, Taucal};
 use scraper::{Html, Selector};
 
 fn select<'a>(doc: &'a Html, css: &str) -> Vec<scraper::ElementRef<'a>> {
@@ -130,6 +130,33 @@ fn taucal_report_rebuilds_the_same_bytes() {
     let again = Taucal::in_dir(out.dir).args(["report", "demo"]).run();
     again.expect_code(0);
     assert_eq!(again.read("demo/report.html"), first);
+    // Rebuilding matches itself; the page must also match something outside it: each summary
+    // row's K against the demo bench's declared truth (recipes/benches/sim-demo.toml: K =
+    // tx_delay_ps 1500 + rx_delay_ps [900, 1150, 1400]), within twice its 95 % half-width.
+    let doc = Html::parse_document(&first);
+    let rows = select(&doc, "#summary tbody tr");
+    assert_eq!(rows.len(), 3);
+    for row in rows {
+        let cells: Vec<String> = row
+            .select(&Selector::parse("td").expect("selector"))
+            .map(|c| text(&c))
+            .collect();
+        let number = |s: &str| -> f64 {
+            s.split_whitespace()
+                .next()
+                .unwrap_or("")
+                .parse()
+                .unwrap_or(f64::NAN)
+        };
+        let nums: Vec<f64> = cells.iter().map(|c| number(c)).collect();
+        // Columns: channel, gain state, K, ± 95 %, …
+        let gain = nums[1] as usize;
+        let truth_ps = 1500.0 + [900.0, 1150.0, 1400.0][gain];
+        assert!(
+            (nums[2] - truth_ps).abs() <= 2.0 * nums[3],
+            "{cells:?} vs {truth_ps}"
+        );
+    }
 }
 
 #[test]
@@ -298,7 +325,10 @@ fn the_demo_report_renders_in_a_headless_browser_when_one_is_installed() {
                 .is_ok_and(|o| o.status.success())
         })
     else {
-        eprintln!("skipped: no headless browser installed");
+        skip_without(
+            "chromium",
+            "the_demo_report_renders_in_a_headless_browser_when_one_is_installed",
+        );
         return;
     };
     let out = demo_run();

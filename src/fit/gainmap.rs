@@ -1,11 +1,15 @@
 //! The gain-state map: from exchanges taken while sweeping attenuation up and then down, each
 //! DUT gain state's plateau and the AGC's switch points, hysteresis included.
 //!
-//! A switch point is where half of the exchanges report the higher gain index. It is found per
-//! sweep direction by interpolating that share between neighbouring points, so it resolves finer
-//! than the sweep step. With hysteresis the AGC switches later in each direction; the midpoint of
-//! the two directions estimates the threshold, their difference the hysteresis.
+//! Two kinds of switch point are kept. Where this run *saw* the state change is where half of a
+//! point's exchanges report the higher gain index, interpolated between neighbouring points per
+//! sweep direction; it bounds the plateaus, since that is where the state held. Where the AGC
+//! *switches* — its thresholds and their hysteresis, as a noiseless level would show them — is
+//! fitted from every exchange's step from the state before it ([`crate::fit::switch_point`]): with
+//! level noise the seen crossings move toward each other and read the hysteresis too narrow.
 
+use crate::fit::level_spread::{pooled_noise_db, LevelSpread};
+use crate::fit::switch_point::{fit_switch, SwitchFit, Trials};
 use std::collections::{BTreeMap, BTreeSet};
 
 /// Direction of a mapping pass.
@@ -26,6 +30,25 @@ pub struct MapPoint {
     pub atten_db: f64,
     /// Usable exchanges per reported DUT gain index.
     pub ok_by_gain: BTreeMap<u32, u64>,
+    /// Usable exchanges that directly followed a usable one, per (state before, state reported):
+    /// how often the AGC stepped, counted at the attenuation of the step.
+    pub steps: BTreeMap<(u32, u32), u64>,
+    /// The DUT's reported receive levels at this point.
+    pub rssi: LevelSpread,
+}
+
+/// Counts one exchange's step into `steps`. `last` is the gain state the previous exchange
+/// reported (`None` after an exchange that reported none, or at a stage's start: the step is
+/// then unknown and not counted); it is updated to `gain`.
+pub fn count_step(
+    last: &mut Option<u32>,
+    gain: Option<u32>,
+    steps: &mut BTreeMap<(u32, u32), u64>,
+) {
+    if let (Some(from), Some(to)) = (*last, gain) {
+        *steps.entry((from, to)).or_insert(0) += 1;
+    }
+    *last = gain;
 }
 
 /// Where the AGC moves between two neighbouring gain states.
@@ -35,25 +58,13 @@ pub struct Switch {
     pub below: u32,
     /// The higher gain index.
     pub above: u32,
-    /// Attenuation at which half the exchanges report `above`, attenuation rising.
+    /// Attenuation at which half of this run's exchanges were seen to report `above`,
+    /// attenuation rising (biased by level noise: see the module's notes).
     pub rising_db: Option<f64>,
     /// The same, attenuation falling.
     pub falling_db: Option<f64>,
-}
-
-impl Switch {
-    /// Best estimate of the switch attenuation: the midpoint of both directions where both exist.
-    pub fn center_db(&self) -> Option<f64> {
-        match (self.rising_db, self.falling_db) {
-            (Some(r), Some(f)) => Some((r + f) / 2.0),
-            (r, f) => r.or(f),
-        }
-    }
-
-    /// Hysteresis width in dB, when both directions were mapped.
-    pub fn hysteresis_db(&self) -> Option<f64> {
-        Some(self.rising_db? - self.falling_db?)
-    }
+    /// The AGC's switch points and hysteresis, fitted from the steps, with intervals.
+    pub fit: Option<SwitchFit>,
 }
 
 /// One gain state's plateau: the attenuations where it holds whichever way the sweep came.
@@ -104,6 +115,8 @@ pub fn analyse(points: &[MapPoint]) -> GainMap {
     };
     let states: BTreeSet<u32> = points.iter().filter_map(majority).collect();
     let states: Vec<u32> = states.into_iter().collect();
+    let spreads: Vec<LevelSpread> = points.iter().map(|p| p.rssi).collect();
+    let noise_db = pooled_noise_db(&spreads);
     let switches: Vec<Switch> = states
         .windows(2)
         .map(|w| Switch {
@@ -111,6 +124,7 @@ pub fn analyse(points: &[MapPoint]) -> GainMap {
             above: w[1],
             rising_db: crossing(points, Pass::Rising, w[0]),
             falling_db: crossing(points, Pass::Falling, w[0]),
+            fit: fit_between(points, w[0], w[1], noise_db),
         })
         .collect();
     let mut plateaus = Vec::with_capacity(states.len());
@@ -147,6 +161,34 @@ pub fn analyse(points: &[MapPoint]) -> GainMap {
     GainMap { plateaus, switches }
 }
 
+/// Fits the switch points between `below` and `above` from every point's steps out of each.
+fn fit_between(
+    points: &[MapPoint],
+    below: u32,
+    above: u32,
+    noise_db: Option<f64>,
+) -> Option<SwitchFit> {
+    let trials = |from: u32, leaves: &dyn Fn(u32) -> bool| -> Vec<Trials> {
+        points
+            .iter()
+            .map(|p| {
+                let out = p.steps.iter().filter(|((f, _), _)| *f == from);
+                let (n, switched) = out.fold((0, 0), |(n, s), ((_, to), c)| {
+                    (n + c, s + if leaves(*to) { *c } else { 0 })
+                });
+                Trials {
+                    atten_db: p.atten_db,
+                    n,
+                    switched,
+                }
+            })
+            .collect()
+    };
+    let up = trials(below, &|to| to > below);
+    let down = trials(above, &|to| to < above);
+    fit_switch(&up, &down, noise_db)
+}
+
 /// Attenuation where the share of exchanges above gain `below` first reaches one half, in one
 /// pass, interpolated linearly between neighbouring points.
 fn crossing(points: &[MapPoint], pass: Pass, below: u32) -> Option<f64> {
@@ -169,13 +211,32 @@ fn crossing(points: &[MapPoint], pass: Pass, below: u32) -> Option<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::fit::switch_point::Method;
 
     fn point(pass: Pass, atten_db: f64, counts: &[(u32, u64)]) -> MapPoint {
         MapPoint {
             pass,
             atten_db,
             ok_by_gain: counts.iter().copied().collect(),
+            steps: BTreeMap::new(),
+            rssi: LevelSpread::default(),
         }
+    }
+
+    /// Points from a sequence of (pass, attenuation, states reported there in order), steps
+    /// counted across points as the runner counts them.
+    fn points_from(seq: &[(Pass, f64, Vec<u32>)]) -> Vec<MapPoint> {
+        let mut last = None;
+        seq.iter()
+            .map(|(pass, atten_db, states)| {
+                let mut p = point(*pass, *atten_db, &[]);
+                for &g in states {
+                    *p.ok_by_gain.entry(g).or_insert(0) += 1;
+                    count_step(&mut last, Some(g), &mut p.steps);
+                }
+                p
+            })
+            .collect()
     }
 
     /// An ideal AGC: thresholds at 30 and 50 dB of attenuation, each direction switching 1 dB
@@ -185,14 +246,15 @@ mod tests {
             let shift = if pass == Pass::Rising { 1.0 } else { -1.0 };
             u32::from(a > 30.0 + shift) + u32::from(a > 50.0 + shift)
         };
-        let mut pts = Vec::new();
+        let mut seq = Vec::new();
         for pass in [Pass::Rising, Pass::Falling] {
             for i in 0..=30 {
+                let i = if pass == Pass::Rising { i } else { 30 - i };
                 let a = 10.0 + 2.0 * f64::from(i) + 0.5;
-                pts.push(point(pass, a, &[(state(a, pass), 10)]));
+                seq.push((pass, a, vec![state(a, pass); 10]));
             }
         }
-        pts
+        points_from(&seq)
     }
 
     #[test]
@@ -204,8 +266,18 @@ mod tests {
         // the half-way interpolation lands at their midpoint, 31.5 dB (true switch 31 dB).
         assert_eq!(s.rising_db, Some(31.5));
         assert_eq!(s.falling_db, Some(29.5));
-        assert_eq!(s.center_db(), Some(30.5));
-        assert_eq!(s.hysteresis_db(), Some(2.0));
+        // No noise: the steps separate perfectly, so each switch point is only bracketed by the
+        // last exchange that stayed and the first that stepped, 2 dB apart.
+        let fit = s.fit.expect("fitted");
+        assert_eq!(fit.method, Method::Bracket);
+        let up = fit.up_db.expect("up");
+        let down = fit.down_db.expect("down");
+        assert_eq!((up.value_db, up.ci95_db), (31.5, 1.0));
+        assert_eq!((down.value_db, down.ci95_db), (29.5, 1.0));
+        let h = fit.hysteresis_db.expect("hysteresis");
+        assert_eq!((h.value_db, h.ci95_db), (2.0, 2.0));
+        // The bracket reaches zero: 2 dB steps cannot show 2 dB of hysteresis for certain.
+        assert_eq!(fit.resolved_hysteresis_db(), None);
         assert_eq!(map.plateaus.len(), 3);
         assert_eq!(map.plateaus[0].atten_min_db, 10.5);
         assert_eq!(map.plateaus[0].atten_max_db, 29.5);
@@ -226,7 +298,21 @@ mod tests {
         // Share above state 0 is 0.2 at 41 dB and 0.8 at 42 dB: half way at 41.5 dB.
         assert_eq!(map.switches[0].rising_db, Some(41.5));
         assert_eq!(map.switches[0].falling_db, None);
-        assert_eq!(map.switches[0].center_db(), Some(41.5));
+        // Counts alone carry no steps: nothing to fit.
+        assert_eq!(map.switches[0].fit, None);
+    }
+
+    #[test]
+    fn steps_are_counted_only_between_reported_states() {
+        let mut steps = BTreeMap::new();
+        let mut last = None;
+        for g in [Some(0), Some(0), Some(1), None, Some(1), Some(0)] {
+            count_step(&mut last, g, &mut steps);
+        }
+        // 0→0, 0→1, then the lost exchange breaks the chain, then 1→0.
+        let want: BTreeMap<(u32, u32), u64> = [((0, 0), 1), ((0, 1), 1), ((1, 0), 1)].into();
+        assert_eq!(steps, want);
+        assert_eq!(last, Some(0));
     }
 
     #[test]

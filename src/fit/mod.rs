@@ -6,12 +6,14 @@ pub mod deembed;
 pub mod drift;
 pub mod fitter;
 pub mod gainmap;
+pub mod level_spread;
 pub mod lsq;
 pub mod model;
 pub mod ota;
 pub mod pairs;
 pub mod rtt;
 pub mod stats;
+pub mod switch_point;
 pub mod verify;
 
 pub use cal_row::{CalRow, RowSource};

@@ -23,6 +23,7 @@
 use crate::fit::cal_row::{CalRow, RowSource};
 use crate::fit::lsq::{self, LsqError, LsqFit};
 use crate::fit::stats::t975;
+use statrs::distribution::{ChiSquared, ContinuousCDF};
 use std::collections::{BTreeMap, BTreeSet};
 use thiserror::Error;
 
@@ -91,10 +92,37 @@ pub enum ModelError {
         /// Why.
         source: Box<ModelError>,
     },
+    /// The best model does not describe the measured cells: its χ² is improbably large for
+    /// their own errors, so what it predicts for other states cannot be trusted.
+    #[error(
+        "the best model (order {order} in gain index) leaves χ² = {chi2:.1} on {dof} degrees of \
+         freedom (p = {p:.1e}): it does not describe the measured states, so its predictions \
+         cannot be trusted"
+    )]
+    Untrusted {
+        /// Polynomial order chosen.
+        order: usize,
+        /// Its χ².
+        chi2: f64,
+        /// Residual degrees of freedom.
+        dof: usize,
+        /// Probability of a χ² at least this large were the model right.
+        p: f64,
+    },
     /// The solver refused the problem.
     #[error("least squares: {0}")]
     Lsq(#[from] LsqError),
 }
+
+/// Fewest measured states a (center, bandwidth) group needs before unmeasured states are
+/// modelled. With three, AICc can only fit a constant (it needs n − k − 1 ≥ 1), which says K is
+/// the same in every state — the very thing a per-gain table exists to doubt; with four, a
+/// constant and a straight line compete and the loser's χ² is a check on the winner.
+pub const MIN_STATES_TO_MODEL: usize = 4;
+
+/// A model whose χ² has a smaller upper-tail probability than this does not describe its cells
+/// (a 1 % test: common practice for a goodness-of-fit check).
+pub const MIN_FIT_P: f64 = 0.01;
 
 /// How a model is chosen.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -166,6 +194,13 @@ impl GainModel {
         }
     }
 
+    /// Upper-tail probability of the chosen model's χ² on its residual degrees of freedom: how
+    /// likely a scatter this large would be if the model were right and the cells' errors
+    /// honest. `None` with no degrees of freedom left.
+    pub fn fit_p_value(&self) -> Option<f64> {
+        (self.fit.dof > 0).then(|| chi2_sf(self.fit.weighted_rss, self.fit.dof))
+    }
+
     /// Temperature coefficient shared by every gain state, ps/°C, with its standard error;
     /// `None` when the chosen model has no temperature term.
     pub fn drift_ps_per_c(&self) -> Option<(f64, f64)> {
@@ -185,6 +220,11 @@ impl GainModel {
                 .filter(|_| self.chosen.temperature),
         )
     }
+}
+
+/// Upper-tail probability of `chi2` on `dof` (> 0) degrees of freedom.
+fn chi2_sf(chi2: f64, dof: usize) -> f64 {
+    ChiSquared::new(dof as f64).map_or(0.0, |d| d.sf(chi2))
 }
 
 /// `[1, u, u², …, u^order]` then the temperature offset when given.
@@ -238,7 +278,7 @@ pub fn fit_gain_model(obs: &[Observation], options: ModelOptions) -> Result<Gain
     let w: Vec<f64> = obs.iter().map(|o| o.se_ps.powi(-2)).collect();
 
     let mut candidates = Vec::new();
-    let mut best: Option<(Candidate, LsqFit)> = None;
+    let mut fitted: Vec<(Candidate, LsqFit)> = Vec::new();
     for k in 1..=n {
         for temperature in [false, true] {
             if temperature && ref_temp_c.is_none() {
@@ -277,12 +317,22 @@ pub fn fit_gain_model(obs: &[Observation], options: ModelOptions) -> Result<Gain
                 aicc,
             };
             candidates.push(c);
-            if best.as_ref().is_none_or(|(b, _)| aicc < b.aicc) {
-                best = Some((c, fit));
-            }
+            fitted.push((c, fit));
         }
     }
-    let Some((chosen, fit)) = best else {
+    // The lowest AICc among the candidates that describe the cells (χ² check at MIN_FIT_P);
+    // when none does, the lowest AICc all the same, and `fit_p_value` tells. With few cells
+    // AICc's penalty can prefer a line that misses a clear curvature over the curve that
+    // fits; a model the data reject is no basis for prediction, however parsimonious.
+    let adequate = |f: &LsqFit| f.dof == 0 || chi2_sf(f.weighted_rss, f.dof) >= MIN_FIT_P;
+    let lowest = |only_adequate: bool| {
+        fitted
+            .iter()
+            .filter(|(_, f)| !only_adequate || adequate(f))
+            .min_by(|a, b| a.0.aicc.total_cmp(&b.0.aicc))
+            .cloned()
+    };
+    let Some((chosen, fit)) = lowest(true).or_else(|| lowest(false)) else {
         return Err(ModelError::TooFew { have: n, need: 3 });
     };
     let birge = if fit.dof > 0 {
@@ -383,6 +433,11 @@ fn row_se_ps(row: &CalRow) -> Result<f64, ModelError> {
 /// The table with a modelled row for every gain index in `wanted` that a (center, bandwidth)
 /// group did not measure, each group modelled from its own measured rows.
 ///
+/// A group with fewer than [`MIN_STATES_TO_MODEL`] measured states, or whose best model fails
+/// the χ² check ([`MIN_FIT_P`]), gets no modelled rows: the error says why, so the caller can
+/// tell the user which states stay unmeasured rather than give them a number that only looks
+/// like one.
+///
 /// Measured rows pass through unchanged; modelled rows in the input are dropped and, when
 /// wanted, modelled afresh. Modelled rows carry `n_used`, `n_rejected` and `n_bursts` of 0 and an
 /// `sd_ps` of NaN (no samples stand behind them). Output is sorted by center, bandwidth, gain.
@@ -423,7 +478,21 @@ pub fn fill_table(
                 })
             })
             .collect::<Result<Vec<_>, ModelError>>()?;
+        if obs.len() < MIN_STATES_TO_MODEL {
+            return Err(in_group(ModelError::TooFew {
+                have: obs.len(),
+                need: MIN_STATES_TO_MODEL,
+            }));
+        }
         let model = fit_gain_model(&obs, options).map_err(in_group)?;
+        if let Some(p) = model.fit_p_value().filter(|p| *p < MIN_FIT_P) {
+            return Err(in_group(ModelError::Untrusted {
+                order: model.chosen.order,
+                chi2: model.fit.weighted_rss,
+                dof: model.fit.dof,
+                p,
+            }));
+        }
         out.extend(missing.into_iter().map(|gain_index| {
             let p = model.predict(gain_index, None);
             CalRow {
@@ -609,7 +678,8 @@ mod tests {
         let nothing_missing =
             fill_table(&rows[..2], &[0, 1], ModelOptions::default()).expect("no model needed");
         assert_eq!(nothing_missing, rows[..2]);
-        let too_few = fill_table(&rows[..2], &[0, 1, 2], ModelOptions::default());
+        // Three measured states allow only a constant: no modelled row, and the reason.
+        let too_few = fill_table(&rows[..3], &[0, 1, 2, 3], ModelOptions::default());
         assert!(
             matches!(
                 too_few,
@@ -620,5 +690,35 @@ mod tests {
             ),
             "{too_few:?}"
         );
+        let Err(ModelError::Group { source, .. }) = too_few else {
+            unreachable!("matched above")
+        };
+        assert_eq!(*source, ModelError::TooFew { have: 3, need: 4 });
+    }
+
+    #[test]
+    fn a_model_that_does_not_fit_its_states_gives_no_rows() {
+        // Computed from the definition: K alternating 1000, 1100 over five states with 3 ps
+        // errors; no polynomial up to order 2 follows it (χ² in the thousands on 2–4 degrees of
+        // freedom), so the modelled state 5 is refused and the reason names the χ².
+        let ci = 3.0 * t975(3.0).expect("t");
+        let rows: Vec<CalRow> = (0..5)
+            .map(|g| row(g, 1000.0 + 100.0 * f64::from(g % 2), ci))
+            .collect();
+        let refused = fill_table(&rows, &[0, 1, 2, 3, 4, 5], ModelOptions::default());
+        let Err(ModelError::Group { source, .. }) = &refused else {
+            panic!("{refused:?}")
+        };
+        assert!(
+            matches!(**source, ModelError::Untrusted { p, .. } if p < MIN_FIT_P),
+            "{source:?}"
+        );
+        assert!(source.to_string().contains("cannot be trusted"), "{source}");
+        // The same states on a straight line pass the check and are modelled.
+        let line: Vec<CalRow> = (0..5)
+            .map(|g| row(g, 1000.0 + 100.0 * f64::from(g), ci))
+            .collect();
+        let filled = fill_table(&line, &[0, 1, 2, 3, 4, 5], ModelOptions::default());
+        assert_eq!(filled.map(|r| r.len()), Ok(6));
     }
 }

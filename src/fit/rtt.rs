@@ -124,7 +124,7 @@ mod tests {
 
     #[test]
     fn one_late_detection_does_not_tilt_the_rate_ratio() {
-        // 16 exchanges 1 ms apart at +20 ppm (IEEE 802.11 allows ±20 ppm per station, SOURCES §6);
+        // 16 exchanges 1 ms apart at +20 ppm (IEEE 802.11 allows ±20 ppm per station, tests/data/SOURCES.md §6);
         // the last t2 locks to a path 20 ns late. Plain least squares would be off by ~0.4 ppm
         // (a 26 ps error over a 60 µs turnaround); the refit removes the late point.
         let ratio_true = 1.000_02;
@@ -146,11 +146,11 @@ mod tests {
 
     #[test]
     fn range_per_ns_of_rtt() {
-        // SOURCES §8 (BIPM SI brochure, c exact): 1 ns of RTT = 0.149896229 m of range.
+        // tests/data/SOURCES.md §8 (BIPM SI brochure, c exact): 1 ns of RTT = 0.149896229 m of range.
         assert!((range_m_from_rtt_ps(1000.0) - 0.149_896_229).abs() < 1e-12);
     }
 
-    // SOURCES §7 worked check (computed, exact), in ps: r = 1.00004, t1 = 0, t2 = 10 000.4,
+    // tests/data/SOURCES.md §7 worked check (computed, exact), in ps: r = 1.00004, t1 = 0, t2 = 10 000.4,
     // t3 = 16 010 640.4, t4 = 16 020 000.
     const WORKED_R: f64 = 1.00004;
     const WORKED_RESPONDER_PS: f64 = 16_020_000.0;
@@ -158,21 +158,21 @@ mod tests {
 
     #[test]
     fn worked_example_naive_rtt_is_19_36_ns() {
-        // SOURCES §7: naive (t4 − t1) − (t3 − t2) = 19.36 ns.
+        // tests/data/SOURCES.md §7: naive (t4 − t1) − (t3 − t2) = 19.36 ns.
         let naive = corrected_rtt_ps(WORKED_RESPONDER_PS, WORKED_INITIATOR_PS, 1.0);
         assert!((naive - 19_360.0).abs() < 1e-6, "{naive}");
     }
 
     #[test]
     fn worked_example_corrected_rtt_is_20_ns() {
-        // SOURCES §7: dividing by r gives 20.000 ns exactly.
+        // tests/data/SOURCES.md §7: dividing by r gives 20.000 ns exactly.
         let corr = corrected_rtt_ps(WORKED_RESPONDER_PS, WORKED_INITIATOR_PS, WORKED_R);
         assert!((corr - 20_000.0).abs() < 1e-6, "{corr}");
     }
 
     #[test]
     fn worked_example_multiplying_gives_18_72_ns() {
-        // SOURCES §7: multiplying by r instead of dividing gives ≈ 18.72 ns (the pitfall).
+        // tests/data/SOURCES.md §7: multiplying by r instead of dividing gives ≈ 18.72 ns (the pitfall).
         let wrong = WORKED_RESPONDER_PS - WORKED_INITIATOR_PS * WORKED_R;
         assert!((wrong - 18_720.0).abs() < 0.5, "{wrong}");
         let right = corrected_rtt_ps(WORKED_RESPONDER_PS, WORKED_INITIATOR_PS, WORKED_R);
@@ -181,7 +181,7 @@ mod tests {
 
     #[test]
     fn worked_example_ratio_from_slope() {
-        // SOURCES §7: the initiator runs 40 ppm fast, so 100 µs of responder time is
+        // tests/data/SOURCES.md §7: the initiator runs 40 ppm fast, so 100 µs of responder time is
         // 100.004 µs of initiator time; the slope recovers r = 1.00004.
         let r = rate_ratio(&[(0, 0), (100_000_000, 100_004_000)]);
         assert!(r.is_some_and(|r| (r - WORKED_R).abs() < 1e-15), "{r:?}");

@@ -223,7 +223,7 @@ mod tests {
 
     #[test]
     fn one_pass_variance_would_fail_numacc4() {
-        // SOURCES §1: the one-pass Σx² − n·x̄² form fails NumAcc4 (certified sd 0.1); this shows
+        // tests/data/SOURCES.md §1: the one-pass Σx² − n·x̄² form fails NumAcc4 (certified sd 0.1); this shows
         // the NIST check above is sharp enough to catch it.
         let y = nist_univariate("nist-strd-univ-numacc4.dat");
         let n = y.len() as f64;
@@ -258,7 +258,7 @@ mod tests {
 
     #[test]
     fn t975_exact_closed_forms() {
-        // SOURCES §2 exact forms, p = 0.975: df 1 tan(π(p − ½)); df 2 (2p − 1)·√(2 / (4p(1 − p)));
+        // tests/data/SOURCES.md §2 exact forms, p = 0.975: df 1 tan(π(p − ½)); df 2 (2p − 1)·√(2 / (4p(1 − p)));
         // df ∞ the normal quantile 1.959963984540054 (from memory; also checked against df 1e9).
         let p: f64 = 0.975;
         let df1 = (std::f64::consts::PI * (p - 0.5)).tan();

@@ -163,7 +163,7 @@ mod tests {
 
     #[test]
     fn free_space_loss_matches_itu_r_p525_worked_values() {
-        // SOURCES §3 (ITU-R P.525, exact constant 32.4477832 dB; values computed):
+        // tests/data/SOURCES.md §3 (ITU-R P.525, exact constant 32.4477832 dB; values computed):
         // 2437 MHz: 40.1849 dB at 1 m, 60.1849 at 10 m; 5180 MHz: 46.7344 at 1 m, 56.2768 at 3 m;
         // 5500 MHz: 47.2550 at 1 m; 1 GHz over 1 km: 92.4478 dB.
         for (d, f, l) in [
@@ -210,7 +210,7 @@ mod tests {
         assert_eq!(rows[0].n, 3);
         assert!(rows[0].range_error_table_m.abs() < 1e-12);
         // Level 50 dB: medians 2655 ps against 2650 (table) and 2400 (single); c/2 per ps
-        // (SOURCES §8: 0.149896229 mm per ps of RTT).
+        // (tests/data/SOURCES.md §8: 0.149896229 mm per ps of RTT).
         assert!((rows[1].range_error_table_m - 5.0 * 0.149_896_229e-3).abs() < 1e-9);
         assert!((rows[1].range_error_single_m - 255.0 * 0.149_896_229e-3).abs() < 1e-9);
         assert!((rows[1].rx_power_dbm + 43.0).abs() < 1e-12);

@@ -243,6 +243,28 @@ fn summary(page: &mut String, data: &ReportData) {
     page.push_str("</section>\n");
 }
 
+/// The AGC hysteresis fitted per switch, as gainmap.csv states it: a number only where resolved.
+fn hysteresis_sentence(rows: &[super::GainMapRow]) -> String {
+    let parts: Vec<String> = rows
+        .iter()
+        .filter_map(|r| {
+            let next = r.next_gain_index?;
+            Some(match (r.hysteresis_db, r.hysteresis_ci95_db) {
+                (Some(h), Some(ci)) => format!("{} → {next}: {h:.2} ± {ci:.2} dB", r.gain_index),
+                _ => format!("{} → {next}: not resolved", r.gain_index),
+            })
+        })
+        .collect();
+    if parts.is_empty() {
+        return String::new();
+    }
+    format!(
+        " AGC hysteresis fitted from the switching (95 %; \"not resolved\" where the interval \
+         reaches zero): {}.",
+        parts.join("; ")
+    )
+}
+
 fn figure(
     page: &mut String,
     id: &str,
@@ -298,13 +320,17 @@ fn plots(page: &mut String, data: &ReportData) -> Result<(), ReportError> {
          among them) and triangles those beyond the axis, pinned to its edge. Verification exchanges are left out, as in the fit.",
         "No exchange could be de-embedded.",
     );
+    let gainmap_caption = format!(
+        "The gain state each exchange reported against the DUT's receive level over the whole run \
+         (dot size: share of that level's exchanges); shaded bands are the plateaus in gainmap.csv.{}",
+        hysteresis_sentence(&data.gainmap)
+    );
     figure(
         page,
         "plot-gainmap",
         "Gain map",
         gainmap_plot::svg(data)?,
-        "The gain state each exchange reported against the DUT's receive level over the whole run \
-         (dot size: share of that level's exchanges); shaded bands are the plateaus in gainmap.csv.",
+        &gainmap_caption,
         "No exchange reported a gain state.",
     );
     figure(

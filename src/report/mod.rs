@@ -80,6 +80,16 @@ pub struct GainMapRow {
     pub rx_power_min_dbm: f64,
     /// DUT receive level at the plateau's strong end.
     pub rx_power_max_dbm: f64,
+    /// The gain state the fitted switch columns lead to (absent in files written before they
+    /// were appended, and on the last state).
+    #[serde(default)]
+    pub next_gain_index: Option<u32>,
+    /// Fitted hysteresis of that switch, stated only when resolved (its interval above zero).
+    #[serde(default)]
+    pub hysteresis_db: Option<f64>,
+    /// Its 95 % half-width.
+    #[serde(default)]
+    pub hysteresis_ci95_db: Option<f64>,
 }
 
 /// One row of `verify.csv`.

@@ -10,6 +10,7 @@ use crate::bench::Bench;
 use crate::data::manifest::{write_atomic, SingleState};
 use crate::data::run_dir::files;
 use crate::fit::gainmap::GainMap;
+use crate::fit::switch_point::Estimate;
 use crate::fit::verify::{self, VerifyRow};
 use crate::fit::FitResult;
 use crate::recipe::{Channel, Plan, Stage};
@@ -94,26 +95,51 @@ fn write_file(path: &Path, bytes: &[u8]) -> Result<(), RunError> {
     write_atomic(path, bytes).map_err(|e| RunError::io(path, e))
 }
 
-/// `gainmap.csv`: each mapped state's plateau as attenuation and as DUT receive level.
+/// `gainmap.csv`: each mapped state's plateau as attenuation and as DUT receive level, then
+/// (appended columns, so older readers keep working) the fitted switch to the next state up:
+/// its attenuations rising and falling and the hysteresis, each with a 95 % half-width. The
+/// hysteresis is left empty unless its interval lies wholly above zero.
 fn gainmap_csv(bench: &Bench, maps: &BTreeMap<String, (Channel, GainMap)>) -> String {
-    let mut out =
-        String::from("center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm\n");
+    let mut out = String::from(
+        "center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm,\
+         next_gain_index,switch_rising_db,switch_rising_ci95_db,switch_falling_db,\
+         switch_falling_ci95_db,hysteresis_db,hysteresis_ci95_db,hysteresis_resolved\n",
+    );
+    let pair = |e: Option<Estimate>| {
+        e.map_or(",".to_string(), |e| {
+            format!("{:.2},{:.2}", e.value_db, e.ci95_db)
+        })
+    };
     for (channel, map) in maps.values() {
         for p in &map.plateaus {
+            let switch = map.switches.iter().find(|s| s.below == p.gain_index);
+            let fitted = switch.and_then(|s| s.fit);
+            let next = switch.map_or(String::new(), |s| s.above.to_string());
+            let resolved = fitted.and_then(|f| f.resolved_hysteresis_db());
+            let known = fitted.is_some_and(|f| f.hysteresis_db.is_some());
             out.push_str(&format!(
-                "{},{},{},{:.2},{:.2},{:.2},{:.2}\n",
+                "{},{},{},{:.2},{:.2},{:.2},{:.2},{next},{},{},{},{}\n",
                 channel.center_mhz,
                 channel.bw_mhz,
                 p.gain_index,
                 p.atten_min_db,
                 p.atten_max_db,
                 bench.dut_rx_dbm(p.atten_max_db),
-                bench.dut_rx_dbm(p.atten_min_db)
+                bench.dut_rx_dbm(p.atten_min_db),
+                pair(fitted.and_then(|f| f.up_db)),
+                pair(fitted.and_then(|f| f.down_db)),
+                pair(resolved),
+                if known {
+                    resolved.is_some().to_string()
+                } else {
+                    String::new()
+                },
             ));
         }
     }
     out
 }
+
 /// Verification rows and the single-state calibrations they compare against.
 fn verification(
     plan: &Plan,

@@ -8,7 +8,8 @@ use crate::bench::Bench;
 use crate::clock::BenchClock;
 use crate::data::manifest::{Counts, FaultTally};
 use crate::data::{Exchange, RecordSink, Taken, STATUS_OK};
-use crate::fit::gainmap::GainMap;
+use crate::fit::gainmap::{count_step, GainMap};
+use crate::fit::level_spread::LevelSpread;
 use crate::instrument::{
     AttenuatorHandle, BurstSpec, ChamberHandle, InstrumentError, RangingHandle,
 };
@@ -30,6 +31,11 @@ pub struct PointSummary {
     pub channel: Channel,
     /// Exchanges with status `ok` per DUT gain index.
     pub ok_by_gain: BTreeMap<u32, u64>,
+    /// The DUT's gain steps between consecutive usable exchanges, per (from, to), counted at
+    /// the point of the second (what a gain map fits switch points from).
+    pub steps: BTreeMap<(u32, u32), u64>,
+    /// The DUT's reported receive levels on usable exchanges.
+    pub rssi: LevelSpread,
     /// Exchanges that failed.
     pub failed: u64,
 }
@@ -60,6 +66,9 @@ pub struct Session {
     channel: Channel,
     atten_db: Option<f64>,
     next_burst: u32,
+    /// The DUT gain state the last exchange reported, while the chain of usable exchanges is
+    /// unbroken in this stage.
+    last_gain: Option<u32>,
     /// One entry per point visited, in order.
     pub points: Vec<PointSummary>,
     /// Running counts for the manifest.
@@ -110,6 +119,7 @@ impl Session {
             },
             atten_db: None,
             next_burst: 0,
+            last_gain: None,
             points: Vec::new(),
             counts: Counts::default(),
             results: BTreeMap::new(),
@@ -214,6 +224,7 @@ impl Session {
         self.stage = name.to_string();
         self.channel = channel;
         self.atten_db = None;
+        self.last_gain = None;
         Ok(())
     }
 
@@ -226,6 +237,7 @@ impl Session {
     pub fn set_channel(&mut self, channel: Channel) -> Result<(), RunError> {
         if self.channel != channel {
             self.channel = channel;
+            self.last_gain = None;
             if let Some(db) = self.atten_db {
                 self.new_point(db)?;
             }
@@ -273,6 +285,8 @@ impl Session {
             atten_db: db,
             channel: self.channel,
             ok_by_gain: BTreeMap::new(),
+            steps: BTreeMap::new(),
+            rssi: LevelSpread::default(),
             failed: 0,
         });
         self.atten_db = Some(db);
@@ -406,12 +420,17 @@ impl Session {
         self.counts.exchanges += rows.len() as u64;
         if let Some(summary) = self.points.last_mut() {
             for r in rows {
-                match (r.status == STATUS_OK, r.dut_gain) {
-                    (true, Some(g)) => {
+                let gain = r.dut_gain.filter(|_| r.status == STATUS_OK);
+                count_step(&mut self.last_gain, gain, &mut summary.steps);
+                match gain {
+                    Some(g) => {
                         *summary.ok_by_gain.entry(g).or_insert(0) += 1;
+                        if let Some(level) = r.dut_rssi_dbm {
+                            summary.rssi.push(level);
+                        }
                         self.counts.exchanges_ok += 1;
                     }
-                    _ => summary.failed += 1,
+                    None => summary.failed += 1,
                 }
             }
         }
@@ -454,6 +473,9 @@ impl Session {
             );
             self.wait_ms(wait_ms)?;
             if role == "dut" {
+                // A DUT brought back may come back in another gain state: the next exchange's
+                // step from the last one says nothing about the AGC's switching.
+                self.last_gain = None;
                 // Initialising is identifying again. Done after any DUT fault, not only a
                 // detected restart: a restart can hide behind a dropped connection or a
                 // timeout. If it fails, the next attempt says so.

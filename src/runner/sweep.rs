@@ -5,6 +5,7 @@ use super::{RunError, Session};
 use crate::data::Exchange;
 use crate::fit::gainmap::{self, MapPoint, Pass};
 use crate::fit::stats::t975;
+use crate::fit::switch_point::{Estimate, Method};
 use crate::fit::{fit, Deembed, FitOptions};
 use crate::recipe::{Adaptive, Points, Soak, Sweep, Verify};
 
@@ -157,30 +158,60 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
             },
             atten_db: p.atten_db,
             ok_by_gain: p.ok_by_gain.clone(),
+            steps: p.steps.clone(),
+            rssi: p.rssi,
         })
         .collect();
     let result = gainmap::analyse(&seen);
     for s in &result.switches {
-        let level = |a: Option<f64>| {
-            a.map_or("—".to_string(), |a| {
-                format!("{:.1} dBm", session.bench().dut_rx_dbm(a))
-            })
-        };
         tracing::info!(
-            "gain map `{}`: state {} → {} at {} falling signal, {} rising (hysteresis {})",
+            "gain map `{}`: state {} → {}: {}",
             map.name,
             s.below,
             s.above,
-            level(s.rising_db),
-            level(s.falling_db),
-            s.hysteresis_db()
-                .map_or("unknown".into(), |h| format!("{h:.1} dB")),
+            describe_switch(s, |a| session.bench().dut_rx_dbm(a))
         );
     }
     session
         .gain_maps
         .insert(map.name.clone(), (map.channel, result));
     Ok(())
+}
+
+/// A switch's fitted points and hysteresis in words; a hysteresis whose interval reaches zero is
+/// said to be not resolved, never given as a number.
+fn describe_switch(s: &gainmap::Switch, rx_dbm: impl Fn(f64) -> f64) -> String {
+    let Some(fit) = &s.fit else {
+        return "no step between them was seen, so no switch point was fitted".into();
+    };
+    let point = |e: Option<Estimate>, way: &str| {
+        e.map_or(format!("no switch seen with attenuation {way}"), |e| {
+            format!(
+                "{:.2} ± {:.2} dB attenuation {way} ({:.1} dBm)",
+                e.value_db,
+                e.ci95_db,
+                rx_dbm(e.value_db)
+            )
+        })
+    };
+    let hysteresis = match (fit.resolved_hysteresis_db(), fit.hysteresis_db) {
+        (Some(h), _) => format!("hysteresis {:.2} ± {:.2} dB", h.value_db, h.ci95_db),
+        (None, Some(h)) => format!(
+            "hysteresis not resolved (95 % interval {:.2} to {:.2} dB reaches zero)",
+            h.low_db(),
+            h.high_db()
+        ),
+        (None, None) => "hysteresis unknown (one direction never switched)".into(),
+    };
+    let how = match fit.method {
+        Method::Probit => "95 % intervals",
+        Method::Bracket => "no level noise seen: brackets between sweep points",
+    };
+    format!(
+        "AGC switches at {}, back at {}; {hysteresis} ({how})",
+        point(fit.up_db, "rising"),
+        point(fit.down_db, "falling")
+    )
 }
 
 /// Runs a verification stage: fresh exchanges at each level, kept out of the table's fit.

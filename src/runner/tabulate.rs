@@ -84,7 +84,10 @@ fn fit_file_split_from(
         let wanted: Vec<u32> = (0..n).collect();
         match fill_table(&fit.rows, &wanted, ModelOptions::default()) {
             Ok(rows) => fit.rows = rows,
-            Err(e) => tracing::warn!("unmeasured gain states not modelled: {e}"),
+            Err(e) => tracing::warn!(
+                "unmeasured gain states left out of the table, not modelled: {e}. Measure them, \
+                 or more states, so that a model can be chosen and checked"
+            ),
         }
     }
     let fallback = 1.0 + fit.summary.median_clock_offset_ppm.unwrap_or(0.0) * 1e-6;

@@ -1,7 +1,7 @@
 //! A unit's timestamp counter: 48-bit picosecond counts on a clock with a frequency offset.
 //!
 //! FTM time-of-departure and time-of-arrival fields are 6-octet counts of picoseconds, so they
-//! wrap every 2^48 ps ≈ 281.5 s (IEEE 802.11-2016 FTM frame format, SOURCES §6). Bench time can
+//! wrap every 2^48 ps ≈ 281.5 s (IEEE 802.11-2016 FTM frame format, tests/data/SOURCES.md §6). Bench time can
 //! reach 2.9e16 ps in an overnight run, beyond the 2^53 where f64 stops holding every integer, so
 //! an instant is an integer part plus a small f64 offset and this module never turns the integer
 //! part into f64 except to multiply it by the (tiny) frequency offset.
@@ -59,7 +59,7 @@ mod tests {
     #[test]
     fn wraps_every_two_to_the_48_picoseconds() {
         // IEEE 802.11 FTM TOD/TOA: 48-bit picosecond counts, period 281.474976710656 s
-        // (SOURCES §6).
+        // (tests/data/SOURCES.md §6).
         assert_eq!(COUNTER_MODULUS, 281_474_976_710_656);
         let c = Counter48::new(COUNTER_MODULUS - 10, 0.0);
         assert_eq!(c.read_ps(0, 0.0), COUNTER_MODULUS - 10);
@@ -82,7 +82,7 @@ mod tests {
 
     #[test]
     fn fast_clock_gains_ppm_of_elapsed_time() {
-        // SOURCES §7 worked example: initiator 40 ppm fast; 16 000 ns of bench time reads
+        // tests/data/SOURCES.md §7 worked example: initiator 40 ppm fast; 16 000 ns of bench time reads
         // 16 000.64 ns on it (t3 − t2 = 16010.6404 − 10.0004 ns).
         let c = Counter48::new(0, 40.0);
         assert_eq!(c.read_ps(0, 10_000.0), 10_000);

@@ -487,7 +487,7 @@ mod tests {
     }
 
     /// Least-squares slope of t2 against t1 over a burst: the initiator/responder rate ratio
-    /// (SOURCES §7, the 802.1AS neighbour-rate-ratio idea).
+    /// (tests/data/SOURCES.md §7, the 802.1AS neighbour-rate-ratio idea).
     fn rate_ratio(xs: &[&DeviceExchange]) -> f64 {
         let [t1_0, t2_0, _, _] = stamps(xs[0]);
         let pts: Vec<(f64, f64)> = xs
@@ -514,7 +514,7 @@ mod tests {
         (wrapped_diff_ps(t4, t1) - wrapped_diff_ps(t3, t2)) as f64
     }
 
-    /// (t4 − t1) − (t3 − t2)/r: the initiator's interval in the responder's timebase (SOURCES §7:
+    /// (t4 − t1) − (t3 − t2)/r: the initiator's interval in the responder's timebase (tests/data/SOURCES.md §7:
     /// divide, not multiply).
     fn corrected_rtt_ps(x: &DeviceExchange, ratio: f64) -> f64 {
         let [t1, t2, t3, t4] = stamps(x);
@@ -582,7 +582,7 @@ mod tests {
 
     #[test]
     fn uncorrected_rtt_is_off_by_turnaround_times_ppm() {
-        // SOURCES §7: the naive RTT errs by −turnaround·e; here turnaround = 44 µs frame + 16 µs
+        // tests/data/SOURCES.md §7: the naive RTT errs by −turnaround·e; here turnaround = 44 µs frame + 16 µs
         // SIFS (IEEE 802.11 OFDM SIFS) = 60 µs, e = ±25 ppm, so ∓1500 ps.
         for ppm in [-25.0, 25.0] {
             let mut truth = noise_free();
@@ -605,7 +605,7 @@ mod tests {
 
     #[test]
     fn random_counter_starts_wrap_within_a_long_run() {
-        // 48-bit counters wrap every 281.47 s (SOURCES §6); an hour of bursts must see wraps.
+        // 48-bit counters wrap every 281.47 s (tests/data/SOURCES.md §6); an hour of bursts must see wraps.
         let mut sim = bench(&noise_free(), 3);
         sim.set_atten_db(30.0);
         let short = BurstRequest {
@@ -762,7 +762,7 @@ mod tests {
 
     #[test]
     fn rtt_spread_follows_the_cramer_rao_bound() {
-        // SOURCES §9: sigma ∝ 1/sqrt(SNR); 16× less SNR (−12.04 dB) → 4× the spread. Jitter off
+        // tests/data/SOURCES.md §9: sigma ∝ 1/sqrt(SNR); 16× less SNR (−12.04 dB) → 4× the spread. Jitter off
         // and no processing gain so the bound dominates; both levels are in gain state 2.
         let mut truth = noise_free();
         truth.dut.processing_gain_db = 0.0;

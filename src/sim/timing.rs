@@ -3,7 +3,7 @@
 //!
 //! The error of one time of arrival is Gaussian with
 //! `sigma = sqrt(jitter² + crb²)`, where `crb` is the Cramér–Rao bound for delay estimation at the
-//! receiver's effective SNR (SOURCES §9): the floor that a real estimator approaches at high SNR
+//! receiver's effective SNR (tests/data/SOURCES.md §9): the floor that a real estimator approaches at high SNR
 //! is the fixed `jitter`, and below it the bound grows as SNR falls. Now and then detection locks
 //! to a late path and lands at least one sample period late. Near sensitivity frames are lost.
 //! This module holds the formulas and draws; it keeps no state, so the caller owns the random
@@ -84,13 +84,13 @@ pub fn noise_floor_dbm(bw_hz: f64, noise_figure_db: f64) -> f64 {
     THERMAL_NOISE_DBM_PER_HZ + 10.0 * bw_hz.log10() + noise_figure_db
 }
 
-/// RMS bandwidth of a flat spectrum `bw_hz` wide: `B / sqrt(12)` (SOURCES §9).
+/// RMS bandwidth of a flat spectrum `bw_hz` wide: `B / sqrt(12)` (tests/data/SOURCES.md §9).
 pub fn rms_bandwidth_hz(bw_hz: f64) -> f64 {
     bw_hz / 12f64.sqrt()
 }
 
 /// Cramér–Rao bound on the 1-sigma delay error at effective SNR `snr_eff_db`:
-/// `1 / (2π·β·sqrt(2·SNR))` with β the flat-spectrum RMS bandwidth (SOURCES §9).
+/// `1 / (2π·β·sqrt(2·SNR))` with β the flat-spectrum RMS bandwidth (tests/data/SOURCES.md §9).
 pub fn crb_sigma_ps(snr_eff_db: f64, bw_hz: f64) -> f64 {
     let snr_linear = 10f64.powf(snr_eff_db / 10.0);
     let sigma_s =
@@ -144,7 +144,7 @@ mod tests {
 
     #[test]
     fn crb_matches_the_closed_form() {
-        // SOURCES §9: var ≥ 1/(8π²β²SNR), β = B/sqrt(12). At 80 MHz and 30 dB:
+        // tests/data/SOURCES.md §9: var ≥ 1/(8π²β²SNR), β = B/sqrt(12). At 80 MHz and 30 dB:
         // β = 23.094 MHz, sigma = 1/(2π·23.094e6·sqrt(2000)) = 154.1 ps (computed).
         let sigma = crb_sigma_ps(30.0, 80.0 * MHZ);
         let variance_s2 =
@@ -155,7 +155,7 @@ mod tests {
 
     #[test]
     fn quadrupling_snr_halves_the_crb() {
-        // SOURCES §9: sigma ∝ 1/sqrt(SNR); 4× SNR = +6.0206 dB.
+        // tests/data/SOURCES.md §9: sigma ∝ 1/sqrt(SNR); 4× SNR = +6.0206 dB.
         let four_times_db = 10.0 * 4f64.log10();
         for snr_db in [0.0, 12.0, 30.0] {
             let ratio =
@@ -166,7 +166,7 @@ mod tests {
 
     #[test]
     fn doubling_bandwidth_halves_the_crb() {
-        // SOURCES §9: sigma ∝ 1/β, β ∝ B, at the same SNR.
+        // tests/data/SOURCES.md §9: sigma ∝ 1/β, β ∝ B, at the same SNR.
         let ratio = crb_sigma_ps(20.0, 20.0 * MHZ) / crb_sigma_ps(20.0, 40.0 * MHZ);
         assert!((ratio - 2.0).abs() < 1e-12);
     }

@@ -166,3 +166,19 @@ pub fn assert_tables_agree(a: &str, b: &str) {
         );
     }
 }
+
+/// Says that a test is skipped because `tool` is missing, where `cargo test` shows it whether or
+/// not the test's own output is captured; under CI (`CI` set), where `.ci/run` installs the
+/// tool, a missing tool fails the test instead.
+pub fn skip_without(tool: &str, test: &str) {
+    use std::io::Write;
+    assert!(
+        std::env::var_os("CI").is_none(),
+        "{test}: {tool} is missing; CI installs it (.ci/run)"
+    );
+    // Written to the handle, not with eprintln!, which the test harness captures.
+    let _ = writeln!(
+        std::io::stderr(),
+        "SKIPPED {test}: {tool} is not installed (apt-get install {tool} to run it)"
+    );
+}
