@@ -5,7 +5,7 @@
 //! deserializing a fresh row per line.
 
 use super::plain_line::LineParser;
-use super::record_split::{Record, Split, Splitter, BLOCK};
+use super::record_split::{Record, Split, Splitter, TooLong, BLOCK};
 use super::row_batches::{set_label, Batches, Labels, RowSource};
 use super::Exchange;
 use std::fs::File;
@@ -169,10 +169,13 @@ struct RowReader<R> {
 impl<R: Read> RowReader<R> {
     /// Reads the header and finds the contract columns in it; `block` is the read size.
     fn new(reader: R, name: String, block: usize) -> Result<Self, ReadError> {
-        let header_error = |e: csv::Error| ReadError::Row {
-            path: name.clone(),
-            line: 1,
-            message: e.to_string(),
+        let header_error = |e: csv::Error| match TooLong::inside(&e) {
+            Some(_) => split_error(&name, &e),
+            None => ReadError::Row {
+                path: name.clone(),
+                line: 1,
+                message: e.to_string(),
+            },
         };
         let mut split = Splitter::new(reader, block).map_err(header_error)?;
         let headers = split.header().map_err(header_error)?;
@@ -229,6 +232,13 @@ impl<R: Read> RowSource<ReadError> for RowReader<R> {
 
 /// A record the csv crate could not read, as a read error of file `path`.
 fn split_error(path: &str, e: &csv::Error) -> ReadError {
+    if let Some(too_long) = TooLong::inside(e) {
+        return ReadError::Row {
+            path: path.to_string(),
+            line: too_long.line,
+            message: too_long.to_string(),
+        };
+    }
     ReadError::Row {
         path: path.to_string(),
         line: e.position().map_or(0, |p| p.line()),
