@@ -14,4 +14,5 @@ pub mod report;
 pub mod runner;
 pub mod script;
 pub mod sim;
+pub mod text_file;
 pub mod toml_input;

@@ -556,3 +556,33 @@ fn fit_of_a_file_without_the_contract_columns() {
         out.stderr
     );
 }
+
+#[cfg(unix)]
+#[test]
+fn endless_files_are_refused_by_their_bound() {
+    // `/dev/zero` as recipe, bench, script file and exchanges file: each read stops at its
+    // bound (1 MiB for text files, one 4096-byte line for exchanges) with an error.
+    let script = format!("{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"/dev/zero\"\n");
+    refused(&script, &[], "r.toml:21:8", "larger than 1 MiB");
+    refused(
+        GOOD,
+        &["--bench", "/dev/zero"],
+        "/dev/zero",
+        "larger than 1 MiB",
+    );
+    let recipe = Taucal::new().args(["check", "/dev/zero"]).run();
+    recipe.expect_code(2);
+    assert!(
+        recipe.stderr.contains("larger than 1 MiB"),
+        "{}",
+        recipe.stderr
+    );
+    let fit = Taucal::new().args(["fit", "/dev/zero"]).run();
+    fit.expect_code(2);
+    assert!(
+        fit.stderr
+            .contains("/dev/zero:1: the line is longer than 4096 bytes"),
+        "{}",
+        fit.stderr
+    );
+}

@@ -19,7 +19,7 @@ use std::path::{Path, PathBuf};
 
 /// Reads a recipe, applies `--set` overrides and validates it against `bench`.
 pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Diagnostic> {
-    let text = std::fs::read_to_string(path).map_err(|e| {
+    let text = crate::text_file::read(path).map_err(|e| {
         Diagnostic::in_file(path, format!("cannot read recipe: {e}"))
             .with_hint("give the path of a recipe TOML file, e.g. recipes/rx-gain-sweep.toml")
     })?;
