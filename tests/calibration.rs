@@ -279,6 +279,51 @@ fn an_overnight_soak_recovers_each_states_temperature_drift() {
 }
 
 #[test]
+fn min_gain_states_counts_measured_states_not_modelled_rows() {
+    // Three of the bench's four states are reached; the fourth gets a modelled row, which
+    // measures nothing: four states are not met, three are.
+    let recipe = r#"
+[recipe]
+name = "three-of-four"
+
+[vars]
+states = 3
+
+[fit]
+gain_states = 4
+
+[accept]
+min_gain_states = "$states"
+
+[[stage]]
+name = "cal"
+kind = "sweep"
+center_mhz = 5180
+bw_mhz = 80
+atten_db = [20.0, 26.0, 37.0, 43.0, 54.0, 60.0]
+bursts = 6
+frames = 16
+"#;
+    for (states, code) in [(3, 0), (4, 1)] {
+        let out = Taucal::new()
+            .file("r.toml", recipe)
+            .file("b.toml", &bench_with(FOUR_STATES))
+            .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
+            .args(["--set", &format!("states={states}")])
+            .run();
+        out.expect_code(code);
+        assert!(out.read("m/caltable.csv").contains(",modelled"));
+        let m: toml::Table = toml::from_str(&out.read("m/manifest.toml")).expect("manifest");
+        let checks = m["acceptance"].as_array().expect("acceptance checks");
+        let check = checks
+            .iter()
+            .find(|c| c["name"].as_str() == Some("min_gain_states"))
+            .expect("the check");
+        assert_eq!(check["value"].as_float(), Some(3.0), "{states}: {check:?}");
+    }
+}
+
+#[test]
 fn unmeasured_gain_states_get_modelled_rows() {
     let recipe = r#"
 [recipe]
