@@ -586,3 +586,19 @@ fn endless_files_are_refused_by_their_bound() {
         fit.stderr
     );
 }
+
+#[test]
+fn reject_mad_not_finite_or_too_small() {
+    let nan = format!("{GOOD}\n[fit]\nreject_mad = nan\n");
+    refused(&nan, &[], "r.toml:17:14", "is NaN, not a finite number");
+    let inf = format!("{GOOD}\n[fit]\nreject_mad = inf\n");
+    refused(&inf, &[], "r.toml:17:14", "is inf, not a finite number");
+    let small = format!("{GOOD}\n[fit]\nreject_mad = 1.5\n");
+    refused(&small, &[], "r.toml:17:14", "use 2.0 or more");
+    let two = format!("{GOOD}\n[fit]\nreject_mad = 2.0\n");
+    Taucal::new()
+        .file("r.toml", &two)
+        .args(["check", "r.toml"])
+        .run()
+        .expect_code(0);
+}

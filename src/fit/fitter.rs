@@ -102,6 +102,8 @@ pub struct FitSummary {
     /// Median over bursts with their own estimate of the clock offset `(ratio − 1)·1e6`, DUT
     /// (initiator) relative to the reference (responder); `None` when no burst gave one.
     pub median_clock_offset_ppm: Option<f64>,
+    /// The stages whose rows were given to the fitter, in the order they first appear.
+    pub stages: Vec<String>,
 }
 
 /// The calibration table and its summary.
@@ -370,6 +372,11 @@ impl Fitter {
         mine.rows_without_reference += theirs.rows_without_reference;
         mine.bursts += theirs.bursts;
         mine.bursts_fallback_ratio += theirs.bursts_fallback_ratio;
+        for stage in theirs.stages {
+            if !mine.stages.contains(&stage) {
+                mine.stages.push(stage);
+            }
+        }
         self.current_burst = later.current_burst;
         self.pending = later.pending;
     }
@@ -394,6 +401,9 @@ impl Fitter {
             });
         if !same_burst {
             self.close_burst();
+            if !self.summary.stages.contains(&x.stage) {
+                self.summary.stages.push(x.stage.clone());
+            }
             self.current_burst = Some((x.stage.clone(), x.point, x.burst));
         }
         let fields = (x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps, x.dut_gain);
