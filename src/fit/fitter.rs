@@ -790,6 +790,82 @@ mod tests {
     }
 
     #[test]
+    fn early_and_late_outliers_are_rejected_and_nothing_else() {
+        // Rejection is two-sided: exchanges detected 20 ns early (K low) go as surely as those
+        // 20 ns late. Each cell's count of rejected exchanges is the planted count, and its K
+        // is the noise-free truth: keeping one planted exchange, or dropping a clean one in its
+        // place, would move a cell's mean of 60 by 20 ns / 60 = 333 ps.
+        let (mut rows, _) = sweep(6, 10);
+        let mut planted = [0u64; 3];
+        for (i, row) in rows.iter_mut().enumerate() {
+            // Every row made again: the sweep's own late ones become clean.
+            let late_ps = match i % 23 {
+                5 => -20_000.0,
+                17 => 20_000.0,
+                _ => 0.0,
+            };
+            planted[row.point as usize] += u64::from(late_ps != 0.0);
+            let depart = (row.point * 6 + row.burst) as i64 * BURST_SPACING_PS
+                + row.seq as i64 * EXCHANGE_SPACING_PS;
+            *row = exchange(
+                row.point,
+                row.burst,
+                row.seq,
+                row.atten_db,
+                row.point,
+                depart,
+                late_ps,
+            );
+        }
+        let result = fit(deembed(), FitOptions::default(), &rows);
+        assert_eq!(result.rows.len(), 3);
+        for (gain, row) in result.rows.iter().enumerate() {
+            assert_eq!(row.n_rejected, planted[gain], "gain {gain}");
+            assert_eq!(row.n_used, 60 - planted[gain], "gain {gain}");
+            assert!(
+                (row.delay_ps - K_DUT_PS[gain]).abs() < 0.5,
+                "gain {gain}: {}",
+                row.delay_ps
+            );
+        }
+    }
+
+    #[test]
+    fn the_rejection_scale_is_the_normal_sd_of_a_mad() {
+        // Gaussian jitter of σ = 100 ps on K (clipped at 3σ), exchanges at ±4σ and gross ones
+        // at ±8σ. A cut of 5 scaled MADs (MAD × 1/Φ⁻¹(3/4) ≈ σ) keeps the ±4σ ones and rejects
+        // the gross ones alone; a cut of 5 raw MADs (≈ 3.4σ) would take the ±4σ ones too.
+        // Jitter from a seeded normal (rand_distr), over 20 seeds.
+        use rand::SeedableRng;
+        use rand_distr::Distribution;
+        let jitter = rand_distr::Normal::new(0.0, 100.0).expect("normal");
+        for seed in 0..20u64 {
+            let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+            let mut rows = Vec::new();
+            let mut gross = 0u64;
+            for burst in 0..20u32 {
+                for seq in 0..50u32 {
+                    let i = burst * 50 + seq;
+                    let sample: f64 = jitter.sample(&mut rng);
+                    let sign = if i % 2 == 0 { 1.0 } else { -1.0 };
+                    let late_ps = match i % 41 {
+                        3 => sign * 400.0,
+                        7 => {
+                            gross += 1;
+                            sign * 800.0
+                        }
+                        _ => sample.clamp(-300.0, 300.0),
+                    };
+                    let depart = burst as i64 * BURST_SPACING_PS + seq as i64 * EXCHANGE_SPACING_PS;
+                    rows.push(exchange(0, burst, seq, 0.0, 0, depart, late_ps));
+                }
+            }
+            let result = fit(deembed(), FitOptions::default(), &rows);
+            assert_eq!(result.rows[0].n_rejected, gross, "seed {seed}");
+        }
+    }
+
+    #[test]
     fn outliers_also_shift_the_naive_mean() {
         // Guards the test above: without rejection the 20 ns late detections move the mean.
         let (rows, _) = sweep(6, 10);
