@@ -563,7 +563,12 @@ fn endless_files_are_refused_by_their_bound() {
     // `/dev/zero` as recipe, bench, script file and exchanges file: each read stops at its
     // bound (1 MiB for text files, one 4096-byte line for exchanges) with an error.
     let script = format!("{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"/dev/zero\"\n");
-    refused(&script, &[], "r.toml:21:8", "larger than 1 MiB");
+    refused(
+        &script,
+        &[],
+        "r.toml line 21, column 8",
+        "larger than 1 MiB",
+    );
     refused(
         GOOD,
         &["--bench", "/dev/zero"],
@@ -590,11 +595,21 @@ fn endless_files_are_refused_by_their_bound() {
 #[test]
 fn reject_mad_not_finite_or_too_small() {
     let nan = format!("{GOOD}\n[fit]\nreject_mad = nan\n");
-    refused(&nan, &[], "r.toml:17:14", "is NaN, not a finite number");
+    refused(
+        &nan,
+        &[],
+        "r.toml line 17, column 14",
+        "is `nan`, not a finite number",
+    );
     let inf = format!("{GOOD}\n[fit]\nreject_mad = inf\n");
-    refused(&inf, &[], "r.toml:17:14", "is inf, not a finite number");
+    refused(
+        &inf,
+        &[],
+        "r.toml line 17, column 14",
+        "is `inf`, not a finite number",
+    );
     let small = format!("{GOOD}\n[fit]\nreject_mad = 1.5\n");
-    refused(&small, &[], "r.toml:17:14", "use 2.0 or more");
+    refused(&small, &[], "r.toml line 17, column 14", "use 2.0 or more");
     let two = format!("{GOOD}\n[fit]\nreject_mad = 2.0\n");
     Taucal::new()
         .file("r.toml", &two)

@@ -32,7 +32,7 @@ pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Di
 /// a run or check without `--bench`. Read ahead of the recipe proper, which is validated against
 /// the bench; a recipe that cannot be read or parsed gives `None` here and its error in [`load`].
 pub fn default_bench(path: &Path) -> Result<Option<PathBuf>, Diagnostic> {
-    let Ok(text) = std::fs::read_to_string(path) else {
+    let Ok(text) = crate::text_file::read(path) else {
         return Ok(None);
     };
     let Ok(doc) = text.parse::<toml::Table>() else {
