@@ -15,5 +15,6 @@ pub mod report;
 pub mod runner;
 pub mod script;
 pub mod sim;
+pub mod text_file;
 pub mod toml_input;
 pub mod wiring;

@@ -556,3 +556,64 @@ fn fit_of_a_file_without_the_contract_columns() {
         out.stderr
     );
 }
+
+#[cfg(unix)]
+#[test]
+fn endless_files_are_refused_by_their_bound() {
+    // `/dev/zero` as recipe, bench, script file and exchanges file: each read stops at its
+    // bound (1 MiB for text files, one 4096-byte line for exchanges) with an error.
+    let script = format!("{GOOD}\n[[stage]]\nname = \"s\"\nkind = \"script\"\ncenter_mhz = 5180\nbw_mhz = 80\nfile = \"/dev/zero\"\n");
+    refused(
+        &script,
+        &[],
+        "r.toml line 21, column 8",
+        "larger than 1 MiB",
+    );
+    refused(
+        GOOD,
+        &["--bench", "/dev/zero"],
+        "/dev/zero",
+        "larger than 1 MiB",
+    );
+    let recipe = Taucal::new().args(["check", "/dev/zero"]).run();
+    recipe.expect_code(2);
+    assert!(
+        recipe.stderr.contains("larger than 1 MiB"),
+        "{}",
+        recipe.stderr
+    );
+    let fit = Taucal::new().args(["fit", "/dev/zero"]).run();
+    fit.expect_code(2);
+    assert!(
+        fit.stderr
+            .contains("/dev/zero:1: the line is longer than 4096 bytes"),
+        "{}",
+        fit.stderr
+    );
+}
+
+#[test]
+fn reject_mad_not_finite_or_too_small() {
+    let nan = format!("{GOOD}\n[fit]\nreject_mad = nan\n");
+    refused(
+        &nan,
+        &[],
+        "r.toml line 17, column 14",
+        "is `nan`, not a finite number",
+    );
+    let inf = format!("{GOOD}\n[fit]\nreject_mad = inf\n");
+    refused(
+        &inf,
+        &[],
+        "r.toml line 17, column 14",
+        "is `inf`, not a finite number",
+    );
+    let small = format!("{GOOD}\n[fit]\nreject_mad = 1.5\n");
+    refused(&small, &[], "r.toml line 17, column 14", "use 2.0 or more");
+    let two = format!("{GOOD}\n[fit]\nreject_mad = 2.0\n");
+    Taucal::new()
+        .file("r.toml", &two)
+        .args(["check", "r.toml"])
+        .run()
+        .expect_code(0);
+}

@@ -353,22 +353,24 @@ fn three_measured_states_give_no_modelled_row_and_say_why() {
     );
 }
 
-#[test]
-fn a_modelled_state_among_five_measured_matches_the_simulators_truth() {
-    // Six states whose RX delay is a smooth ladder, 800 + 120 g + 10 g² ps (K = 1500 + that);
-    // the sweep skips state 3 (49–59 dB of attenuation on this bench), which the model fills.
-    // Enough bursts that the curvature shows above the cells' errors: a straight line then
-    // fails the χ² check and the curve is used.
-    let dut = "tx_delay_ps = 1500.0
+/// Six states whose RX delay is a smooth ladder, 800 + 120 g + 10 g² ps (K = 1500 + that).
+const SIX_STATES: &str = "tx_delay_ps = 1500.0
 rx_delay_ps = [800.0, 930.0, 1080.0, 1250.0, 1440.0, 1650.0]
 gain_thresholds_dbm = [-22.0, -32.0, -42.0, -52.0, -62.0]
 clock_ppm = 14.0
 jitter_ps = 300.0
 outlier_rate = 0.01";
-    let points = "[18.0, 22.0, 32.0, 36.0, 42.0, 46.0, 62.0, 66.0, 73.0, 78.0]";
+
+/// Points on the six-state bench that skip state 3 (49–59 dB of attenuation there).
+const SKIPPING_STATE_3: &str = "[18.0, 22.0, 32.0, 36.0, 42.0, 46.0, 62.0, 66.0, 73.0, 78.0]";
+
+#[test]
+fn a_modelled_state_among_five_measured_matches_the_simulators_truth() {
+    // The sweep skips state 3, which the model fills. Enough bursts that the curvature shows
+    // above the cells' errors: a straight line then fails the χ² check and the curve is used.
     let out = Taucal::new()
-        .file("r.toml", &sweep_recipe(6, points, 30))
-        .file("b.toml", &bench_with(dut))
+        .file("r.toml", &sweep_recipe(6, SKIPPING_STATE_3, 30))
+        .file("b.toml", &bench_with(SIX_STATES))
         .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
         .run();
     out.expect_code(0);
@@ -388,4 +390,31 @@ outlier_rate = 0.01";
         (k_ps - truth_ps).abs() <= 2.0 * ci95_ps && ci95_ps < 85.0,
         "{k_ps:.1} ± {ci95_ps:.1} ps vs {truth_ps}"
     );
+}
+
+#[test]
+fn min_gain_states_counts_measured_states_not_modelled_rows() {
+    // Five of the six states are measured and the sixth row is modelled, which measures
+    // nothing: five states are met, six are not.
+    let recipe = sweep_recipe(6, SKIPPING_STATE_3, 30).replace(
+        "[[stage]]",
+        "[vars]\nstates = 5\n\n[accept]\nmin_gain_states = \"$states\"\n\n[[stage]]",
+    );
+    for (states, code) in [(5, 0), (6, 1)] {
+        let out = Taucal::new()
+            .file("r.toml", &recipe)
+            .file("b.toml", &bench_with(SIX_STATES))
+            .args(["run", "r.toml", "--bench", "b.toml", "--out", "m"])
+            .args(["--set", &format!("states={states}")])
+            .run();
+        out.expect_code(code);
+        assert!(out.read("m/caltable.csv").contains(",modelled"));
+        let m: toml::Table = toml::from_str(&out.read("m/manifest.toml")).expect("manifest");
+        let checks = m["acceptance"].as_array().expect("acceptance checks");
+        let check = checks
+            .iter()
+            .find(|c| c["name"].as_str() == Some("min_gain_states"))
+            .expect("the check");
+        assert_eq!(check["value"].as_float(), Some(5.0), "{states}: {check:?}");
+    }
 }

@@ -81,3 +81,91 @@ fn fit_prints_the_table_to_stdout_without_out() {
         refit.stderr
     );
 }
+
+#[test]
+fn quiet_keeps_stderr_to_warnings_and_settings_name_their_source() {
+    // `--quiet`: only warnings and errors on stderr, for run, fit and export alike.
+    let run = Taucal::new()
+        .args(["run", &repo("recipes/rx-gain-sweep.toml"), "--out", "run"])
+        .args(["--quiet"])
+        .run();
+    run.expect_code(0);
+    assert_eq!(run.stderr, "", "run --quiet");
+    let original = run.read("run/caltable.csv");
+    let fit = Taucal::in_dir(run.dir)
+        .args(["fit", "run/exchanges.csv", "--out", "refit", "--quiet"])
+        .run();
+    fit.expect_code(0);
+    assert_eq!(fit.stderr, "", "fit --quiet");
+    let export = Taucal::in_dir(fit.dir)
+        .args([
+            "export", "run", "--format", "json", "--out", "k.json", "--quiet",
+        ])
+        .run();
+    export.expect_code(0);
+    assert_eq!(export.stderr, "", "export --quiet");
+    // The threshold in force is the one reported, with where it came from.
+    let two = Taucal::in_dir(export.dir)
+        .args(["fit", "run/exchanges.csv", "--reject-mad", "2"])
+        .run();
+    two.expect_code(0);
+    assert!(
+        two.stderr.contains("reject_mad 2 (--reject-mad); verification stages left out: verify (the run's manifest)"),
+        "{}",
+        two.stderr
+    );
+    for (k, words) in [
+        (
+            "1.99",
+            "--reject-mad 1.99 would reject much of a clean normal sample",
+        ),
+        ("inf", "--reject-mad inf is not a finite number"),
+        ("nan", "--reject-mad NaN is not a finite number"),
+    ] {
+        let out = Taucal::new()
+            .args(["fit", "x.csv", "--reject-mad", k])
+            .run();
+        out.expect_code(2);
+        assert!(out.stderr.contains(words), "{k}: {}", out.stderr);
+        assert!(
+            out.stderr.contains("use 2.0 or more"),
+            "{k}: {}",
+            out.stderr
+        );
+    }
+    // Without its manifest, the file's stages are all fitted, and the warning says which;
+    // naming the verification stage gives the run's table again.
+    std::fs::create_dir(two.path("alone")).expect("dir");
+    std::fs::copy(
+        two.path("run/exchanges.csv"),
+        two.path("alone/exchanges.csv"),
+    )
+    .expect("copy");
+    let alone = Taucal::in_dir(two.dir)
+        .args(["fit", "alone/exchanges.csv", "--quiet"])
+        .run();
+    alone.expect_code(0);
+    assert!(
+        alone
+            .stderr
+            .contains("no manifest.toml beside alone/exchanges.csv")
+            && alone
+                .stderr
+                .contains("every stage was fitted: map, calibrate, top-up, verify"),
+        "{}",
+        alone.stderr
+    );
+    assert_ne!(alone.stdout, original);
+    let named = Taucal::in_dir(alone.dir)
+        .args([
+            "fit",
+            "alone/exchanges.csv",
+            "--verify-stage",
+            "verify",
+            "--quiet",
+        ])
+        .run();
+    named.expect_code(0);
+    assert_eq!(named.stderr, "");
+    assert_eq!(named.stdout, original);
+}

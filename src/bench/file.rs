@@ -150,7 +150,7 @@ pub struct Bench {
 impl Bench {
     /// Reads and validates a bench file.
     pub fn load(path: &Path) -> Result<Bench, Diagnostic> {
-        let text = std::fs::read_to_string(path).map_err(|e| {
+        let text = crate::text_file::read(path).map_err(|e| {
             Diagnostic::in_file(path, format!("cannot read bench file: {e}"))
                 .with_hint("give the path of a bench TOML file, e.g. recipes/benches/sim-demo.toml")
         })?;

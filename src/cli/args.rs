@@ -173,6 +173,10 @@ pub struct FitArgs {
     /// beside the file, else 5.0).
     #[arg(long, value_name = "K")]
     pub reject_mad: Option<f64>,
+    /// A stage whose exchanges verify the table rather than fit it; repeat for more (default:
+    /// the verification stages the manifest beside the file names, else none).
+    #[arg(long, value_name = "STAGE")]
+    pub verify_stage: Vec<String>,
 }
 
 /// `taucal pairs`.

@@ -11,9 +11,9 @@ pub fn load(arg: &BenchArg) -> Result<Bench, Diagnostic> {
     match &arg.bench {
         Some(path) => Bench::load(path),
         None => {
-            eprintln!(
+            super::log::notice(&format!(
                 "taucal: no --bench given: using {BUILT_IN_LABEL} (same as recipes/benches/sim-demo.toml)"
-            );
+            ));
             Bench::built_in()
         }
     }

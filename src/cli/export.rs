@@ -1,7 +1,7 @@
 //! `taucal export`: a run's calibration table as a C header, JSON, TOML or CSV.
 
 use super::args::{ExportArgs, FormatArg};
-use super::Exit;
+use super::{log, Exit};
 use crate::data::manifest::{write_atomic, Manifest};
 use crate::data::run_dir::files;
 use crate::diagnostic::Diagnostic;
@@ -56,11 +56,11 @@ pub fn run(args: ExportArgs) -> Result<Exit, Diagnostic> {
         Some(path) => {
             write_atomic(path, text.as_bytes())
                 .map_err(|e| Diagnostic::plain(format!("cannot write {}: {e}", path.display())))?;
-            eprintln!(
+            log::notice(&format!(
                 "taucal: {} rows written to {}",
                 table.rows.len(),
                 path.display()
-            );
+            ));
         }
         None => print!("{text}"),
     }

@@ -4,10 +4,11 @@
 //! (rejection threshold, verification stages kept out of the fit), so the refit reproduces it.
 
 use super::args::FitArgs;
-use super::{bench_arg, table, Exit};
+use super::{bench_arg, log, table, Exit};
 use crate::data::run_dir::files;
 use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
+use crate::recipe::plan::{DEFAULT_REJECT_MAD, MIN_REJECT_MAD, REJECT_MAD_HINT};
 use crate::runner::tabulate::{self, FitSettings};
 
 /// Fits and prints (or writes) the table.
@@ -18,35 +19,54 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         .map(|d| d.join(files::MANIFEST))
         .filter(|p| p.is_file());
     let mut settings = FitSettings {
-        reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
+        reject_mad: DEFAULT_REJECT_MAD,
         verify_stages: Vec::new(),
         gain_states: None,
     };
-    if let Some(path) = manifest_path {
-        let m = Manifest::read(&path).map_err(|e| {
-            Diagnostic::in_file(&path, format!("cannot read the run's manifest: {e}"))
+    let mut from = "default";
+    if let Some(path) = &manifest_path {
+        let m = Manifest::read(path).map_err(|e| {
+            Diagnostic::in_file(path, format!("cannot read the run's manifest: {e}"))
         })?;
-        eprintln!(
-            "taucal: fit settings from {}: reject_mad {}, verification stages left out: {}",
-            path.display(),
-            m.fit.reject_mad,
-            if m.fit.verify_stages.is_empty() {
-                "none".to_string()
-            } else {
-                m.fit.verify_stages.join(", ")
-            }
-        );
         settings.reject_mad = m.fit.reject_mad;
         settings.verify_stages = m.fit.verify_stages;
         settings.gain_states = m.fit.gain_states;
+        from = "the run's manifest";
     }
+    let mut reject_from = from;
     if let Some(k) = args.reject_mad {
-        if !(k.is_finite() && k >= 2.0) {
-            return Err(Diagnostic::plain(format!("--reject-mad {k} is too small"))
-                .with_hint("use 3.0 or more (5.0 is the default)"));
+        if !k.is_finite() {
+            return Err(
+                Diagnostic::plain(format!("--reject-mad {k} is not a finite number"))
+                    .with_hint(REJECT_MAD_HINT),
+            );
+        }
+        if k < MIN_REJECT_MAD {
+            return Err(Diagnostic::plain(format!(
+                "--reject-mad {k} would reject much of a clean normal sample"
+            ))
+            .with_hint(REJECT_MAD_HINT));
         }
         settings.reject_mad = k;
+        reject_from = "--reject-mad";
     }
+    let mut stages_from = from;
+    if !args.verify_stage.is_empty() {
+        settings.verify_stages = args.verify_stage.clone();
+        stages_from = "--verify-stage";
+    }
+    if let Some(path) = &manifest_path {
+        log::notice(&format!("taucal: manifest {}", path.display()));
+    }
+    log::notice(&format!(
+        "taucal: fit settings: reject_mad {} ({reject_from}); verification stages left out: {} ({stages_from})",
+        settings.reject_mad,
+        if settings.verify_stages.is_empty() {
+            "none".to_string()
+        } else {
+            settings.verify_stages.join(", ")
+        }
+    ));
     let bench = bench_arg::load(&args.bench)?;
     let fit = tabulate::fit_file(&args.exchanges, &bench, &settings)
         .map_err(|e| {
@@ -57,15 +77,24 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         })?
         .fit;
     let s = &fit.summary;
+    if manifest_path.is_none() && args.verify_stage.is_empty() {
+        // Nothing in the rows says which stage verified: a stage name is only a name.
+        tracing::warn!(
+            "no manifest.toml beside {}: verification stages cannot be told from the others, \
+             so every stage was fitted: {}; name the ones that only verify with --verify-stage",
+            args.exchanges.display(),
+            s.stages.join(", ")
+        );
+    }
     let ppm = s
         .median_clock_offset_ppm
         .map_or_else(|| "unknown".to_string(), |p| format!("{p:+.2} ppm"));
-    eprintln!(
+    log::notice(&format!(
         "taucal: {} rows, {} usable, {} bursts; median DUT clock offset {ppm}",
         s.rows_pushed,
         s.rows_pushed - s.rows_unusable,
         s.bursts,
-    );
+    ));
     match &args.out {
         Some(dir) => {
             std::fs::create_dir_all(dir)
@@ -73,7 +102,7 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
             let path = dir.join(files::CALTABLE);
             tabulate::write_table(&path, &fit)
                 .map_err(|e| Diagnostic::plain(format!("cannot write {}: {e}", path.display())))?;
-            eprint!("{}", table::render(&fit.rows));
+            log::notice(&table::render(&fit.rows));
             println!("{}", path.display());
             if !fit.drift.is_empty() {
                 let drift = dir.join(files::DRIFT);

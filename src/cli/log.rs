@@ -8,6 +8,7 @@ use indicatif::ProgressBar;
 use std::fs::File;
 use std::io::{self, IsTerminal, Write};
 use std::path::Path;
+use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Mutex;
 use tracing_subscriber::filter::LevelFilter;
 use tracing_subscriber::fmt::MakeWriter;
@@ -50,6 +51,7 @@ pub fn colour() -> bool {
     io::stderr().is_terminal() && std::env::var_os("NO_COLOR").is_none_or(|v| v.is_empty())
 }
 
+static QUIET: AtomicBool = AtomicBool::new(false);
 static RUN_LOG: Mutex<Option<File>> = Mutex::new(None);
 static RUN_JSONL: Mutex<Option<File>> = Mutex::new(None);
 static PROGRESS: Mutex<Option<ProgressBar>> = Mutex::new(None);
@@ -107,6 +109,7 @@ impl<'a> MakeWriter<'a> for StderrWriter {
 
 /// Installs the subscriber: stderr at `verbosity`; debug and above to the run's log files.
 pub fn init(verbosity: Verbosity) {
+    QUIET.store(verbosity == Verbosity::Quiet, Ordering::Relaxed);
     let stderr = tracing_subscriber::fmt::layer()
         .with_writer(StderrWriter)
         .without_time()
@@ -126,6 +129,17 @@ pub fn init(verbosity: Verbosity) {
         .with(file)
         .with(json)
         .try_init();
+}
+
+/// Writes a command's notice (what it uses, where it wrote, what it found) to stderr, with a
+/// line end; nothing with `--quiet`, which keeps stderr to warnings and errors.
+pub fn notice(text: &str) {
+    if QUIET.load(Ordering::Relaxed) {
+        return;
+    }
+    let mut out = StderrWriter;
+    let end = if text.ends_with('\n') { "" } else { "\n" };
+    let _ = out.write_all(format!("{text}{end}").as_bytes());
 }
 
 /// Starts copying the log into `run.log` (text) and `run.jsonl` (JSON lines) in `dir`; a

@@ -2,7 +2,7 @@
 //! distances.
 
 use super::args::{OtaArgs, UnitArg};
-use super::{csv_file, Exit};
+use super::{csv_file, log, Exit};
 use crate::diagnostic::{did_you_mean, Diagnostic};
 use crate::fit::ota::{calibrate, plausible_truth_unit, read_ranges, OtaError, RangeUnit};
 
@@ -72,12 +72,12 @@ pub fn run(args: OtaArgs) -> Result<Exit, Diagnostic> {
         ),
         None => "none skipped".to_string(),
     };
-    eprintln!(
+    log::notice(&format!(
         "taucal: {} rows after the header (line {}), {} used, {skipped}",
         ranges.rows,
         ranges.header_line,
         pairs.len()
-    );
+    ));
     let cal = calibrate(&pairs, args.at, args.tolerance_m).map_err(|e| {
         let d = Diagnostic::in_file(&args.ranges, e.to_string());
         match &e {
@@ -96,10 +96,10 @@ pub fn run(args: OtaArgs) -> Result<Exit, Diagnostic> {
             OtaError::BadParameter { .. } => d,
         }
     })?;
-    eprintln!(
+    log::notice(&format!(
         "taucal: offset from {} ranges at {} m; subtract it from every measured range",
         cal.n_at, cal.at_true_m
-    );
+    ));
     println!("offset {:.4} m", cal.offset_m);
     println!("true_m,n,median_error_before_m,median_error_after_m,p90_abs_error_after_m");
     for r in &cal.rows {

@@ -1,7 +1,7 @@
 //! `taucal pairs`: unit delays from pairwise sums, when no unit is a golden reference.
 
 use super::args::PairsArgs;
-use super::{csv_file, Exit};
+use super::{csv_file, log, Exit};
 use crate::diagnostic::Diagnostic;
 use crate::fit::pairs::{read_pairs, solve_pairs, PairsError, PAIRS_COLUMNS};
 
@@ -25,13 +25,13 @@ pub fn run(args: PairsArgs) -> Result<Exit, Diagnostic> {
             _ => d,
         }
     })?;
-    eprintln!(
+    log::notice(&format!(
         "taucal: {} pairs, {} units, {} degrees of freedom, χ² {:.2}",
         pairs.len(),
         solution.units.len(),
         solution.dof,
         solution.chi2
-    );
+    ));
     println!("unit,delay_ps,se_ps");
     for u in &solution.units {
         println!("{},{:.3},{:.3}", csv_field(&u.unit), u.delay_ps, u.se_ps);

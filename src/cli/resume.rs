@@ -11,10 +11,10 @@ use crate::runner::{RunObserver, Unobserved};
 /// Prepares the interrupted run, replays it to its last checkpoint and carries on.
 pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
     let request = crate::runner::resume::prepare(&args.run_dir)?;
-    eprintln!(
+    log::notice(&format!(
         "taucal: {}",
         bench_arg::describe(&request.bench, request.seed)
-    );
+    ));
     let estimate = crate::runner::estimate::estimate(&request.plan, &request.bench);
     let observer: Box<dyn RunObserver> = match Progress::start(verbosity, &estimate) {
         Some(p) => Box::new(p),
@@ -24,7 +24,7 @@ pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, 
         request,
         |dir| {
             log::open_run_logs(dir, files::LOG, files::JSON_LOG, true);
-            eprintln!("taucal: resuming {}", dir.display());
+            log::notice(&format!("taucal: resuming {}", dir.display()));
         },
         observer,
     )?;

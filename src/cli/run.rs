@@ -21,7 +21,10 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
             crate::script::check(&s.source)?;
         }
     }
-    eprintln!("taucal: {}", bench_arg::describe(&bench, args.seed));
+    log::notice(&format!(
+        "taucal: {}",
+        bench_arg::describe(&bench, args.seed)
+    ));
     let estimate = crate::runner::estimate::estimate(&plan, &bench);
     let observer: Box<dyn crate::runner::RunObserver> = match Progress::start(verbosity, &estimate)
     {
@@ -41,7 +44,7 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         request,
         |dir| {
             log::open_run_logs(dir, files::LOG, files::JSON_LOG, false);
-            eprintln!("taucal: run directory {}", dir.display());
+            log::notice(&format!("taucal: run directory {}", dir.display()));
         },
         observer,
     )?;

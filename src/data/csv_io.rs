@@ -6,9 +6,9 @@
 
 use super::digits::{digits_value, short_decimal_prefix, ZEROS};
 use super::plain_line::LineParser;
-use super::record_split::{Record, Split, Splitter, BLOCK};
+use super::record_split::{Record, Split, Splitter, TooLong, BLOCK};
 use super::row_batches::{set_label, Batches, Labels, RowSource};
-use super::Exchange;
+use super::{Exchange, TIMESTAMP_END_PS};
 use std::fs::File;
 use std::io::{self, BufWriter, Read};
 use std::path::Path;
@@ -170,10 +170,13 @@ struct RowReader<R> {
 impl<R: Read> RowReader<R> {
     /// Reads the header and finds the contract columns in it; `block` is the read size.
     fn new(reader: R, name: String, block: usize) -> Result<Self, ReadError> {
-        let header_error = |e: csv::Error| ReadError::Row {
-            path: name.clone(),
-            line: 1,
-            message: e.to_string(),
+        let header_error = |e: csv::Error| match TooLong::inside(&e) {
+            Some(_) => split_error(&name, &e),
+            None => ReadError::Row {
+                path: name.clone(),
+                line: 1,
+                message: e.to_string(),
+            },
         };
         let mut split = Splitter::new(reader, block).map_err(header_error)?;
         let headers = split.header().map_err(header_error)?;
@@ -230,6 +233,13 @@ impl<R: Read> RowSource<ReadError> for RowReader<R> {
 
 /// A record the csv crate could not read, as a read error of file `path`.
 fn split_error(path: &str, e: &csv::Error) -> ReadError {
+    if let Some(too_long) = TooLong::inside(e) {
+        return ReadError::Row {
+            path: path.to_string(),
+            line: too_long.line,
+            message: too_long.to_string(),
+        };
+    }
     ReadError::Row {
         path: path.to_string(),
         line: e.position().map_or(0, |p| p.line()),
@@ -305,10 +315,10 @@ fn fill(
     row.atten_db = f(4).float()?;
     row.center_mhz = f(5).uint::<u32>()?;
     row.bw_mhz = f(6).uint::<u32>()?;
-    row.t1_ps = f(7).optional(Field::uint::<u64>)?;
-    row.t2_ps = f(8).optional(Field::uint::<u64>)?;
-    row.t3_ps = f(9).optional(Field::uint::<u64>)?;
-    row.t4_ps = f(10).optional(Field::uint::<u64>)?;
+    row.t1_ps = f(7).optional(Field::timestamp)?;
+    row.t2_ps = f(8).optional(Field::timestamp)?;
+    row.t3_ps = f(9).optional(Field::timestamp)?;
+    row.t4_ps = f(10).optional(Field::timestamp)?;
     row.dut_gain = f(11).optional(Field::uint::<u32>)?;
     row.dut_rssi_dbm = f(12).optional(Field::float)?;
     row.ref_gain = f(13).optional(Field::uint::<u32>)?;
@@ -370,6 +380,18 @@ impl Field<'_> {
             Some(digits) => T::from_hex(digits).map_err(|e| self.fail(e)),
             None => text.parse::<T>().map_err(|e| self.fail(e)),
         }
+    }
+
+    /// A 48-bit counter reading: an unsigned integer below 2^48.
+    fn timestamp(&self) -> Result<u64, FieldError> {
+        let value = self.uint::<u64>()?;
+        if value >= TIMESTAMP_END_PS {
+            return Err(self.fail(format!(
+                "timestamp {value} is beyond the 48-bit counter (at most {})",
+                TIMESTAMP_END_PS - 1
+            )));
+        }
+        Ok(value)
     }
 
     fn float(&self) -> Result<f64, FieldError> {
@@ -512,6 +534,28 @@ mod tests {
     }
 
     #[test]
+    fn a_timestamp_beyond_48_bits_is_refused_naming_line_and_column() {
+        // FTM counters are 48 bits (IEEE 802.11-2016, 6-octet TOD/TOA): 2^48 - 1 is the last
+        // reading, 2^48 none. Both paths: a plain line and one with a quote.
+        let header = EXCHANGES_HEADER.join(",");
+        for status in ["ok", "\"ok\""] {
+            let text = format!(
+                "{header}\nsweep,0,0,0,1,5180,80,281474976710655,2,3,4,0,-40,0,,ok\n\
+                 sweep,0,0,1,1,5180,80,1,2,3,281474976710656,0,-40,0,,{status}\n"
+            );
+            let mut it = read_from(text.as_bytes(), "e.csv".into()).expect("header");
+            let first = it.next().expect("a row").expect("the last reading");
+            assert_eq!(first.t1_ps, Some((1 << 48) - 1));
+            let err = it.next().expect("a row").unwrap_err().to_string();
+            assert_eq!(
+                err,
+                "e.csv:3: column 11: timestamp 281474976710656 is beyond the 48-bit counter \
+                 (at most 281474976710655)"
+            );
+        }
+    }
+
+    #[test]
     fn reads_every_value_as_serde_does() {
         // Odd but valid spellings (leading `+`, leading zeros, `0x`, exponents, extra and
         // reordered columns) must read exactly as serde's csv deserializer reads them.
@@ -519,7 +563,7 @@ mod tests {
                     bw_mhz,center_mhz,atten_db,seq,burst,point,stage\n\
                     a,ok,24.5,0,-61.25,2,4,3,0x10,+1,80,5180,17.25,0,1,2,sweep\n\
                     b,lost,,,,,,,,281474976710655,040,05180,1e1,7,0,0,sweep 2\n\
-                    c,ok,-1.5E-3,1,-40,0,18446744073709551615,3,2,1,20,5180,-0.0,3,4294967295,9,x\n";
+                    c,ok,-1.5E-3,1,-40,0,281474976710655,3,2,1,20,5180,-0.0,3,4294967295,9,x\n";
         let mut fast = read_from(text.as_bytes(), "e.csv".into()).expect("header");
         let mut rdr = csv::Reader::from_reader(text.as_bytes());
         for want in rdr.deserialize::<Exchange>() {
@@ -542,6 +586,10 @@ mod tests {
             ),
             ("sweep,0,0,0,1,5180,80,1,2,3,4,-1,-40,0,,ok", 12),
             ("sweep,0,0,0,1,5180,80,1,2,3,4,0,-40,0,warm,ok", 15),
+            (
+                "sweep,0,0,0,1,5180,80,1,2,281474976710656,4,0,-40,0,,ok",
+                10,
+            ),
         ] {
             let text = format!("{header}\n{row}\n");
             let mut it = read_from(text.as_bytes(), "e.csv".into()).expect("header");
@@ -625,14 +673,10 @@ mod tests {
         ],
     ];
     const TIMES: [&[&str]; 2] = [
+        &["", "85825865059008", "281474976710655", "1", "281474976710"],
         &[
-            "",
-            "85825865059008",
-            "281474976710655",
-            "1",
+            "281474976710656",
             "999999999999999",
-        ],
-        &[
             "1234567890123456",
             "12345678901234567",
             "18446744073709551615",

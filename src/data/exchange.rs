@@ -5,6 +5,10 @@
 
 use serde::{Deserialize, Serialize};
 
+/// One past the largest timestamp: FTM counters are 48 bits wide (IEEE 802.11-2016, the FTM
+/// frame's 6-octet TOD/TOA fields), so a larger value is no reading a device gave.
+pub const TIMESTAMP_END_PS: u64 = 1 << 48;
+
 /// Status label of an exchange that completed and reported all four timestamps.
 pub const STATUS_OK: &str = "ok";
 

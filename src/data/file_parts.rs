@@ -261,6 +261,16 @@ mod tests {
     }
 
     #[test]
+    fn a_file_of_cr_lines_reads_whole_as_its_lf_twin() {
+        // No LF, so no header end to split after: the file is read whole, every CR an LF.
+        let lf = file_text(40, 7);
+        let (_dir, lf_path) = written(&lf);
+        let (_dir2, cr_path) = written(&lf.replace('\n', "\r"));
+        assert!(split_at_bursts(&cr_path, 0, 4).is_none());
+        assert_eq!(whole(&cr_path), whole(&lf_path));
+    }
+
+    #[test]
     fn a_quote_before_a_cut_shows_once_its_part_is_read() {
         // The split itself cannot see it; the part's reader must.
         let text = file_text(40, 7).replacen(",ok\n", ",\"ok\"\n", 1);

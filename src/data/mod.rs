@@ -12,5 +12,5 @@ pub mod run_dir;
 pub mod run_lock;
 
 pub use csv_io::{read_exchanges, ExchangeWriter, ReadError, RecordSink, EXCHANGES_HEADER};
-pub use exchange::{DeviceExchange, Exchange, Taken, STATUS_OK};
+pub use exchange::{DeviceExchange, Exchange, Taken, STATUS_OK, TIMESTAMP_END_PS};
 pub use manifest::{Manifest, RunStatus};

@@ -8,7 +8,7 @@
 
 use super::digits::{digits_value, short_decimal_prefix, ZEROS};
 use super::record_split::{below_dash, word_at};
-use super::Exchange;
+use super::{Exchange, TIMESTAMP_END_PS};
 
 /// The high bit of every byte of a word.
 const HIGH_BITS: u64 = 0x8080_8080_8080_8080;
@@ -301,11 +301,11 @@ fn small(bytes: &[u8], at: usize, out: &mut u32) -> Option<usize> {
     (end > at).then_some(end)
 }
 
-/// 1 to 15 plain decimal digits.
+/// A timestamp: 1 to 15 plain decimal digits, below 2^48 (the field reader names the error).
 fn wide(bytes: &[u8], at: usize, out: &mut u64) -> Option<usize> {
     let (value, end) = digits(bytes, at)?;
     *out = value;
-    Some(end)
+    (value < TIMESTAMP_END_PS).then_some(end)
 }
 
 /// A field ends at a comma or a line end.
@@ -423,9 +423,24 @@ mod tests {
         }
 
         #[test]
-        fn a_timestamp_reads_as_the_standard_library_parses_it(text in "[0-9]{0,17}[,a.]?") {
+        fn digits_read_as_the_standard_library_parses_them(text in "[0-9]{0,17}[,a.]?") {
             // Reference: Rust's `str::parse::<u64>`, for one to fifteen digits.
-            reads_as_parse(&text, 15, wide)?;
+            reads_as_parse(&text, 15, |bytes, at, out| {
+                let (value, end) = digits(bytes, at)?;
+                *out = value;
+                Some(end)
+            })?;
+        }
+
+        #[test]
+        fn a_timestamp_is_read_below_2_48_and_declined_from_it(value in 0u64..(1 << 49)) {
+            // FTM counters are 48 bits (IEEE 802.11-2016, 6-octet TOD/TOA fields): the field
+            // reader names a larger value as an error.
+            let text = value.to_string();
+            let mut got = 0;
+            let end = wide(&padded(&text), 0, &mut got);
+            prop_assert_eq!(end, (value < (1 << 48)).then_some(text.len()));
+            prop_assert!(end.is_none() || got == value);
         }
     }
 }

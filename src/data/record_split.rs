@@ -9,7 +9,14 @@
 //! Anything else — a quote, a bare CR, a blank line, a wrong number of fields, a last line
 //! without its newline — is handed to the csv crate, positioned where the scan stopped, so such
 //! records, their errors and every position are the csv crate's own.
+//!
+//! Two things the csv crate would take without bound are refused here, with the line: a line
+//! longer than [`MAX_LINE_BYTES`] (a row is under 200 bytes; `/dev/zero` is one endless line)
+//! and a record running over more than [`MAX_RECORD_BYTES`] (a quote never closed). A file
+//! whose first line ends in a bare CR (classic Mac OS line endings) is read with every CR taken
+//! as a line end, at the speed of any other.
 
+use std::fmt;
 use std::io::{self, Read, Seek, SeekFrom};
 use std::ops::Range;
 
@@ -17,6 +24,59 @@ use std::ops::Range;
 /// and the parse (`read` alone took about three times as long over a 221 MB file in 256 KiB
 /// reads as in 64 KiB reads).
 pub(crate) const BLOCK: usize = 64 * 1024;
+
+/// The longest line read, not counting its LF: a row taucal writes is under 200 bytes, and a
+/// bound keeps a file without line ends from filling memory.
+pub const MAX_LINE_BYTES: usize = 4096;
+
+/// The most bytes the csv crate may read for one record, blank lines before it included: a
+/// quoted field may hold line ends, and one left open would otherwise take the rest of the file.
+pub const MAX_RECORD_BYTES: usize = 64 * 1024;
+
+/// A line or record beyond the bounds above, as the error the csv crate passes on from its
+/// reader.
+#[derive(Debug)]
+pub(crate) struct TooLong {
+    /// The 1-based line it was found on.
+    pub(crate) line: u64,
+    /// A record over several lines, rather than one line.
+    record: bool,
+}
+
+impl fmt::Display for TooLong {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        if self.record {
+            write!(
+                f,
+                "a record runs on past {} KiB, over several lines (a quote never closed?)",
+                MAX_RECORD_BYTES / 1024
+            )
+        } else {
+            write!(
+                f,
+                "the line is longer than {MAX_LINE_BYTES} bytes (an exchanges row is under 200): \
+                 not an exchanges file, or its line ends are missing"
+            )
+        }
+    }
+}
+
+impl std::error::Error for TooLong {}
+
+impl TooLong {
+    /// The error as the csv crate reports a reader's error.
+    fn csv_error(line: u64, record: bool) -> csv::Error {
+        csv::Error::from(io::Error::other(TooLong { line, record }))
+    }
+
+    /// The `TooLong` inside a csv crate error, if that is what it is.
+    pub(crate) fn inside(e: &csv::Error) -> Option<&TooLong> {
+        match e.kind() {
+            csv::ErrorKind::Io(io) => io.get_ref()?.downcast_ref(),
+            _ => None,
+        }
+    }
+}
 
 /// Slack after the data, so an eight-byte load at any byte up to the last newline stays in the
 /// buffer.
@@ -134,9 +194,11 @@ pub(crate) enum Split<'a> {
 impl<R: Read> Splitter<R> {
     /// Reads the header through the csv crate; `block` is how much to read at a time.
     pub(crate) fn new(reader: R, block: usize) -> csv::Result<Self> {
+        let mut window = Window::new(reader, block);
+        window.settle_endings()?;
         let mut csv = csv::ReaderBuilder::new()
             .has_headers(true)
-            .from_reader(Window::new(reader, block));
+            .from_reader(window);
         let fields = csv.byte_headers()?.len();
         let pos = csv.position().clone();
         Ok(Splitter {
@@ -172,22 +234,29 @@ impl<R: Read> Splitter<R> {
             return self.by_csv().map(|record| record.map(Split::Record));
         };
         let bytes = self.csv.get_ref().data_padded();
+        // Where the line ends and its LF, then where the next starts and on which line.
         let parsed = parse_line(bytes, start).and_then(|end| match bytes[end] {
-            b'\n' if end > start => Some((end + 1, line + 1)),
-            b'\r' if end > start && bytes[end + 1] == b'\n' => Some((end + 1, line)),
+            b'\n' if end > start => Some((end, end + 1, line + 1)),
+            b'\r' if end > start && bytes[end + 1] == b'\n' => Some((end + 1, end + 1, line)),
             _ => None,
         });
-        if let Some((at, line)) = parsed {
+        if let Some((lf, at, next_line)) = parsed {
+            self.refuse_long(start, lf, line)?;
             self.at = at;
-            self.line = line;
+            self.line = next_line;
             self.index += 1;
             return Ok(Some(Split::Parsed));
         }
         match self.scan(start, line) {
-            Scan::Plain { at, line } => {
+            Scan::Plain {
+                at,
+                line: next_line,
+            } => {
+                let lf = if next_line > line { at - 1 } else { at };
+                self.refuse_long(start, lf, line)?;
                 let record_line = self.line;
                 self.at = at;
-                self.line = line;
+                self.line = next_line;
                 self.index += 1;
                 Ok(Some(Split::Record(Record {
                     bytes: self.csv.get_ref().data_padded(),
@@ -197,6 +266,15 @@ impl<R: Read> Splitter<R> {
             }
             Scan::Unusual => self.by_csv().map(|record| record.map(Split::Record)),
         }
+    }
+
+    /// An error if the line from `start` to its LF at `lf` (on `line`) is too long.
+    fn refuse_long(&mut self, start: usize, lf: usize, line: u64) -> csv::Result<()> {
+        if lf - start > MAX_LINE_BYTES {
+            self.failed = true;
+            return Err(TooLong::csv_error(line, false));
+        }
+        Ok(())
     }
 
     /// Where the line after `at` starts, reading more of the file until the window holds all
@@ -217,6 +295,11 @@ impl<R: Read> Splitter<R> {
             }
             if start < limit {
                 return Ok(Some((start, line)));
+            }
+            // No LF from `start` on: the line is at least this long.
+            if window.len() - start > MAX_LINE_BYTES {
+                self.failed = true;
+                return Err(TooLong::csv_error(line, false));
             }
             if window.at_end() {
                 return Ok(None);
@@ -281,6 +364,7 @@ impl<R: Read> Splitter<R> {
         if self.failed {
             return Ok(None);
         }
+        self.csv.get_mut().begin_record(self.line);
         let mut pos = csv::Position::new();
         pos.set_byte(self.csv.get_ref().position_of(self.at))
             .set_line(self.line)
@@ -325,6 +409,13 @@ struct Window<R> {
     block: usize,
     /// The file has ended.
     eof: bool,
+    /// Every CR read is made an LF: the file's first line ends in a bare CR.
+    cr_lines: bool,
+    /// For the csv crate's reads: the line it reads on, the bytes of that line handed out so
+    /// far, and all bytes handed out since the record began.
+    line: u64,
+    run: usize,
+    handed: usize,
 }
 
 impl<R: Read> Window<R> {
@@ -338,7 +429,65 @@ impl<R: Read> Window<R> {
             cursor: 0,
             block: block.max(1),
             eof: false,
+            cr_lines: false,
+            line: 1,
+            run: 0,
+            handed: 0,
         }
+    }
+
+    /// Reads until the file's first line end shows whether lines end in a bare CR, and if so
+    /// makes every CR an LF from here on: the scan then takes such lines as plain ones. A CR
+    /// line end is a byte like an LF, so the file's offsets stay as they are.
+    fn settle_endings(&mut self) -> io::Result<()> {
+        let mut from = 0;
+        loop {
+            let data = &self.buf[..self.end];
+            match data[from..].iter().position(|&b| b == b'\r' || b == b'\n') {
+                Some(i) if data[from + i] == b'\n' => return Ok(()),
+                Some(i) if from + i + 1 < self.end => {
+                    if data[from + i + 1] != b'\n' {
+                        self.cr_lines = true;
+                        self.make_lines(0);
+                    }
+                    return Ok(());
+                }
+                // A CR last: the byte after it decides.
+                Some(i) => from += i,
+                None => from = self.end,
+            }
+            if self.eof || self.end > MAX_LINE_BYTES {
+                return Ok(());
+            }
+            self.fill()?;
+        }
+    }
+
+    /// With CR line ends, makes the CRs from `from` on LFs, and finds the last LF again.
+    fn make_lines(&mut self, from: usize) {
+        if !self.cr_lines {
+            return;
+        }
+        for b in &mut self.buf[from..self.end] {
+            if *b == b'\r' {
+                *b = b'\n';
+            }
+        }
+        if let Some(last) = self.buf[from..self.end].iter().rposition(|&b| b == b'\n') {
+            self.limit = from + last + 1;
+        }
+    }
+
+    /// The csv crate is to read a record from the line `line` on.
+    fn begin_record(&mut self, line: u64) {
+        self.line = line;
+        self.run = 0;
+        self.handed = 0;
+    }
+
+    /// Bytes in the window.
+    fn len(&self) -> usize {
+        self.end
     }
 
     /// The data and the padding after it.
@@ -396,25 +545,42 @@ impl<R: Read> Window<R> {
             self.limit = fresh.start + last + 1;
         }
         self.end = fresh.end;
+        self.make_lines(fresh.start);
         Ok(())
     }
 }
 
 /// The csv crate's view: bytes from the cursor to the end of its line (so each of its reads
-/// copies about one line), reading more of the file when the window runs out.
+/// copies about one line), reading more of the file when the window runs out; an error once a
+/// line or the record grows past its bound.
 impl<R: Read> Read for Window<R> {
     fn read(&mut self, out: &mut [u8]) -> io::Result<usize> {
         if self.cursor == self.end && !self.eof {
             self.fill()?;
         }
         let ahead = &self.buf[self.cursor..self.end];
-        let line = ahead
-            .iter()
-            .position(|&b| b == b'\n')
-            .map_or(ahead.len(), |lf| lf + 1);
+        let lf = ahead.iter().position(|&b| b == b'\n');
+        let line = lf.map_or(ahead.len(), |lf| lf + 1);
         let n = line.min(out.len());
+        let ends_line = lf.is_some_and(|lf| lf < n);
+        // The line's bytes before its LF: its length, or a bound below it.
+        let run = self.run + n - usize::from(ends_line);
+        self.handed += n;
+        if run > MAX_LINE_BYTES || self.handed > MAX_RECORD_BYTES {
+            let record = run <= MAX_LINE_BYTES;
+            return Err(io::Error::other(TooLong {
+                line: self.line,
+                record,
+            }));
+        }
         out[..n].copy_from_slice(&ahead[..n]);
         self.cursor += n;
+        if ends_line {
+            self.line += 1;
+            self.run = 0;
+        } else {
+            self.run = run;
+        }
         Ok(n)
     }
 }
@@ -574,6 +740,142 @@ mod tests {
             let got = splitter_reading(&text, block, step, whole);
             prop_assert!(agree(&got, &want), "{:?}\n{:?}\nvs\n{:?}", String::from_utf8_lossy(&text), got, want);
         }
+    }
+
+    /// Records as fields and the line each is named by.
+    type Lines = Vec<(Vec<Vec<u8>>, u64)>;
+
+    /// Every record's fields and line from `text` by the splitter (`whole`: a parser takes
+    /// every plain line), reading `block` bytes at a time, or the line a `TooLong` names.
+    fn split_all(text: &[u8], block: usize, whole: bool) -> Result<Lines, u64> {
+        let too_long = |e: csv::Error| TooLong::inside(&e).expect("too long").line;
+        let mut split =
+            Splitter::new(Trickle::new(text, 1 + block % 13), block).map_err(too_long)?;
+        split.header().map_err(too_long)?;
+        let mut records = Vec::new();
+        loop {
+            let mut taken = Vec::new();
+            let parse_line = |bytes: &[u8], from: usize| {
+                let end = from + bytes[from..].iter().position(|b| b"\"\r\n".contains(b))?;
+                (whole && bytes[end] != b'"').then(|| {
+                    taken = bytes[from..end]
+                        .split(|&b| b == b',')
+                        .map(<[u8]>::to_vec)
+                        .collect();
+                    end
+                })
+            };
+            let line = split.line;
+            match split.next_split(parse_line).map_err(too_long)? {
+                Some(Split::Parsed) => records.push((taken, line)),
+                Some(Split::Record(record)) => {
+                    let fields = (0..record.starts.len() - 1).map(|i| record.field(i).to_vec());
+                    records.push((fields.collect(), record.line()));
+                }
+                None => return Ok(records),
+            }
+        }
+    }
+
+    #[test]
+    fn a_line_past_the_bound_is_refused_with_its_line_wherever_blocks_end() {
+        // Known answer: line 5 holds MAX_LINE_BYTES + 1 bytes before its LF; lines of exactly
+        // MAX_LINE_BYTES are read. Plain, quoted (the csv crate's path) and last (no LF).
+        let fits = "y".repeat(MAX_LINE_BYTES - 2);
+        let long = "x".repeat(MAX_LINE_BYTES - 1);
+        let quoted_long = "x".repeat(MAX_LINE_BYTES - 3);
+        let head = format!("a,b\n1,2\n{fits},3\n\"{}\",4\n", &fits[2..]);
+        for (text, want) in [
+            (format!("{head}{long},5\n6,7\n"), Err(5)),
+            (format!("{head}\"{quoted_long}\",5\n6,7\n"), Err(5)),
+            (format!("{head}6,7\r\n{long},5\r\n6,7\r\n"), Err(6)),
+            (format!("{head}{long},5"), Err(5)),
+            (format!("{head}{fits},5"), Ok(4)),
+        ] {
+            for block in [1, 7, 64, 1000, MAX_LINE_BYTES, 5000, BLOCK] {
+                for whole in [false, true] {
+                    let got = split_all(text.as_bytes(), block, whole).map(|r| r.len());
+                    assert_eq!(got, want, "block {block}, whole {whole}: {}", &text[..40]);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn endless_input_is_refused_at_the_bound() {
+        // `/dev/zero` and a file without line ends: the header is one endless line; a quote
+        // left open runs a record on over every line after it.
+        for byte in [0, b'x'] {
+            let endless = io::repeat(byte).take(1 << 40);
+            let e = Splitter::new(endless, BLOCK).err().expect("too long");
+            let too_long = TooLong::inside(&e).expect("too long");
+            assert_eq!((too_long.line, too_long.record), (1, false));
+        }
+        let mut text = b"a,b\n1,\"2\n".to_vec();
+        text.extend(b"more\n".repeat(MAX_RECORD_BYTES / 5 + 1));
+        // Five bytes on line 2, five on each after: the record passes the bound on this line.
+        let line = 2 + (MAX_RECORD_BYTES - 5) / 5 + 1;
+        assert_eq!(
+            split_all(&text, BLOCK, true).map(|r| r.len()),
+            Err(line as u64)
+        );
+    }
+
+    #[test]
+    fn lines_ending_in_a_bare_cr_read_as_lines() {
+        // The csv crate's reading of the same file with LF line ends is the reference: fields
+        // and line numbers alike, every plain line taken by the parser.
+        let mut lf = String::from("a,b,c\n");
+        for i in 0..300 {
+            lf.push_str(&format!("{i},\"q{i}\",{}\n", i * 7));
+            lf.push_str(&format!("{i},p,{}\n", i * 3));
+        }
+        let cr = lf.replace('\n', "\r");
+        let (_, want) = csv_crate_reading(lf.as_bytes()).expect("read");
+        let want: Lines = want
+            .into_iter()
+            .map(|r| r.map(|(fields, line)| (fields, line.expect("a line"))))
+            .collect::<Result<_, _>>()
+            .expect("records");
+        assert_eq!(want.len(), 600);
+        for block in [1, 5, 64, BLOCK] {
+            for whole in [false, true] {
+                let got = split_all(cr.as_bytes(), block, whole).expect("read");
+                assert_eq!(got, want, "block {block}, whole {whole}");
+            }
+        }
+    }
+
+    #[test]
+    fn a_large_file_with_bare_cr_lines_is_read_line_by_line_in_a_bounded_window() {
+        // Linear by construction: every line goes through the plain path (each byte scanned a
+        // bounded number of times) and the window never holds more than a block and a line,
+        // so no step can rescan the rest of the file. Reading the CR file used to keep all of
+        // it in the window and rescan it for every record.
+        let line = "sweep,3,1,0,24.0,5180,20,85825865059008,235959969002250,0,1,0,-17.5,0,,ok\r";
+        let text = format!("a,b,c,d,e,f,g,h,i,j,k,l,m,n,o,p\r{}", line.repeat(40_000));
+        let mut split = Splitter::new(io::Cursor::new(text.into_bytes()), BLOCK).expect("open");
+        split.header().expect("header");
+        let mut lines = 0;
+        while let Some(got) = split
+            .next_split(|bytes, from| {
+                bytes[from..]
+                    .iter()
+                    .position(|&b| b == b'\n')
+                    .map(|n| from + n)
+            })
+            .expect("a line")
+        {
+            assert!(matches!(got, Split::Parsed));
+            lines += 1;
+        }
+        assert_eq!(lines, 40_000);
+        assert!(split.all_plain());
+        let window = split.csv.get_ref().data_padded().len();
+        assert!(
+            window <= 2 * BLOCK + MAX_LINE_BYTES,
+            "window {window} bytes"
+        );
     }
 
     #[test]

@@ -59,6 +59,8 @@ pub struct FitSummary {
     /// Median over bursts with their own estimate of the clock offset `(ratio − 1)·1e6`, DUT
     /// (initiator) relative to the reference (responder); `None` when no burst gave one.
     pub median_clock_offset_ppm: Option<f64>,
+    /// The stages whose rows were given to the fitter, in the order they first appear.
+    pub stages: Vec<String>,
 }
 
 /// The calibration table and its summary.
@@ -327,6 +329,11 @@ impl Fitter {
         mine.rows_without_reference += theirs.rows_without_reference;
         mine.bursts += theirs.bursts;
         mine.bursts_fallback_ratio += theirs.bursts_fallback_ratio;
+        for stage in theirs.stages {
+            if !mine.stages.contains(&stage) {
+                mine.stages.push(stage);
+            }
+        }
         self.current_burst = later.current_burst;
         self.pending = later.pending;
     }
@@ -351,6 +358,9 @@ impl Fitter {
             });
         if !same_burst {
             self.close_burst();
+            if !self.summary.stages.contains(&x.stage) {
+                self.summary.stages.push(x.stage.clone());
+            }
             self.current_burst = Some((x.stage.clone(), x.point, x.burst));
         }
         let fields = (x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps, x.dut_gain);
@@ -734,6 +744,82 @@ mod tests {
         assert_eq!(s.cells_skipped, 0);
         let ppm = s.median_clock_offset_ppm.unwrap_or(f64::NAN);
         assert!((ppm - CLOCK_PPM).abs() < 1e-3, "{ppm}");
+    }
+
+    #[test]
+    fn early_and_late_outliers_are_rejected_and_nothing_else() {
+        // Rejection is two-sided: exchanges detected 20 ns early (K low) go as surely as those
+        // 20 ns late. Each cell's count of rejected exchanges is the planted count, and its K
+        // is the noise-free truth: keeping one planted exchange, or dropping a clean one in its
+        // place, would move a cell's mean of 60 by 20 ns / 60 = 333 ps.
+        let (mut rows, _) = sweep(6, 10);
+        let mut planted = [0u64; 3];
+        for (i, row) in rows.iter_mut().enumerate() {
+            // Every row made again: the sweep's own late ones become clean.
+            let late_ps = match i % 23 {
+                5 => -20_000.0,
+                17 => 20_000.0,
+                _ => 0.0,
+            };
+            planted[row.point as usize] += u64::from(late_ps != 0.0);
+            let depart = (row.point * 6 + row.burst) as i64 * BURST_SPACING_PS
+                + row.seq as i64 * EXCHANGE_SPACING_PS;
+            *row = exchange(
+                row.point,
+                row.burst,
+                row.seq,
+                row.atten_db,
+                row.point,
+                depart,
+                late_ps,
+            );
+        }
+        let result = fit(deembed(), FitOptions::default(), &rows);
+        assert_eq!(result.rows.len(), 3);
+        for (gain, row) in result.rows.iter().enumerate() {
+            assert_eq!(row.n_rejected, planted[gain], "gain {gain}");
+            assert_eq!(row.n_used, 60 - planted[gain], "gain {gain}");
+            assert!(
+                (row.delay_ps - K_DUT_PS[gain]).abs() < 0.5,
+                "gain {gain}: {}",
+                row.delay_ps
+            );
+        }
+    }
+
+    #[test]
+    fn the_rejection_scale_is_the_normal_sd_of_a_mad() {
+        // Gaussian jitter of σ = 100 ps on K (clipped at 3σ), exchanges at ±4σ and gross ones
+        // at ±8σ. A cut of 5 scaled MADs (MAD × 1/Φ⁻¹(3/4) ≈ σ) keeps the ±4σ ones and rejects
+        // the gross ones alone; a cut of 5 raw MADs (≈ 3.4σ) would take the ±4σ ones too.
+        // Jitter from a seeded normal (rand_distr), over 20 seeds.
+        use rand::SeedableRng;
+        use rand_distr::Distribution;
+        let jitter = rand_distr::Normal::new(0.0, 100.0).expect("normal");
+        for seed in 0..20u64 {
+            let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+            let mut rows = Vec::new();
+            let mut gross = 0u64;
+            for burst in 0..20u32 {
+                for seq in 0..50u32 {
+                    let i = burst * 50 + seq;
+                    let sample: f64 = jitter.sample(&mut rng);
+                    let sign = if i % 2 == 0 { 1.0 } else { -1.0 };
+                    let late_ps = match i % 41 {
+                        3 => sign * 400.0,
+                        7 => {
+                            gross += 1;
+                            sign * 800.0
+                        }
+                        _ => sample.clamp(-300.0, 300.0),
+                    };
+                    let depart = burst as i64 * BURST_SPACING_PS + seq as i64 * EXCHANGE_SPACING_PS;
+                    rows.push(exchange(0, burst, seq, 0.0, 0, depart, late_ps));
+                }
+            }
+            let result = fit(deembed(), FitOptions::default(), &rows);
+            assert_eq!(result.rows[0].n_rejected, gross, "seed {seed}");
+        }
     }
 
     #[test]

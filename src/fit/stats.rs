@@ -156,6 +156,15 @@ pub fn cluster_robust_se(samples: &[(f64, u64)], mean: f64) -> Option<ClusterSe>
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_mad_scale_is_one_over_the_normal_quartile() {
+        // Computed independently: statrs' inverse normal CDF gives Φ⁻¹(3/4) = 0.674490, so
+        // 1/Φ⁻¹(3/4) = 1.482602 (NIST/SEMATECH e-Handbook 1.3.5.6 quotes 0.6745 for Φ⁻¹(3/4)).
+        let quartile = Normal::standard().inverse_cdf(0.75);
+        assert!((quartile - 0.6745).abs() < 5e-5, "{quartile}");
+        assert!((MAD_TO_SD - 1.0 / quartile).abs() < 5e-5, "{MAD_TO_SD}");
+    }
     use proptest::prelude::*;
 
     /// Data of a NIST StRD univariate file (verbatim copy in tests/data/nist): data from line 61.

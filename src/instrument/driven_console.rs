@@ -6,7 +6,7 @@ use super::driver_file::ConsoleDriver;
 use super::template::Value;
 use super::transport::Link;
 use super::{BurstSpec, InstrumentError, RangingDevice};
-use crate::data::{DeviceExchange, STATUS_OK};
+use crate::data::{DeviceExchange, STATUS_OK, TIMESTAMP_END_PS};
 use async_trait::async_trait;
 use regex::Captures;
 use std::collections::BTreeMap;
@@ -44,15 +44,26 @@ fn field<T: std::str::FromStr>(
     }
 }
 
+/// A timestamp field: a 48-bit counter reading, or absent.
+fn timestamp(caps: &Captures, name: &str, missing: &str) -> Result<Option<u64>, String> {
+    match field::<u64>(caps, name, missing)? {
+        Some(v) if v >= TIMESTAMP_END_PS => Err(format!(
+            "field `{name}` = `{v}` is beyond the 48-bit counter (at most {})",
+            TIMESTAMP_END_PS - 1
+        )),
+        v => Ok(v),
+    }
+}
+
 /// Classifies a line by the driver's patterns; a record whose fields do not parse is an error.
 pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, String> {
     if let Some(caps) = driver.exchange.captures(line) {
         let m = driver.missing.as_str();
         let mut x = DeviceExchange {
-            t1_ps: field(&caps, "t1", m)?,
-            t2_ps: field(&caps, "t2", m)?,
-            t3_ps: field(&caps, "t3", m)?,
-            t4_ps: field(&caps, "t4", m)?,
+            t1_ps: timestamp(&caps, "t1", m)?,
+            t2_ps: timestamp(&caps, "t2", m)?,
+            t3_ps: timestamp(&caps, "t3", m)?,
+            t4_ps: timestamp(&caps, "t4", m)?,
             dut_gain: field(&caps, "gain", m)?,
             dut_rssi_dbm: field(&caps, "rssi", m)?,
             ref_gain: field(&caps, "ref_gain", m)?,
@@ -359,15 +370,14 @@ mod tests {
     #[test]
     fn classifies_records_end_failure_and_banner() {
         let d = wren();
-        let line =
-            "xr 3 t1=281474976710000 t2=12 t3=60012 t4=281474976770100 g=2 rssi=-61.25 rg=0 st=ok";
+        let line = "xr 3 t1=281474976710000 t2=12 t3=60012 t4=59444 g=2 rssi=-61.25 rg=0 st=ok";
         assert_eq!(
             classify(&d, line),
             Ok(ConsoleLine::Exchange(DeviceExchange {
                 t1_ps: Some(281_474_976_710_000),
                 t2_ps: Some(12),
                 t3_ps: Some(60_012),
-                t4_ps: Some(281_474_976_770_100),
+                t4_ps: Some(59_444),
                 dut_gain: Some(2),
                 dut_rssi_dbm: Some(-61.25),
                 ref_gain: Some(0),
@@ -391,5 +401,11 @@ mod tests {
         assert_eq!(classify(&d, "what?"), Ok(ConsoleLine::Other));
         let bad = "xr 1 t1=99999999999999999999999 t2=1 t3=1 t4=1 g=0 rssi=-1 rg=0 st=ok";
         assert!(classify(&d, bad).is_err());
+        // 2^48 is one past the counter's last value (IEEE 802.11-2016: 6-octet TOD/TOA).
+        let wide = "xr 1 t1=1 t2=1 t3=281474976710656 t4=1 g=0 rssi=-1 rg=0 st=ok";
+        assert_eq!(
+            classify(&d, wide),
+            Err("field `t3` = `281474976710656` is beyond the 48-bit counter (at most 281474976710655)".into())
+        );
     }
 }

@@ -216,7 +216,7 @@ impl DriverFile {
     /// Reads and validates `dir/NAME.toml`.
     pub fn load(dir: &Path, name: &str) -> Result<DriverFile, Diagnostic> {
         let path = dir.join(format!("{name}.toml"));
-        let text = std::fs::read_to_string(&path).map_err(|e| {
+        let text = crate::text_file::read(&path).map_err(|e| {
             Diagnostic::in_file(&path, format!("cannot read driver file `{name}`: {e}"))
                 .with_hint(format!(
                     "driver files live in {} (the bench's `drivers_dir`); the name is the file name without .toml",

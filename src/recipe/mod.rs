@@ -19,7 +19,7 @@ use std::path::{Path, PathBuf};
 
 /// Reads a recipe, applies `--set` overrides and validates it against `bench`.
 pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Diagnostic> {
-    let text = std::fs::read_to_string(path).map_err(|e| {
+    let text = crate::text_file::read(path).map_err(|e| {
         Diagnostic::in_file(path, format!("cannot read recipe: {e}"))
             .with_hint("give the path of a recipe TOML file, e.g. recipes/rx-gain-sweep.toml")
     })?;
@@ -32,7 +32,7 @@ pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Di
 /// a run or check without `--bench`. Read ahead of the recipe proper, which is validated against
 /// the bench; a recipe that cannot be read or parsed gives `None` here and its error in [`load`].
 pub fn default_bench(path: &Path) -> Result<Option<PathBuf>, Diagnostic> {
-    let Ok(text) = std::fs::read_to_string(path) else {
+    let Ok(text) = crate::text_file::read(path) else {
         return Ok(None);
     };
     let Ok(doc) = text.parse::<toml::Table>() else {

@@ -214,6 +214,13 @@ pub struct Plan {
 /// Default rejection threshold (scaled MADs).
 pub const DEFAULT_REJECT_MAD: f64 = 5.0;
 
+/// The lowest rejection threshold taken: beyond 2 scaled MADs lie 4.6 % of a normal sample
+/// (2·(1 − Φ(2)), a standard normal table), beyond 1.5 already 13 %.
+pub const MIN_REJECT_MAD: f64 = 2.0;
+
+/// What to give instead of a threshold below [`MIN_REJECT_MAD`].
+pub const REJECT_MAD_HINT: &str = "use 2.0 or more (5.0 is the default)";
+
 pub(super) fn build(
     raw: RawRecipe,
     vars: Vars,
@@ -298,11 +305,11 @@ pub(super) fn build(
     let reject_mad = match &raw.fit.reject_mad {
         Some(v) => {
             let k = positive(&vars, "fit.reject_mad", v).map_err(located)?;
-            if k < 2.0 {
+            if k < MIN_REJECT_MAD {
                 return Err(located(KeyError::new(
                     "fit.reject_mad",
                     format!("{k} would reject much of a clean normal sample"),
-                    "use 3.0 or more (5.0 is the default)",
+                    REJECT_MAD_HINT,
                 )));
             }
             k

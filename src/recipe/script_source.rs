@@ -60,7 +60,7 @@ impl ScriptSource {
         key: &str,
     ) -> Result<ScriptSource, Diagnostic> {
         let path = base_dir.join(rel);
-        let code = std::fs::read_to_string(&path).map_err(|e| {
+        let code = crate::text_file::read(&path).map_err(|e| {
             recipe.key_error(KeyError::new(
                 key,
                 format!("cannot read {}: {e}", path.display()),

@@ -58,6 +58,11 @@ impl Vars {
         match self.deref(key, value)? {
             toml::Value::Integer(i) => Ok(*i as f64),
             toml::Value::Float(f) if f.is_finite() => Ok(*f),
+            toml::Value::Float(f) => Err(KeyError::new(
+                key,
+                format!("is {f}, not a finite number"),
+                "give a finite number, or \"$name\" naming a numeric variable in [vars]",
+            )),
             other => Err(KeyError::new(
                 key,
                 format!("is {}, not a number", describe(other)),

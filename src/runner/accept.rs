@@ -3,7 +3,7 @@
 
 use crate::data::manifest::AcceptCheck;
 use crate::fit::verify::VerifyRow;
-use crate::fit::FitResult;
+use crate::fit::{FitResult, RowSource};
 use crate::recipe::Acceptance;
 use std::collections::BTreeSet;
 
@@ -35,12 +35,13 @@ fn acceptance(accept: &Acceptance, fit: &FitResult, verify: &[VerifyRow]) -> Vec
         });
     }
     if let Some(limit) = accept.min_gain_states {
-        let states: BTreeSet<(u32, u32, u32)> = fit
+        // Modelled rows fill in states the run did not reach: they measure nothing.
+        let gains: BTreeSet<u32> = fit
             .rows
             .iter()
-            .map(|r| (r.center_mhz, r.bw_mhz, r.gain_index))
+            .filter(|r| r.source == RowSource::Measured)
+            .map(|r| r.gain_index)
             .collect();
-        let gains: BTreeSet<u32> = states.iter().map(|s| s.2).collect();
         checks.push(AcceptCheck {
             name: "min_gain_states".into(),
             limit: f64::from(limit),
