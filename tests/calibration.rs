@@ -269,6 +269,67 @@ fn adaptive_intervals_still_cover_about_95_percent() {
     assert!((0.912..=0.988).contains(&share), "coverage {share:.3}");
 }
 
+/// Counts, per clock, the fitted exchanges (stages other than `verify`) whose raw counter reads
+/// below the one before it in the same burst: 48-bit counters that wrapped mid-burst (t1 on the
+/// reference's clock, t2 on the DUT's).
+fn wraps_within_fitted_bursts(exchanges: &str) -> (usize, usize) {
+    let mut wraps = (0, 0);
+    let mut previous: Option<Vec<&str>> = None;
+    for line in exchanges.lines().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        let usable = f[0] != "verify" && f[15] == "ok" && !f[7].is_empty() && !f[8].is_empty();
+        if let Some(p) = previous.as_ref().filter(|p| usable && p[..3] == f[..3]) {
+            let below = |i: usize| f[i].parse::<u64>().ok() < p[i].parse::<u64>().ok();
+            wraps.0 += usize::from(below(7));
+            wraps.1 += usize::from(below(8));
+        }
+        previous = usable.then_some(f);
+    }
+    wraps
+}
+
+#[test]
+fn counters_that_wrap_mid_burst_still_give_the_true_k() {
+    // FTM timestamps are 48-bit picosecond counts (design notes, "The bench and the math"):
+    // they wrap every 2^48 ps ≈ 281.5 s. Both counters start 3.24 s short of it, so both wrap
+    // inside a fitted burst (found by trying starts; the assertion below keeps it so).
+    let starting_at = |start_ps: u64| {
+        let dut = format!("{FOUR_STATES}\ncounter_start_ps = {start_ps}");
+        let bench = bench_with(&dut).replacen(
+            "[sim.reference]\n",
+            &format!("[sim.reference]\ncounter_start_ps = {start_ps}\n"),
+            1,
+        );
+        run_demo(&bench, "1", 0)
+    };
+    let out = starting_at((1 << 48) - 3_240_000_000_000);
+    let (reference, dut) = wraps_within_fitted_bursts(&out.read("r/exchanges.csv"));
+    assert!(
+        reference >= 1 && dut >= 1,
+        "no mid-burst wrap on the reference ({reference}) or DUT ({dut}) clock: move the starts"
+    );
+    // The same run with counters far from a wrap draws the same jitter, late paths and losses:
+    // a wrap must change nothing in the table, not even which exchanges are rejected.
+    let unwrapped = starting_at(1_000_000_000_000);
+    assert_eq!(
+        wraps_within_fitted_bursts(&unwrapped.read("r/exchanges.csv")),
+        (0, 0)
+    );
+    assert_eq!(out.read("r/caltable.csv"), unwrapped.read("r/caltable.csv"));
+    // Truth: K = tx_delay_ps + rx_delay_ps per state (FOUR_STATES above).
+    let truth = [2550.0, 2700.0, 2950.0, 3300.0];
+    let rows = csv_numbers(&out.read("r/caltable.csv"));
+    assert_eq!(rows.len(), 4, "four measured states");
+    for r in rows {
+        let (gain, k, ci95) = (r[2] as usize, r[3], r[4]);
+        assert!(
+            (k - truth[gain]).abs() <= 2.0 * ci95,
+            "gain {gain}: {k:.1} ± {ci95:.1} ps against {}",
+            truth[gain]
+        );
+    }
+}
+
 #[test]
 fn an_overnight_soak_recovers_each_states_temperature_drift() {
     let out = Taucal::new()

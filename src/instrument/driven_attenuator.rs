@@ -27,15 +27,15 @@ impl DrivenAttenuator {
         }
     }
 
-    fn failed(&self, message: impl Into<String>) -> InstrumentError {
-        InstrumentError::Failed {
+    fn refused(&self, message: impl Into<String>) -> InstrumentError {
+        InstrumentError::Refused {
             role: self.role.clone(),
             message: message.into(),
         }
     }
 
     /// A lost connection, a timeout or an unreadable reply may pass; an error the instrument
-    /// reports itself will not.
+    /// reports itself is a refusal, which will not.
     fn error(&self, context: &str, e: ScpiError) -> InstrumentError {
         let message = format!("{context}{e}");
         match e {
@@ -43,7 +43,7 @@ impl DrivenAttenuator {
                 role: self.role.clone(),
                 message,
             },
-            ScpiError::Instrument(_) => self.failed(message),
+            ScpiError::Instrument(_) => self.refused(message),
         }
     }
 
@@ -85,13 +85,13 @@ impl Attenuator for DrivenAttenuator {
 
     async fn set_atten_db(&mut self, db: f64) -> Result<(), InstrumentError> {
         if let Some(why) = self.refuse(db) {
-            return Err(self.failed(why));
+            return Err(self.refused(why));
         }
         // What the instrument will read must be what the bench's protection checked (a driver
         // file's format is checked at load time too; this holds for any value asked for).
         let sent = self.driver.set_atten.as_sent("db", db);
         if !sent.is_some_and(|sent| same_setting(sent, db)) {
-            return Err(self.failed(format!(
+            return Err(self.refused(format!(
                 "the driver's set_atten format would send {} for {db} dB; nothing was sent",
                 sent.map_or("no number".to_string(), |v| format!("{v} dB"))
             )));

@@ -307,7 +307,7 @@ impl RangingDevice for DrivenConsole {
 
     async fn burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, InstrumentError> {
         if let Some(why) = self.refuse(spec) {
-            return Err(InstrumentError::Failed {
+            return Err(InstrumentError::Refused {
                 role: self.role.clone(),
                 message: format!("{why}; nothing was sent"),
             });

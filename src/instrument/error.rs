@@ -13,6 +13,16 @@ pub enum InstrumentError {
         /// The instrument's or driver's own words.
         message: String,
     },
+    /// A request refused as it stands, by the instrument (a SCPI error) or by its driver file's
+    /// limits before anything was sent: asking again would be refused again, so it is not
+    /// retried.
+    #[error("{role}: {message}")]
+    Refused {
+        /// Bench role.
+        role: String,
+        /// The instrument's or driver's own words.
+        message: String,
+    },
     /// A passing fault: a reply timed out, came garbled, or the connection dropped. Worth a
     /// retry after reconnecting.
     #[error("{role}: {message}")]

@@ -461,7 +461,8 @@ impl Session {
             if matches!(e, InstrumentError::Restarted { .. }) {
                 tally.restarts += 1;
             }
-            if attempt >= self.policy.retries {
+            // A refusal will not pass: retrying it would only cost the backoff.
+            if attempt >= self.policy.retries || matches!(e, InstrumentError::Refused { .. }) {
                 return Err(e.into());
             }
             attempt += 1;
@@ -534,7 +535,9 @@ impl Session {
         loop {
             match op(self) {
                 Ok(v) => return Ok(v),
-                Err(e @ InstrumentError::Gone { .. }) => return Err(e),
+                Err(e @ (InstrumentError::Gone { .. } | InstrumentError::Refused { .. })) => {
+                    return Err(e)
+                }
                 Err(e) if attempt >= self.policy.retries => return Err(e),
                 Err(e) => {
                     attempt += 1;
@@ -695,5 +698,49 @@ mod tests {
         let (s, log) = logging(95.0);
         assert!(s.safe_state().is_empty());
         assert_eq!(*log.lock().expect("log"), vec![95.0]);
+    }
+
+    /// An attenuator that refuses every setting, as an instrument reporting a SCPI error does,
+    /// and counts how often it was asked.
+    struct Refusing {
+        asked: Arc<std::sync::Mutex<u32>>,
+    }
+
+    #[async_trait]
+    impl Attenuator for Refusing {
+        async fn identify(&mut self) -> Result<String, InstrumentError> {
+            Ok("refusing".into())
+        }
+        async fn set_atten_db(&mut self, _: f64) -> Result<(), InstrumentError> {
+            *self.asked.lock().expect("count") += 1;
+            Err(InstrumentError::Refused {
+                role: "attenuator".into(),
+                message: "-222,\"Data out of range\"".into(),
+            })
+        }
+        async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
+            Ok(95.0)
+        }
+        async fn safe_state(&mut self) -> Result<(), InstrumentError> {
+            Ok(())
+        }
+    }
+
+    #[test]
+    fn a_refusal_is_not_retried() {
+        // The default policy retries passing faults three times; a refusal would be refused
+        // again, so it is asked once and counted as a fault without retries.
+        let asked = Arc::new(std::sync::Mutex::new(0));
+        let mut s = session_with(Box::new(Refusing {
+            asked: asked.clone(),
+        }));
+        let e = s.set_atten(40.0).expect_err("refused");
+        assert!(
+            matches!(e, RunError::Instrument(InstrumentError::Refused { .. })),
+            "{e:?}"
+        );
+        assert_eq!(*asked.lock().expect("count"), 1);
+        let tally = &s.faults["attenuator"];
+        assert_eq!((tally.faults, tally.retries), (1, 0));
     }
 }

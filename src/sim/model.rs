@@ -146,8 +146,11 @@ impl SimBench {
         let d = &truth.dut;
         let r = &truth.reference;
         let mut counters = stream(seed, STREAM_COUNTERS);
+        // Both are drawn even when given, so a given start leaves every other draw as it was.
         let ref_start_ps = counters.random_range(0..COUNTER_MODULUS);
         let dut_start_ps = counters.random_range(0..COUNTER_MODULUS);
+        let ref_start_ps = r.counter_start_ps.unwrap_or(ref_start_ps);
+        let dut_start_ps = d.counter_start_ps.unwrap_or(dut_start_ps);
 
         let dut_agc = Agc::new(&d.gain_thresholds_dbm, d.gain_hysteresis_db);
         let ref_agc = Agc::new(&r.gain_thresholds_dbm, r.gain_hysteresis_db);

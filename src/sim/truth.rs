@@ -82,6 +82,10 @@ pub struct SimDut {
     /// 25 °C), constant or per gain index.
     #[serde(default = "no_drift")]
     pub drift_ps_per_c: PerGain,
+    /// The DUT's 48-bit picosecond counter when the simulation starts; drawn from the seed
+    /// unless given. Just below 2^48 it wraps early in the run, to rehearse wraps.
+    #[serde(default)]
+    pub counter_start_ps: Option<u64>,
 }
 
 /// Truth of the reference unit.
@@ -113,6 +117,10 @@ pub struct SimReference {
     /// a reference unit is chosen for clean detection, so late paths are the DUT's by default.
     #[serde(default)]
     pub outlier_rate: f64,
+    /// The reference's 48-bit picosecond counter when the simulation starts; drawn from the
+    /// seed unless given.
+    #[serde(default)]
+    pub counter_start_ps: Option<u64>,
 }
 
 /// Simulated instrument faults (`[sim.faults]`); all off by default. Same seed, same faults.
@@ -357,6 +365,18 @@ impl SimTruth {
         non_negative("sim.reference.gain_hysteresis_db", r.gain_hysteresis_db)?;
         outlier_rate("sim.dut.outlier_rate", d.outlier_rate)?;
         outlier_rate("sim.reference.outlier_rate", r.outlier_rate)?;
+        for (key, start) in [
+            ("sim.dut.counter_start_ps", d.counter_start_ps),
+            ("sim.reference.counter_start_ps", r.counter_start_ps),
+        ] {
+            if start.is_some_and(|v| v >= 1 << 48) {
+                return Err(KeyError::new(
+                    key,
+                    "is not a 48-bit counter value",
+                    "give 0 to 281474976710655 (2^48 − 1), or leave it out to draw it from the seed",
+                ));
+            }
+        }
         // The model does arithmetic with these; a NaN would pass every ordering check above and
         // then silently poison timestamps.
         finite("sim.tx_power_dbm", self.tx_power_dbm)?;
