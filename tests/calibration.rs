@@ -340,23 +340,48 @@ fn an_overnight_soak_recovers_each_states_temperature_drift() {
             &repo("recipes/benches/overnight-soak.toml"),
             "--out",
             "soak",
+            // Eight times the recipe's bursts, so the check below can tell the states apart.
+            "--set",
+            "bursts_per_point=96",
         ])
         .run();
     out.expect_code(0);
-    // Truth in recipes/benches/overnight-soak.toml: drift_ps_per_c = [1.2, 1.6, 2.1].
+    // Truth in recipes/benches/overnight-soak.toml: drift_ps_per_c = [1.2, 1.6, 2.1], states
+    // 0.4 and 0.5 ps/°C apart.
     let truth = [1.2, 1.6, 2.1];
     let rows = csv_numbers(&out.read("soak/drift.csv"));
     assert_eq!(rows.len(), 9, "three states on three bandwidths");
+    // Per state: the inverse-variance mean over its bandwidths, Σ(d/se²)/Σ(1/se²).
+    let mut pooled = [(0.0, 0.0); 3];
     for r in rows {
         let (gain, drift, se) = (r[2] as usize, r[3], r[4]);
+        // 3·se under 0.4 ps/°C: a bound that could not tell neighbouring states apart would
+        // prove nothing.
         assert!(
-            (drift - truth[gain]).abs() <= 4.0 * se,
+            3.0 * se < 0.4,
+            "gain {gain}: se {se:.3} ps/°C is too coarse"
+        );
+        assert!(
+            (drift - truth[gain]).abs() <= 3.0 * se,
             "gain {gain}: {drift:.2} ± {se:.2} ps/°C"
         );
         assert!(
             r[5] < -10.0 && r[6] > 60.0,
             "temperatures span the soaks: {r:?}"
         );
+        pooled[gain].0 += drift / (se * se);
+        pooled[gain].1 += 1.0 / (se * se);
+    }
+    for (gain, (sum, weight)) in pooled.iter().enumerate() {
+        let drift = sum / weight;
+        let nearest = (0..3)
+            .min_by(|&a, &b| {
+                (drift - truth[a])
+                    .abs()
+                    .total_cmp(&(drift - truth[b]).abs())
+            })
+            .expect("three states");
+        assert_eq!(nearest, gain, "state {gain} pools to {drift:.3} ps/°C");
     }
     let m: toml::Table = toml::from_str(&out.read("soak/manifest.toml")).expect("manifest");
     // An overnight run: at least eight hours of bench time (the recipe's ten soaks).
