@@ -230,8 +230,8 @@ mod tests {
         assert!(parse_command("launch").is_err_and(|r| r.starts_with("err unknown command")));
     }
 
-    #[test]
-    fn the_served_limits_are_the_shipped_drivers() {
+    /// The shipped console driver the served console stands in for.
+    fn shipped_driver() -> Box<crate::instrument::driver_file::ConsoleDriver> {
         use crate::diagnostic::SourceFile;
         use crate::instrument::driver_file::{DriverFile, DriverKind};
         let text = include_str!("../../../drivers/wren6-console.toml");
@@ -242,6 +242,12 @@ mod tests {
         else {
             panic!("driver");
         };
+        driver
+    }
+
+    #[test]
+    fn the_served_limits_are_the_shipped_drivers() {
+        let driver = shipped_driver();
         assert_eq!(driver.frames, FRAMES);
         assert_eq!(driver.center_mhz, CENTER_MHZ);
         assert_eq!(driver.bw_mhz, BW_MHZ);
@@ -249,17 +255,8 @@ mod tests {
 
     #[test]
     fn what_the_console_prints_the_shipped_driver_reads_back_exactly() {
-        use crate::diagnostic::SourceFile;
         use crate::instrument::driven_console::{classify, ConsoleLine};
-        use crate::instrument::driver_file::{DriverFile, DriverKind};
-        let text = include_str!("../../../drivers/wren6-console.toml");
-        let Ok(DriverFile {
-            kind: DriverKind::RangingConsole(driver),
-            ..
-        }) = DriverFile::parse("wren6-console", SourceFile::new("wren6-console.toml", text))
-        else {
-            panic!("driver");
-        };
+        let driver = shipped_driver();
         let x = DeviceExchange {
             t1_ps: Some(281_474_976_710_655),
             t2_ps: Some(7),
