@@ -513,3 +513,22 @@ fn a_diverged_resume_does_not_call_its_limits_met() {
         "{log}"
     );
 }
+
+#[test]
+fn a_run_whose_files_cannot_be_opened_still_ends_in_the_safe_state() {
+    // `exchanges.csv` is a directory: nothing can be recorded and no stage runs, but the
+    // instruments, reached and identified by then, are still put in their safe state.
+    let dir = tempfile::tempdir().expect("temp dir");
+    std::fs::create_dir_all(dir.path().join("o/exchanges.csv")).expect("mkdir");
+    let out = Taucal::in_dir(dir)
+        .file("r.toml", RECIPE)
+        .args(["run", "r.toml", "--out", "o"])
+        .run();
+    out.expect_code(3);
+    assert!(out.stderr.contains("exchanges.csv"), "{}", out.stderr);
+    let log = out.read("o/run.log");
+    assert!(
+        log.contains("safe state: attenuator at 95 dB"),
+        "no safe state in\n{log}"
+    );
+}

@@ -10,7 +10,7 @@ use super::{
 };
 use crate::data::manifest::{Counts, FaultTally};
 use crate::data::run_dir::files;
-use crate::data::ExchangeWriter;
+use crate::data::{Exchange, ExchangeWriter, RecordSink};
 use crate::fit::gainmap::GainMap;
 use crate::recipe::{Channel, Plan, Stage};
 use std::cell::RefCell;
@@ -34,8 +34,8 @@ pub struct Recorded {
     pub gain_maps: BTreeMap<String, (Channel, GainMap)>,
 }
 
-/// Runs the plan's stages on the connected instruments (none when `identified` is an error),
-/// then puts every instrument in its safe state. Returns what was recorded and the first
+/// Runs the plan's stages on the connected instruments (none when `identified` is an error or
+/// the run's files cannot be opened), then puts every instrument in its safe state. Returns what was recorded and the first
 /// failure: identifying, opening the run's files, a stage, or the safe state.
 pub fn record(
     req: &RunRequest,
@@ -55,33 +55,38 @@ pub fn record(
         None => ExchangeWriter::create(&exchanges_path),
     };
     let journal_path = prepared.dir.join(files::JOURNAL);
-    let session = match writer.and_then(|w| Journal::open(&journal_path).map(|j| (w, j))) {
-        Ok((writer, journal)) => {
-            let mut s = Session::new(
-                req.bench.clone(),
-                prepared.clock.clone(),
-                instruments.attenuator,
-                instruments.dut,
-                Box::new(writer),
-                &exchanges_path.display().to_string(),
-            );
-            s.reject_mad = req.plan.reject_mad;
-            s.policy = req.plan.faults;
-            s.set_chamber(instruments.chamber);
-            s.set_stop(stop);
-            s.set_journal(journal);
-            if let Some(r) = &req.resume {
-                s.set_replay(r.replay.clone(), prepared.simulated);
-            }
-            s.set_observer(observer);
-            Rc::new(RefCell::new(s))
-        }
-        Err(e) => {
-            let opened = Err(RunError::io(&exchanges_path, e));
-            return (Recorded::default(), identified.and(opened));
-        }
+    let opened = writer.and_then(|w| Journal::open(&journal_path).map(|j| (w, j)));
+    // Without its files the run records nothing and runs no stage, but its instruments, which
+    // may have powered up anywhere, still end in their safe state.
+    let (sink, journal, ready): (Box<dyn RecordSink>, _, _) = match opened {
+        Ok((writer, journal)) => (Box::new(writer), Some(journal), identified),
+        Err(e) => (
+            Box::new(Vec::<Exchange>::new()),
+            None,
+            identified.and(Err(RunError::io(&exchanges_path, e))),
+        ),
     };
-    let ended = stages_then_safe_state(&req.plan, &session, identified);
+    let mut s = Session::new(
+        req.bench.clone(),
+        prepared.clock.clone(),
+        instruments.attenuator,
+        instruments.dut,
+        sink,
+        &exchanges_path.display().to_string(),
+    );
+    s.reject_mad = req.plan.reject_mad;
+    s.policy = req.plan.faults;
+    s.set_chamber(instruments.chamber);
+    s.set_stop(stop);
+    if let Some(journal) = journal {
+        s.set_journal(journal);
+    }
+    if let Some(r) = &req.resume {
+        s.set_replay(r.replay.clone(), prepared.simulated);
+    }
+    s.set_observer(observer);
+    let session = Rc::new(RefCell::new(s));
+    let ended = stages_then_safe_state(&req.plan, &session, ready);
     let mut s = session.borrow_mut();
     let recorded = Recorded {
         counts: std::mem::take(&mut s.counts),
