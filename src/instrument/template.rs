@@ -130,26 +130,26 @@ impl Template {
     /// template's format leaves of it. `None` when the template has no such parameter or the
     /// text does not read back as a number.
     pub fn as_sent(&self, name: &str, v: f64) -> Option<f64> {
-        self.pieces.iter().find_map(|piece| match piece {
-            Piece::Param { name: n, precision } if n == name => {
-                real_text(v, *precision).parse().ok()
-            }
-            _ => None,
-        })
+        real_text(v, self.precision_of(name)?).parse().ok()
     }
 
     /// The first setting of the grid `lo, lo + step, …, hi` that real parameter `name` would not
     /// send as itself (a format with too few decimals), with the text it would send instead.
     pub fn misrendered(&self, name: &str, lo: f64, hi: f64, step: f64) -> Option<(f64, String)> {
-        let precision = self.pieces.iter().find_map(|piece| match piece {
-            Piece::Param { name: n, precision } if n == name => Some(*precision),
-            _ => None,
-        })?;
+        let precision = self.precision_of(name)?;
         let settings = ((hi - lo) / step).round() as u64;
         (0..=settings).map(|k| lo + k as f64 * step).find_map(|v| {
             let text = real_text(v, precision);
             let back = text.parse::<f64>().unwrap_or(f64::NAN);
             (!same_setting(back, v)).then_some((v, text))
+        })
+    }
+
+    /// The format of parameter `name` (`Some(None)`: no precision given), if it has one.
+    fn precision_of(&self, name: &str) -> Option<Option<usize>> {
+        self.pieces.iter().find_map(|piece| match piece {
+            Piece::Param { name: n, precision } if n == name => Some(*precision),
+            _ => None,
         })
     }
 
