@@ -5,6 +5,7 @@ use crate::diagnostic::{Diagnostic, KeyError, SourceFile};
 use crate::instrument::driver_file::{
     DriverFile, DriverKind, KIND_ATTENUATOR, KIND_RANGING_CONSOLE,
 };
+use crate::instrument::template::on_grid;
 use crate::instrument::transport::{Address, ADDRESS_FORMS};
 use crate::sim::SimTruth;
 use serde::Deserialize;
@@ -263,8 +264,7 @@ impl Bench {
                         "keep the bench's range within the driver's",
                     ));
                 }
-                let steps = self.attenuator.step_db / a.step_db;
-                if (steps - steps.round()).abs() > 1e-6 {
+                if !on_grid(self.attenuator.step_db, 0.0, a.step_db) {
                     return Err(KeyError::new(
                         "attenuator.step_db",
                         format!(
@@ -382,8 +382,7 @@ impl Bench {
                 format!("choose settings between {lo} and {hi} dB"),
             ));
         }
-        let steps = atten_db / self.attenuator.step_db;
-        if !within((steps - steps.round()).abs(), 1e-6) {
+        if !on_grid(atten_db, 0.0, self.attenuator.step_db) {
             return Some((
                 format!(
                     "{atten_db} dB is not on the attenuator's {} dB grid",

@@ -4,7 +4,7 @@
 
 use super::driver_file::AttenuatorDriver;
 use super::scpi_client::{ScpiClient, ScpiError};
-use super::template::{same_setting, Value};
+use super::template::{on_grid, same_setting, Value};
 use super::{Attenuator, InstrumentError};
 use async_trait::async_trait;
 use std::collections::BTreeMap;
@@ -55,8 +55,7 @@ impl DrivenAttenuator {
                 "{db} dB is outside the driver's range {lo}..{hi} dB; nothing was sent"
             ));
         }
-        let steps = (db - lo) / self.driver.step_db;
-        if (steps - steps.round()).abs() > 1e-6 {
+        if !on_grid(db, lo, self.driver.step_db) {
             return Some(format!(
                 "{db} dB is not on the driver's {} dB grid; nothing was sent",
                 self.driver.step_db

@@ -6,7 +6,7 @@
 //! expressions and the named fields they must capture, limits) and points errors at the file's
 //! line, like recipe and bench errors. Nothing here talks to an instrument.
 
-use super::template::{ParamKind, Template};
+use super::template::{on_grid, ParamKind, Template};
 use crate::diagnostic::{did_you_mean, Diagnostic, KeyError, SourceFile};
 use regex::Regex;
 use serde::Deserialize;
@@ -488,10 +488,9 @@ fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
     // Maximum attenuation unless the file says otherwise; a bench then checks that the
     // setting protects its receivers (`Bench::fits`).
     let safe_atten_db = raw.safe_state.atten_db.unwrap_or(hi);
-    let safe_steps = (safe_atten_db - lo) / step_db;
     if !(safe_atten_db.is_finite()
         && (lo..=hi).contains(&safe_atten_db)
-        && (safe_steps - safe_steps.round()).abs() <= 1e-6)
+        && on_grid(safe_atten_db, lo, step_db))
     {
         return Err(KeyError::new(
             "safe_state.atten_db",

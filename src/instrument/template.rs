@@ -168,6 +168,13 @@ fn real_text(v: f64, precision: Option<usize>) -> String {
     }
 }
 
+/// True when `db` is a whole number of `step_db` steps from `origin_db` (to far less than a
+/// step; binary grid arithmetic leaves a few ulps). A NaN is on no grid.
+pub fn on_grid(db: f64, origin_db: f64, step_db: f64) -> bool {
+    let steps = (db - origin_db) / step_db;
+    (steps - steps.round()).abs() <= 1e-6
+}
+
 /// Two attenuator settings are the same when they differ by far less than any step (grid
 /// arithmetic in binary floating point leaves a few ulps).
 pub fn same_setting(a: f64, b: f64) -> bool {

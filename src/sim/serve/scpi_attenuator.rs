@@ -6,6 +6,7 @@
 //! Pure with respect to I/O: a message goes in, a response comes out; the server moves bytes.
 
 use crate::clock::BenchClock;
+use crate::instrument::template::on_grid;
 use crate::instrument::InstrumentError;
 use crate::sim::front::SimShared;
 use scpi::error::{ErrorCode, ErrorQueue, VecErrorQueue};
@@ -94,8 +95,7 @@ impl ScpiAttenuator {
         if !db.is_finite() || db < lo - 1e-9 || db > hi + 1e-9 {
             return Err(ErrorCode::DataOutOfRange.into());
         }
-        let steps = (db - lo) / self.step_db;
-        if (steps - steps.round()).abs() > 1e-6 {
+        if !on_grid(db, lo, self.step_db) {
             return Err(ErrorCode::IllegalParameterValue.into());
         }
         let wall = self
