@@ -189,6 +189,7 @@ fn generate(bench: &Bench, path: &Path, rows: u64) -> Result<(), Error> {
                     center_mhz: CENTER_MHZ,
                     bw_mhz,
                     temp_c: sim.dut_temp_c(),
+                    time_s: None,
                 };
                 for (seq, x) in outcome.exchanges.into_iter().enumerate() {
                     rows_of_burst.push(Exchange::recorded(&at, seq as u32, x));

@@ -181,6 +181,7 @@ fn oracle_exchanges(truth: &SimTruth, atten_db: f64, target_ps: f64) -> f64 {
             center_mhz: 5180,
             bw_mhz: 80,
             temp_c: None,
+            time_s: None,
         };
         rows.extend(
             out.exchanges

@@ -119,6 +119,7 @@ fn simulate(case: &Case, seed: u64, step_db: f64, bursts: u32) -> (SimTruth, Vec
                 center_mhz: 5180,
                 bw_mhz: case.bw_mhz,
                 temp_c: None,
+                time_s: None,
             };
             rows.extend(
                 out.exchanges

@@ -497,6 +497,7 @@ mod tests {
             ref_gain: Some(0),
             temp_c: None,
             status: "lost".into(),
+            ..Exchange::default()
         }
     }
 

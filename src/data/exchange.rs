@@ -31,10 +31,40 @@ pub struct DeviceExchange {
     pub ref_gain: Option<u32>,
     /// `ok` or a short error label (`lost`, `timeout`, …).
     pub status: String,
+    /// Round-trip time the device computed itself (per frame, or a burst's average), clock
+    /// corrected by the device, where it reports one instead of timestamps.
+    pub rtt_ps: Option<f64>,
+    /// Distance the device reported, in millimetres, with its own applied K already removed.
+    pub range_mm: Option<f64>,
+    /// Frames behind the report: 1 for one exchange, the successful frames of a burst average.
+    pub frames: u32,
+    /// The K the device says it removed before reporting `range_mm`, where it says.
+    pub applied_k_ps: Option<f64>,
 }
 
-/// One row of `exchanges.csv` (contract columns, in contract order).
-#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+impl DeviceExchange {
+    /// A report of one frame that carries nothing but `status`.
+    pub fn empty(status: impl Into<String>) -> DeviceExchange {
+        DeviceExchange {
+            t1_ps: None,
+            t2_ps: None,
+            t3_ps: None,
+            t4_ps: None,
+            dut_gain: None,
+            dut_rssi_dbm: None,
+            ref_gain: None,
+            status: status.into(),
+            rtt_ps: None,
+            range_mm: None,
+            frames: 1,
+            applied_k_ps: None,
+        }
+    }
+}
+
+/// One row of `exchanges.csv` (contract columns, in contract order; record version 2 appended
+/// the last four).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Exchange {
     /// Name of the recipe stage that took the exchange.
     pub stage: String,
@@ -68,6 +98,41 @@ pub struct Exchange {
     pub temp_c: Option<f64>,
     /// `ok` or a short error label.
     pub status: String,
+    /// Bench time of the exchange or burst, seconds since the run began (empty in version 1).
+    pub time_s: Option<f64>,
+    /// Round-trip time the device reported itself, ps (empty when it gave timestamps).
+    pub rtt_ps: Option<f64>,
+    /// Distance the device reported, mm, its applied K removed (empty unless it reports range).
+    pub range_mm: Option<f64>,
+    /// Frames behind the row: 1 for a per-exchange row.
+    pub frames: u32,
+}
+
+impl Default for Exchange {
+    fn default() -> Self {
+        Exchange {
+            stage: String::new(),
+            point: 0,
+            burst: 0,
+            seq: 0,
+            atten_db: 0.0,
+            center_mhz: 0,
+            bw_mhz: 0,
+            t1_ps: None,
+            t2_ps: None,
+            t3_ps: None,
+            t4_ps: None,
+            dut_gain: None,
+            dut_rssi_dbm: None,
+            ref_gain: None,
+            temp_c: None,
+            status: String::new(),
+            time_s: None,
+            rtt_ps: None,
+            range_mm: None,
+            frames: 1,
+        }
+    }
 }
 
 /// Where and how a burst was taken: everything a row holds besides what the device reported.
@@ -87,6 +152,8 @@ pub struct Taken<'a> {
     pub bw_mhz: u32,
     /// Temperature at the DUT, where measured.
     pub temp_c: Option<f64>,
+    /// Bench time the burst began, seconds since the run began.
+    pub time_s: Option<f64>,
 }
 
 impl Exchange {
@@ -109,6 +176,10 @@ impl Exchange {
             ref_gain: d.ref_gain,
             temp_c: at.temp_c,
             status: d.status,
+            time_s: at.time_s,
+            rtt_ps: d.rtt_ps,
+            range_mm: d.range_mm,
+            frames: d.frames,
         }
     }
 

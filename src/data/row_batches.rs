@@ -199,6 +199,10 @@ fn copy_numbers(from: &Exchange, to: &mut Exchange) {
         ref_gain,
         temp_c,
         status: _,
+        time_s,
+        rtt_ps,
+        range_mm,
+        frames,
     } = *from;
     to.point = point;
     to.burst = burst;
@@ -214,4 +218,8 @@ fn copy_numbers(from: &Exchange, to: &mut Exchange) {
     to.dut_rssi_dbm = dut_rssi_dbm;
     to.ref_gain = ref_gain;
     to.temp_c = temp_c;
+    to.time_s = time_s;
+    to.rtt_ps = rtt_ps;
+    to.range_mm = range_mm;
+    to.frames = frames;
 }

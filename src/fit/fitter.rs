@@ -676,6 +676,7 @@ mod tests {
             ref_gain: Some(0),
             temp_c: None,
             status: STATUS_OK.into(),
+            ..Exchange::default()
         }
     }
 

@@ -67,7 +67,7 @@ pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, Strin
             dut_gain: field(&caps, "gain", m)?,
             dut_rssi_dbm: field(&caps, "rssi", m)?,
             ref_gain: field(&caps, "ref_gain", m)?,
-            status: String::new(),
+            ..DeviceExchange::empty(String::new())
         };
         let complete = [x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps]
             .iter()
@@ -381,7 +381,7 @@ mod tests {
                 dut_gain: Some(2),
                 dut_rssi_dbm: Some(-61.25),
                 ref_gain: Some(0),
-                status: "ok".into(),
+                ..DeviceExchange::empty("ok")
             }))
         );
         let lost = "xr 4 t1=5 t2=- t3=- t4=- g=- rssi=- rg=- st=lost";

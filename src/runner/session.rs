@@ -334,6 +334,7 @@ impl Session {
             return self.feed(point);
         }
         let spec = BurstSpec { frames, channel };
+        let time_s = Some(self.clock.now_s());
         let reported = self.retrying("dut", |s| s.dut.burst(spec))?;
         let temp_c = self.retrying("dut", |s| s.dut.temperature_c())?;
         let burst = self.next_burst;
@@ -346,6 +347,7 @@ impl Session {
             center_mhz: channel.center_mhz,
             bw_mhz: channel.bw_mhz,
             temp_c,
+            time_s,
         };
         let rows: Vec<Exchange> = reported
             .into_iter()

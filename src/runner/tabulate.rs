@@ -247,6 +247,7 @@ mod tests {
                         center_mhz: 5180,
                         bw_mhz: 20,
                         temp_c: sim.dut_temp_c(),
+                        time_s: Some(bench_ps as f64 * 1e-12),
                     };
                     let lone = (round + point as u32) % 17 == 0;
                     let rows: Vec<Exchange> = outcome

@@ -131,13 +131,7 @@ impl SimShared {
                 if world.faults.exchange_fails() {
                     *x = DeviceExchange {
                         t1_ps: x.t1_ps,
-                        t2_ps: None,
-                        t3_ps: None,
-                        t4_ps: None,
-                        dut_gain: None,
-                        dut_rssi_dbm: None,
-                        ref_gain: None,
-                        status: STATUS_FAIL.to_string(),
+                        ..DeviceExchange::empty(STATUS_FAIL)
                     };
                 }
             }

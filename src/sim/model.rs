@@ -265,16 +265,7 @@ impl SimBench {
             .setup_ps
             .saturating_add(u64::from(req.frames).saturating_mul(self.interval_ps));
         if req.bw_mhz == 0 {
-            let refused = DeviceExchange {
-                t1_ps: None,
-                t2_ps: None,
-                t3_ps: None,
-                t4_ps: None,
-                dut_gain: None,
-                dut_rssi_dbm: None,
-                ref_gain: None,
-                status: STATUS_REJECTED.to_string(),
-            };
+            let refused = DeviceExchange::empty(STATUS_REJECTED);
             return BurstOutcome {
                 exchanges: vec![refused; req.frames as usize],
                 duration_ps,
@@ -338,13 +329,7 @@ impl SimBench {
         if lost {
             return DeviceExchange {
                 t1_ps: Some(t1_ps),
-                t2_ps: None,
-                t3_ps: None,
-                t4_ps: None,
-                dut_gain: None,
-                dut_rssi_dbm: None,
-                ref_gain: None,
-                status: STATUS_LOST.to_string(),
+                ..DeviceExchange::empty(STATUS_LOST)
             };
         }
         // Offsets from T1 in bench picoseconds: small, so f64 keeps sub-picosecond detail.
@@ -369,7 +354,7 @@ impl SimBench {
             // A single-state reference reports Some(0): one gain state is still a state, and a
             // uniform column keeps the fitter's lookup in the reference table simple.
             ref_gain: Some(ref_gain),
-            status: STATUS_OK.to_string(),
+            ..DeviceExchange::empty(STATUS_OK)
         }
     }
 }

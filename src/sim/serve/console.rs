@@ -265,7 +265,7 @@ mod tests {
             dut_gain: Some(1),
             dut_rssi_dbm: Some(-47.123_456_789_012_34),
             ref_gain: Some(0),
-            status: "ok".into(),
+            ..DeviceExchange::empty("ok")
         };
         assert_eq!(
             classify(&driver, &format_exchange(0, &x)),
