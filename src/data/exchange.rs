@@ -99,13 +99,22 @@ pub struct Exchange {
     /// `ok` or a short error label.
     pub status: String,
     /// Bench time of the exchange or burst, seconds since the run began (empty in version 1).
+    #[serde(skip)]
     pub time_s: Option<f64>,
     /// Round-trip time the device reported itself, ps (empty when it gave timestamps).
+    #[serde(skip)]
     pub rtt_ps: Option<f64>,
     /// Distance the device reported, mm, its applied K removed (empty unless it reports range).
+    #[serde(skip)]
     pub range_mm: Option<f64>,
     /// Frames behind the row: 1 for a per-exchange row.
+    #[serde(skip, default = "one_frame")]
     pub frames: u32,
+}
+
+/// What a version-1 row stands for: one exchange.
+fn one_frame() -> u32 {
+    1
 }
 
 impl Default for Exchange {
@@ -183,13 +192,18 @@ impl Exchange {
         }
     }
 
-    /// True when the exchange completed and carries everything the fitter needs.
+    /// True when the exchange completed and carries everything the fitter needs: a gain state
+    /// and a timing (all four timestamps, a device-computed RTT, or a range).
     pub fn is_usable(&self) -> bool {
-        self.status == STATUS_OK
-            && self.t1_ps.is_some()
+        self.status == STATUS_OK && self.dut_gain.is_some() && self.is_timed()
+    }
+
+    /// True when the row carries a timing in some form: all four timestamps, an RTT or a range.
+    pub fn is_timed(&self) -> bool {
+        let counters = self.t1_ps.is_some()
             && self.t2_ps.is_some()
             && self.t3_ps.is_some()
-            && self.t4_ps.is_some()
-            && self.dut_gain.is_some()
+            && self.t4_ps.is_some();
+        counters || self.rtt_ps.is_some() || self.range_mm.is_some()
     }
 }

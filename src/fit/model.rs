@@ -284,7 +284,10 @@ pub fn fit_gain_model(obs: &[Observation], options: ModelOptions) -> Result<Gain
             if temperature && ref_temp_c.is_none() {
                 continue;
             }
-            let order = k - 1 - usize::from(temperature);
+            // One coefficient, taken by the temperature term, leaves no order at all.
+            let Some(order) = (k - 1).checked_sub(usize::from(temperature)) else {
+                continue;
+            };
             // AICc needs n − k − 1 ≥ 1; an order needs that many distinct gain states.
             if k + 2 > n || order > options.max_order || order >= gains.len() {
                 continue;
