@@ -139,6 +139,7 @@ fn fit(case: &Case, rows: &[Exchange]) -> FitResult {
         cable_delay_ps: case.path.cable_delay_ps,
         atten_delay_ps_per_db: case.path.atten_delay_ps_per_db,
         reference_delay: case.reference.clone(),
+        applied_k_ps: None,
     };
     let mut f = Fitter::new(deembed, FitOptions::default());
     for r in rows {

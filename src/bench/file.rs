@@ -102,6 +102,10 @@ pub struct UnitFacts {
     pub max_input_dbm: f64,
     /// Lowest receive level worth measuring (near sensitivity).
     pub min_input_dbm: f64,
+    /// The K a range-reporting DUT removes before it reports (its factory calibration), when
+    /// neither the device nor its driver says.
+    #[serde(default)]
+    pub applied_k_ps: Option<f64>,
 }
 
 /// The reference unit: its calibrated K, and its level facts.
@@ -323,6 +327,13 @@ impl Bench {
     /// True when every role is served by the in-process simulated bench.
     pub fn is_simulated(&self) -> bool {
         self.roles.values().all(|r| r.address.starts_with("sim:"))
+    }
+
+    /// The K a range-reporting DUT removes before reporting, as the bench declares it
+    /// (`[dut] applied_k_ps`). A K the device reports itself takes precedence (the run records
+    /// it in its manifest).
+    pub fn applied_k_ps(&self) -> Option<f64> {
+        self.dut.applied_k_ps
     }
 
     /// Receive level at the DUT with the attenuator at `atten_db`.
@@ -634,6 +645,7 @@ impl Bench {
             tx_power_dbm: self.reference.tx_power_dbm,
             max_input_dbm: self.reference.max_input_dbm,
             min_input_dbm: self.reference.min_input_dbm,
+            applied_k_ps: None,
         }
     }
 }

@@ -177,6 +177,10 @@ pub struct FitArgs {
     /// the verification stages the manifest beside the file names, else none).
     #[arg(long, value_name = "STAGE")]
     pub verify_stage: Vec<String>,
+    /// The K (ps) a range-reporting device removed from its ranges (default: the one the
+    /// manifest beside the file recorded, else the bench's `[dut] applied_k_ps`).
+    #[arg(long, value_name = "PS")]
+    pub applied_k_ps: Option<f64>,
 }
 
 /// `taucal pairs`.

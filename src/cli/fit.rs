@@ -22,6 +22,7 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         reject_mad: DEFAULT_REJECT_MAD,
         verify_stages: Vec::new(),
         gain_states: None,
+        applied_k_ps: None,
     };
     let mut from = "default";
     if let Some(path) = &manifest_path {
@@ -31,6 +32,7 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         settings.reject_mad = m.fit.reject_mad;
         settings.verify_stages = m.fit.verify_stages;
         settings.gain_states = m.fit.gain_states;
+        settings.applied_k_ps = m.fit.applied_k_ps;
         from = "the run's manifest";
     }
     let mut reject_from = from;
@@ -67,6 +69,16 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
             settings.verify_stages.join(", ")
         }
     ));
+    if let Some(k) = args.applied_k_ps {
+        if !k.is_finite() {
+            return Err(
+                Diagnostic::plain(format!("--applied-k-ps {k} is not a finite number")).with_hint(
+                    "give the device's factory K in picoseconds, e.g. --applied-k-ps 2650",
+                ),
+            );
+        }
+        settings.applied_k_ps = Some(k);
+    }
     let bench = bench_arg::load(&args.bench)?;
     let fit = tabulate::fit_file(&args.exchanges, &bench, &settings)
         .map_err(|e| {
@@ -77,6 +89,18 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         })?
         .fit;
     let s = &fit.summary;
+    if s.rows_without_applied_k > 0 {
+        return Err(Diagnostic::plain(format!(
+            "{}: {} rows report a range, but the K the device removed from its ranges is not known, \
+             so they say nothing about its delay",
+            args.exchanges.display(),
+            s.rows_without_applied_k
+        ))
+        .with_hint(
+            "give it with --applied-k-ps PS, or declare `applied_k_ps` under `[dut]` in the bench \
+             file (the device's factory K, from its maker)",
+        ));
+    }
     if manifest_path.is_none() && args.verify_stage.is_empty() {
         // Nothing in the rows says which stage verified: a stage name is only a name.
         tracing::warn!(

@@ -166,6 +166,10 @@ pub struct FitInfo {
     /// The DUT's number of gain states, when the recipe gave it (unmeasured ones are modelled).
     #[serde(default)]
     pub gain_states: Option<u32>,
+    /// The K the DUT reported removing from its ranges (a range-reporting device that says);
+    /// absent when it did not say, and the bench or driver must.
+    #[serde(default)]
+    pub applied_k_ps: Option<f64>,
 }
 
 impl Default for FitInfo {
@@ -175,6 +179,7 @@ impl Default for FitInfo {
             verify_stages: Vec::new(),
             single_state: Vec::new(),
             gain_states: None,
+            applied_k_ps: None,
         }
     }
 }

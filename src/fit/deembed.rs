@@ -16,6 +16,9 @@ pub struct Deembed {
     pub atten_delay_ps_per_db: f64,
     /// The reference unit's calibrated K, constant or per reference gain state.
     pub reference_delay: PerGain,
+    /// The K a range-reporting DUT removed before reporting, added back to its ranges
+    /// (`RTT = 2d/c + K_app`); `None` when unknown, and then ranges cannot be used.
+    pub applied_k_ps: Option<f64>,
 }
 
 impl Deembed {
@@ -25,6 +28,15 @@ impl Deembed {
             cable_delay_ps: path.cable_delay_ps,
             atten_delay_ps_per_db: path.atten_delay_ps_per_db,
             reference_delay,
+            applied_k_ps: None,
+        }
+    }
+
+    /// The same de-embedding for a DUT that removed `applied_k_ps` from the ranges it reports.
+    pub fn with_applied_k(self, applied_k_ps: Option<f64>) -> Self {
+        Self {
+            applied_k_ps,
+            ..self
         }
     }
 
@@ -95,6 +107,7 @@ mod tests {
                 cable_delay_ps: cable,
                 atten_delay_ps_per_db: slope,
                 reference_delay: PerGain::Same(k_ref),
+                applied_k_ps: None,
             };
             let rtt = k_dut + 2.0 * (cable + slope * atten) + k_ref;
             let got = d.dut_k_ps(rtt, atten, None);

@@ -8,9 +8,10 @@
 //! Cells are (center frequency, bandwidth, DUT gain state as reported): near an AGC switch point
 //! one attenuation setting yields two gain states, so grouping by sweep point would mix them.
 
-use crate::data::Exchange;
+use crate::data::{Exchange, STATUS_OK};
 use crate::fit::cal_row::{CalRow, RowSource};
 use crate::fit::deembed::Deembed;
+use crate::fit::device_rtt::{timing, Timing};
 use crate::fit::drift::{DriftRow, TempBins};
 use crate::fit::rtt::{burst_offsets, corrected_rtt_from_counters_ps, rate_ratio};
 use crate::fit::stats::{cluster_robust_se, mad_scaled, mean, median, sample_sd, t975};
@@ -42,8 +43,13 @@ impl Default for FitOptions {
 pub struct FitSummary {
     /// Rows given to the fitter.
     pub rows_pushed: u64,
-    /// Rows not `ok`, missing a timestamp or the DUT gain, or giving a non-finite delay.
+    /// Rows not `ok`, missing a timing or the DUT gain, or giving a non-finite delay.
     pub rows_unusable: u64,
+    /// Usable rows timed by the device itself (a reported RTT, or a range with its applied K
+    /// added back) rather than by raw counters.
+    pub rows_device_rtt: u64,
+    /// Rows reporting a range whose applied K was not known (counted as unusable too).
+    pub rows_without_applied_k: u64,
     /// Usable rows whose reference gain state has no entry in the reference delay table.
     pub rows_without_reference: u64,
     /// Bursts with at least one usable exchange.
@@ -90,6 +96,15 @@ struct Sample {
     temp_c: f32,
 }
 
+/// A usable row the device timed itself: its delay needs no other row of the burst.
+struct Direct {
+    rtt_ps: f64,
+    atten_db: f64,
+    cell: CellKey,
+    ref_gain: Option<u32>,
+    temp_c: Option<f64>,
+}
+
 /// What one usable exchange contributes once its burst's clock ratio is known.
 struct Pending {
     t_ps: [u64; 4],
@@ -104,6 +119,11 @@ impl Pending {
     fn timed(&self) -> Timed {
         (self.t_ps, self.atten_db, self.ref_gain)
     }
+
+    /// Where its delay is filed: its cell, with its temperature.
+    fn filed(&self) -> (CellKey, Option<f64>) {
+        (self.cell, self.temp_c)
+    }
 }
 
 /// Streaming fitter: [`push`](Fitter::push) rows in file order, then [`finish`](Fitter::finish).
@@ -116,6 +136,8 @@ pub struct Fitter {
     options: FitOptions,
     current_burst: Option<BurstKey>,
     pending: Vec<Pending>,
+    /// The burst's rows the device timed itself.
+    direct: Vec<Direct>,
     /// Ratios of bursts that had their own estimate, for the fallback and the summary.
     ratios: Vec<f64>,
     cells: Cells,
@@ -177,12 +199,12 @@ impl Cells {
         })
     }
 
-    /// Files burst `burst_id`'s delays (aligned with its exchanges) under their cells, counting
-    /// those it cannot use.
+    /// Files burst `burst_id`'s delays (aligned with its exchanges' cells and temperatures)
+    /// under their cells, counting those it cannot use.
     fn file(
         &mut self,
         burst_id: u64,
-        exchanges: impl IntoIterator<Item = Pending>,
+        exchanges: impl IntoIterator<Item = (CellKey, Option<f64>)>,
         delays: &[Option<f64>],
         summary: &mut FitSummary,
     ) {
@@ -190,16 +212,16 @@ impl Cells {
         let burst = burst_id as u32;
         // The cell of the delay before, and where it is in `list`.
         let mut last: Option<(CellKey, usize)> = None;
-        for (p, &k) in exchanges.into_iter().zip(delays) {
+        for ((p_cell, p_temp_c), &k) in exchanges.into_iter().zip(delays) {
             match k {
                 None => summary.rows_without_reference += 1,
                 Some(k) if !k.is_finite() => summary.rows_unusable += 1,
                 Some(k) => {
                     let i = match last {
-                        Some((cell, i)) if cell == p.cell => i,
+                        Some((cell, i)) if cell == p_cell => i,
                         _ => {
-                            let i = self.slot(p.cell);
-                            last = Some((p.cell, i));
+                            let i = self.slot(p_cell);
+                            last = Some((p_cell, i));
                             i
                         }
                     };
@@ -207,7 +229,7 @@ impl Cells {
                     segment.samples.push(Sample {
                         k_ps: k,
                         burst: burst.wrapping_sub(segment.offset),
-                        temp_c: p.temp_c.map_or(f32::NAN, |t| t as f32),
+                        temp_c: p_temp_c.map_or(f32::NAN, |t| t as f32),
                     });
                 }
             }
@@ -248,6 +270,7 @@ impl Fitter {
             options,
             current_burst: None,
             pending: Vec::new(),
+            direct: Vec::new(),
             ratios: Vec::new(),
             cells: Cells::default(),
             burst: BurstBuffers::default(),
@@ -303,7 +326,7 @@ impl Fitter {
                 late_cells.extend(burst.exchanges.iter().map(|p| p.cell));
                 self.cells.file(
                     burst.burst_id + offset,
-                    burst.exchanges,
+                    burst.exchanges.iter().map(Pending::filed),
                     &delays,
                     &mut self.summary,
                 );
@@ -326,6 +349,8 @@ impl Fitter {
         let (mine, theirs) = (&mut self.summary, later.summary);
         mine.rows_pushed += theirs.rows_pushed;
         mine.rows_unusable += theirs.rows_unusable;
+        mine.rows_device_rtt += theirs.rows_device_rtt;
+        mine.rows_without_applied_k += theirs.rows_without_applied_k;
         mine.rows_without_reference += theirs.rows_without_reference;
         mine.bursts += theirs.bursts;
         mine.bursts_fallback_ratio += theirs.bursts_fallback_ratio;
@@ -336,6 +361,7 @@ impl Fitter {
         }
         self.current_burst = later.current_burst;
         self.pending = later.pending;
+        self.direct = later.direct;
     }
 
     /// Gives back the room the delays kept so far were growing into: for a fitter whose rows
@@ -363,16 +389,30 @@ impl Fitter {
             }
             self.current_burst = Some((x.stage.clone(), x.point, x.burst));
         }
-        let fields = (x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps, x.dut_gain);
-        match fields {
-            (Some(t1), Some(t2), Some(t3), Some(t4), Some(gain)) if x.is_usable() => {
+        let ok = x.status == STATUS_OK;
+        match (x.dut_gain, timing(x, self.deembed.applied_k_ps)) {
+            (Some(gain), Timing::Counters(t_ps)) if ok => {
                 self.pending.push(Pending {
-                    t_ps: [t1, t2, t3, t4],
+                    t_ps,
                     atten_db: x.atten_db,
                     cell: (x.center_mhz, x.bw_mhz, gain),
                     ref_gain: x.ref_gain,
                     temp_c: x.temp_c.filter(|t| t.is_finite()),
                 });
+            }
+            (Some(gain), Timing::Rtt(rtt_ps)) if ok => {
+                self.summary.rows_device_rtt += 1;
+                self.direct.push(Direct {
+                    rtt_ps,
+                    atten_db: x.atten_db,
+                    cell: (x.center_mhz, x.bw_mhz, gain),
+                    ref_gain: x.ref_gain,
+                    temp_c: x.temp_c.filter(|t| t.is_finite()),
+                });
+            }
+            (_, Timing::RangeWithoutK) if ok => {
+                self.summary.rows_without_applied_k += 1;
+                self.summary.rows_unusable += 1;
             }
             _ => self.summary.rows_unusable += 1,
         }
@@ -426,11 +466,25 @@ impl Fitter {
 
     /// Correct and de-embed the buffered burst and file its delays under their cells.
     fn close_burst(&mut self) {
-        if self.pending.is_empty() {
+        if self.pending.is_empty() && self.direct.is_empty() {
             return;
         }
         let burst_id = self.summary.bursts;
         self.summary.bursts += 1;
+        if !self.direct.is_empty() {
+            let delays = &mut self.burst.delays;
+            delays.clear();
+            delays.extend(
+                self.direct
+                    .iter()
+                    .map(|d| self.deembed.dut_k_ps(d.rtt_ps, d.atten_db, d.ref_gain)),
+            );
+            let filed = self.direct.drain(..).map(|d| (d.cell, d.temp_c));
+            self.cells.file(burst_id, filed, delays, &mut self.summary);
+            if self.pending.is_empty() {
+                return;
+            }
+        }
         let BurstBuffers {
             items,
             t1_t2,
@@ -458,8 +512,8 @@ impl Fitter {
             }
         };
         corrected_delays(&self.deembed, items, ratio, delays);
-        self.cells
-            .file(burst_id, self.pending.drain(..), delays, &mut self.summary);
+        let filed = self.pending.drain(..).map(|p| p.filed());
+        self.cells.file(burst_id, filed, delays, &mut self.summary);
     }
 }
 
@@ -489,22 +543,27 @@ fn corrected_delays(deembed: &Deembed, items: &[Timed], ratio: f64, delays: &mut
 /// one whose reference gain has no delay. Used where exchanges are judged one by one
 /// (verification) rather than pooled into cells.
 pub fn burst_delays(deembed: &Deembed, rows: &[Exchange], fallback_ratio: f64) -> Vec<Option<f64>> {
-    let usable: Vec<(usize, Timed)> = rows
-        .iter()
-        .enumerate()
-        .filter_map(|(i, x)| match (x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps) {
-            (Some(a), Some(b), Some(c), Some(d)) if x.is_usable() => {
-                Some((i, ([a, b, c, d], x.atten_db, x.ref_gain)))
+    let mut out = vec![None; rows.len()];
+    let mut counted: Vec<(usize, Timed)> = Vec::new();
+    for (i, x) in rows.iter().enumerate() {
+        if !x.is_usable() {
+            continue;
+        }
+        match timing(x, deembed.applied_k_ps) {
+            Timing::Counters(t) => counted.push((i, (t, x.atten_db, x.ref_gain))),
+            Timing::Rtt(rtt_ps) => {
+                out[i] = deembed
+                    .dut_k_ps(rtt_ps, x.atten_db, x.ref_gain)
+                    .filter(|k| k.is_finite());
             }
-            _ => None,
-        })
-        .collect();
-    let items: Vec<_> = usable.iter().map(|(_, it)| *it).collect();
+            Timing::RangeWithoutK | Timing::Missing => {}
+        }
+    }
+    let items: Vec<_> = counted.iter().map(|(_, it)| *it).collect();
     let ratio = own_ratio(&items, &mut Vec::new()).unwrap_or(fallback_ratio);
     let mut delays = Vec::new();
     corrected_delays(deembed, &items, ratio, &mut delays);
-    let mut out = vec![None; rows.len()];
-    for ((i, _), k) in usable.iter().zip(delays) {
+    for ((i, _), k) in counted.iter().zip(delays) {
         out[*i] = k.filter(|k| k.is_finite());
     }
     out
@@ -604,7 +663,6 @@ pub fn fit<'a>(
 mod tests {
     use super::*;
     use crate::bench::{PathFacts, PerGain};
-    use crate::data::STATUS_OK;
     use crate::fit::rtt::COUNTER_BITS;
 
     const MODULUS: i128 = 1 << COUNTER_BITS;
@@ -711,6 +769,111 @@ mod tests {
             }
         }
         (rows, outliers)
+    }
+
+    /// `x` as a device that does its own timing reports it: the true round trip (the
+    /// synthetic bench's closed form) as an RTT, or as a range with `applied_k_ps` removed.
+    fn device_timed(x: &Exchange, applied_k_ps: Option<f64>, late_ps: f64) -> Exchange {
+        let gain = x.dut_gain.expect("a gain") as usize;
+        let rtt_ps = 2.0 * (CABLE_PS + ATTEN_SLOPE_PS_PER_DB * x.atten_db)
+            + K_REF_PS
+            + K_DUT_PS[gain]
+            + late_ps;
+        let mut y = Exchange {
+            t1_ps: None,
+            t2_ps: None,
+            t3_ps: None,
+            t4_ps: None,
+            ..x.clone()
+        };
+        match applied_k_ps {
+            // d = c/2 · (RTT − K_app) (design §6), in mm.
+            Some(k) => y.range_mm = Some(crate::fit::rtt::range_m_from_rtt_ps(rtt_ps - k) * 1e3),
+            None => y.rtt_ps = Some(rtt_ps),
+        }
+        y
+    }
+
+    #[test]
+    fn rows_the_device_timed_give_the_table_counters_give() {
+        let (rows, _) = sweep(6, 10);
+        let stamps = fit(deembed(), FitOptions::default(), &rows);
+        // Every 37th exchange of the counter sweep was 20 ns late: the same here.
+        let late = |i: usize| if (i + 1) % 37 == 0 { 20_000.0 } else { 0.0 };
+        for applied in [None, Some(2_650.0), Some(-400.0)] {
+            let timed: Vec<Exchange> = rows
+                .iter()
+                .enumerate()
+                .map(|(i, x)| device_timed(x, applied, late(i)))
+                .collect();
+            let result = fit(
+                deembed().with_applied_k(applied),
+                FitOptions::default(),
+                &timed,
+            );
+            assert_eq!(result.rows.len(), 3, "{applied:?}");
+            for (got, want) in result.rows.iter().zip(&stamps.rows) {
+                // Truth of the synthetic bench, and the counters' own answer.
+                let truth = K_DUT_PS[got.gain_index as usize];
+                assert!((got.delay_ps - truth).abs() < 1e-6, "{applied:?}: {got:?}");
+                assert!((got.delay_ps - want.delay_ps).abs() < 0.5);
+                assert_eq!(got.n_rejected, want.n_rejected, "{applied:?}");
+                assert_eq!(got.n_bursts, 6);
+            }
+            let s = &result.summary;
+            assert_eq!((s.rows_device_rtt, s.rows_unusable), (180, 0));
+            assert_eq!(s.bursts, 18);
+            assert_eq!(s.bursts_fallback_ratio, 0);
+        }
+    }
+
+    #[test]
+    fn a_range_without_its_applied_k_is_counted_and_unused() {
+        let (rows, _) = sweep(2, 4);
+        let ranged: Vec<Exchange> = rows
+            .iter()
+            .map(|x| device_timed(x, Some(2_000.0), 0.0))
+            .collect();
+        let result = fit(deembed(), FitOptions::default(), &ranged);
+        assert!(result.rows.is_empty());
+        let s = &result.summary;
+        assert_eq!((s.rows_without_applied_k, s.rows_unusable), (24, 24));
+        // The same rows with the K given are all used; verification sees them the same way.
+        let d = deembed().with_applied_k(Some(2_000.0));
+        let delays = burst_delays(&d, &ranged[..4], 1.0);
+        for (x, k) in ranged[..4].iter().zip(delays) {
+            let truth = K_DUT_PS[x.dut_gain.unwrap() as usize];
+            assert!(k.is_some_and(|k| (k - truth).abs() < 1e-6), "{k:?}");
+        }
+        assert_eq!(burst_delays(&deembed(), &ranged[..4], 1.0), vec![None; 4]);
+    }
+
+    #[test]
+    fn one_row_per_burst_makes_each_burst_its_own_cluster() {
+        // Burst averages: one row per burst, 16 frames behind each, spread 3 ps between bursts.
+        let (rows, _) = sweep(12, 1);
+        let spread = [
+            2.0, -3.0, 1.0, 4.0, -2.0, 0.0, -4.0, 3.0, -1.0, 1.5, -0.5, 0.0,
+        ];
+        let averaged: Vec<Exchange> = rows
+            .iter()
+            .enumerate()
+            .map(|(i, x)| Exchange {
+                frames: 16,
+                ..device_timed(x, None, spread[i % 12])
+            })
+            .collect();
+        let result = fit(deembed(), FitOptions::default(), &averaged);
+        for row in &result.rows {
+            assert_eq!((row.n_used, row.n_bursts), (12, 12));
+            // With one sample per cluster the cluster-robust error is the plain s/√n (up to its
+            // small-sample factor √(G/(G−1))), on G − 1 = 11 degrees of freedom.
+            let s = crate::fit::stats::sample_sd(&spread).unwrap();
+            let plain = s / 12f64.sqrt();
+            let t = crate::fit::stats::t975(11.0).unwrap();
+            let ratio = row.ci95_ps / (t * plain);
+            assert!((0.99..=1.05).contains(&ratio), "{ratio}");
+        }
     }
 
     #[test]
@@ -923,6 +1086,7 @@ mod tests {
             cable_delay_ps: 0.0,
             atten_delay_ps_per_db: 0.0,
             reference_delay: PerGain::Same(0.0),
+            applied_k_ps: None,
         };
         let rows: Vec<Exchange> = (0..2u32)
             .flat_map(|burst| {

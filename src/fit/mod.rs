@@ -3,6 +3,7 @@
 pub mod cal_row;
 pub mod caltable;
 pub mod deembed;
+pub mod device_rtt;
 pub mod drift;
 pub mod fitter;
 pub mod gainmap;

@@ -43,6 +43,17 @@ pub enum RunError {
         /// 1-based exchange number.
         row: u64,
     },
+    /// The device changed how it reports (its form, or the K it removes from ranges).
+    #[error("device reports changed: {0}")]
+    ReportChanged(crate::runner::report_watch::ReportChange),
+    /// The device reports ranges, and neither it, its driver nor the bench says what K it
+    /// removed from them, so they cannot give the DUT's K.
+    #[error(
+        "the device reports ranges but not the K it removed from them; declare it as \
+         `applied_k_ps` under `[dut]` in the bench file (the device's factory K, from its maker), \
+         or use a driver whose device reports it"
+    )]
+    NoAppliedK,
     /// A script failed; the diagnostic points at its line.
     #[error("{0}")]
     Script(Box<Diagnostic>),

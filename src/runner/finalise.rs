@@ -63,6 +63,7 @@ pub fn finalise(
     manifest.skipped_points = recorded.skipped_points;
     manifest.fit.verify_stages = recorded.verify_stages.into_iter().map(|(n, _)| n).collect();
     manifest.fit.single_state = outputs.single_state;
+    manifest.fit.applied_k_ps = recorded.applied_k_ps;
     manifest.acceptance = acceptance;
     manifest.status = match &ended {
         Ok(()) => RunStatus::Completed,

@@ -13,6 +13,7 @@ pub mod journal;
 pub mod outputs;
 pub mod prepare;
 pub mod record;
+pub mod report_watch;
 pub mod request;
 pub mod resume;
 pub mod run;

@@ -51,6 +51,7 @@ pub fn fit_and_write(
             .map(|(n, _)| n.clone())
             .collect(),
         gain_states: plan.gain_states,
+        applied_k_ps: recorded.applied_k_ps,
     };
     let levels = &recorded.verify_stages;
     match tabulate::fit_file(&dir.join(files::EXCHANGES), bench, &settings) {

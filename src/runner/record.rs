@@ -4,6 +4,7 @@
 use super::connect::Connected;
 use super::journal::Journal;
 use super::prepare::Prepared;
+use super::report_watch::ReportWatch;
 use super::request::RunRequest;
 use super::{
     run_gain_map, run_soak, run_sweep, run_verify, RunError, RunEvent, RunObserver, Session,
@@ -32,6 +33,8 @@ pub struct Recorded {
     pub verify_stages: Vec<(String, f64)>,
     /// Gain maps found, by stage name.
     pub gain_maps: BTreeMap<String, (Channel, GainMap)>,
+    /// The K the device said it removes from the ranges it reports.
+    pub applied_k_ps: Option<f64>,
 }
 
 /// Runs the plan's stages on the connected instruments (none when `identified` is an error or
@@ -83,6 +86,7 @@ pub fn record(
     }
     if let Some(r) = &req.resume {
         s.set_replay(r.replay.clone(), prepared.simulated);
+        s.report_watch = ReportWatch::knowing_applied_k(r.manifest.fit.applied_k_ps);
     }
     s.set_observer(observer);
     let session = Rc::new(RefCell::new(s));
@@ -95,6 +99,7 @@ pub fn record(
         skipped_points: std::mem::take(&mut s.skipped_points),
         verify_stages: std::mem::take(&mut s.verify_stages),
         gain_maps: std::mem::take(&mut s.gain_maps),
+        applied_k_ps: s.report_watch.applied_k_ps(),
     };
     drop(s);
     drop(session);

@@ -3,6 +3,7 @@
 //! obey the same limits and number their records the same way.
 
 use super::journal::{Checkpoint, Journal};
+use super::report_watch::{ReportForm, ReportWatch};
 use super::{RunError, RunEvent, RunObserver, StopFlag, Unobserved};
 use crate::bench::Bench;
 use crate::clock::BenchClock;
@@ -87,6 +88,8 @@ pub struct Session {
     pub faults: BTreeMap<String, FaultTally>,
     /// Points skipped after their retries ran out, described.
     pub skipped_points: Vec<String>,
+    /// The DUT's report form and applied K so far.
+    pub report_watch: ReportWatch,
     observer: Box<dyn RunObserver>,
 }
 
@@ -128,6 +131,7 @@ impl Session {
             reject_mad: crate::recipe::plan::DEFAULT_REJECT_MAD,
             policy: FaultPolicy::default(),
             faults: BTreeMap::new(),
+            report_watch: ReportWatch::default(),
             skipped_points: Vec::new(),
             observer: Box::new(Unobserved),
         }
@@ -349,6 +353,9 @@ impl Session {
             temp_c,
             time_s,
         };
+        // Judged before the rows are made but acted on after they are written: a burst in a new
+        // form is kept, then stops the run.
+        let changed = self.report_watch.observe(&reported);
         let rows: Vec<Exchange> = reported
             .into_iter()
             .enumerate()
@@ -365,6 +372,14 @@ impl Session {
             self.check_replayed(&rows)?;
         }
         self.tally(&rows);
+        changed.map_err(RunError::ReportChanged)?;
+        let ranges = self.report_watch.form() == Some(ReportForm::Range);
+        if ranges
+            && self.report_watch.applied_k_ps().is_none()
+            && self.bench.applied_k_ps().is_none()
+        {
+            return Err(RunError::NoAppliedK);
+        }
         Ok(rows)
     }
 
@@ -422,18 +437,21 @@ impl Session {
         self.counts.exchanges += rows.len() as u64;
         if let Some(summary) = self.points.last_mut() {
             for r in rows {
-                let gain = r.dut_gain.filter(|_| r.status == STATUS_OK);
+                // A device without a gain index still completes exchanges.
+                let ok = r.status == STATUS_OK && r.is_timed();
+                let gain = r.dut_gain.filter(|_| ok);
                 count_step(&mut self.last_gain, gain, &mut summary.steps);
-                match gain {
-                    Some(g) => {
-                        *summary.ok_by_gain.entry(g).or_insert(0) += 1;
-                        if let Some(level) = r.dut_rssi_dbm {
-                            summary.rssi.push(level);
-                        }
-                        self.counts.exchanges_ok += 1;
-                    }
-                    None => summary.failed += 1,
+                if !ok {
+                    summary.failed += 1;
+                    continue;
                 }
+                if let Some(g) = gain {
+                    *summary.ok_by_gain.entry(g).or_insert(0) += 1;
+                }
+                if let Some(level) = r.dut_rssi_dbm {
+                    summary.rssi.push(level);
+                }
+                self.counts.exchanges_ok += 1;
             }
         }
         self.observer.event(&RunEvent::BurstRecorded {

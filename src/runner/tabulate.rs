@@ -23,6 +23,8 @@ pub struct FitSettings {
     pub verify_stages: Vec<String>,
     /// The DUT's number of gain states: unmeasured states get modelled rows.
     pub gain_states: Option<u32>,
+    /// The K a range-reporting DUT removed from its ranges; when `None`, the bench's.
+    pub applied_k_ps: Option<f64>,
 }
 
 /// The table, and the verification exchanges judged one by one.
@@ -62,7 +64,8 @@ fn fit_file_split_from(
     settings: &FitSettings,
     split_from: u64,
 ) -> Result<Tabulated, ReadError> {
-    let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
+    let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone())
+        .with_applied_k(settings.applied_k_ps.or(bench.applied_k_ps()));
     let options = FitOptions {
         reject_mad: settings.reject_mad,
     };
@@ -285,6 +288,7 @@ mod tests {
             reject_mad: 5.0,
             verify_stages: vec!["verify".into()],
             gain_states: Some(4),
+            applied_k_ps: None,
         };
         let one = fit_file_split_from(&path, &bench, &settings, u64::MAX).expect("fit");
         assert!(one.fit.summary.bursts_fallback_ratio >= 30);
@@ -323,6 +327,7 @@ mod tests {
             reject_mad: 5.0,
             verify_stages: Vec::new(),
             gain_states: None,
+            applied_k_ps: None,
         };
         let lines = text.lines().count();
         for bad_line in [10, lines - 10] {
