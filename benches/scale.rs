@@ -29,7 +29,7 @@ use taucal::wiring::connect;
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
 
 /// Bumped whenever the generator's output changes, so cached files are not reused.
-const GENERATOR_VERSION: u32 = 1;
+const GENERATOR_VERSION: u32 = 2;
 /// Exchanges per generated burst.
 const FRAMES: u32 = 16;
 /// Seed of the generated data's simulated bench.
@@ -178,6 +178,7 @@ fn generate(bench: &Bench, path: &Path, rows: u64) -> Result<(), Error> {
                     center_mhz: CENTER_MHZ,
                     bw_mhz,
                 };
+                let time_s = Some(bench_ps as f64 * 1e-12);
                 let outcome = sim.run_burst(bench_ps, &req);
                 bench_ps += outcome.duration_ps;
                 rows_of_burst.clear();
@@ -189,7 +190,7 @@ fn generate(bench: &Bench, path: &Path, rows: u64) -> Result<(), Error> {
                     center_mhz: CENTER_MHZ,
                     bw_mhz,
                     temp_c: sim.dut_temp_c(),
-                    time_s: None,
+                    time_s,
                 };
                 for (seq, x) in outcome.exchanges.into_iter().enumerate() {
                     rows_of_burst.push(Exchange::recorded(&at, seq as u32, x));

@@ -2,7 +2,7 @@
 
 use crate::support::{repo, Taucal};
 
-const EXCHANGES_HEADER: &str = "stage,point,burst,seq,atten_db,center_mhz,bw_mhz,t1_ps,t2_ps,t3_ps,t4_ps,dut_gain,dut_rssi_dbm,ref_gain,temp_c,status";
+const EXCHANGES_HEADER: &str = "stage,point,burst,seq,atten_db,center_mhz,bw_mhz,t1_ps,t2_ps,t3_ps,t4_ps,dut_gain,dut_rssi_dbm,ref_gain,temp_c,status,time_s,rtt_ps,range_mm,frames";
 const CALTABLE_HEADER: &str =
     "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source";
 

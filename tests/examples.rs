@@ -4,7 +4,7 @@
 //! `every_readme_block_is_run_by_a_test`.
 
 use crate::instruments::{in_process_exchanges, Server};
-use crate::support::{repo, root, Outcome, Taucal};
+use crate::support::{repo, root, without_bench_time, Outcome, Taucal};
 
 fn toml_files(dir: &str) -> Vec<String> {
     let mut files: Vec<String> = std::fs::read_dir(root().join(dir))
@@ -430,7 +430,7 @@ fn readme_served_run_records_the_in_process_exchanges() {
         .run();
     out.expect_code(0);
     assert!(
-        out.read("run/exchanges.csv") == in_process_exchanges(),
+        without_bench_time(&out.read("run/exchanges.csv")) == in_process_exchanges(),
         "served and in-process exchanges differ"
     );
 }

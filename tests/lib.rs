@@ -11,6 +11,7 @@ mod fuzz;
 mod gain_switch;
 mod instruments;
 mod plan_preview;
+mod record_version;
 mod report;
 mod science;
 mod script_limits;

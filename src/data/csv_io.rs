@@ -7,32 +7,13 @@
 use super::digits::{digits_value, short_decimal_prefix, ZEROS};
 use super::plain_line::LineParser;
 use super::record_split::{Record, Split, Splitter, TooLong, BLOCK};
+use super::record_version::{RecordVersion, EXCHANGES_COLUMNS, V1_COLUMNS};
 use super::row_batches::{set_label, Batches, Labels, RowSource};
 use super::{Exchange, TIMESTAMP_END_PS};
 use std::fs::File;
 use std::io::{self, BufWriter, Read};
 use std::path::Path;
 use thiserror::Error;
-
-/// The contract header of `exchanges.csv`.
-pub const EXCHANGES_HEADER: [&str; 16] = [
-    "stage",
-    "point",
-    "burst",
-    "seq",
-    "atten_db",
-    "center_mhz",
-    "bw_mhz",
-    "t1_ps",
-    "t2_ps",
-    "t3_ps",
-    "t4_ps",
-    "dut_gain",
-    "dut_rssi_dbm",
-    "ref_gain",
-    "temp_c",
-    "status",
-];
 
 /// Where recorded exchanges go: a CSV file in a run, a vector in tests.
 pub trait RecordSink {
@@ -42,6 +23,12 @@ pub trait RecordSink {
     /// Makes what was written durable (at point boundaries, before the journal says so).
     fn sync(&mut self) -> io::Result<()> {
         Ok(())
+    }
+
+    /// `row` as this sink keeps it, which is what reading it back gives (a file keeps what its
+    /// record version has columns for, bench time to the microsecond).
+    fn kept(&self, row: &Exchange) -> Exchange {
+        row.clone()
     }
 }
 
@@ -55,36 +42,56 @@ impl RecordSink for Vec<Exchange> {
 /// Writes `exchanges.csv`, flushing after every burst so a crash loses at most the burst under way.
 pub struct ExchangeWriter {
     inner: csv::Writer<BufWriter<File>>,
+    version: RecordVersion,
 }
 
 impl ExchangeWriter {
-    /// Opens an existing exchanges file to add rows after its last one (a resumed run).
+    /// Opens an existing exchanges file to add rows after its last one (a resumed run), in the
+    /// record version its header has: one file never mixes two versions' rows. A header that
+    /// is not one taucal writes is refused (kind `InvalidData`).
     pub fn append(path: &Path) -> io::Result<Self> {
+        let version = RecordVersion::of_file(path)?;
         let file = std::fs::OpenOptions::new().append(true).open(path)?;
         let inner = csv::WriterBuilder::new()
             .has_headers(false)
             .from_writer(BufWriter::new(file));
-        Ok(ExchangeWriter { inner })
+        Ok(ExchangeWriter { inner, version })
     }
 
-    /// Creates the file and writes the header.
+    /// Creates the file and writes the header of the current record version.
     pub fn create(path: &Path) -> io::Result<Self> {
+        ExchangeWriter::create_version(path, RecordVersion::CURRENT)
+    }
+
+    /// Creates the file and writes the header of record version `version` (a resumed run's
+    /// record, rewritten in its own version).
+    pub fn create_version(path: &Path, version: RecordVersion) -> io::Result<Self> {
         let file = File::create(path)?;
         let mut inner = csv::WriterBuilder::new()
             .has_headers(false)
             .from_writer(BufWriter::new(file));
         inner
-            .write_record(EXCHANGES_HEADER)
+            .write_record(version.columns())
             .map_err(io::Error::other)?;
         inner.flush()?;
-        Ok(ExchangeWriter { inner })
+        Ok(ExchangeWriter { inner, version })
+    }
+
+    /// The record version the file is written in.
+    pub fn version(&self) -> RecordVersion {
+        self.version
     }
 }
 
 impl RecordSink for ExchangeWriter {
     fn write_burst(&mut self, rows: &[Exchange]) -> io::Result<()> {
         for r in rows {
-            self.inner.serialize(r).map_err(io::Error::other)?;
+            writable(r, self.version)?;
+            match self.version {
+                RecordVersion::V1 => self.inner.serialize(v1_fields(r)),
+                RecordVersion::V2 => self.inner.serialize(r),
+            }
+            .map_err(io::Error::other)?;
         }
         self.inner.flush()
     }
@@ -93,6 +100,91 @@ impl RecordSink for ExchangeWriter {
         self.inner.flush()?;
         self.inner.get_ref().get_ref().sync_data()
     }
+
+    fn kept(&self, row: &Exchange) -> Exchange {
+        self.version.kept(row)
+    }
+}
+
+/// Version 1's columns of a row, in order.
+type V1Fields<'a> = (
+    &'a str,
+    u32,
+    u32,
+    u32,
+    f64,
+    u32,
+    u32,
+    Option<u64>,
+    Option<u64>,
+    Option<u64>,
+    Option<u64>,
+    Option<u32>,
+    Option<f64>,
+    Option<u32>,
+    Option<f64>,
+    &'a str,
+);
+
+/// Version 1's columns of `r`.
+fn v1_fields(r: &Exchange) -> V1Fields<'_> {
+    (
+        &r.stage,
+        r.point,
+        r.burst,
+        r.seq,
+        r.atten_db,
+        r.center_mhz,
+        r.bw_mhz,
+        r.t1_ps,
+        r.t2_ps,
+        r.t3_ps,
+        r.t4_ps,
+        r.dut_gain,
+        r.dut_rssi_dbm,
+        r.ref_gain,
+        r.temp_c,
+        &r.status,
+    )
+}
+
+/// Refuses (kind `InvalidData`) a row that a file of `version` could not give back: a value
+/// the reader refuses (not finite, no frame), or in version 1 a reported RTT, range or frame
+/// count, for which it has no column. Nothing of the burst is written then.
+fn writable(r: &Exchange, version: RecordVersion) -> io::Result<()> {
+    let refuse = |what: String| {
+        io::Error::new(
+            io::ErrorKind::InvalidData,
+            format!(
+                "stage `{}` point {} burst {} exchange {}: {what}",
+                r.stage, r.point, r.burst, r.seq
+            ),
+        )
+    };
+    for (name, value) in [
+        ("time_s", r.time_s),
+        ("rtt_ps", r.rtt_ps),
+        ("range_mm", r.range_mm),
+    ] {
+        if let Some(v) = value.filter(|v| !v.is_finite()) {
+            return Err(refuse(format!(
+                "{name} is {v}; only finite values are recorded (none at all: leave it empty)"
+            )));
+        }
+    }
+    if r.frames == 0 {
+        return Err(refuse("frames is 0; a row stands for 1 frame or more".into()));
+    }
+    if version == RecordVersion::V1
+        && (r.rtt_ps.is_some() || r.range_mm.is_some() || r.frames != 1)
+    {
+        return Err(refuse(
+            "the device reported an RTT, a range or a burst average, but this exchanges file \
+             is record version 1, which has no columns for them; start a new run to record them"
+                .into(),
+        ));
+    }
+    Ok(())
 }
 
 /// A bad row or header in an exchanges file.
@@ -162,8 +254,8 @@ struct RowReader<R> {
     split: Splitter<R>,
     /// Reads plain lines whole, as they are split.
     plain: LineParser,
-    /// Position in the record of each contract column, in `EXCHANGES_HEADER` order.
-    columns: [usize; EXCHANGES_HEADER.len()],
+    /// Position in the record of each contract column.
+    columns: Columns,
     name: String,
 }
 
@@ -180,15 +272,15 @@ impl<R: Read> RowReader<R> {
         };
         let mut split = Splitter::new(reader, block).map_err(header_error)?;
         let headers = split.header().map_err(header_error)?;
-        let mut columns = [0usize; EXCHANGES_HEADER.len()];
-        for (slot, wanted) in columns.iter_mut().zip(EXCHANGES_HEADER) {
-            *slot = headers
-                .iter()
-                .position(|h| h == wanted.as_bytes())
-                .ok_or_else(|| ReadError::MissingColumn {
-                    path: name.clone(),
-                    column: wanted.to_string(),
-                })?;
+        let columns = EXCHANGES_COLUMNS.map(|wanted| {
+            headers.iter().position(|h| h == wanted.as_bytes())
+        });
+        // Version 1's columns are in every file; later versions' are read where present.
+        if let Some(i) = columns[..V1_COLUMNS].iter().position(Option::is_none) {
+            return Err(ReadError::MissingColumn {
+                path: name.clone(),
+                column: EXCHANGES_COLUMNS[i].to_string(),
+            });
         }
         let plain = LineParser::new(&columns, headers.len());
         Ok(RowReader {
@@ -251,14 +343,14 @@ fn split_error(path: &str, e: &csv::Error) -> ReadError {
 /// record's line and the column.
 fn fill_record(
     record: &Record<'_>,
-    columns: &[usize; EXCHANGES_HEADER.len()],
+    columns: &Columns,
     path: &str,
     row: &mut Exchange,
 ) -> Result<(), ReadError> {
     fill(record, columns, row).map_err(|FieldError(i, message)| ReadError::Row {
         path: path.to_string(),
         line: record.line(),
-        message: format!("column {}: {message}", columns[i] + 1),
+        message: format!("column {}: {message}", columns[i].map_or(0, |c| c + 1)),
     })
 }
 
@@ -298,15 +390,16 @@ impl<R: Read> ExchangeRows<R> {
     }
 }
 
-/// Parses the contract columns of `record` into `row`.
-fn fill(
-    record: &Record<'_>,
-    columns: &[usize; EXCHANGES_HEADER.len()],
-    row: &mut Exchange,
-) -> Result<(), FieldError> {
+/// Where each contract column is in a file (in `EXCHANGES_COLUMNS` order); version 1's are
+/// always there.
+pub(super) type Columns = [Option<usize>; EXCHANGES_COLUMNS.len()];
+
+/// Parses the contract columns of `record` into `row`; a column the file lacks reads as an
+/// empty cell, and a missing `frames` as one frame.
+fn fill(record: &Record<'_>, columns: &Columns, row: &mut Exchange) -> Result<(), FieldError> {
     let f = |i: usize| Field {
         index: i,
-        bytes: record.field(columns[i]),
+        bytes: columns[i].map_or(&[][..], |c| record.field(c)),
     };
     f(0).text_into(&mut row.stage)?;
     row.point = f(1).uint::<u32>()?;
@@ -323,7 +416,15 @@ fn fill(
     row.dut_rssi_dbm = f(12).optional(Field::float)?;
     row.ref_gain = f(13).optional(Field::uint::<u32>)?;
     row.temp_c = f(14).optional(Field::float)?;
-    f(15).text_into(&mut row.status)
+    f(15).text_into(&mut row.status)?;
+    row.time_s = f(16).optional(|f| f.finite("time_s"))?;
+    row.rtt_ps = f(17).optional(|f| f.finite("rtt_ps"))?;
+    row.range_mm = f(18).optional(|f| f.finite("range_mm"))?;
+    row.frames = match columns[19] {
+        Some(_) => f(19).frames()?,
+        None => 1,
+    };
+    Ok(())
 }
 
 impl<R: Read> Iterator for ExchangeRows<R> {
@@ -399,6 +500,29 @@ impl Field<'_> {
             return Ok(v);
         }
         self.text()?.parse::<f64>().map_err(|e| self.fail(e))
+    }
+
+    /// A number a device reported in column `name`: finite (`NaN` and infinities are no
+    /// reading; an empty cell says "not reported").
+    fn finite(&self, name: &str) -> Result<f64, FieldError> {
+        let wanted = "a finite number, or an empty cell when not reported";
+        let value = self
+            .float()
+            .map_err(|FieldError(i, e)| FieldError(i, format!("{name}: {e}; {wanted}")))?;
+        if !value.is_finite() {
+            return Err(self.fail(format!("{name} is {value}; {wanted}")));
+        }
+        Ok(value)
+    }
+
+    /// Frames behind a row: a whole number, 1 or more.
+    fn frames(&self) -> Result<u32, FieldError> {
+        let wanted = "a whole number of frames, 1 or more";
+        match self.uint::<u32>() {
+            Ok(0) => Err(self.fail(format!("frames is 0; {wanted}"))),
+            Ok(n) => Ok(n),
+            Err(FieldError(i, e)) => Err(FieldError(i, format!("frames: {e}; {wanted}"))),
+        }
     }
 
     /// Empty cell = not reported.
@@ -478,6 +602,7 @@ impl Num for u64 {
 mod tests {
     use super::*;
     use crate::data::record_split::Trickle;
+    use crate::data::EXCHANGES_HEADER;
 
     fn row(seq: u32) -> Exchange {
         Exchange {
@@ -506,21 +631,219 @@ mod tests {
         let dir = tempfile::tempdir().expect("tempdir");
         let path = dir.path().join("exchanges.csv");
         let mut w = ExchangeWriter::create(&path).expect("create");
-        w.write_burst(&[row(0), row(1)]).expect("write");
+        assert_eq!(w.version(), RecordVersion::V2);
+        let reported = Exchange {
+            time_s: Some(3_723.000_000_4),
+            rtt_ps: Some(33_356.409_519_815_2),
+            range_mm: Some(-12.5),
+            frames: 16,
+            ..row(2)
+        };
+        w.write_burst(&[row(0), row(1), reported.clone()])
+            .expect("write");
         let text = std::fs::read_to_string(&path).expect("read");
+        let lines: Vec<&str> = text.lines().collect();
         assert_eq!(
-            text.lines().next(),
-            Some("stage,point,burst,seq,atten_db,center_mhz,bw_mhz,t1_ps,t2_ps,t3_ps,t4_ps,dut_gain,dut_rssi_dbm,ref_gain,temp_c,status")
+            lines[0],
+            "stage,point,burst,seq,atten_db,center_mhz,bw_mhz,t1_ps,t2_ps,t3_ps,t4_ps,dut_gain,\
+             dut_rssi_dbm,ref_gain,temp_c,status,time_s,rtt_ps,range_mm,frames"
         );
         assert_eq!(
-            text.lines().nth(1),
-            Some("sweep,1,0,0,17.25,5180,80,281474976710655,12,60000012,,2,-61.5,0,,lost")
+            lines[1],
+            "sweep,1,0,0,17.25,5180,80,281474976710655,12,60000012,,2,-61.5,0,,lost,,,,1"
+        );
+        // Bench time to the microsecond; reported values in their shortest exact spelling.
+        assert_eq!(
+            lines[3],
+            "sweep,1,0,2,17.25,5180,80,281474976710655,12,60000012,,2,-61.5,0,,lost,\
+             3723.000000,33356.4095198152,-12.5,16"
         );
         let back: Vec<Exchange> = read_exchanges(&path)
             .expect("open")
             .collect::<Result<_, _>>()
             .expect("rows");
-        assert_eq!(back, vec![row(0), row(1)]);
+        let want_time = Exchange {
+            time_s: Some(3_723.0),
+            ..reported.clone()
+        };
+        assert_eq!(back, vec![row(0), row(1), want_time.clone()]);
+        assert_eq!(w.kept(&reported), want_time);
+    }
+
+    #[test]
+    fn a_version_1_file_reads_as_not_reported_and_one_frame() {
+        // A version 1 file as taucal wrote it before version 2 (demo-data's first rows).
+        let text = format!(
+            "{}
+map,0,0,0,17.0,5180,80,113296642806436,22633002662398,22633062662398,\
+             113296702823930,0,-9.5,0,,ok\n",
+            EXCHANGES_HEADER.join(",")
+        );
+        let rows: Vec<Exchange> = read_from(text.as_bytes(), "e.csv".into())
+            .expect("header")
+            .collect::<Result<_, _>>()
+            .expect("rows");
+        assert_eq!(rows.len(), 1);
+        assert_eq!(rows[0].t4_ps, Some(113_296_702_823_930));
+        assert_eq!(
+            (rows[0].time_s, rows[0].rtt_ps, rows[0].range_mm, rows[0].frames),
+            (None, None, None, 1)
+        );
+        // A row read into a reused row of a version 2 file loses its earlier values.
+        let mut reused = Exchange {
+            time_s: Some(1.0),
+            rtt_ps: Some(2.0),
+            range_mm: Some(3.0),
+            frames: 4,
+            ..Exchange::default()
+        };
+        let quoted = text.replace(",ok\n", ",\"ok\"\n");
+        for text in [&text, &quoted] {
+            let mut rows = read_from(text.as_bytes(), "e.csv".into()).expect("header");
+            assert!(rows.read_into(&mut reused).expect("a row"));
+            assert_eq!(reused, rows_of(text)[0]);
+            assert_eq!(reused.frames, 1);
+        }
+    }
+
+    fn rows_of(text: &str) -> Vec<Exchange> {
+        read_from(text.as_bytes(), "e.csv".into())
+            .expect("header")
+            .collect::<Result<_, _>>()
+            .expect("rows")
+    }
+
+    #[test]
+    fn a_file_goes_on_in_its_own_version() {
+        let dir = tempfile::tempdir().expect("tempdir");
+        for version in [RecordVersion::V1, RecordVersion::V2] {
+            let path = dir.path().join(format!("v{}.csv", version.number()));
+            let timed = Exchange {
+                time_s: Some(0.5),
+                ..row(0)
+            };
+            ExchangeWriter::create_version(&path, version)
+                .expect("create")
+                .write_burst(&[timed.clone()])
+                .expect("write");
+            let mut w = ExchangeWriter::append(&path).expect("append");
+            assert_eq!(w.version(), version);
+            w.write_burst(&[Exchange {
+                time_s: Some(0.75),
+                ..row(1)
+            }])
+            .expect("write");
+            let text = std::fs::read_to_string(&path).expect("read");
+            let fields = version.columns().len();
+            assert_eq!(text.lines().count(), 3, "{text}");
+            assert!(
+                text.lines().all(|l| l.split(',').count() == fields),
+                "{text}"
+            );
+            let times: Vec<Option<f64>> = rows_of(&text).iter().map(|r| r.time_s).collect();
+            let want = match version {
+                RecordVersion::V1 => vec![None, None],
+                RecordVersion::V2 => vec![Some(0.5), Some(0.75)],
+            };
+            assert_eq!(times, want);
+        }
+        // What version 1 has no column for is refused, not dropped: nothing is written.
+        let v1 = dir.path().join("v1.csv");
+        let before = std::fs::read_to_string(&v1).expect("read");
+        let mut w = ExchangeWriter::append(&v1).expect("append");
+        for reported in [
+            Exchange {
+                rtt_ps: Some(1.0),
+                ..row(2)
+            },
+            Exchange {
+                frames: 8,
+                ..row(2)
+            },
+        ] {
+            let e = w.write_burst(&[row(3), reported]).expect_err("refused");
+            assert_eq!(e.kind(), io::ErrorKind::InvalidData);
+            assert!(e.to_string().contains("record version 1"), "{e}");
+        }
+        assert_eq!(std::fs::read_to_string(&v1).expect("read"), before);
+        // A header taucal does not write is not appended to.
+        let odd = dir.path().join("odd.csv");
+        std::fs::write(&odd, "status,stage\nok,sweep\n").expect("write");
+        let e = ExchangeWriter::append(&odd).err().expect("refused");
+        assert_eq!(e.kind(), io::ErrorKind::InvalidData);
+    }
+
+    #[test]
+    fn a_value_that_would_not_read_back_is_refused_by_the_writer() {
+        let dir = tempfile::tempdir().expect("tempdir");
+        let path = dir.path().join("e.csv");
+        let mut w = ExchangeWriter::create(&path).expect("create");
+        for (bad, words) in [
+            (
+                Exchange {
+                    rtt_ps: Some(f64::NAN),
+                    ..row(0)
+                },
+                "rtt_ps is NaN",
+            ),
+            (
+                Exchange {
+                    range_mm: Some(f64::NEG_INFINITY),
+                    ..row(0)
+                },
+                "range_mm is -inf",
+            ),
+            (
+                Exchange {
+                    time_s: Some(f64::INFINITY),
+                    ..row(0)
+                },
+                "time_s is inf",
+            ),
+            (
+                Exchange {
+                    frames: 0,
+                    ..row(0)
+                },
+                "frames is 0",
+            ),
+        ] {
+            let e = w.write_burst(&[bad]).expect_err("refused").to_string();
+            assert!(e.starts_with("stage `sweep` point 1 burst 0 exchange 0: "), "{e}");
+            assert!(e.contains(words), "{e}");
+        }
+        assert_eq!(rows_of(&std::fs::read_to_string(&path).expect("read")), []);
+    }
+
+    #[test]
+    fn bad_values_in_the_appended_columns_name_line_column_and_what_is_wanted() {
+        let header = EXCHANGES_COLUMNS.join(",");
+        let v1 = "sweep,0,0,0,1,5180,80,1,2,3,4,0,-40,0,,ok";
+        for (appended, column, words) in [
+            ("NaN,,,1", 17, "time_s is NaN; a finite number"),
+            ("1.5,inf,,1", 18, "rtt_ps is inf; a finite number"),
+            ("1.5,,-inf,1", 19, "range_mm is -inf; a finite number"),
+            ("1.5,,1e999,1", 19, "range_mm is inf; a finite number"),
+            ("1.5,x,,1", 18, "rtt_ps: invalid float literal; a finite number"),
+            ("1.5,,,0", 20, "frames is 0; a whole number of frames, 1 or more"),
+            ("1.5,,,", 20, "frames: cannot parse integer from empty string"),
+            ("1.5,,,-2", 20, "frames: invalid digit"),
+            ("1.5,,,1.0", 20, "frames: invalid digit"),
+            ("1.5,,,4294967296", 20, "frames: number too large"),
+        ] {
+            for quote in [false, true] {
+                let status = if quote { "\"ok\"" } else { "ok" };
+                let line = v1.replace(",ok", &format!(",{status}"));
+                let text = format!("{header}\n{v1}\n{line},{appended}\n");
+                let want = format!("e.csv:3: column {column}: {words}");
+                // The first line has too few fields for this header: read a good one first.
+                let text = text.replacen(&format!("{v1}\n"), &format!("{v1},,,,1\n"), 1);
+                let mut it = read_from(text.as_bytes(), "e.csv".into()).expect("header");
+                assert!(it.next().expect("a row").is_ok());
+                let err = it.next().expect("a row").unwrap_err().to_string();
+                assert!(err.starts_with(&want), "{err}\nwanted {want}");
+            }
+        }
     }
 
     #[test]
@@ -688,17 +1011,54 @@ mod tests {
         ],
     ];
 
-    /// One generated line from `picks`: the contract columns, possibly a field short, quoted
-    /// where a field needs it (and sometimes where it does not), ended by LF, CR LF, a blank
-    /// line after it, or nothing. One line in four has odd spellings in a third of its fields;
-    /// the rest are spelt as taucal writes them.
-    fn generated_line(picks: &[u8], reversed: bool) -> String {
-        let odd_line = picks[16] % 4 == 0;
+    const SECONDS: [&[&str]; 2] = [
+        &["", "0.000000", "12.345678", "86399.999999", "3723.5"],
+        &[
+            "1e3",
+            "-0.5",
+            "NaN",
+            "inf",
+            "x",
+            "12345678901234567.5",
+            "+1.0",
+            "1.",
+        ],
+    ];
+    const REALS: [&[&str]; 2] = [
+        &["", "33356.4095198152", "-12.5", "0", "1234567.8901234567"],
+        &["NaN", "-inf", "1e999", "1.5e3", "x", ".5", "--1", "-0.0"],
+    ];
+    const FRAMES: [&[&str]; 2] = [
+        &["1", "16", "1024", "4294967295"],
+        &["0", "", "-1", "4294967296", "1.0", "x", "00", "+3", "007"],
+    ];
+
+    /// Picks a generated line takes: one per contract column, then the line's oddness, its
+    /// quoting and its end.
+    const PICKS: usize = 23;
+    const ODD: usize = 20;
+    const QUOTING: usize = 21;
+    const END: usize = 22;
+
+    /// The shape of a generated file's header.
+    #[derive(Debug, Clone, Copy)]
+    struct Shape {
+        version: RecordVersion,
+        /// An extra column first, then the contract's in reverse order.
+        reversed: bool,
+    }
+
+    /// One generated line from `picks`: the contract columns of `shape`, possibly a field
+    /// short, quoted where a field needs it (and sometimes where it does not), ended by LF,
+    /// CR LF, a blank line after it, or nothing. One line in four has odd spellings in a third
+    /// of its fields; the rest are spelt as taucal writes them.
+    fn generated_line(picks: &[u8], shape: Shape) -> String {
+        let odd_line = picks[ODD] % 4 == 0;
         let pick = |i: usize, kind: &[&[&'static str]; 2]| {
             let from = kind[usize::from(odd_line && picks[i] % 3 == 0)];
             from[usize::from(picks[i] / 3) % from.len()]
         };
-        let mut fields: Vec<String> = [
+        let all = [
             pick(0, &LABELS),
             pick(1, &COUNTS),
             pick(2, &COUNTS),
@@ -715,39 +1075,44 @@ mod tests {
             pick(13, &COUNTS),
             pick(14, &DECIMALS),
             pick(15, &LABELS),
-        ]
-        .iter()
-        .enumerate()
-        .map(|(i, &value)| {
-            if value.contains([',', '"', '\r']) || picks[17] % 61 == i as u8 {
-                format!("\"{}\"", value.replace('"', "\"\""))
-            } else {
-                value.to_string()
-            }
-        })
-        .collect();
-        if reversed {
+            pick(16, &SECONDS),
+            pick(17, &REALS),
+            pick(18, &REALS),
+            pick(19, &FRAMES),
+        ];
+        let mut fields: Vec<String> = all[..shape.version.columns().len()]
+            .iter()
+            .enumerate()
+            .map(|(i, &value)| {
+                if value.contains([',', '"', '\r']) || picks[QUOTING] % 61 == i as u8 {
+                    format!("\"{}\"", value.replace('"', "\"\""))
+                } else {
+                    value.to_string()
+                }
+            })
+            .collect();
+        if shape.reversed {
             fields.push("note".into());
             fields.reverse();
         }
-        if picks[17] % 37 == 36 {
+        if picks[QUOTING] % 37 == 36 {
             fields.pop();
         }
-        let end = ["\n", "\r\n", "\n", "\r\n", "\n\n", ""][usize::from(picks[18]) % 6];
+        let end = ["\n", "\r\n", "\n", "\r\n", "\n\n", ""][usize::from(picks[END]) % 6];
         fields.join(",") + end
     }
 
-    /// A generated file: the header (the contract's order, or reversed after an extra column)
-    /// and a line per pick list; the last line may lack its line end.
-    fn generated_file(lines: &[Vec<u8>], reversed: bool) -> String {
-        let mut header: Vec<&str> = EXCHANGES_HEADER.to_vec();
-        if reversed {
+    /// A generated file: the header (a version's columns in order, or reversed after an extra
+    /// column) and a line per pick list; the last line may lack its line end.
+    fn generated_file(lines: &[Vec<u8>], shape: Shape) -> String {
+        let mut header: Vec<&str> = shape.version.columns().to_vec();
+        if shape.reversed {
             header.push("note");
             header.reverse();
         }
         let mut text = header.join(",") + "\n";
         for (i, picks) in lines.iter().enumerate() {
-            let line = generated_line(picks, reversed);
+            let line = generated_line(picks, shape);
             // A line without its end is only the last.
             if line.ends_with('\n') || i + 1 == lines.len() {
                 text.push_str(&line);
@@ -777,12 +1142,8 @@ mod tests {
     fn reference_outcomes(text: &str) -> Vec<Result<String, String>> {
         let mut rdr = csv::Reader::from_reader(text.as_bytes());
         let headers = rdr.byte_headers().expect("header").clone();
-        let columns = EXCHANGES_HEADER.map(|wanted| {
-            headers
-                .iter()
-                .position(|h| h == wanted.as_bytes())
-                .expect("contract column")
-        });
+        let columns =
+            EXCHANGES_COLUMNS.map(|wanted| headers.iter().position(|h| h == wanted.as_bytes()));
         let (mut record, mut joined, mut starts) = (csv::ByteRecord::new(), vec![], vec![]);
         let mut row = Exchange::default();
         let mut out = Vec::new();
@@ -823,15 +1184,18 @@ mod tests {
 
         #[test]
         fn reads_every_file_as_the_csv_crate_and_the_field_reader_do(
-            lines in proptest::collection::vec(proptest::collection::vec(0u8..=255, 19), 0..40),
+            lines in proptest::collection::vec(proptest::collection::vec(0u8..=255, PICKS), 0..40),
             reversed in proptest::bool::weighted(0.2),
+            v1 in proptest::bool::weighted(0.4),
             block in 1usize..200,
             step in 1usize..64,
         ) {
             // The csv crate's reader is the reference for splitting, and the field-by-field
             // reader (every spelling serde's csv reader accepts, every error it names) for
-            // values: rows to the bit and errors word for word, whichever way the file is read.
-            let text = generated_file(&lines, reversed);
+            // values: rows to the bit and errors word for word, whichever way the file is read,
+            // in either record version.
+            let version = if v1 { RecordVersion::V1 } else { RecordVersion::V2 };
+            let text = generated_file(&lines, Shape { version, reversed });
             let want = reference_outcomes(&text);
             proptest::prop_assert_eq!(&outcomes(read_here(&text, block, step)), &want);
             proptest::prop_assert_eq!(&outcomes(read_here(&text, BLOCK, BLOCK)), &want);
@@ -891,19 +1255,23 @@ mod tests {
     fn a_file_read_from_disk_matches_the_reference() {
         // The csv crate's reader and the field-by-field reader are the reference; the file goes
         // through `read_exchanges` (its own thread, the real block size).
-        // Pick 16 makes every line plain, pick 17 keeps every field unquoted and present.
-        let lines: Vec<Vec<u8>> = (0..3000u32)
+        // Pick ODD makes every line plain, pick QUOTING keeps every field unquoted and present.
+        let lines: Vec<Vec<u8>> = (0..3000usize)
             .map(|i| {
-                (0..19u32)
+                (0..PICKS)
                     .map(|j| match j {
-                        16 => 1,
-                        17 => 60,
+                        ODD => 1,
+                        QUOTING => 60,
                         _ => (i * 7 + j * 13) as u8,
                     })
                     .collect()
             })
             .collect();
-        let text = generated_file(&lines, false);
+        let shape = Shape {
+            version: RecordVersion::CURRENT,
+            reversed: false,
+        };
+        let text = generated_file(&lines, shape);
         let dir = tempfile::tempdir().expect("tempdir");
         let path = dir.path().join("e.csv");
         std::fs::write(&path, &text).expect("write");
@@ -917,6 +1285,58 @@ mod tests {
                 got.as_ref().map_err(|e| e.replace(&name, "e.csv")),
                 want.as_ref().map_err(String::clone)
             );
+        }
+    }
+
+    /// A row with any values taucal may record: any finite reported numbers, any frame count.
+    fn any_row() -> impl proptest::strategy::Strategy<Value = Exchange> {
+        use proptest::prelude::*;
+        let finite = || proptest::num::f64::NORMAL | proptest::num::f64::SUBNORMAL | proptest::num::f64::ZERO;
+        (
+            (0u32..5, 0u32..400, 0u32..64, -20.0f64..120.0),
+            proptest::option::of(0u64..(1 << 48)),
+            proptest::option::of(0.0f64..1e7),
+            proptest::option::of(finite()),
+            proptest::option::of(finite()),
+            1u32..=u32::MAX,
+        )
+            .prop_map(|((point, burst, seq, temp), t1, time_s, rtt_ps, range_mm, frames)| Exchange {
+                point,
+                burst,
+                seq,
+                t1_ps: t1,
+                temp_c: Some(temp),
+                time_s,
+                rtt_ps,
+                range_mm,
+                frames,
+                ..row(seq)
+            })
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(256))]
+
+        #[test]
+        fn rows_written_read_back_as_their_version_keeps_them(
+            rows in proptest::collection::vec(any_row(), 1..20),
+        ) {
+            // Reference: `RecordVersion::kept`, the stated resolution (bench time to the
+            // microsecond, every other value exactly, to the bit).
+            let dir = tempfile::tempdir().expect("tempdir");
+            let path = dir.path().join("e.csv");
+            let mut w = ExchangeWriter::create(&path).expect("create");
+            w.write_burst(&rows).expect("write");
+            drop(w);
+            let back = rows_of(&std::fs::read_to_string(&path).expect("read"));
+            let want: Vec<Exchange> = rows.iter().map(|r| RecordVersion::V2.kept(r)).collect();
+            proptest::prop_assert_eq!(format!("{back:?}"), format!("{want:?}"));
+            for (got, row) in back.iter().zip(&rows) {
+                proptest::prop_assert_eq!(got.rtt_ps.map(f64::to_bits), row.rtt_ps.map(f64::to_bits));
+                proptest::prop_assert_eq!(got.range_mm.map(f64::to_bits), row.range_mm.map(f64::to_bits));
+                let (got_t, row_t) = (got.time_s.unwrap_or(0.0), row.time_s.unwrap_or(0.0));
+                proptest::prop_assert!((got_t - row_t).abs() <= 0.5e-6 * (1.0 + 1e-9), "{} vs {}", got_t, row_t);
+            }
         }
     }
 }

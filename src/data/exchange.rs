@@ -98,23 +98,30 @@ pub struct Exchange {
     pub temp_c: Option<f64>,
     /// `ok` or a short error label.
     pub status: String,
-    /// Bench time of the exchange or burst, seconds since the run began (empty in version 1).
-    #[serde(skip)]
+    /// Bench time of the exchange or burst, seconds since the run began (empty in version 1);
+    /// written to the microsecond.
+    #[serde(serialize_with = "bench_time")]
     pub time_s: Option<f64>,
     /// Round-trip time the device reported itself, ps (empty when it gave timestamps).
-    #[serde(skip)]
     pub rtt_ps: Option<f64>,
     /// Distance the device reported, mm, its applied K removed (empty unless it reports range).
-    #[serde(skip)]
     pub range_mm: Option<f64>,
-    /// Frames behind the row: 1 for a per-exchange row.
-    #[serde(skip, default = "one_frame")]
+    /// Frames behind the row: 1 for a per-exchange row (and for every row of version 1).
+    #[serde(default = "one_frame")]
     pub frames: u32,
 }
 
-/// What a version-1 row stands for: one exchange.
+/// A row of a file without `frames` stands for one exchange.
 fn one_frame() -> u32 {
     1
+}
+
+/// Bench time as `exchanges.csv` holds it: to the microsecond, which a short decimal spells.
+fn bench_time<S: serde::Serializer>(time_s: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
+    match time_s {
+        Some(t) => s.serialize_str(&super::record_version::time_text(*t)),
+        None => s.serialize_none(),
+    }
 }
 
 impl Default for Exchange {

@@ -233,6 +233,15 @@ pub struct Manifest {
     /// Points skipped after their retries ran out.
     #[serde(default)]
     pub skipped_points: Vec<String>,
+    /// Record version of the run's `exchanges.csv` (see
+    /// [`RecordVersion`](super::RecordVersion)); a manifest without it is of a version 1 run.
+    #[serde(default = "version_one")]
+    pub record_version: u32,
+}
+
+/// Runs recorded before the manifest said otherwise wrote record version 1.
+fn version_one() -> u32 {
+    1
 }
 
 impl Manifest {

@@ -6,8 +6,10 @@
 //! way is declined and left to the splitter and the field-by-field reader, which read it to the
 //! same values (they accept every spelling read here, to the same bits) or to the error.
 
+use super::csv_io::Columns;
 use super::digits::{digits_value, short_decimal_prefix, ZEROS};
 use super::record_split::{below_dash, word_at};
+use super::record_version::V1_COLUMNS;
 use super::{Exchange, TIMESTAMP_END_PS};
 
 /// The high bit of every byte of a word.
@@ -49,10 +51,14 @@ enum Slot {
     RefGain,
     Temp,
     Status,
+    Time,
+    Rtt,
+    Range,
+    Frames,
 }
 
-/// The contract columns' fields, in `EXCHANGES_HEADER` order.
-const CONTRACT: [Slot; 16] = [
+/// The contract columns' fields, in `EXCHANGES_COLUMNS` order.
+const CONTRACT: [Slot; 20] = [
     Slot::Stage,
     Slot::Point,
     Slot::Burst,
@@ -69,14 +75,29 @@ const CONTRACT: [Slot; 16] = [
     Slot::RefGain,
     Slot::Temp,
     Slot::Status,
+    Slot::Time,
+    Slot::Rtt,
+    Slot::Range,
+    Slot::Frames,
 ];
+
+/// The order of a file's columns.
+#[derive(Clone, Copy, PartialEq)]
+enum Order {
+    /// Version 1's, exactly, as taucal wrote them.
+    V1,
+    /// Version 2's, exactly, as taucal writes them.
+    V2,
+    /// Any other.
+    Other,
+}
 
 /// Reads plain lines of one file, whose header fixed the columns.
 pub(crate) struct LineParser {
     /// What each column of the file holds, in the file's order.
     slots: Vec<Slot>,
-    /// The columns are the contract's, in its order, as taucal writes them.
-    contract_order: bool,
+    /// Whether the columns are a version's, in its order, as taucal writes them.
+    order: Order,
     /// The stage and status of the line read last: kept here, not written into the row, as the
     /// next line most often repeats them.
     labels: Labels,
@@ -107,14 +128,29 @@ impl Labels {
 }
 
 impl LineParser {
-    /// `columns[i]` is the file column of contract column `i`; the header has `fields` columns.
-    pub(crate) fn new(columns: &[usize; CONTRACT.len()], fields: usize) -> Self {
+    /// `columns[i]` is the file column of contract column `i`, if the file has it; the header
+    /// has `fields` columns.
+    pub(crate) fn new(columns: &Columns, fields: usize) -> Self {
         let mut slots = vec![Slot::Other; fields];
-        for (&slot, &column) in CONTRACT.iter().zip(columns) {
-            slots[column] = slot;
+        for (&slot, column) in CONTRACT.iter().zip(columns) {
+            if let Some(&column) = column.as_ref() {
+                slots[column] = slot;
+            }
         }
+        // The first `n` contract columns, in order, and nothing else.
+        let in_order = |n: usize| {
+            let first_n = (0..n).map(Some).chain(std::iter::repeat_n(None, columns.len() - n));
+            fields == n && columns.iter().copied().eq(first_n)
+        };
+        let order = if in_order(V1_COLUMNS) {
+            Order::V1
+        } else if in_order(CONTRACT.len()) {
+            Order::V2
+        } else {
+            Order::Other
+        };
         LineParser {
-            contract_order: fields == CONTRACT.len() && columns.iter().copied().eq(0..fields),
+            order,
             slots,
             labels: Labels::default(),
         }
@@ -136,7 +172,11 @@ impl LineParser {
     /// partly written. `bytes` must hold eight bytes or more after every byte up to the line's
     /// end.
     pub(crate) fn parse(&mut self, bytes: &[u8], from: usize, row: &mut Exchange) -> Option<usize> {
-        if self.contract_order {
+        if self.order != Order::V2 {
+            // Appended columns a file lacks read as empty, and a row as one frame.
+            not_reported(row);
+        }
+        if self.order != Order::Other {
             return self.read_in_contract_order(bytes, from, row);
         }
         let mut at = from;
@@ -162,14 +202,18 @@ impl LineParser {
                 Slot::RefGain => optional(bytes, at, &mut row.ref_gain, small)?,
                 Slot::Temp => optional(bytes, at, &mut row.temp_c, float)?,
                 Slot::Status => self.labels.read_status(bytes, at)?,
+                Slot::Time => optional(bytes, at, &mut row.time_s, float)?,
+                Slot::Rtt => optional(bytes, at, &mut row.rtt_ps, float)?,
+                Slot::Range => optional(bytes, at, &mut row.range_mm, float)?,
+                Slot::Frames => frames(bytes, at, &mut row.frames)?,
             };
         }
         Some(at)
     }
 
-    /// [`parse`](LineParser::parse) for the contract's columns in its order, spelt out: the
-    /// loop jumps through a table for every field, and the reading thread took about a tenth
-    /// more instructions with it (callgrind).
+    /// [`parse`](LineParser::parse) for a version's columns in its order, spelt out: the loop
+    /// jumps through a table for every field, and the reading thread took about a tenth more
+    /// instructions with it (callgrind).
     fn read_in_contract_order(
         &mut self,
         bytes: &[u8],
@@ -191,8 +235,29 @@ impl LineParser {
         let at = optional(bytes, after_comma(bytes, at)?, &mut row.dut_rssi_dbm, float)?;
         let at = optional(bytes, after_comma(bytes, at)?, &mut row.ref_gain, small)?;
         let at = optional(bytes, after_comma(bytes, at)?, &mut row.temp_c, float)?;
-        self.labels.read_status(bytes, after_comma(bytes, at)?)
+        let at = self.labels.read_status(bytes, after_comma(bytes, at)?)?;
+        if self.order == Order::V1 {
+            return Some(at);
+        }
+        let at = optional(bytes, after_comma(bytes, at)?, &mut row.time_s, float)?;
+        let at = optional(bytes, after_comma(bytes, at)?, &mut row.rtt_ps, float)?;
+        let at = optional(bytes, after_comma(bytes, at)?, &mut row.range_mm, float)?;
+        frames(bytes, after_comma(bytes, at)?, &mut row.frames)
     }
+}
+
+/// The appended fields of a row whose file has no column for them: not reported, one frame.
+fn not_reported(row: &mut Exchange) {
+    row.time_s = None;
+    row.rtt_ps = None;
+    row.range_mm = None;
+    row.frames = 1;
+}
+
+/// Frames behind a row: 1 or more (the field reader names 0 as an error).
+fn frames(bytes: &[u8], at: usize, out: &mut u32) -> Option<usize> {
+    let end = small(bytes, at, out)?;
+    (*out > 0).then_some(end)
 }
 
 /// Where the next field starts, if a comma is at `at`.

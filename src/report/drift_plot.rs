@@ -1,12 +1,36 @@
 //! Plots over bench time: each burst's median K per gain state (drift), and the temperature
 //! the bench reported with it.
 //!
-//! Bench time comes from the reference's departure counter, unwrapped; spans longer than the
-//! counter's 281 s wrap between two exchanges fold, so long pauses look shorter than they were.
+//! Bench time is each burst's `time_s` where the record has it (version 2): the bench clock,
+//! settle waits and pauses included. Older records have only the reference's departure counter,
+//! unwrapped; it runs only while exchanges do in a simulated bench, and a span longer than the
+//! counter's 281 s wrap between two exchanges folds, so pauses look shorter than they were.
 
 use super::svg;
 use super::{BurstPoint, ReportData, ReportError};
 use plotters::prelude::*;
+
+/// Where a report's bench time comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum BenchTime {
+    /// The rows' `time_s`, as the bench clock recorded it.
+    Recorded,
+    /// The reference's departure counter, unwrapped (records without `time_s`).
+    Counter,
+}
+
+impl BenchTime {
+    /// Where the time comes from, as the drift plot's caption says it.
+    pub fn source(self) -> &'static str {
+        match self {
+            BenchTime::Recorded => "as the bench clock recorded it",
+            BenchTime::Counter => {
+                "from the reference's timestamps (a pause longer than the counter's 281 s wrap \
+                 would fold)"
+            }
+        }
+    }
+}
 
 /// Seconds, or minutes when the run is long enough to read better in them.
 fn time_axis(points: &[BurstPoint]) -> (f64, &'static str) {

@@ -338,8 +338,11 @@ fn plots(page: &mut String, data: &ReportData) -> Result<(), ReportError> {
         "plot-drift",
         "Exchanges over bench time",
         drift_plot::drift_svg(data)?,
-        "Each burst's median K per gain state against bench time, from the reference's timestamps \
-         (a pause longer than the counter's 281 s wrap would fold); hollow: verification bursts.",
+        &format!(
+            "Each burst's median K per gain state against bench time, {}; hollow: verification \
+             bursts.",
+            data.bench_time.source()
+        ),
         "No burst carried enough exchanges to estimate its clock rate.",
     );
     figure(

@@ -1,6 +1,7 @@
 //! The loader: a run directory (and the bench it ran on) into a [`ReportData`]. All file reading
 //! for the report happens here, so the plots and the page are pure functions of the data.
 
+use super::drift_plot::BenchTime;
 use super::{BurstPoint, CellSpread, GainMapRow, LevelGains, ReportData, ReportError, VerifyPoint};
 use crate::bench::Bench;
 use crate::data::run_dir::files;
@@ -46,7 +47,7 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
     let verify = optional_csv::<VerifyPoint>(dir, files::VERIFY, &mut absent)?;
 
     let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
-    let times = bench_times_s(&rows);
+    let (times, bench_time) = bench_times_s(&rows);
     let mut cells: BTreeMap<(u32, u32, u32), Vec<f64>> = BTreeMap::new();
     let mut bursts = Vec::new();
     for (range, is_fit) in burst_ranges(&rows, &manifest.fit.verify_stages) {
@@ -100,6 +101,7 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
         verify,
         cells,
         bursts,
+        bench_time,
         levels: level_gains(&rows, bench),
         absent,
     })
@@ -159,10 +161,20 @@ fn burst_ranges(
     out
 }
 
+/// Bench time of each exchange, and where it came from: the rows' own `time_s` where the
+/// record has it (version 2), else the reference's counter (see [`counter_times_s`]).
+fn bench_times_s(rows: &[Exchange]) -> (Vec<Option<f64>>, BenchTime) {
+    if rows.iter().any(|x| x.time_s.is_some()) {
+        (rows.iter().map(|x| x.time_s).collect(), BenchTime::Recorded)
+    } else {
+        (counter_times_s(rows), BenchTime::Counter)
+    }
+}
+
 /// Bench time of each exchange, seconds since the first: the reference's departure counter t1,
 /// unwrapped. The counter only moves forward, so each step is the forward distance modulo 2^48;
 /// a pause longer than one wrap (281 s) between two exchanges would fold, which the report says.
-fn bench_times_s(rows: &[Exchange]) -> Vec<Option<f64>> {
+fn counter_times_s(rows: &[Exchange]) -> Vec<Option<f64>> {
     let modulus = 1u64 << COUNTER_BITS;
     let mut last: Option<u64> = None;
     let mut elapsed_ps: u64 = 0;
@@ -197,4 +209,55 @@ fn level_gains(rows: &[Exchange], bench: &Bench) -> Vec<LevelGains> {
             counts,
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A row of burst `burst` whose reference departed at counter `t1_ps`, recorded at bench
+    /// time `time_s` where given.
+    fn row(burst: u32, t1_ps: u64, time_s: Option<f64>) -> Exchange {
+        Exchange {
+            stage: "sweep".into(),
+            burst,
+            t1_ps: Some(t1_ps),
+            time_s,
+            ..Exchange::default()
+        }
+    }
+
+    #[test]
+    fn recorded_bench_time_is_the_axis_where_the_counter_misses_a_settle_wait() {
+        // Two bursts 1 ms apart on the reference's counter, with a 2 s settle wait between
+        // them that the counter did not see: the recorded bench time keeps the wait.
+        let rows = [
+            row(0, 5_000_000_000, Some(0.25)),
+            row(0, 5_001_000_000, Some(0.25)),
+            row(1, 5_002_000_000, Some(2.26)),
+        ];
+        let (times, source) = bench_times_s(&rows);
+        assert_eq!(source, BenchTime::Recorded);
+        assert_eq!(times, vec![Some(0.25), Some(0.25), Some(2.26)]);
+    }
+
+    #[test]
+    fn a_record_without_bench_time_falls_back_to_the_unwrapped_counter() {
+        // Known answer: 48-bit counters (IEEE 802.11-2016 FTM TOD/TOA fields) wrap at 2^48 ps;
+        // 1 ps before the wrap to 2 ps after it is 3 ps, and 10^12 ps is 1 s.
+        let wrap = 1u64 << 48;
+        let rows = [
+            row(0, wrap - 1, None),
+            row(0, 2, None),
+            row(1, 1_000_000_000_002, None),
+        ];
+        let (times, source) = bench_times_s(&rows);
+        assert_eq!(source, BenchTime::Counter);
+        let want = [0.0, 3e-12, 1.000_000_000_003];
+        assert_eq!(times.len(), want.len());
+        for (got, want) in times.iter().zip(want) {
+            let got = got.expect("a time");
+            assert!((got - want).abs() <= 1e-15 * want.max(1e-12), "{got} vs {want}");
+        }
+    }
 }

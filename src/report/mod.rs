@@ -129,7 +129,7 @@ pub struct CellSpread {
 /// One burst's median K in one gain state, at the bench time it was taken.
 #[derive(Debug, Clone, PartialEq)]
 pub struct BurstPoint {
-    /// Bench time since the first exchange, from the reference's counter.
+    /// Bench time of the burst, from where [`ReportData::bench_time`] says.
     pub time_s: f64,
     /// Gain state.
     pub gain_index: u32,
@@ -169,6 +169,8 @@ pub struct ReportData {
     pub cells: Vec<CellSpread>,
     /// Per-burst medians over bench time.
     pub bursts: Vec<BurstPoint>,
+    /// Where the bursts' bench time comes from.
+    pub bench_time: drift_plot::BenchTime,
     /// Gain states seen per level.
     pub levels: Vec<LevelGains>,
     /// Optional files the run directory lacks.

@@ -6,7 +6,7 @@ use crate::clock::{BenchClock, ClockMode};
 use crate::data::manifest::{sha256_hex, BenchInfo, FitInfo, RecipeInfo};
 use crate::data::run_dir::{self, files};
 use crate::data::run_lock::RunLock;
-use crate::data::{Manifest, RunStatus};
+use crate::data::{Manifest, RecordVersion, RunStatus};
 use crate::diagnostic::Diagnostic;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -94,11 +94,14 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
         resumes: 0,
         faults: BTreeMap::new(),
         skipped_points: Vec::new(),
+        record_version: RecordVersion::CURRENT.number(),
     };
     let earlier_wall_s = match &req.resume {
         Some(r) => {
             manifest.started_utc = r.manifest.started_utc.clone();
             manifest.resumes = r.manifest.resumes + 1;
+            // Its record goes on in the version it began in.
+            manifest.record_version = r.manifest.record_version;
             r.manifest.wall_time_s
         }
         None => 0.0,

@@ -1,13 +1,16 @@
 //! Preparing `taucal resume`: the interrupted run's manifest, recipe and bench (unchanged since,
 //! or nothing resumes), and its exchanges cut back to the last checkpoint: a half-done point is
-//! redone from its start, so nothing is lost and nothing is recorded twice.
+//! redone from its start, so nothing is lost and nothing is recorded twice. The record goes on
+//! in the version its header has (an older run's stays version 1), which the manifest states.
 
 use super::journal::last_checkpoint;
 use super::request::{Resumption, RunRequest};
 use crate::bench::Bench;
 use crate::data::manifest::sha256_hex;
 use crate::data::run_dir::files;
-use crate::data::{read_exchanges, Exchange, ExchangeWriter, Manifest, RecordSink, RunStatus};
+use crate::data::{
+    read_exchanges, Exchange, ExchangeWriter, Manifest, RecordSink, RecordVersion, RunStatus,
+};
 use crate::diagnostic::Diagnostic;
 use std::path::Path;
 use std::sync::Arc;
@@ -68,7 +71,9 @@ pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
     let keep = last_checkpoint(&journal)
         .map_err(|e| Diagnostic::in_file(&journal, format!("cannot read the journal: {e}")))?
         .map_or(0, |c| c.rows);
-    let replay = cut_exchanges(&dir.join(files::EXCHANGES), keep)?;
+    let exchanges = dir.join(files::EXCHANGES);
+    let version = record_version(&exchanges, &manifest)?;
+    let replay = cut_exchanges(&exchanges, version, keep)?;
     tracing::info!(
         "resuming {}: {} exchanges kept up to the last checkpoint",
         dir.display(),
@@ -102,9 +107,35 @@ fn unchanged(what: &str, path: &Path, text: &str, sha256: &str) -> Result<(), Di
     }
 }
 
-/// Keeps the first `keep` exchanges of the file (rewritten through a temporary file) and
-/// returns them.
-fn cut_exchanges(path: &Path, keep: u64) -> Result<Vec<Exchange>, Diagnostic> {
+/// The record version of the run's exchanges file, from its header; refused where it is not
+/// one taucal writes or not the one the manifest states (the file was replaced).
+fn record_version(path: &Path, manifest: &Manifest) -> Result<RecordVersion, Diagnostic> {
+    let version = RecordVersion::of_file(path).map_err(|e| {
+        Diagnostic::in_file(path, format!("cannot continue this record: {e}"))
+            .with_hint("restore the exchanges.csv the run wrote, or start a new run")
+    })?;
+    if version.number() != manifest.record_version {
+        return Err(Diagnostic::in_file(
+            path,
+            format!(
+                "the header is record version {}, but the manifest says the run records \
+                 version {}",
+                version.number(),
+                manifest.record_version
+            ),
+        )
+        .with_hint("restore the exchanges.csv the run wrote, or start a new run"));
+    }
+    Ok(version)
+}
+
+/// Keeps the first `keep` exchanges of the file (rewritten through a temporary file, in its
+/// own record `version`) and returns them.
+fn cut_exchanges(
+    path: &Path,
+    version: RecordVersion,
+    keep: u64,
+) -> Result<Vec<Exchange>, Diagnostic> {
     let bad = |e: String| Diagnostic::in_file(path, e);
     let mut rows = Vec::new();
     for row in read_exchanges(path).map_err(|e| bad(e.to_string()))? {
@@ -122,7 +153,7 @@ fn cut_exchanges(path: &Path, keep: u64) -> Result<Vec<Exchange>, Diagnostic> {
     }
     let tmp = path.with_extension("csv.tmp");
     let write = || -> std::io::Result<()> {
-        let mut w = ExchangeWriter::create(&tmp)?;
+        let mut w = ExchangeWriter::create_version(&tmp, version)?;
         w.write_burst(&rows)?;
         w.sync()?;
         std::fs::rename(&tmp, path)

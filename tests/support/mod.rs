@@ -62,6 +62,11 @@ impl Taucal {
         self
     }
 
+    /// The working directory, to prepare files in before the run.
+    pub fn dir(&self) -> &Path {
+        self.dir.path()
+    }
+
     /// Writes a file into the working directory.
     pub fn file(self, name: &str, text: &str) -> Self {
         let path = self.dir.path().join(name);
@@ -112,6 +117,28 @@ impl Outcome {
     pub fn has_dir(&self, rel: &str) -> bool {
         Path::is_dir(&self.path(rel))
     }
+}
+
+/// An exchanges file without its `time_s` column. Bench time is the runner's own clock
+/// (virtual on an in-process simulated bench, wall time through served instruments); every other
+/// column is what the bench reported, so two runs of one seed agree on them.
+pub fn without_bench_time(text: &str) -> String {
+    let Some(at) = text
+        .lines()
+        .next()
+        .and_then(|h| h.split(',').position(|c| c == "time_s"))
+    else {
+        return text.to_string();
+    };
+    text.lines()
+        .map(|line| {
+            let mut fields: Vec<&str> = line.split(',').collect();
+            if at < fields.len() {
+                fields.remove(at);
+            }
+            fields.join(",") + "\n"
+        })
+        .collect()
 }
 
 /// Copies a folder and everything in it.
