@@ -33,7 +33,11 @@ fn a_run_writes_version_2_with_bench_time_rising_and_one_frame_per_exchange() {
         let f: Vec<&str> = line.split(',').collect();
         assert_eq!(f.len(), 20, "{line}");
         assert_eq!(f[19], "1", "one frame per exchange: {line}");
-        assert_eq!((f[17], f[18]), ("", ""), "timestamps, no RTT or range: {line}");
+        assert_eq!(
+            (f[17], f[18]),
+            ("", ""),
+            "timestamps, no RTT or range: {line}"
+        );
         // Written to the microsecond.
         assert_eq!(f[16].split('.').nth(1).map(str::len), Some(6), "{line}");
         let time_s: f64 = f[16].parse().expect("time_s");
@@ -46,7 +50,10 @@ fn a_run_writes_version_2_with_bench_time_rising_and_one_frame_per_exchange() {
                 bursts += 1;
             }
         }
-        assert!(time_s <= bench_time_s, "{time_s} within the run's {bench_time_s} s");
+        assert!(
+            time_s <= bench_time_s,
+            "{time_s} within the run's {bench_time_s} s"
+        );
         last = Some((burst, time_s));
     }
     assert!(bursts > 100, "{bursts} bursts");
@@ -55,7 +62,10 @@ fn a_run_writes_version_2_with_bench_time_rising_and_one_frame_per_exchange() {
     let report = Taucal::in_dir(out.dir).args(["report", "r"]).run();
     report.expect_code(0);
     let page = report.read("r/report.html");
-    assert!(page.contains("as the bench clock recorded it"), "drift caption");
+    assert!(
+        page.contains("as the bench clock recorded it"),
+        "drift caption"
+    );
 }
 
 #[test]
@@ -166,9 +176,9 @@ fn a_resumed_record_whose_header_is_not_the_manifests_version_is_refused() {
     let resumed = setup.args(["resume", DEMO]).run();
     resumed.expect_code(2);
     assert!(
-        resumed
-            .stderr
-            .contains("the header is record version 2, but the manifest says the run records version 1"),
+        resumed.stderr.contains(
+            "the header is record version 2, but the manifest says the run records version 1"
+        ),
         "{}",
         resumed.stderr
     );

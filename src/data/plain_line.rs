@@ -139,7 +139,9 @@ impl LineParser {
         }
         // The first `n` contract columns, in order, and nothing else.
         let in_order = |n: usize| {
-            let first_n = (0..n).map(Some).chain(std::iter::repeat_n(None, columns.len() - n));
+            let first_n = (0..n)
+                .map(Some)
+                .chain(std::iter::repeat_n(None, columns.len() - n));
             fields == n && columns.iter().copied().eq(first_n)
         };
         let order = if in_order(V1_COLUMNS) {

@@ -222,9 +222,15 @@ mod tests {
         };
         let v2 = RecordVersion::V2.kept(&row);
         assert_eq!(v2.time_s, Some(12.345_679));
-        assert_eq!((v2.rtt_ps, v2.range_mm, v2.frames), (Some(1.5), Some(-2.0), 16));
+        assert_eq!(
+            (v2.rtt_ps, v2.range_mm, v2.frames),
+            (Some(1.5), Some(-2.0), 16)
+        );
         let v1 = RecordVersion::V1.kept(&row);
-        assert_eq!((v1.time_s, v1.rtt_ps, v1.range_mm, v1.frames), (None, None, None, 1));
+        assert_eq!(
+            (v1.time_s, v1.rtt_ps, v1.range_mm, v1.frames),
+            (None, None, None, 1)
+        );
         assert_eq!(time_text(0.0), "0.000000");
         assert_eq!(time_text(86_399.999_999_6), "86400.000000");
     }

@@ -257,7 +257,10 @@ mod tests {
         assert_eq!(times.len(), want.len());
         for (got, want) in times.iter().zip(want) {
             let got = got.expect("a time");
-            assert!((got - want).abs() <= 1e-15 * want.max(1e-12), "{got} vs {want}");
+            assert!(
+                (got - want).abs() <= 1e-15 * want.max(1e-12),
+                "{got} vs {want}"
+            );
         }
     }
 }
