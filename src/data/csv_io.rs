@@ -729,7 +729,7 @@ map,0,0,0,17.0,5180,80,113296642806436,22633002662398,22633062662398,\
             };
             ExchangeWriter::create_version(&path, version)
                 .expect("create")
-                .write_burst(&[timed.clone()])
+                .write_burst(&[timed])
                 .expect("write");
             let mut w = ExchangeWriter::append(&path).expect("append");
             assert_eq!(w.version(), version);
