@@ -571,7 +571,8 @@ mod tests {
         let agrees = row(&d, "vd mm=12.5 sd_mm=- n=3 rssi=- kapp_ps=2700 st=ok");
         assert_eq!(contradiction(&d, &[x, agrees]), None);
         let said = row(&d, "vd mm=12.5 sd_mm=- n=3 rssi=- kapp_ps=2650 st=ok");
-        let why = contradiction(&d, &[said.clone()]).expect("K differs from the declared one");
+        let why = contradiction(&d, std::slice::from_ref(&said))
+            .expect("K differs from the declared one");
         assert!(
             why.contains("2650 ps, but its driver declares 2700 ps"),
             "{why}"
