@@ -7,6 +7,7 @@ mod calibration;
 mod demo_run;
 mod examples;
 mod fit_offline;
+mod forms;
 mod fuzz;
 mod gain_switch;
 mod instruments;

@@ -1,6 +1,11 @@
 //! A ranging device driven through its line console, as its driver file defines it: start a
-//! burst, read one record per exchange, stop at the end or failure line, and skip unsolicited
-//! lines (a boot banner). Line classification is pure; the async part only moves lines.
+//! burst, read one record per exchange (or one summary per burst), stop at the end or failure
+//! line, and skip unsolicited lines (a boot banner). Records come in whichever form the driver's
+//! exchange pattern captures — raw timestamps, a device-computed RTT, or a distance with the
+//! device's applied K (reported, or declared by the driver) — and a record that carries no
+//! complete form while saying `ok` is garbled. Holding the device to one form and one applied K
+//! for the whole run is the runner's (`runner::report_watch`), which sees every device, not only
+//! consoles. Line classification is pure; the async part only moves lines.
 
 use super::driver_file::ConsoleDriver;
 use super::template::Value;
@@ -55,10 +60,68 @@ fn timestamp(caps: &Captures, name: &str, missing: &str) -> Result<Option<u64>, 
     }
 }
 
-/// Classifies a line by the driver's patterns; a record whose fields do not parse is an error.
+/// The form a recorded row came in, by the values it carries (design §6).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RowForm {
+    /// Raw t1..t4 (or some of them, for an exchange that did not complete).
+    Timestamps,
+    /// A round-trip time the device computed.
+    Rtt,
+    /// A distance, the device's applied K removed.
+    Range,
+}
+
+impl RowForm {
+    /// The form's name in messages.
+    pub fn name(self) -> &'static str {
+        match self {
+            RowForm::Timestamps => "timestamps",
+            RowForm::Rtt => "rtt",
+            RowForm::Range => "range",
+        }
+    }
+}
+
+/// The form of `x`; `None` for a row that carries no value (a lost frame, a failed burst).
+pub fn row_form(x: &DeviceExchange) -> Result<Option<RowForm>, String> {
+    let stamps = [x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps]
+        .iter()
+        .any(Option::is_some);
+    let carried: Vec<RowForm> = [
+        (stamps, RowForm::Timestamps),
+        (x.rtt_ps.is_some(), RowForm::Rtt),
+        (x.range_mm.is_some(), RowForm::Range),
+    ]
+    .into_iter()
+    .filter_map(|(present, form)| present.then_some(form))
+    .collect();
+    match carried.as_slice() {
+        [] => Ok(None),
+        [one] => Ok(Some(*one)),
+        [a, b, ..] => Err(format!(
+            "carries both {} and {}, which no single form of report does",
+            a.name(),
+            b.name()
+        )),
+    }
+}
+
+/// A field that must be a finite number, or absent.
+fn finite(caps: &Captures, name: &str, missing: &str) -> Result<Option<f64>, String> {
+    match field::<f64>(caps, name, missing)? {
+        Some(v) if !v.is_finite() => Err(format!("field `{name}` = `{v}` is not a finite number")),
+        v => Ok(v),
+    }
+}
+
+/// Classifies a line by the driver's patterns; a record whose fields do not parse, or that says
+/// `ok` without carrying a complete form, is an error.
 pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, String> {
     if let Some(caps) = driver.exchange.captures(line) {
         let m = driver.missing.as_str();
+        let range_mm = finite(&caps, "range", m)?
+            .zip(driver.range_unit)
+            .map(|(v, unit)| v * unit.mm());
         let mut x = DeviceExchange {
             t1_ps: timestamp(&caps, "t1", m)?,
             t2_ps: timestamp(&caps, "t2", m)?,
@@ -67,12 +130,30 @@ pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, Strin
             dut_gain: field(&caps, "gain", m)?,
             dut_rssi_dbm: field(&caps, "rssi", m)?,
             ref_gain: field(&caps, "ref_gain", m)?,
+            rtt_ps: finite(&caps, "rtt", m)?,
+            range_mm,
+            frames: field(&caps, "frames", m)?.unwrap_or(u32::from(!driver.burst_summary)),
+            applied_k_ps: finite(&caps, "applied_k", m)?
+                .or(driver.applied_k_ps)
+                .filter(|_| range_mm.is_some()),
             ..DeviceExchange::empty(String::new())
         };
-        let complete = [x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps]
-            .iter()
-            .all(Option::is_some);
+        let complete = match row_form(&x)? {
+            Some(RowForm::Timestamps) => [x.t1_ps, x.t2_ps, x.t3_ps, x.t4_ps]
+                .iter()
+                .all(Option::is_some),
+            Some(RowForm::Rtt) => true,
+            Some(RowForm::Range) => x.applied_k_ps.is_some(),
+            None => false,
+        };
         x.status = match caps.name("status").map(|s| s.as_str()) {
+            Some(STATUS_OK) if !complete => {
+                return Err(
+                    "says ok but carries no complete form of report (timestamps, rtt, \
+                            or a range with its applied K)"
+                        .into(),
+                )
+            }
             Some(s) if !s.is_empty() && s != m => s.to_string(),
             _ if complete => STATUS_OK.to_string(),
             _ => STATUS_INCOMPLETE.to_string(),
@@ -94,6 +175,21 @@ pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, Strin
     Ok(ConsoleLine::Other)
 }
 
+/// Why `rows` cannot be recorded under `driver`: a reported applied K that is not the one the
+/// driver declares (the driver file or the device is wrong, and asking again will not help).
+pub fn contradiction(driver: &ConsoleDriver, rows: &[DeviceExchange]) -> Option<String> {
+    let declared = driver.applied_k_ps?;
+    rows.iter()
+        .filter_map(|x| x.applied_k_ps)
+        .find(|k| *k != declared)
+        .map(|k| {
+            format!(
+                "the device reports an applied K of {k} ps, but its driver declares \
+                 {declared} ps: one of them is wrong, and ranges under either would give another K"
+            )
+        })
+}
+
 /// Why a console command went wrong, before it becomes an [`InstrumentError`].
 #[derive(Debug)]
 enum Trouble {
@@ -103,6 +199,8 @@ enum Trouble {
     Garbled(String),
     /// The device printed its boot banner after it had answered: it restarted.
     Restarted,
+    /// The device's reports contradict its driver file: asking again would not help.
+    Contradicts(String),
     /// The device refused or failed the command.
     Device(String),
 }
@@ -135,6 +233,7 @@ impl DrivenConsole {
                 InstrumentError::Transient { role, message }
             }
             Trouble::Restarted => InstrumentError::Restarted { role },
+            Trouble::Contradicts(message) => InstrumentError::Refused { role, message },
             Trouble::Device(message) => InstrumentError::Failed { role, message },
         }
     }
@@ -249,12 +348,31 @@ impl DrivenConsole {
                 Err(why) => return Err(Trouble::Garbled(format!("`{line}`: {why}"))),
             }
         }
-        if exchanges.len() != spec.frames as usize {
+        if self.driver.burst_summary {
+            match exchanges.as_slice() {
+                [one] if one.frames <= spec.frames => {}
+                [one] => {
+                    return Err(Trouble::Garbled(format!(
+                        "the burst's summary counts {} frames, {} were asked for",
+                        one.frames, spec.frames
+                    )))
+                }
+                rows => {
+                    return Err(Trouble::Garbled(format!(
+                        "the burst reported {} summary lines, one was expected",
+                        rows.len()
+                    )))
+                }
+            }
+        } else if exchanges.len() != spec.frames as usize {
             return Err(Trouble::Garbled(format!(
                 "the burst reported {} exchanges, {} were asked for",
                 exchanges.len(),
                 spec.frames
             )));
+        }
+        if let Some(why) = contradiction(&self.driver, &exchanges) {
+            return Err(Trouble::Contradicts(format!("after `{command}`: {why}")));
         }
         Ok(exchanges)
     }
@@ -365,6 +483,120 @@ mod tests {
             }) => *c,
             _ => panic!("the shipped console driver loads"),
         }
+    }
+
+    fn shipped(name: &str, text: &str) -> ConsoleDriver {
+        match DriverFile::parse(name, SourceFile::new(name, text)) {
+            Ok(DriverFile {
+                kind: DriverKind::RangingConsole(c),
+                ..
+            }) => *c,
+            _ => panic!("{name} loads"),
+        }
+    }
+
+    fn marlet() -> ConsoleDriver {
+        shipped(
+            "harrowdene-marlet40",
+            include_str!("../../drivers/harrowdene-marlet40.toml"),
+        )
+    }
+
+    fn vellisk() -> ConsoleDriver {
+        shipped(
+            "fenwhistle-vellisk5",
+            include_str!("../../drivers/fenwhistle-vellisk5.toml"),
+        )
+    }
+
+    fn row(d: &ConsoleDriver, line: &str) -> DeviceExchange {
+        match classify(d, line) {
+            Ok(ConsoleLine::Exchange(x)) => x,
+            other => panic!("{line}: {other:?}"),
+        }
+    }
+
+    #[test]
+    fn burst_averages_and_distances_are_read_with_their_frames_and_no_gain() {
+        let x = row(
+            &marlet(),
+            "mb avg_ps=17436.5 sd_ps=212.4 ok=61 rssi=-48.25 st=ok",
+        );
+        assert_eq!(
+            x,
+            DeviceExchange {
+                rtt_ps: Some(17_436.5),
+                frames: 61,
+                dut_rssi_dbm: Some(-48.25),
+                ..DeviceExchange::empty("ok")
+            }
+        );
+        assert_eq!(row_form(&x), Ok(Some(RowForm::Rtt)));
+        let none = row(&marlet(), "mb avg_ps=- sd_ps=- ok=0 rssi=- st=lost");
+        assert_eq!(
+            (none.frames, none.rtt_ps, row_form(&none)),
+            (0, None, Ok(None))
+        );
+        // A negative distance is a reading, not an error.
+        let d = row(
+            &vellisk(),
+            "vd mm=-215.5 sd_mm=30.1 n=40 rssi=-52 kapp_ps=2700 st=ok",
+        );
+        assert_eq!(
+            (d.range_mm, d.applied_k_ps, d.frames, d.dut_gain),
+            (Some(-215.5), Some(2700.0), 40, None)
+        );
+        assert_eq!(row_form(&d), Ok(Some(RowForm::Range)));
+        // A range without its K, or an ok that carries nothing, matches no form: an error.
+        let why = classify(&vellisk(), "vd mm=12 sd_mm=- n=3 rssi=- kapp_ps=- st=ok")
+            .expect_err("no applied K");
+        assert!(why.contains("no complete form"), "{why}");
+        assert!(classify(&marlet(), "mb avg_ps=- sd_ps=- ok=3 rssi=- st=ok").is_err());
+        assert!(
+            classify(&marlet(), "mb avg_ps=1e999 sd_ps=- ok=3 rssi=- st=ok")
+                .is_err_and(|w| w.contains("not a finite number"))
+        );
+    }
+
+    #[test]
+    fn centimetres_become_millimetres_and_a_declared_k_fills_in_but_may_not_be_contradicted() {
+        let text = include_str!("../../drivers/fenwhistle-vellisk5.toml").replace(
+            "range_unit = \"mm\"",
+            "range_unit = \"cm\"\napplied_k_ps = 2700.0",
+        );
+        let d = shipped("cm", &text);
+        let x = row(&d, "vd mm=12.5 sd_mm=- n=3 rssi=- kapp_ps=- st=ok");
+        assert_eq!((x.range_mm, x.applied_k_ps), (Some(125.0), Some(2700.0)));
+        assert_eq!(x.status, STATUS_OK);
+        let agrees = row(&d, "vd mm=12.5 sd_mm=- n=3 rssi=- kapp_ps=2700 st=ok");
+        assert_eq!(contradiction(&d, &[x, agrees]), None);
+        let said = row(&d, "vd mm=12.5 sd_mm=- n=3 rssi=- kapp_ps=2650 st=ok");
+        let why = contradiction(&d, std::slice::from_ref(&said))
+            .expect("K differs from the declared one");
+        assert!(
+            why.contains("2650 ps, but its driver declares 2700 ps"),
+            "{why}"
+        );
+        // Without a declaration there is nothing to contradict; the run watches for changes.
+        assert_eq!(contradiction(&vellisk(), &[said]), None);
+    }
+
+    #[test]
+    fn a_record_carries_one_form_or_none() {
+        let wren = wren();
+        let stamps = row(
+            &wren,
+            "xr 0 t1=5 t2=12 t3=60012 t4=59444 g=2 rssi=-61.25 rg=0 st=ok",
+        );
+        assert_eq!(row_form(&stamps), Ok(Some(RowForm::Timestamps)));
+        let lost = row(&wren, "xr 1 t1=5 t2=- t3=- t4=- g=- rssi=- rg=- st=lost");
+        assert_eq!(row_form(&lost), Ok(Some(RowForm::Timestamps)));
+        assert_eq!(row_form(&DeviceExchange::empty("lost")), Ok(None));
+        let mixed = DeviceExchange {
+            rtt_ps: Some(1.0),
+            ..stamps
+        };
+        assert!(row_form(&mixed).is_err_and(|w| w.contains("both timestamps and rtt")));
     }
 
     #[test]

@@ -33,6 +33,8 @@ struct RawDriver {
     #[serde(default)]
     timing: RawTiming,
     safe_state: RawSafe,
+    #[serde(default)]
+    reports: Option<RawReports>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -74,6 +76,14 @@ struct RawLimits {
 #[serde(deny_unknown_fields)]
 struct RawTiming {
     settle_ms: Option<f64>,
+}
+
+/// What a ranging console's exchange lines mean beyond their captures.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawReports {
+    range_unit: Option<String>,
+    applied_k_ps: Option<f64>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -167,8 +177,18 @@ pub struct ConsoleDriver {
     pub start_burst: Template,
     /// Acknowledgment of `start_burst`, if the console sends one.
     pub start_burst_reply: Option<Regex>,
-    /// One exchange; captures `t1`…`t4` and `gain`, optionally `rssi`, `ref_gain`, `status`.
+    /// One exchange, or one burst's summary: captures a complete form of report — `t1`…`t4`,
+    /// `rtt` (ps) or `range` (in `range_unit`) — and optionally `frames`, `applied_k` (ps),
+    /// `gain`, `rssi`, `ref_gain`, `status`, `seq`.
     pub exchange: Regex,
+    /// The unit of the `range` capture, where the pattern has one.
+    pub range_unit: Option<RangeUnit>,
+    /// The K the device removes before it reports a distance, as the driver declares it
+    /// (`[reports] applied_k_ps`); a reported `applied_k` must agree with it.
+    pub applied_k_ps: Option<f64>,
+    /// Whether exchange lines summarise a burst (the pattern captures `frames`): then a burst
+    /// answers with exactly one of them, whatever the number of frames asked for.
+    pub burst_summary: bool,
     /// The burst's last line.
     pub burst_end: Regex,
     /// A burst that failed; captures `reason` where it can.
@@ -192,6 +212,43 @@ pub struct ConsoleDriver {
     /// Reply to the safe-state command, if any.
     pub safe_reply: Option<Regex>,
 }
+
+/// The unit a console writes distances in.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum RangeUnit {
+    /// Millimetres.
+    Mm,
+    /// Centimetres.
+    Cm,
+}
+
+impl RangeUnit {
+    /// Millimetres in one of this unit.
+    pub fn mm(self) -> f64 {
+        match self {
+            RangeUnit::Mm => 1.0,
+            RangeUnit::Cm => 10.0,
+        }
+    }
+}
+
+/// Fields an exchange pattern may capture; a complete form needs `t1`…`t4`, `rtt` or `range`.
+const EXCHANGE_FIELDS: [&str; 13] = [
+    "t1",
+    "t2",
+    "t3",
+    "t4",
+    "rtt",
+    "range",
+    "frames",
+    "applied_k",
+    "gain",
+    "rssi",
+    "ref_gain",
+    "status",
+    "seq",
+];
+const TIMESTAMP_FIELDS: [&str; 4] = ["t1", "t2", "t3", "t4"];
 
 const ATTEN_COMMANDS: [&str; 2] = ["set_atten", "get_atten"];
 const ATTEN_REPLIES: [&str; 1] = ["get_atten"];
@@ -405,6 +462,7 @@ fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
     refuse("limits.frames", KIND_ATTENUATOR, l.frames.is_some())?;
     refuse("limits.center_mhz", KIND_ATTENUATOR, l.center_mhz.is_some())?;
     refuse("limits.bw_mhz", KIND_ATTENUATOR, l.bw_mhz.is_some())?;
+    refuse("reports", KIND_ATTENUATOR, raw.reports.is_some())?;
     refuse(
         "safe_state.command",
         KIND_ATTENUATOR,
@@ -579,9 +637,12 @@ fn console(raw: &RawDriver) -> Result<ConsoleDriver, KeyError> {
             "exchange",
             "'^x t1=(?P<t1>\\d+) … g=(?P<gain>\\d+)$'",
         )?,
-        &["t1", "t2", "t3", "t4", "gain"],
-        &["seq", "rssi", "ref_gain", "status"],
-    )?;
+        &[],
+        &EXCHANGE_FIELDS,
+    )
+    .map_err(|e| spread_hint(e, r.get("exchange")))?;
+    let (range_unit, applied_k_ps) = forms(&exchange, raw.reports.as_ref())?;
+    let burst_summary = exchange.capture_names().flatten().any(|n| n == "frames");
     let burst_end = pattern(
         "burst_end",
         required("reply", r, "burst_end", "'^done$'")?,
@@ -684,6 +745,9 @@ fn console(raw: &RawDriver) -> Result<ConsoleDriver, KeyError> {
         start_burst,
         start_burst_reply,
         exchange,
+        range_unit,
+        applied_k_ps,
+        burst_summary,
         burst_end,
         burst_fail,
         banner,
@@ -698,6 +762,101 @@ fn console(raw: &RawDriver) -> Result<ConsoleDriver, KeyError> {
     })
 }
 
+/// A pattern capturing a spread is refused with a hint of its own: the row has no place for it.
+fn spread_hint(e: KeyError, text: Option<&String>) -> KeyError {
+    let Some(re) = text.and_then(|t| Regex::new(t).ok()) else {
+        return e;
+    };
+    match re
+        .capture_names()
+        .flatten()
+        .find(|n| matches!(*n, "spread" | "sd"))
+    {
+        Some(name) => KeyError::new(
+            "reply.exchange",
+            format!("captures `{name}`, which a recorded row has no place for"),
+            "match the spread without capturing it, e.g. `sd=[-+0-9.eE]+`; the interval comes \
+             from the spread between bursts",
+        ),
+        None => e,
+    }
+}
+
+/// Checks that the exchange pattern captures at least one complete form and that a distance
+/// can be turned back into a round trip; returns the range unit and the declared applied K.
+fn forms(
+    exchange: &Regex,
+    reports: Option<&RawReports>,
+) -> Result<(Option<RangeUnit>, Option<f64>), KeyError> {
+    let names: Vec<&str> = exchange.capture_names().flatten().collect();
+    let has = |n: &str| names.contains(&n);
+    let stamps: Vec<&str> = TIMESTAMP_FIELDS.into_iter().filter(|n| has(n)).collect();
+    if !stamps.is_empty() && stamps.len() < TIMESTAMP_FIELDS.len() {
+        let missing: Vec<&str> = TIMESTAMP_FIELDS.into_iter().filter(|n| !has(n)).collect();
+        return Err(KeyError::new(
+            "reply.exchange",
+            format!(
+                "captures {} but not {}",
+                stamps.join(", "),
+                missing.join(", ")
+            ),
+            "the timestamps form needs all of t1, t2, t3 and t4",
+        ));
+    }
+    if stamps.is_empty() && !has("rtt") && !has("range") {
+        return Err(KeyError::new(
+            "reply.exchange",
+            "captures no complete form of report",
+            "capture t1, t2, t3 and t4 (raw timestamps), rtt (a round-trip time in ps) or range \
+             (a distance, with [reports] range_unit)",
+        ));
+    }
+    let declared = reports.map_or((None, None), |r| (r.range_unit.as_deref(), r.applied_k_ps));
+    if !has("range") {
+        let stray = [
+            ("reports.range_unit", declared.0.is_some()),
+            ("reports.applied_k_ps", declared.1.is_some()),
+            ("reply.exchange", has("applied_k")),
+        ];
+        if let Some((key, _)) = stray.iter().find(|(_, present)| *present) {
+            return Err(KeyError::new(
+                *key,
+                "applies only to a console that reports a distance",
+                "capture (?P<range>…) in reply.exchange, or remove it",
+            ));
+        }
+        return Ok((None, None));
+    }
+    let unit = match declared.0 {
+        Some("mm") => RangeUnit::Mm,
+        Some("cm") => RangeUnit::Cm,
+        Some(other) => {
+            return Err(KeyError::new(
+                "reports.range_unit",
+                format!("`{other}` is not a unit taucal reads distances in"),
+                "write \"mm\" or \"cm\"",
+            ))
+        }
+        None => {
+            return Err(KeyError::new(
+                "reply.exchange",
+                "captures `range` but the driver does not say its unit",
+                "add [reports] with range_unit = \"mm\" or \"cm\"",
+            ))
+        }
+    };
+    if declared.1.is_none() && !has("applied_k") {
+        return Err(KeyError::new(
+            "reply.exchange",
+            "captures `range` but nothing says which K the device removed from it, so no round \
+             trip can be recovered",
+            "capture the device's own (?P<applied_k>…) in ps, or declare [reports] \
+             applied_k_ps = … from the maker's data",
+        ));
+    }
+    Ok((Some(unit), declared.1))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -706,7 +865,7 @@ mod tests {
         DriverFile::parse("test", SourceFile::new("test.toml", text))
     }
 
-    const SHIPPED: [(&str, &str); 3] = [
+    const SHIPPED: [(&str, &str); 5] = [
         (
             "brackwater-tidegate95",
             include_str!("../../drivers/brackwater-tidegate95.toml"),
@@ -718,6 +877,14 @@ mod tests {
         (
             "wren6-console",
             include_str!("../../drivers/wren6-console.toml"),
+        ),
+        (
+            "harrowdene-marlet40",
+            include_str!("../../drivers/harrowdene-marlet40.toml"),
+        ),
+        (
+            "fenwhistle-vellisk5",
+            include_str!("../../drivers/fenwhistle-vellisk5.toml"),
         ),
     ];
 
@@ -771,7 +938,10 @@ mod tests {
         let e = broken(0, "line_ending = \"lf\"", "line_ending = \"cr\"");
         assert!(e.contains("not a line ending"), "{e}");
         let e = broken(2, "(?P<gain>", "(?P<agc>");
-        assert!(e.contains("does not capture the field `gain`"), "{e}");
+        assert!(
+            e.contains("captures `agc`, which taucal does not read"),
+            "{e}"
+        );
         let e = broken(2, "ch={center_mhz}", "ch={channel}");
         assert!(e.contains("offers frames, center_mhz, bw_mhz"), "{e}");
         let e = broken(2, "[safe_state]", "[safe_state]\natten_db = 95.0");
@@ -781,6 +951,124 @@ mod tests {
         );
         let e = broken(2, "command = \"range halt\"", "");
         assert!(e.contains("safe_state"), "{e}");
+    }
+
+    /// The console driver in a shipped file.
+    fn console_of(which: usize, edit: impl FnOnce(&str) -> String) -> ConsoleDriver {
+        match parse(&edit(SHIPPED[which].1)) {
+            Ok(DriverFile {
+                kind: DriverKind::RangingConsole(c),
+                ..
+            }) => *c,
+            Ok(_) => panic!("not a console"),
+            Err(d) => panic!("{d}"),
+        }
+    }
+
+    /// `test.toml line N` for the line of `SHIPPED[which]` that starts with `key`.
+    fn line_of(which: usize, key: &str) -> String {
+        let n = SHIPPED[which]
+            .1
+            .lines()
+            .position(|l| l.starts_with(key))
+            .expect("key in file");
+        format!("test.toml line {}", n + 1)
+    }
+
+    #[test]
+    fn an_exchange_pattern_may_capture_any_complete_form_and_gain_is_optional() {
+        let wren = console_of(2, str::to_string);
+        assert!(!wren.burst_summary);
+        assert_eq!((wren.range_unit, wren.applied_k_ps), (None, None));
+        let marlet = console_of(3, str::to_string);
+        assert!(marlet.burst_summary);
+        assert_eq!(marlet.range_unit, None);
+        assert!(!marlet
+            .exchange
+            .capture_names()
+            .flatten()
+            .any(|n| n == "gain"));
+        let vellisk = console_of(4, str::to_string);
+        assert!(vellisk.burst_summary);
+        assert_eq!(vellisk.range_unit, Some(RangeUnit::Mm));
+        // Centimetres, and an applied K declared instead of reported.
+        let cm = console_of(4, |t| {
+            t.replace(
+                "range_unit = \"mm\"",
+                "range_unit = \"cm\"\napplied_k_ps = 2700.0",
+            )
+            .replace(" kapp_ps=(?P<applied_k>[-+0-9.eE]+|-)", "")
+        });
+        assert_eq!(cm.range_unit.map(RangeUnit::mm), Some(10.0));
+        assert_eq!(cm.applied_k_ps, Some(2700.0));
+    }
+
+    #[test]
+    fn exchange_patterns_without_a_complete_form_are_refused_at_their_line() {
+        let at = line_of(3, "exchange =");
+        let e = broken(3, "(?P<rtt>", "(?P<mean>");
+        assert!(
+            e.contains("captures `mean`, which taucal does not read"),
+            "{e}"
+        );
+        let e = broken(3, "(?P<rtt>", "(?:");
+        assert!(
+            e.contains("`reply.exchange` captures no complete form of report"),
+            "{e}"
+        );
+        assert!(e.contains(&at), "{e}");
+        let e = broken(2, "t3=(?P<t3>", "t3=(?:");
+        assert!(e.contains("captures t1, t2, t4 but not t3"), "{e}");
+        let e = broken(3, "sd_ps=(?:", "sd_ps=(?P<sd>");
+        assert!(
+            e.contains("captures `sd`, which a recorded row has no place for"),
+            "{e}"
+        );
+        assert!(e.contains(&at), "{e}");
+        let e = broken(3, "sd_ps=(?:", "sd_ps=(?P<spread>");
+        assert!(e.contains("captures `spread`"), "{e}");
+    }
+
+    #[test]
+    fn a_range_form_needs_its_unit_and_a_way_to_learn_the_applied_k() {
+        let at = line_of(4, "exchange =");
+        let e = broken(4, " kapp_ps=(?P<applied_k>", " kapp_ps=(?:");
+        assert!(
+            e.contains("`reply.exchange` captures `range` but nothing says which K"),
+            "{e}"
+        );
+        assert!(e.contains(&at), "{e}");
+        let e = broken(4, "range_unit = \"mm\"", "");
+        assert!(e.contains("does not say its unit"), "{e}");
+        assert!(e.contains(&at), "{e}");
+        let e = broken(4, "range_unit = \"mm\"", "range_unit = \"m\"");
+        assert!(e.contains("`reports.range_unit` `m` is not a unit"), "{e}");
+        assert!(e.contains(&line_of(4, "range_unit =")), "{e}");
+        let e = broken(
+            4,
+            "range_unit = \"mm\"",
+            "range_unit = \"mm\"\napplied_k_ps = nan",
+        );
+        assert!(
+            e.contains("`reports.applied_k_ps` is `nan`, not a finite number"),
+            "{e}"
+        );
+        let e = broken(
+            3,
+            "[limits]",
+            "[reports]\napplied_k_ps = 2600.0\n\n[limits]",
+        );
+        assert!(
+            e.contains("`reports.applied_k_ps` applies only to a console that reports a distance"),
+            "{e}"
+        );
+        let e = broken(3, "st=(?P<status>", "k=(?P<applied_k>\\d+) st=(?P<status>");
+        assert!(
+            e.contains("`reply.exchange` applies only to a console that reports a distance"),
+            "{e}"
+        );
+        let e = broken(0, "[scpi]", "[reports]\nrange_unit = \"mm\"\n\n[scpi]");
+        assert!(e.contains("`reports` does not apply"), "{e}");
     }
 
     #[test]

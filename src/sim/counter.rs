@@ -40,6 +40,11 @@ impl Counter48 {
         count.rem_euclid(i128::from(COUNTER_MODULUS)) as u64
     }
 
+    /// The counter's rate offset against the bench's timebase, ppm.
+    pub fn rate_ppm(&self) -> f64 {
+        self.rate_offset * 1e6
+    }
+
     /// Bench-time length of `count_ps` ticks of this counter.
     pub fn ticks_to_bench_ps(&self, count_ps: f64) -> f64 {
         count_ps / (1.0 + self.rate_offset)

@@ -12,6 +12,7 @@
 //! it follows the run's bench time.
 
 use super::chamber::SimChamber;
+use super::device_report::DeviceReport;
 use super::faults::{CommandFault, FaultInjector};
 use super::model::{BurstRequest, SimBench};
 use super::truth::SimFaultsTruth;
@@ -115,12 +116,13 @@ impl SimShared {
         Ok(self.lock("attenuator")?.bench.atten_db())
     }
 
-    /// Runs a burst at the model's time now; returns the exchanges and the wall time to wait.
+    /// Runs a burst at the model's time now; returns what the DUT reports (in its form, after
+    /// any injected failures of single exchanges) and the wall time to wait.
     pub fn run_burst(
         &self,
         request: &BurstRequest,
-    ) -> Result<(Vec<DeviceExchange>, Duration), InstrumentError> {
-        let outcome = {
+    ) -> Result<(DeviceReport, Duration), InstrumentError> {
+        let (report, duration_ps) = {
             let start_ps = self.model_clock.now_ps();
             let now_ps = self.clock.now_ps();
             let mut world = self.lock("dut")?;
@@ -135,9 +137,10 @@ impl SimShared {
                     };
                 }
             }
-            outcome
+            let report = world.bench.report(outcome.exchanges, request);
+            (report, outcome.duration_ps)
         };
-        Ok((outcome.exchanges, self.spend_now(outcome.duration_ps)))
+        Ok((report, self.spend_now(duration_ps)))
     }
 
     /// The DUT's temperature, if the bench has one (a chamber's, else the ambient).
@@ -262,9 +265,9 @@ impl RangingDevice for SimRangingFront {
         if let Some(fault) = self.shared.command_fault("dut")? {
             return Err(fault.error("dut"));
         }
-        let (exchanges, wall) = self.shared.run_burst(&request)?;
+        let (report, wall) = self.shared.run_burst(&request)?;
         pause(wall).await;
-        Ok(exchanges)
+        Ok(report.rows)
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {

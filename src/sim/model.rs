@@ -21,8 +21,9 @@
 
 use super::agc::Agc;
 use super::counter::{wrapping_add_ps, Counter48, COUNTER_MODULUS};
+use super::device_report::{rate_reading_sigma_ppm, BurstConditions, DeviceFirmware, DeviceReport};
 use super::timing::{frame_loss_probability, Receiver};
-use super::truth::SimTruth;
+use super::truth::{DutReports, SimTruth};
 use crate::bench::{PathFacts, PerGain};
 use crate::data::{DeviceExchange, STATUS_OK};
 use crate::diagnostic::KeyError;
@@ -78,6 +79,8 @@ pub struct SimBench {
     setup_ps: u64,
     interval_ps: u64,
     streams: Streams,
+    /// What the DUT makes of the exchanges before it reports them.
+    firmware: DeviceFirmware,
 }
 
 /// One unit's receiver: AGC, the K (or RX delay) per gain state, timing and counter.
@@ -124,6 +127,8 @@ const STREAM_TIMING: u64 = 2;
 const STREAM_LATE: u64 = 3;
 const STREAM_LOSS: u64 = 4;
 const STREAM_BURST: u64 = 5;
+/// The DUT firmware's own estimates (stream 6 is the fault injector's).
+const STREAM_DEVICE: u64 = 7;
 
 fn stream(seed: u64, id: u64) -> ChaCha8Rng {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
@@ -211,6 +216,12 @@ impl SimBench {
                 loss: stream(seed, STREAM_LOSS),
                 burst: stream(seed, STREAM_BURST),
             },
+            firmware: DeviceFirmware::new(
+                d.reports,
+                d.reports_gain,
+                d.applied_k_ps,
+                stream(seed, STREAM_DEVICE),
+            ),
         })
     }
 
@@ -301,6 +312,29 @@ impl SimBench {
             exchanges,
             duration_ps,
         }
+    }
+
+    /// What the DUT reports for a burst `req` whose exchanges came out as `exchanges` (from
+    /// [`SimBench::run_burst`], after any injected failures): the same rows in the timestamps
+    /// form, otherwise what its firmware computes from them (`device_report`).
+    pub fn report(&mut self, exchanges: Vec<DeviceExchange>, req: &BurstRequest) -> DeviceReport {
+        let rate_reading_sigma_ppm = if req.bw_mhz == 0 || req.center_mhz == 0 {
+            0.0
+        } else {
+            let bw_hz = f64::from(req.bw_mhz) * 1e6;
+            let snr_db = self.dut.receiver.snr_db(self.rx_power_dut_dbm(), bw_hz);
+            rate_reading_sigma_ppm(snr_db, bw_hz, req.center_mhz)
+        };
+        let conditions = BurstConditions {
+            clock_ppm: self.dut.clock.rate_ppm(),
+            rate_reading_sigma_ppm,
+        };
+        self.firmware.report(exchanges, &conditions)
+    }
+
+    /// The form the DUT reports in.
+    pub fn reports(&self) -> DutReports {
+        self.firmware.reports()
     }
 
     /// One exchange whose FTM frame leaves the reference at bench time `t1_bench_ps`.

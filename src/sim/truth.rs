@@ -86,6 +86,51 @@ pub struct SimDut {
     /// unless given. Just below 2^48 it wraps early in the run, to rehearse wraps.
     #[serde(default)]
     pub counter_start_ps: Option<u64>,
+    /// What the DUT hands over per burst (design §6): raw timestamps unless told otherwise.
+    #[serde(default)]
+    pub reports: DutReports,
+    /// Whether the DUT tells which receive gain state its AGC chose; many devices do not.
+    #[serde(default = "yes")]
+    pub reports_gain: bool,
+    /// The K a range-reporting DUT removes before it reports a distance (its factory value);
+    /// required with `reports = "range_burst"`, meaningless otherwise.
+    #[serde(default)]
+    pub applied_k_ps: Option<f64>,
+    /// The unit's serial number, for the results store; the simulation itself ignores it.
+    #[serde(default)]
+    pub serial: Option<String>,
+}
+
+/// The form in which a DUT reports its ranging (`[sim.dut] reports`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum DutReports {
+    /// t1..t4 of every exchange, raw counters: what the fitter has always read.
+    #[default]
+    Timestamps,
+    /// One round-trip time per exchange, clock corrected by the device, no timestamps.
+    RttFrames,
+    /// One row per burst: the device's average round-trip time over the frames it kept.
+    RttBurst,
+    /// One row per burst: the device's average distance, its applied K already removed.
+    RangeBurst,
+}
+
+impl DutReports {
+    /// The form's name as bench files write it.
+    pub fn name(self) -> &'static str {
+        match self {
+            DutReports::Timestamps => "timestamps",
+            DutReports::RttFrames => "rtt_frames",
+            DutReports::RttBurst => "rtt_burst",
+            DutReports::RangeBurst => "range_burst",
+        }
+    }
+
+    /// Whether the device averages a burst into one row.
+    pub fn per_burst(self) -> bool {
+        matches!(self, DutReports::RttBurst | DutReports::RangeBurst)
+    }
 }
 
 /// Truth of the reference unit.
@@ -206,6 +251,9 @@ impl Default for SimAttenuator {
     }
 }
 
+fn yes() -> bool {
+    true
+}
 fn no_drift() -> PerGain {
     PerGain::Same(0.0)
 }
@@ -397,6 +445,25 @@ impl SimTruth {
                 "IEEE 802.11 allows ±20 ppm per station (±25 ppm at 2.4 GHz)",
             ));
         }
+        match (d.reports, d.applied_k_ps) {
+            (DutReports::RangeBurst, None) => return Err(KeyError::new(
+                "sim.dut.applied_k_ps",
+                "is missing: a DUT with reports = \"range_burst\" removes a K of its own",
+                "give the K in ps the device subtracts before it reports a distance, e.g. 2600.0",
+            )),
+            (DutReports::RangeBurst, Some(k)) => finite("sim.dut.applied_k_ps", k)?,
+            (other, Some(_)) => {
+                return Err(KeyError::new(
+                    "sim.dut.applied_k_ps",
+                    format!(
+                        "applies only to reports = \"range_burst\", not \"{}\"",
+                        other.name()
+                    ),
+                    "remove it, or set reports = \"range_burst\"",
+                ))
+            }
+            (_, None) => {}
+        }
         let f = &self.ftm;
         positive("sim.ftm.frame_duration_us", f.frame_duration_us)?;
         non_negative("sim.ftm.sifs_us", f.sifs_us)?;
@@ -539,6 +606,50 @@ mod tests {
         t.dut.gain_thresholds_dbm[1] = f64::NAN;
         let err = t.validate().expect_err("NaN threshold must be rejected");
         assert_eq!(err.key, "sim.dut.gain_thresholds_dbm.1");
+    }
+
+    #[test]
+    fn a_dut_reports_timestamps_with_its_gain_unless_told_otherwise() {
+        // Design §6: reports defaults to timestamps, reports_gain to true, serial to absent.
+        let t = truth();
+        assert_eq!(t.dut.reports, DutReports::Timestamps);
+        assert!(t.dut.reports_gain);
+        assert_eq!((t.dut.applied_k_ps, t.dut.serial.as_deref()), (None, None));
+        let told: SimTruth = toml::from_str(&BENCH.replace(
+            "outlier_rate = 0.01",
+            "outlier_rate = 0.01\nreports = \"rtt_frames\"\nreports_gain = false\nserial = \"SN 7\"",
+        ))
+        .expect("keys parse");
+        assert_eq!(told.validate(), Ok(()));
+        assert_eq!(told.dut.reports, DutReports::RttFrames);
+        assert!(!told.dut.reports_gain);
+        assert_eq!(told.dut.serial.as_deref(), Some("SN 7"));
+        let unknown = toml::from_str::<SimTruth>(&BENCH.replace(
+            "outlier_rate = 0.01",
+            "outlier_rate = 0.01\nreports = \"range\"",
+        ))
+        .expect_err("not a form");
+        assert!(unknown.to_string().contains("range_burst"), "{unknown}");
+    }
+
+    #[test]
+    fn the_applied_k_belongs_to_range_reports_alone_and_must_be_finite() {
+        let mut t = truth();
+        t.dut.reports = DutReports::RangeBurst;
+        let err = t.validate().expect_err("range without its applied K");
+        assert_eq!(err.key, "sim.dut.applied_k_ps");
+        assert!(err.message.contains("is missing"), "{}", err.message);
+        t.dut.applied_k_ps = Some(f64::INFINITY);
+        assert_eq!(
+            t.validate().map_err(|e| e.key),
+            Err("sim.dut.applied_k_ps".to_string())
+        );
+        t.dut.applied_k_ps = Some(2600.0);
+        assert_eq!(t.validate(), Ok(()));
+        t.dut.reports = DutReports::RttBurst;
+        let err = t.validate().expect_err("applied K without a range");
+        assert_eq!(err.key, "sim.dut.applied_k_ps");
+        assert!(err.message.contains("not \"rtt_burst\""), "{}", err.message);
     }
 
     #[test]

@@ -1,6 +1,7 @@
 //! `taucal sim serve`: the simulated bench's instruments served as real ones — the attenuator
-//! as a SCPI instrument on a TCP socket, the DUT's console on a TCP socket or a
-//! pseudo-terminal — sharing one bench model, so a run through them exercises the real
+//! as a SCPI instrument on a TCP socket, the DUT's console (in the lines of the device its
+//! `[sim.dut] reports` form stands for) on a TCP socket or a pseudo-terminal — sharing one bench
+//! model, so a run through them exercises the real
 //! transports and driver files and still records the exchanges the in-process bench would.
 //!
 //! `[sim.faults]` strike on the wire, one command at a time in the order commands arrive: a
@@ -23,6 +24,7 @@ use crate::instrument::line::LineFramer;
 use crate::sim::faults::{garble, CommandFault, FaultInjector};
 use crate::sim::front::{SimShared, SimWorld};
 use crate::sim::SimBench;
+use console::ConsoleDevice;
 use scpi_attenuator::ScpiAttenuator;
 use std::net::{IpAddr, SocketAddr};
 use std::sync::{Arc, Mutex};
@@ -131,6 +133,7 @@ pub enum Medium {
 pub struct ServedBench {
     shared: SimShared,
     attenuator: Arc<Mutex<ScpiAttenuator>>,
+    console: ConsoleDevice,
 }
 
 impl ServedBench {
@@ -165,6 +168,7 @@ impl ServedBench {
         Ok(ServedBench {
             shared,
             attenuator: Arc::new(Mutex::new(attenuator)),
+            console: ConsoleDevice::new(truth.dut.reports, truth.dut.serial.clone()),
         })
     }
 
@@ -175,8 +179,9 @@ impl ServedBench {
                 let pty = pty::Pty::open()?;
                 let address = format!("serial:{}", pty.path.display());
                 let shared = self.shared.clone();
+                let device = self.console.clone();
                 tokio::spawn(async move {
-                    if let Err(e) = console::serve(pty, shared, Medium::Terminal).await {
+                    if let Err(e) = console::serve(pty, shared, device, Medium::Terminal).await {
                         tracing::warn!("dut console on the pty: {e}");
                     }
                 });
@@ -207,7 +212,13 @@ impl ServedBench {
                             let outcome = match role {
                                 ServedRole::Attenuator => me.serve_scpi(stream).await,
                                 ServedRole::Dut => {
-                                    console::serve(stream, me.shared.clone(), Medium::Socket).await
+                                    console::serve(
+                                        stream,
+                                        me.shared.clone(),
+                                        me.console.clone(),
+                                        Medium::Socket,
+                                    )
+                                    .await
                                 }
                             };
                             if let Err(e) = outcome {
