@@ -1,6 +1,6 @@
 //! `taucal fit` on a run's exchanges reproduces the run's table.
 
-use crate::support::{repo, Taucal};
+use crate::support::{repo, root, Taucal};
 
 fn table(text: &str) -> Vec<Vec<String>> {
     text.lines()
@@ -168,4 +168,49 @@ fn quiet_keeps_stderr_to_warnings_and_settings_name_their_source() {
     named.expect_code(0);
     assert_eq!(named.stderr, "");
     assert_eq!(named.stdout, original);
+}
+
+#[test]
+fn fit_takes_the_bench_the_run_used_and_refuses_one_changed_since() {
+    // Without --bench, a run on another bench is refitted with that bench (the demo's path
+    // delays would shift every K by thousands of ps), and only while its file is unchanged.
+    let bench = std::fs::read_to_string(root().join("recipes/benches/sim-marlet40.toml"))
+        .expect("bench")
+        .replace("reports_gain = false", "reports_gain = true");
+    let run = Taucal::new()
+        .file("bench.toml", &bench)
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "bench.toml",
+            "--out",
+            "run",
+        ])
+        .run();
+    run.expect_code(0);
+    let original = run.read("run/caltable.csv");
+    let refit = Taucal::in_dir(run.dir)
+        .args(["fit", "run/exchanges.csv"])
+        .run();
+    refit.expect_code(0);
+    assert_eq!(refit.stdout, original);
+    assert!(
+        refit.stderr.contains("bench bench.toml"),
+        "{}",
+        refit.stderr
+    );
+
+    let changed = bench.replace("cable_delay_ps = ", "cable_delay_ps = 1");
+    assert_ne!(changed, bench);
+    let out = Taucal::in_dir(refit.dir)
+        .file("bench.toml", &changed)
+        .args(["fit", "run/exchanges.csv"])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains("has changed since the run") && out.stderr.contains("--bench"),
+        "{}",
+        out.stderr
+    );
 }

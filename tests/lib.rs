@@ -14,6 +14,7 @@ mod instruments;
 mod plan_preview;
 mod record_version;
 mod report;
+mod run_forms;
 mod science;
 mod script_limits;
 mod truth;

@@ -319,6 +319,22 @@ impl Bench {
                         "the bench's limit must not exceed the device's rating",
                     ));
                 }
+                if c.range_unit.is_some()
+                    && !c.learns_applied_k()
+                    && self.dut.applied_k_ps.is_none()
+                {
+                    return Err(KeyError::new(
+                        key,
+                        format!(
+                            "`{}` reads distances, but neither the driver nor the bench says \
+                             which K the device removed from them, so they cannot give its K",
+                            driver.name
+                        ),
+                        "declare the device's factory K as applied_k_ps under [dut] in the bench \
+                         (or in the driver's [reports]), or capture the device's own \
+                         (?P<applied_k>…) in the driver's reply.exchange",
+                    ));
+                }
                 Ok(())
             }
         }

@@ -164,8 +164,10 @@ pub struct CheckArgs {
 pub struct FitArgs {
     /// Exchanges file (the contract columns of exchanges.csv).
     pub exchanges: PathBuf,
-    #[command(flatten)]
-    pub bench: BenchArg,
+    /// Bench file (default: the bench the run's manifest beside the file names, if unchanged;
+    /// for a file outside a run directory, the built-in simulated demo bench).
+    #[arg(long, value_name = "FILE")]
+    pub bench: Option<PathBuf>,
     /// Write caltable.csv into this directory instead of printing it.
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,

@@ -3,6 +3,8 @@
 use super::args::BenchArg;
 use crate::bench::file::BUILT_IN_LABEL;
 use crate::bench::Bench;
+use crate::data::manifest::sha256_hex;
+use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
 use std::path::Path;
 
@@ -32,6 +34,38 @@ pub fn for_recipe(arg: &BenchArg, recipe: &Path) -> Result<Bench, Diagnostic> {
         }
     }
     load(arg)
+}
+
+/// The bench a recorded run used, for commands that de-embed its exchanges again: `explicit`
+/// (`--bench`), else the built-in bench when the run used it, else the bench file its manifest
+/// names — and only if its SHA-256 still matches, since a changed bench would silently change
+/// every K.
+pub fn of_run(explicit: Option<&Path>, m: &Manifest) -> Result<Bench, Diagnostic> {
+    if let Some(path) = explicit {
+        return Bench::load(path);
+    }
+    let bench = if m.bench.path == BUILT_IN_LABEL {
+        Bench::built_in()?
+    } else {
+        // The absolute path, so the run's files work from any directory; older manifests
+        // have only the path as given.
+        let file = if m.bench.file.is_empty() {
+            &m.bench.path
+        } else {
+            &m.bench.file
+        };
+        Bench::load(Path::new(file)).map_err(|d| {
+            d.with_hint("the run's bench file is gone or moved: give it with --bench FILE")
+        })?
+    };
+    if sha256_hex(bench.source.text.as_bytes()) != m.bench.sha256 {
+        return Err(Diagnostic::plain(format!(
+            "the bench file {} has changed since the run (its SHA-256 differs from the manifest's)",
+            m.bench.path
+        ))
+        .with_hint("give the bench as it was with --bench FILE"));
+    }
+    Ok(bench)
 }
 
 /// One line saying whether the bench is simulated, for every command that uses one.

@@ -1,9 +1,10 @@
 //! `taucal fit`: the fitter on an exchanges file, offline.
 //!
 //! When the file sits in a run directory, the run's manifest says how its table was fitted
-//! (rejection threshold, verification stages kept out of the fit), so the refit reproduces it.
+//! (rejection threshold, verification stages kept out of the fit) and which bench it ran on, so
+//! the refit reproduces it.
 
-use super::args::FitArgs;
+use super::args::{BenchArg, FitArgs};
 use super::{bench_arg, log, table, Exit};
 use crate::data::run_dir::files;
 use crate::data::Manifest;
@@ -25,10 +26,12 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         applied_k_ps: None,
     };
     let mut from = "default";
+    let mut manifest = None;
     if let Some(path) = &manifest_path {
         let m = Manifest::read(path).map_err(|e| {
             Diagnostic::in_file(path, format!("cannot read the run's manifest: {e}"))
         })?;
+        manifest = Some(m.clone());
         settings.reject_mad = m.fit.reject_mad;
         settings.verify_stages = m.fit.verify_stages;
         settings.gain_states = m.fit.gain_states;
@@ -79,7 +82,21 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         }
         settings.applied_k_ps = Some(k);
     }
-    let bench = bench_arg::load(&args.bench)?;
+    // A recorded run is de-embedded with the bench it ran on, not the demo's.
+    let bench = match &manifest {
+        Some(m) => {
+            if args.bench.is_none() {
+                log::notice(&format!(
+                    "taucal: bench {}, the one the run's manifest names",
+                    m.bench.path
+                ));
+            }
+            bench_arg::of_run(args.bench.as_deref(), m)?
+        }
+        None => bench_arg::load(&BenchArg {
+            bench: args.bench.clone(),
+        })?,
+    };
     let fit = tabulate::fit_file(&args.exchanges, &bench, &settings)
         .map_err(|e| {
             Diagnostic::plain(e.to_string()).with_hint(format!(

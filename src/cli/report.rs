@@ -5,14 +5,11 @@
 //! SHA-256 still matches, since a changed bench would silently change every K shown.
 
 use super::args::ReportArgs;
-use super::Exit;
-use crate::bench::file::BUILT_IN_LABEL;
+use super::{bench_arg, Exit};
 use crate::bench::Bench;
-use crate::data::manifest::sha256_hex;
 use crate::data::run_dir::files;
 use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
-use std::path::Path;
 
 /// Rebuilds the report.
 pub fn run(args: ReportArgs) -> Result<Exit, Diagnostic> {
@@ -42,19 +39,5 @@ fn bench_for(args: &ReportArgs) -> Result<Bench, Diagnostic> {
             format!("cannot read the run's manifest: {e}"),
         )
     })?;
-    let bench = if m.bench.path == BUILT_IN_LABEL {
-        Bench::built_in()?
-    } else {
-        Bench::load(Path::new(&m.bench.path)).map_err(|d| {
-            d.with_hint("the run's bench file is gone or moved: give it with --bench FILE")
-        })?
-    };
-    if sha256_hex(bench.source.text.as_bytes()) != m.bench.sha256 {
-        return Err(Diagnostic::plain(format!(
-            "the bench file {} has changed since the run (its SHA-256 differs from the manifest's)",
-            m.bench.path
-        ))
-        .with_hint("give the bench as it was with --bench FILE"));
-    }
-    Ok(bench)
+    bench_arg::of_run(None, &m)
 }

@@ -143,7 +143,8 @@ pub fn classify(driver: &ConsoleDriver, line: &str) -> Result<ConsoleLine, Strin
                 .iter()
                 .all(Option::is_some),
             Some(RowForm::Rtt) => true,
-            Some(RowForm::Range) => x.applied_k_ps.is_some(),
+            // A driver that never learns the K leaves it to the bench's `[dut] applied_k_ps`.
+            Some(RowForm::Range) => x.applied_k_ps.is_some() || !driver.learns_applied_k(),
             None => false,
         };
         x.status = match caps.name("status").map(|s| s.as_str()) {
