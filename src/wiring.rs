@@ -9,6 +9,7 @@ use crate::bench::Bench;
 use crate::clock::BenchClock;
 use crate::diagnostic::{Diagnostic, KeyError};
 use crate::instrument::driven_attenuator::DrivenAttenuator;
+use crate::instrument::driven_chamber::DrivenChamber;
 use crate::instrument::driven_console::DrivenConsole;
 use crate::instrument::driver_file::{DriverFile, DriverKind};
 use crate::instrument::scpi_client::ScpiClient;
@@ -86,14 +87,23 @@ pub fn connect(
         (Some((shared, _)), _) => Box::new(SimRangingFront::new(shared.clone())),
         _ => return Err(unreachable_role(bench, "dut")),
     };
-    let chamber = match (&shared, bench.roles.get("chamber")) {
-        (Some((shared, _)), Some(b)) if b.address == "sim:" => {
+    let chamber = match (
+        &shared,
+        bench.roles.get("chamber"),
+        driven(bench, "chamber")?,
+    ) {
+        (_, _, Some((DriverKind::Chamber(d), link))) => {
+            let driven: Box<dyn Chamber> =
+                Box::new(DrivenChamber::new("chamber", *d, ScpiClient::new(link)));
+            Some(ChamberHandle(spawn("chamber", driven)?))
+        }
+        (Some((shared, _)), Some(b), _) if b.address == "sim:" => {
             let front = SimChamberFront::new(shared.clone(), ROOM_C);
             let front: Box<dyn Chamber> = Box::new(front);
             Some(ChamberHandle(spawn("chamber", front)?))
         }
-        (_, Some(_)) => return Err(unreachable_role(bench, "chamber")),
-        (_, None) => None,
+        (_, Some(_), _) => return Err(unreachable_role(bench, "chamber")),
+        (_, None, _) => None,
     };
     Ok(Instruments {
         attenuator: AttenuatorHandle(spawn("attenuator", attenuator)?),

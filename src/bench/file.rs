@@ -3,7 +3,7 @@
 use super::{PathFacts, PerGain, TimingFacts};
 use crate::diagnostic::{Diagnostic, KeyError, SourceFile};
 use crate::instrument::driver_file::{
-    DriverFile, DriverKind, KIND_ATTENUATOR, KIND_RANGING_CONSOLE,
+    DriverFile, DriverKind, KIND_ATTENUATOR, KIND_CHAMBER, KIND_RANGING_CONSOLE,
 };
 use crate::instrument::template::on_grid;
 use crate::instrument::transport::{Address, ADDRESS_FORMS};
@@ -245,10 +245,10 @@ impl Bench {
 
     fn fits(&self, role: &str, driver: &DriverFile) -> Result<(), KeyError> {
         let key = format!("roles.{role}.driver");
-        let wanted = if role == "attenuator" {
-            KIND_ATTENUATOR
-        } else {
-            KIND_RANGING_CONSOLE
+        let wanted = match role {
+            "attenuator" => KIND_ATTENUATOR,
+            "chamber" => KIND_CHAMBER,
+            _ => KIND_RANGING_CONSOLE,
         };
         match &driver.kind {
             kind if kind.name() != wanted => Err(KeyError::new(
@@ -337,6 +337,9 @@ impl Bench {
                 }
                 Ok(())
             }
+            // Its rated setpoint range is checked against every soak when a recipe is checked
+            // with the bench, and again before each setpoint is sent.
+            DriverKind::Chamber(_) => Ok(()),
         }
     }
 

@@ -54,6 +54,11 @@ pub trait Chamber: Send {
     async fn set_setpoint_c(&mut self, setpoint_c: f64) -> Result<(), InstrumentError>;
     /// Reads the air temperature.
     async fn air_c(&mut self) -> Result<f64, InstrumentError>;
-    /// Returns the setpoint to room temperature, so nothing is left hot or cold unattended.
+    /// Reads the product (DUT) temperature, where the chamber has a sensor on it.
+    async fn product_c(&mut self) -> Result<Option<f64>, InstrumentError> {
+        Ok(None)
+    }
+    /// Puts the chamber in its safe state (room temperature, or stopped, as its driver says),
+    /// so nothing is left hot or cold unattended.
     async fn safe_state(&mut self) -> Result<(), InstrumentError>;
 }

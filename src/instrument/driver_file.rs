@@ -6,8 +6,11 @@
 //! expressions and the named fields they must capture, limits) and points errors at the file's
 //! line, like recipe and bench errors. Nothing here talks to an instrument.
 
+pub mod chamber;
+
 use super::template::{on_grid, ParamKind, Template};
 use crate::diagnostic::{did_you_mean, Diagnostic, KeyError, SourceFile};
+pub use chamber::{ChamberDriver, ChamberSafe, KIND_CHAMBER};
 use regex::Regex;
 use serde::Deserialize;
 use std::collections::BTreeMap;
@@ -70,6 +73,7 @@ struct RawLimits {
     frames: Option<[u32; 2]>,
     center_mhz: Option<[u32; 2]>,
     bw_mhz: Option<Vec<u32>>,
+    setpoint_c: Option<[f64; 2]>,
 }
 
 #[derive(Debug, Default, Deserialize)]
@@ -90,6 +94,7 @@ struct RawReports {
 #[serde(deny_unknown_fields)]
 struct RawSafe {
     atten_db: Option<f64>,
+    setpoint_c: Option<f64>,
     command: Option<String>,
     reply: Option<String>,
 }
@@ -129,6 +134,8 @@ pub enum DriverKind {
     Attenuator(AttenuatorDriver),
     /// A ranging device's line console.
     RangingConsole(Box<ConsoleDriver>),
+    /// A climatic chamber.
+    Chamber(Box<ChamberDriver>),
 }
 
 impl DriverKind {
@@ -137,6 +144,7 @@ impl DriverKind {
         match self {
             DriverKind::Attenuator(_) => KIND_ATTENUATOR,
             DriverKind::RangingConsole(_) => KIND_RANGING_CONSOLE,
+            DriverKind::Chamber(_) => KIND_CHAMBER,
         }
     }
 }
@@ -332,14 +340,18 @@ fn build(name: &str, raw: RawDriver) -> Result<DriverFile, KeyError> {
         line_ending: line_ending.to_string(),
         timeout: Duration::from_micros((t * 1000.0) as u64),
     };
+    if raw.driver.kind != KIND_CHAMBER {
+        chamber::refuse_elsewhere(&raw, &raw.driver.kind)?;
+    }
     let kind = match raw.driver.kind.as_str() {
+        KIND_CHAMBER => DriverKind::Chamber(Box::new(chamber::chamber(&raw)?)),
         KIND_ATTENUATOR => DriverKind::Attenuator(attenuator(&raw)?),
         KIND_RANGING_CONSOLE => DriverKind::RangingConsole(Box::new(console(&raw)?)),
         other => {
             return Err(KeyError::new(
                 "driver.kind",
                 format!("`{other}` is not a kind of instrument taucal drives"),
-                format!("kinds are {KIND_ATTENUATOR} and {KIND_RANGING_CONSOLE}"),
+                format!("kinds are {KIND_ATTENUATOR}, {KIND_RANGING_CONSOLE} and {KIND_CHAMBER}"),
             ))
         }
     };
@@ -931,7 +943,7 @@ mod tests {
         assert!(e.contains("does not capture the field `db`"), "{e}");
         let e = broken(0, "'^(?P<db>", "'^((?P<db>");
         assert!(e.contains("not a regular expression"), "{e}");
-        let e = broken(0, "kind = \"attenuator\"", "kind = \"chamber\"");
+        let e = broken(0, "kind = \"attenuator\"", "kind = \"oven\"");
         assert!(e.contains("not a kind of instrument"), "{e}");
         let e = broken(0, "set_atten =", "set_atten_db =");
         assert!(e.contains("did you mean `set_atten`"), "{e}");

@@ -69,7 +69,11 @@ impl ChamberHandle {
     pub fn air_c(&self) -> Result<f64, InstrumentError> {
         self.0.call(|c| c.air_c())
     }
-    /// Back to room temperature.
+    /// Reads the product temperature, if the chamber has a sensor on it.
+    pub fn product_c(&self) -> Result<Option<f64>, InstrumentError> {
+        self.0.call(|c| c.product_c())
+    }
+    /// Into its safe state.
     pub fn safe_state(&self) -> Result<(), InstrumentError> {
         self.0.call(|c| c.safe_state())
     }

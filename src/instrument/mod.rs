@@ -4,6 +4,7 @@
 
 pub mod capability;
 pub mod driven_attenuator;
+pub mod driven_chamber;
 pub mod driven_console;
 pub mod driver_file;
 pub mod error;

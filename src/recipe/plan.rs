@@ -709,6 +709,20 @@ fn soak(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Soak, Ke
             "give a temperature the chamber and the DUT are rated for",
         ));
     }
+    if let Some(crate::instrument::driver_file::DriverKind::Chamber(c)) =
+        bench.drivers.get("chamber").map(|d| &d.kind)
+    {
+        let [lo, hi] = c.setpoint_c;
+        if !(lo..=hi).contains(&setpoint_c) {
+            return Err(KeyError::new(
+                format!("{key}.setpoint_c"),
+                format!(
+                    "{setpoint_c} °C is outside the chamber driver's setpoint range {lo}..{hi} °C"
+                ),
+                "give a temperature the chamber and the DUT are rated for",
+            ));
+        }
+    }
     let get = |name: &str, v: &Option<toml::Value>, default: f64| match v {
         Some(v) => positive(vars, &format!("{key}.{name}"), v),
         None => Ok(default),

@@ -222,9 +222,10 @@ pub fn run_verify(session: &mut Session, verify: &Verify) -> Result<(), RunError
     run_sweep(session, &verify.sweep)
 }
 
-/// Runs a soak: sets the chamber, then reads the DUT's temperature (the chamber's air where the
-/// DUT reports none) every `poll_s` until it has stayed within `within_c` of the setpoint for
-/// `stable_s`, or stops the run at `timeout_s`.
+/// Runs a soak: sets the chamber, then reads the DUT's temperature (the chamber's product
+/// sensor where the DUT reports none, its air where it has no such sensor) every `poll_s` until
+/// it has stayed within `within_c` of the setpoint for `stable_s`, or stops the run at
+/// `timeout_s`.
 pub fn run_soak(session: &mut Session, soak: &Soak) -> Result<(), RunError> {
     let Some(chamber) = session.chamber().cloned() else {
         return Err(RunError::Refused {
@@ -240,7 +241,10 @@ pub fn run_soak(session: &mut Session, soak: &Soak) -> Result<(), RunError> {
         let now_s = session.clock().now_s();
         let temp_c = match session.dut_temp_c()? {
             Some(t) => t,
-            None => chamber.air_c()?,
+            None => match chamber.product_c()? {
+                Some(t) => t,
+                None => chamber.air_c()?,
+            },
         };
         if (temp_c - soak.setpoint_c).abs() <= soak.within_c {
             let since = *settled_since.get_or_insert(now_s);

@@ -1,0 +1,255 @@
+//! The chamber section of driver files: a climatic chamber described as data — how to set its
+//! air setpoint, read its air (and, where it has a second sensor, the product) temperature,
+//! identify it, and what its safe state is — so a SCPI-style chamber and a plain line-protocol
+//! one are both a file, not a recompile.
+//!
+//! Validation only; nothing here talks to a chamber (`driven_chamber` does).
+
+use super::{only_keys, pattern, refuse, required, template, RawDriver};
+use crate::diagnostic::KeyError;
+use crate::instrument::template::{ParamKind, Template};
+use regex::Regex;
+
+/// Kind name of a climatic-chamber driver.
+pub const KIND_CHAMBER: &str = "chamber";
+
+const COMMANDS: [&str; 4] = ["identify", "set_setpoint", "air", "product"];
+const REPLIES: [&str; 5] = ["identify", "set_setpoint", "air", "product", "refused"];
+const SETPOINT_PARAMS: [(&str, ParamKind); 1] = [("c", ParamKind::Real)];
+
+/// Widest setpoint range a driver may declare: beyond it no chamber of this kind goes, so a
+/// number outside is a typo (or kelvin).
+pub const PLAUSIBLE_C: std::ops::RangeInclusive<f64> = -100.0..=300.0;
+
+/// A climatic chamber: a line protocol (optionally with SCPI basics) defined by the file.
+#[derive(Debug, Clone)]
+pub struct ChamberDriver {
+    /// Asks for the chamber's identity.
+    pub identify: Template,
+    /// Reply to `identify`; captures `id`.
+    pub identify_reply: Regex,
+    /// Sets the air setpoint; parameter `c` (°C).
+    pub set_setpoint: Template,
+    /// Acknowledgment of `set_setpoint`, if the chamber sends one.
+    pub set_setpoint_reply: Option<Regex>,
+    /// Asks for the air temperature.
+    pub air: Template,
+    /// Reply to `air`; captures `c` (°C).
+    pub air_reply: Regex,
+    /// Asks for the product (DUT) temperature, with its reply capturing `c`, where the chamber
+    /// has a second sensor on the product.
+    pub product: Option<(Template, Regex)>,
+    /// A line the chamber sends instead of a reply when it refuses a command; may capture
+    /// `reason`.
+    pub refused: Option<Regex>,
+    /// Ask `*OPC?` after each setting and wait for `1` (a SCPI-style chamber's `[scpi]`).
+    pub wait_complete: bool,
+    /// Drain `SYST:ERR?` after each setting; any error is a refusal.
+    pub error_queue: bool,
+    /// Lowest and highest setpoint the chamber is rated for, °C.
+    pub setpoint_c: [f64; 2],
+    /// What the chamber is left in when a run ends or stops.
+    pub safe: ChamberSafe,
+}
+
+/// A chamber's safe state, as its driver file declares it.
+#[derive(Debug, Clone)]
+pub enum ChamberSafe {
+    /// Hold the air at this setpoint (room temperature, typically): the product comes back to
+    /// ambient without condensation from a chamber switched off cold.
+    Hold {
+        /// The setpoint held, °C.
+        setpoint_c: f64,
+    },
+    /// Stop conditioning with this command (and its acknowledgment, if any).
+    Stop {
+        /// The command that stops the chamber.
+        command: Template,
+        /// Its acknowledgment.
+        reply: Option<Regex>,
+    },
+}
+
+/// Refuses the chamber's keys in a driver file of another kind.
+pub(super) fn refuse_elsewhere(raw: &RawDriver, kind: &str) -> Result<(), KeyError> {
+    refuse("limits.setpoint_c", kind, raw.limits.setpoint_c.is_some())?;
+    refuse(
+        "safe_state.setpoint_c",
+        kind,
+        raw.safe_state.setpoint_c.is_some(),
+    )
+}
+
+/// Validates a chamber driver.
+pub(super) fn chamber(raw: &RawDriver) -> Result<ChamberDriver, KeyError> {
+    only_keys("command", &raw.command, &COMMANDS)?;
+    only_keys("reply", &raw.reply, &REPLIES)?;
+    let l = &raw.limits;
+    for (key, present) in [
+        ("limits.range_db", l.range_db.is_some()),
+        ("limits.step_db", l.step_db.is_some()),
+        ("limits.max_input_dbm", l.max_input_dbm.is_some()),
+        ("limits.frames", l.frames.is_some()),
+        ("limits.center_mhz", l.center_mhz.is_some()),
+        ("limits.bw_mhz", l.bw_mhz.is_some()),
+        ("reports", raw.reports.is_some()),
+        ("timing.settle_ms", raw.timing.settle_ms.is_some()),
+        ("safe_state.atten_db", raw.safe_state.atten_db.is_some()),
+    ] {
+        refuse(key, KIND_CHAMBER, present)?;
+    }
+    let c = &raw.command;
+    let r = &raw.reply;
+    let identify = template(
+        "command",
+        "identify",
+        required("command", c, "identify", "\"*IDN?\"")?,
+        &[],
+    )?;
+    let identify_reply = pattern(
+        "identify",
+        required("reply", r, "identify", "'^(?P<id>.+)$'")?,
+        &["id"],
+        &[],
+    )?;
+    let set_setpoint = template(
+        "command",
+        "set_setpoint",
+        required("command", c, "set_setpoint", "\"TEMP:SETP {c:.1}\"")?,
+        &SETPOINT_PARAMS,
+    )?;
+    if set_setpoint.as_sent("c", 0.0).is_none() {
+        return Err(KeyError::new(
+            "command.set_setpoint",
+            "does not send the setpoint",
+            "put the setpoint in the command with `{c}` or `{c:.N}`, e.g. \"TEMP:SETP {c:.1}\"",
+        ));
+    }
+    let set_setpoint_reply = r
+        .get("set_setpoint")
+        .map(|p| pattern("set_setpoint", p, &[], &[]))
+        .transpose()?;
+    let air = template(
+        "command",
+        "air",
+        required("command", c, "air", "\"TEMP:AIR?\"")?,
+        &[],
+    )?;
+    let air_reply = pattern(
+        "air",
+        required("reply", r, "air", "'^(?P<c>[-+0-9.]+)$'")?,
+        &["c"],
+        &[],
+    )?;
+    let product =
+        match (c.get("product"), r.get("product")) {
+            (None, None) => None,
+            (Some(cmd), Some(reply)) => Some((
+                template("command", "product", cmd, &[])?,
+                pattern("product", reply, &["c"], &[])?,
+            )),
+            (Some(_), None) => {
+                return Err(KeyError::new(
+                    "command.product",
+                    "has no reply pattern",
+                    "add `reply.product` capturing (?P<c>…)",
+                ))
+            }
+            (None, Some(_)) => return Err(KeyError::new(
+                "reply.product",
+                "has no command",
+                "add `command.product`, or remove the pattern if the chamber has no product sensor",
+            )),
+        };
+    let refused = r
+        .get("refused")
+        .map(|p| pattern("refused", p, &[], &["reason"]))
+        .transpose()?;
+    let Some([lo, hi]) = l.setpoint_c else {
+        return Err(KeyError::new(
+            "limits",
+            "has no `setpoint_c`",
+            "add the chamber's rated setpoint range, `setpoint_c = [lowest, highest]` in °C",
+        ));
+    };
+    if !(lo.is_finite() && hi.is_finite() && lo < hi && PLAUSIBLE_C.contains(&lo))
+        || !PLAUSIBLE_C.contains(&hi)
+    {
+        return Err(KeyError::new(
+            "limits.setpoint_c",
+            format!("[{lo}, {hi}] is not a range of chamber setpoints"),
+            format!(
+                "give [lowest, highest] in °C, within {} to {} °C",
+                PLAUSIBLE_C.start(),
+                PLAUSIBLE_C.end()
+            ),
+        ));
+    }
+    let (wait_complete, error_queue) = raw
+        .scpi
+        .as_ref()
+        .map_or((false, false), |s| (s.wait_complete, s.error_queue));
+    let safe = safe_state(raw, [lo, hi])?;
+    Ok(ChamberDriver {
+        identify,
+        identify_reply,
+        set_setpoint,
+        set_setpoint_reply,
+        air,
+        air_reply,
+        product,
+        refused,
+        wait_complete,
+        error_queue,
+        setpoint_c: [lo, hi],
+        safe,
+    })
+}
+
+/// Exactly one of a held setpoint (within the rated range) and a stop command.
+fn safe_state(raw: &RawDriver, [lo, hi]: [f64; 2]) -> Result<ChamberSafe, KeyError> {
+    let s = &raw.safe_state;
+    let hint = "give either `setpoint_c = 23.0` (hold at room temperature) or \
+                `command = \"…\"` (stop the chamber), whichever the chamber's maker recommends";
+    match (s.setpoint_c, &s.command) {
+        (Some(_), Some(_)) => Err(KeyError::new(
+            "safe_state.command",
+            "and `setpoint_c` both given: a chamber's safe state is one or the other",
+            hint,
+        )),
+        (None, None) => Err(KeyError::new("safe_state", "says nothing", hint)),
+        (Some(setpoint_c), None) => {
+            if s.reply.is_some() {
+                return Err(KeyError::new(
+                    "safe_state.reply",
+                    "applies only to a safe-state `command`",
+                    "remove it: holding a setpoint is acknowledged as set_setpoint is",
+                ));
+            }
+            if !(setpoint_c.is_finite() && (lo..=hi).contains(&setpoint_c)) {
+                return Err(KeyError::new(
+                    "safe_state.setpoint_c",
+                    format!("{setpoint_c} °C is outside the chamber's setpoint range [{lo}, {hi}]"),
+                    "hold at room temperature, e.g. 23.0",
+                ));
+            }
+            Ok(ChamberSafe::Hold { setpoint_c })
+        }
+        (None, Some(command)) => Ok(ChamberSafe::Stop {
+            command: template("safe_state", "command", command, &[])?,
+            reply: s
+                .reply
+                .as_deref()
+                .map(|p| {
+                    Regex::new(p).map_err(|e| {
+                        KeyError::new(
+                            "safe_state.reply",
+                            format!("is not a regular expression: {e}"),
+                            "see the regex crate's syntax",
+                        )
+                    })
+                })
+                .transpose()?,
+        }),
+    }
+}
