@@ -9,7 +9,8 @@
 //! this way the in-process bench and the served one (`taucal sim serve`) make the same model
 //! calls at the same model times, so they record the same exchanges for a seed. A simulated
 //! chamber is different: temperature changes while the runner waits (that is what a soak is), so
-//! it follows the run's bench time.
+//! it follows the run's bench time — in-process the run's clock, served the wall (the runner of
+//! a served bench waits in wall time).
 
 use super::chamber::SimChamber;
 use super::device_report::DeviceReport;
@@ -61,6 +62,7 @@ pub struct SimShared {
     model: Arc<Mutex<SimWorld>>,
     model_clock: Arc<BenchClock>,
     clock: Arc<BenchClock>,
+    chamber_clock: Arc<BenchClock>,
 }
 
 impl SimShared {
@@ -70,8 +72,16 @@ impl SimShared {
         SimShared {
             model: Arc::new(Mutex::new(world)),
             model_clock: Arc::new(BenchClock::new(ClockMode::Virtual)),
+            chamber_clock: clock.clone(),
             clock,
         }
+    }
+
+    /// The same world with its chamber, and so the DUT's temperature, following `clock`
+    /// instead of the instruments' clock.
+    pub fn with_chamber_clock(mut self, clock: Arc<BenchClock>) -> Self {
+        self.chamber_clock = clock;
+        self
     }
 
     /// Sets the attenuation; returns the wall time to wait for the switch (zero in virtual
@@ -124,7 +134,7 @@ impl SimShared {
     ) -> Result<(DeviceReport, Duration), InstrumentError> {
         let (report, duration_ps) = {
             let start_ps = self.model_clock.now_ps();
-            let now_ps = self.clock.now_ps();
+            let now_ps = self.chamber_clock.now_ps();
             let mut world = self.lock("dut")?;
             world.faults.burst(request.frames)?;
             world.settle_to(now_ps);
@@ -145,18 +155,18 @@ impl SimShared {
 
     /// The DUT's temperature, if the bench has one (a chamber's, else the ambient).
     pub fn dut_temp_c(&self) -> Result<Option<f64>, InstrumentError> {
-        let now_ps = self.clock.now_ps();
+        let now_ps = self.chamber_clock.now_ps();
         let mut world = self.lock("dut")?;
         world.settle_to(now_ps);
         Ok(world.bench.dut_temp_c())
     }
 
-    /// Runs `f` on the chamber at the run's bench time now.
-    fn with_chamber<R>(
+    /// Runs `f` on the chamber at the chamber's bench time now.
+    pub fn with_chamber<R>(
         &self,
         f: impl FnOnce(&mut SimChamber, u64) -> R,
     ) -> Result<R, InstrumentError> {
-        let now_ps = self.clock.now_ps();
+        let now_ps = self.chamber_clock.now_ps();
         let mut world = self.lock("chamber")?;
         world.settle_to(now_ps);
         world

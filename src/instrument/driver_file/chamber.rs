@@ -253,3 +253,211 @@ fn safe_state(raw: &RawDriver, [lo, hi]: [f64; 2]) -> Result<ChamberSafe, KeyErr
         }),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::diagnostic::{Diagnostic, SourceFile};
+    use crate::instrument::driver_file::{DriverFile, DriverKind};
+
+    const COLDHEARTH: &str = include_str!("../../../drivers/tillowby-coldhearth60.toml");
+
+    /// A SCPI-style chamber: IEEE 488.2 identity, a setting without a reply, `*OPC?` and the
+    /// error queue after it, and a held setpoint as its safe state.
+    const SCPI_STYLE: &str = r#"
+[driver]
+kind = "chamber"
+maker = "Test (fictional)"
+model = "S-1"
+
+[link]
+line_ending = "lf"
+timeout_ms = 2000.0
+
+[scpi]
+wait_complete = true
+error_queue = true
+
+[command]
+identify = "*IDN?"
+set_setpoint = ":CLIMate:TEMPerature:TARGet {c:.2}"
+air = ":CLIMate:TEMPerature:AIR?"
+
+[reply]
+identify = '^(?P<id>[^,]+,[^,]+,[^,]+,[^,]+)$'
+air = '^(?P<c>[-+0-9.eE]+)$'
+
+[limits]
+setpoint_c = [-70.0, 180.0]
+
+[safe_state]
+setpoint_c = 23.0
+"#;
+
+    fn parse(text: &str) -> Result<DriverFile, Diagnostic> {
+        DriverFile::parse("test", SourceFile::new("test.toml", text))
+    }
+
+    fn chamber_of(text: &str) -> ChamberDriver {
+        match parse(text) {
+            Ok(DriverFile {
+                kind: DriverKind::Chamber(c),
+                ..
+            }) => *c,
+            Ok(d) => panic!("a {} driver", d.kind.name()),
+            Err(d) => panic!("{d}"),
+        }
+    }
+
+    /// Replaces `from` by `to` in `text` and returns the error it gives.
+    fn broken(text: &str, from: &str, to: &str) -> String {
+        assert!(text.contains(from), "{from}");
+        match parse(&text.replacen(from, to, 1)) {
+            Ok(_) => panic!("`{to}` was accepted"),
+            Err(d) => d.to_string(),
+        }
+    }
+
+    /// `test.toml line N` for the line of `text` that starts with `key`.
+    fn line_of(text: &str, key: &str) -> String {
+        let n = text
+            .lines()
+            .position(|l| l.starts_with(key))
+            .expect("key in file");
+        format!("test.toml line {}", n + 1)
+    }
+
+    #[test]
+    fn the_shipped_line_protocol_chamber_loads() {
+        let d = parse(COLDHEARTH).expect("loads");
+        assert!(d.maker.contains("fictional"));
+        let c = chamber_of(COLDHEARTH);
+        assert_eq!(c.setpoint_c, [-40.0, 150.0]);
+        assert!(!c.wait_complete && !c.error_queue);
+        assert_eq!(
+            c.set_setpoint.render(&std::collections::BTreeMap::from([(
+                "c",
+                crate::instrument::template::Value::Real(-12.25)
+            )])),
+            "goal -12.2"
+        );
+        assert_eq!(&c.air_reply.captures("air -3.5").expect("air")["c"], "-3.5");
+        let (command, reply) = c.product.expect("product sensor");
+        assert_eq!(command.text(), "read load");
+        assert_eq!(&reply.captures("load 41.0").expect("load")["c"], "41.0");
+        let refused = c.refused.expect("refusal pattern");
+        assert_eq!(
+            &refused.captures("no door open").expect("no")["reason"],
+            "door open"
+        );
+        match c.safe {
+            ChamberSafe::Stop { command, reply } => {
+                assert_eq!(command.text(), "rest");
+                assert!(reply.expect("ack").is_match("ok"));
+            }
+            ChamberSafe::Hold { .. } => panic!("the Coldhearth stops"),
+        }
+    }
+
+    #[test]
+    fn a_scpi_style_chamber_holds_a_setpoint_as_its_safe_state() {
+        let c = chamber_of(SCPI_STYLE);
+        assert!(c.wait_complete && c.error_queue);
+        assert!(c.set_setpoint_reply.is_none() && c.product.is_none());
+        assert!(matches!(c.safe, ChamberSafe::Hold { setpoint_c } if setpoint_c == 23.0));
+    }
+
+    #[test]
+    fn a_missing_or_empty_setpoint_command_is_refused_at_its_table() {
+        let e = broken(COLDHEARTH, "set_setpoint = \"goal {c:.1}\"", "");
+        assert!(e.contains("`command` has no `set_setpoint`"), "{e}");
+        assert!(e.contains(&line_of(COLDHEARTH, "[command]")), "{e}");
+        let e = broken(COLDHEARTH, "goal {c:.1}", "goal 25");
+        assert!(e.contains("does not send the setpoint"), "{e}");
+        assert!(e.contains(&line_of(COLDHEARTH, "set_setpoint =")), "{e}");
+        let e = broken(COLDHEARTH, "goal {c:.1}", "goal {celsius}");
+        assert!(
+            e.contains("unknown parameter `celsius` (this command offers c)"),
+            "{e}"
+        );
+        let e = broken(COLDHEARTH, "set_setpoint = ", "setpoint = ");
+        assert!(e.contains("did you mean `set_setpoint`"), "{e}");
+    }
+
+    #[test]
+    fn bad_reply_patterns_are_refused_at_their_line() {
+        let e = broken(COLDHEARTH, "'^air (?P<c>", "'^air ((?P<c>");
+        assert!(e.contains("`reply.air` is not a regular expression"), "{e}");
+        assert!(e.contains(&line_of(COLDHEARTH, "air = '")), "{e}");
+        let e = broken(COLDHEARTH, "'^air (?P<c>", "'^air (?P<temp>");
+        assert!(e.contains("does not capture the field `c`"), "{e}");
+        let e = broken(COLDHEARTH, "(?P<id>TILLOWBY", "(?P<name>TILLOWBY");
+        assert!(
+            e.contains("`reply.identify` does not capture the field `id`"),
+            "{e}"
+        );
+        let e = broken(COLDHEARTH, "'^no (?P<reason>", "'^no (?P<why>");
+        assert!(
+            e.contains("captures `why`, which taucal does not read"),
+            "{e}"
+        );
+        let e = broken(COLDHEARTH, "product = \"read load\"", "");
+        assert!(e.contains("`reply.product` has no command"), "{e}");
+        let e = broken(COLDHEARTH, "reply = '^ok$'", "reply = '^(ok$'");
+        assert!(
+            e.contains("`safe_state.reply` is not a regular expression"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn the_safe_state_is_a_stop_or_a_held_setpoint_within_the_rated_range() {
+        let e = broken(COLDHEARTH, "command = \"rest\"", "");
+        assert!(e.contains("`safe_state` says nothing"), "{e}");
+        let e = broken(
+            COLDHEARTH,
+            "command = \"rest\"",
+            "command = \"rest\"\nsetpoint_c = 23.0",
+        );
+        assert!(
+            e.contains("a chamber's safe state is one or the other"),
+            "{e}"
+        );
+        let e = broken(SCPI_STYLE, "setpoint_c = 23.0", "setpoint_c = 200.0");
+        assert!(
+            e.contains("200 °C is outside the chamber's setpoint range [-70, 180]"),
+            "{e}"
+        );
+        let e = broken(
+            SCPI_STYLE,
+            "setpoint_c = 23.0",
+            "setpoint_c = 23.0\nreply = 'ok'",
+        );
+        assert!(e.contains("applies only to a safe-state `command`"), "{e}");
+        let e = broken(COLDHEARTH, "[-40.0, 150.0]", "[150.0, -40.0]");
+        assert!(e.contains("is not a range of chamber setpoints"), "{e}");
+        let e = broken(COLDHEARTH, "[-40.0, 150.0]", "[233.0, 423.0]");
+        assert!(e.contains("is not a range of chamber setpoints"), "{e}");
+        let e = broken(COLDHEARTH, "setpoint_c = [-40.0, 150.0]", "");
+        assert!(e.contains("`limits` has no `setpoint_c`"), "{e}");
+    }
+
+    #[test]
+    fn keys_of_other_kinds_are_refused_and_chamber_keys_elsewhere_too() {
+        let e = broken(COLDHEARTH, "[safe_state]", "[safe_state]\natten_db = 95.0");
+        assert!(e.contains("does not apply to a chamber driver"), "{e}");
+        let e = broken(
+            COLDHEARTH,
+            "setpoint_c = [-40.0, 150.0]",
+            "setpoint_c = [-40.0, 150.0]\nframes = [1, 64]",
+        );
+        assert!(e.contains("`limits.frames` does not apply"), "{e}");
+        let attenuator = include_str!("../../../drivers/brackwater-tidegate95.toml");
+        let e = broken(
+            attenuator,
+            "[safe_state]",
+            "[safe_state]\nsetpoint_c = 23.0",
+        );
+        assert!(e.contains("`safe_state.setpoint_c` does not apply"), "{e}");
+    }
+}

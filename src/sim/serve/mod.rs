@@ -11,8 +11,10 @@
 //! initialised until it is identified again.
 //!
 //! The served instruments spend bench time on the server's own clock (virtual unless
-//! realtime): the model never sees wall time, which keeps a served run deterministic.
+//! realtime): the model never sees wall time, which keeps a served run deterministic. A served
+//! chamber (`chamber`) is the exception: its temperatures follow the wall clock, as a soak does.
 
+pub mod chamber;
 pub mod console;
 pub mod pty;
 pub mod scpi_attenuator;
@@ -21,6 +23,7 @@ use crate::bench::Bench;
 use crate::clock::{BenchClock, ClockMode};
 use crate::diagnostic::Diagnostic;
 use crate::instrument::line::LineFramer;
+use crate::sim::chamber::SimChamber;
 use crate::sim::faults::{garble, CommandFault, FaultInjector};
 use crate::sim::front::{SimShared, SimWorld};
 use crate::sim::SimBench;
@@ -42,6 +45,8 @@ pub enum ServedRole {
     Attenuator,
     /// The DUT's console.
     Dut,
+    /// The climatic chamber (`[sim.chamber]`).
+    Chamber,
 }
 
 impl ServedRole {
@@ -50,6 +55,7 @@ impl ServedRole {
         match self {
             ServedRole::Attenuator => "attenuator",
             ServedRole::Dut => "dut",
+            ServedRole::Chamber => "chamber",
         }
     }
 }
@@ -81,9 +87,10 @@ impl Listen {
         let role = match role {
             "attenuator" => ServedRole::Attenuator,
             "dut" => ServedRole::Dut,
+            "chamber" => ServedRole::Chamber,
             other => {
                 return Err(format!(
-                    "`{other}` is not a role sim serve offers (attenuator, dut)"
+                    "`{other}` is not a role sim serve offers (attenuator, dut, chamber)"
                 ))
             }
         };
@@ -134,6 +141,8 @@ pub struct ServedBench {
     shared: SimShared,
     attenuator: Arc<Mutex<ScpiAttenuator>>,
     console: ConsoleDevice,
+    /// The chamber's controller, when the bench has a `[sim.chamber]`.
+    chamber: Option<Arc<Mutex<chamber::Controller>>>,
 }
 
 impl ServedBench {
@@ -155,10 +164,11 @@ impl ServedBench {
         };
         let world = SimWorld {
             bench: model,
-            chamber: None,
+            chamber: truth.chamber.as_ref().map(SimChamber::new),
             faults: FaultInjector::new(&truth.faults, seed),
         };
-        let shared = SimShared::new(world, Arc::new(BenchClock::new(mode)));
+        let shared = SimShared::new(world, Arc::new(BenchClock::new(mode)))
+            .with_chamber_clock(Arc::new(BenchClock::new(ClockMode::Wall)));
         let attenuator = ScpiAttenuator::new(
             shared.clone(),
             bench.attenuator.range_db,
@@ -169,6 +179,10 @@ impl ServedBench {
             shared,
             attenuator: Arc::new(Mutex::new(attenuator)),
             console: ConsoleDevice::new(truth.dut.reports, truth.dut.serial.clone()),
+            chamber: truth
+                .chamber
+                .as_ref()
+                .map(|c| Arc::new(Mutex::new(chamber::Controller::new(c.start_c)))),
         })
     }
 
@@ -186,6 +200,11 @@ impl ServedBench {
                     }
                 });
                 Ok(address)
+            }
+            (ListenAt::Tcp(_), ServedRole::Chamber) if self.chamber.is_none() => {
+                Err(std::io::Error::other(
+                    "the bench has no [sim.chamber] (start_c, ramp_c_per_min, dut_tau_s)",
+                ))
             }
             (ListenAt::Tcp(socket), role) => {
                 let listener = TcpListener::bind(socket).await?;
@@ -220,6 +239,12 @@ impl ServedBench {
                                     )
                                     .await
                                 }
+                                ServedRole::Chamber => match me.chamber.clone() {
+                                    Some(controller) => {
+                                        chamber::serve(stream, me.shared.clone(), controller).await
+                                    }
+                                    None => Ok(()),
+                                },
                             };
                             if let Err(e) = outcome {
                                 tracing::info!("{}: client {peer}: {e}", role.name());
