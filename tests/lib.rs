@@ -4,6 +4,7 @@ mod support;
 
 mod bad_input;
 mod calibration;
+mod chamber;
 mod demo_run;
 mod examples;
 mod fit_offline;
