@@ -433,3 +433,40 @@ fn the_served_soak_bench_checks_with_the_overnight_soak() {
     out.expect_code(0);
     assert!(out.stdout.contains("check passed"), "{}", out.stdout);
 }
+
+/// Runs `recipe` on the served soak bench with the DUT's console driver unable to read its
+/// temperature and, unless `product_sensor`, the chamber without its product sensor.
+fn run_without_dut_temperature(server: &Server, recipe: &str, product_sensor: bool) -> i32 {
+    let t = Taucal::new()
+        .with_repo(&["recipes", "drivers"])
+        .file("r.toml", recipe);
+    let edit = |file: &str, lines: &[&str]| {
+        let path = t.dir().join("drivers").join(file);
+        let text = std::fs::read_to_string(&path).expect("driver");
+        let kept: Vec<&str> = text
+            .lines()
+            .filter(|l| !lines.iter().any(|p| l.starts_with(p)))
+            .collect();
+        assert!(kept.len() < text.lines().count(), "{file}: {lines:?}");
+        std::fs::write(&path, kept.join("\n")).expect("write driver");
+    };
+    edit("wren6-console.toml", &["temperature ="]);
+    if !product_sensor {
+        edit("tillowby-coldhearth60.toml", &["product ="]);
+    }
+    let out = t.args(run_args(server)).run();
+    assert!(!out.stderr.contains("panicked"), "{}", out.stderr);
+    out.code
+}
+
+#[test]
+fn without_a_dut_temperature_a_soak_waits_for_the_product_sensor_not_the_air() {
+    // The air reaches 35 °C in half a second; the product, lagging it by 5 s, is still some
+    // 7 °C short two seconds in (about 10·e^(−1.5/5) by the first-order step response). A soak
+    // judged on the air settles within that time; one judged on the product cannot.
+    let dir = tempfile::tempdir().expect("tempdir");
+    let server = serve(dir.path(), 1200.0, 5.0);
+    let short = recipe(2.0);
+    assert_eq!(run_without_dut_temperature(&server, &short, true), 3);
+    assert_eq!(run_without_dut_temperature(&server, &short, false), 0);
+}
