@@ -470,3 +470,41 @@ fn without_a_dut_temperature_a_soak_waits_for_the_product_sensor_not_the_air() {
     assert_eq!(run_without_dut_temperature(&server, &short, true), 3);
     assert_eq!(run_without_dut_temperature(&server, &short, false), 0);
 }
+
+#[test]
+fn serving_a_chamber_needs_a_bench_with_one() {
+    let out = Taucal::new()
+        .args([
+            "sim",
+            "serve",
+            "--bench",
+            &repo("recipes/benches/sim-demo.toml"),
+            "--listen",
+            "chamber=tcp:127.0.0.1:0",
+        ])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr
+            .contains("cannot serve the chamber: the bench has no [sim.chamber] to serve"),
+        "{}",
+        out.stderr
+    );
+    let out = Taucal::new()
+        .args([
+            "sim",
+            "serve",
+            "--bench",
+            &repo("recipes/benches/soak-served.toml"),
+            "--listen",
+            "chamber=pty",
+        ])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr
+            .contains("only the dut's console can be served on a pty"),
+        "{}",
+        out.stderr
+    );
+}

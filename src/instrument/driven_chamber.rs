@@ -194,3 +194,138 @@ impl Chamber for DrivenChamber {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::diagnostic::SourceFile;
+    use crate::instrument::driver_file::{DriverFile, DriverKind};
+    use crate::instrument::transport::{Address, Link};
+    use std::sync::{Arc, Mutex};
+    use std::time::Duration;
+    use tokio::io::{AsyncBufReadExt, AsyncWriteExt, BufReader};
+    use tokio::net::TcpListener;
+
+    /// A SCPI-style chamber: settings without replies, `*OPC?` and the error queue after them.
+    const SCPI_STYLE: &str = r#"
+[driver]
+kind = "chamber"
+maker = "Test (fictional)"
+model = "S-1"
+[link]
+line_ending = "lf"
+timeout_ms = 2000.0
+[scpi]
+wait_complete = true
+error_queue = true
+[command]
+identify = "*IDN?"
+set_setpoint = ":CLIM:TEMP:TARG {c:.2}"
+air = ":CLIM:TEMP:AIR?"
+[reply]
+identify = '^(?P<id>[^,]+,[^,]+,[^,]+,[^,]+)$'
+air = '^(?P<c>[-+0-9.eE]+)$'
+[limits]
+setpoint_c = [-70.0, 180.0]
+[safe_state]
+setpoint_c = 23.0
+"#;
+
+    /// A scripted SCPI chamber on loopback that records every line it receives and reports a
+    /// range error for targets above 100 °C (its own limit, tighter than the driver's).
+    async fn scpi_chamber() -> (String, Arc<Mutex<Vec<String>>>) {
+        let listener = TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let address = format!("tcp:{}", listener.local_addr().expect("address"));
+        let seen = Arc::new(Mutex::new(Vec::new()));
+        let log = seen.clone();
+        tokio::spawn(async move {
+            let Ok((stream, _)) = listener.accept().await else {
+                return;
+            };
+            let (r, mut w) = stream.into_split();
+            let mut lines = BufReader::new(r).lines();
+            let mut errors: Vec<&str> = Vec::new();
+            while let Ok(Some(line)) = lines.next_line().await {
+                log.lock().expect("log").push(line.clone());
+                let reply = match line.as_str() {
+                    "*IDN?" => "Test,S-1,0001,1.0".to_string(),
+                    "*OPC?" => "1".into(),
+                    ":CLIM:TEMP:AIR?" => "2.350E+01".into(),
+                    "SYST:ERR?" => errors.pop().unwrap_or("0,\"No error\"").into(),
+                    set => {
+                        let c: f64 = set
+                            .rsplit(' ')
+                            .next()
+                            .and_then(|v| v.parse().ok())
+                            .unwrap_or(0.0);
+                        if c > 100.0 {
+                            errors.push("-222,\"Data out of range\"");
+                        }
+                        continue;
+                    }
+                };
+                if w.write_all(format!("{reply}\n").as_bytes()).await.is_err() {
+                    return;
+                }
+            }
+        });
+        (address, seen)
+    }
+
+    fn driven(address: &str) -> DrivenChamber {
+        let file = DriverFile::parse("s1", SourceFile::new("s1.toml", SCPI_STYLE)).expect("driver");
+        let DriverKind::Chamber(driver) = file.kind else {
+            panic!("chamber");
+        };
+        let link = Link::new(
+            Address::parse(address).expect("address"),
+            &file.link.line_ending,
+            Duration::from_secs(2),
+        );
+        DrivenChamber::new("chamber", *driver, ScpiClient::new(link))
+    }
+
+    #[tokio::test]
+    async fn a_scpi_style_chamber_is_set_checked_and_held_at_its_safe_setpoint() {
+        let (address, seen) = scpi_chamber().await;
+        let mut chamber = driven(&address);
+        assert_eq!(
+            chamber.identify().await.expect("identify"),
+            "Test,S-1,0001,1.0"
+        );
+        chamber.set_setpoint_c(45.0).await.expect("setpoint");
+        assert_eq!(chamber.air_c().await.expect("air"), 23.5);
+        assert_eq!(chamber.product_c().await.expect("product"), None);
+        // Within the driver's rating but not the chamber's: its error queue refuses it.
+        match chamber.set_setpoint_c(120.0).await {
+            Err(InstrumentError::Refused { message, .. }) => {
+                assert!(message.contains("-222,\"Data out of range\""), "{message}");
+            }
+            other => panic!("{other:?}"),
+        }
+        // Beyond the driver's rating nothing goes on the wire.
+        assert!(matches!(
+            chamber.set_setpoint_c(180.5).await,
+            Err(InstrumentError::Refused { .. })
+        ));
+        chamber.safe_state().await.expect("safe state");
+        let seen = seen.lock().expect("log").clone();
+        assert_eq!(
+            seen,
+            [
+                "*IDN?",
+                ":CLIM:TEMP:TARG 45.00",
+                "*OPC?",
+                "SYST:ERR?",
+                ":CLIM:TEMP:AIR?",
+                ":CLIM:TEMP:TARG 120.00",
+                "*OPC?",
+                "SYST:ERR?",
+                "SYST:ERR?",
+                ":CLIM:TEMP:TARG 23.00",
+                "*OPC?",
+                "SYST:ERR?",
+            ]
+        );
+    }
+}

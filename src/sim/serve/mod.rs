@@ -203,7 +203,9 @@ impl ServedBench {
             }
             (ListenAt::Tcp(_), ServedRole::Chamber) if self.chamber.is_none() => {
                 Err(std::io::Error::other(
-                    "the bench has no [sim.chamber] (start_c, ramp_c_per_min, dut_tau_s)",
+                    "the bench has no [sim.chamber] to serve; add one (start_c, ramp_c_per_min, \
+                     dut_tau_s) or serve a bench with a chamber, e.g. \
+                     recipes/benches/soak-served.toml",
                 ))
             }
             (ListenAt::Tcp(socket), role) => {
