@@ -233,6 +233,14 @@ fn a_soak_through_the_served_chamber_settles_and_the_run_leaves_it_at_rest() {
     out.expect_code(0);
     let log = out.read("out/run.log");
     assert!(log.contains("soak `soak-35c`: settled at"), "{log}");
+    let manifest: toml::Table = toml::from_str(&out.read("out/manifest.toml")).expect("manifest");
+    let chamber_id = manifest["instruments"]["chamber"]
+        .as_str()
+        .unwrap_or_default();
+    assert!(
+        chamber_id.starts_with("TILLOWBY COLDHEARTH-60 "),
+        "{chamber_id}"
+    );
     // The module the console reports on sits in the served chamber: every row was measured at
     // the soak's temperature.
     let exchanges = out.read("out/exchanges.csv");

@@ -188,6 +188,25 @@ pub(super) fn chamber(raw: &RawDriver) -> Result<ChamberDriver, KeyError> {
         .as_ref()
         .map_or((false, false), |s| (s.wait_complete, s.error_queue));
     let safe = safe_state(raw, [lo, hi])?;
+    // A refusal line left unread after a command nobody waits on would be read as the next
+    // query's reply: a chamber that refuses in lines must acknowledge its commands too.
+    if refused.is_some() {
+        if set_setpoint_reply.is_none() {
+            return Err(KeyError::new(
+                "reply.refused",
+                "is given but `set_setpoint` has no acknowledgment to read in its place",
+                "add `reply.set_setpoint` (e.g. '^ok$'): a chamber that answers a refusal with \
+                 a line answers its settings too",
+            ));
+        }
+        if let ChamberSafe::Stop { reply: None, .. } = safe {
+            return Err(KeyError::new(
+                "safe_state.command",
+                "has no `reply`, but the chamber answers refusals with a line",
+                "add the stop command's acknowledgment as `safe_state.reply`",
+            ));
+        }
+    }
     Ok(ChamberDriver {
         identify,
         identify_reply,
@@ -401,6 +420,14 @@ setpoint_c = 23.0
         );
         let e = broken(COLDHEARTH, "product = \"read load\"", "");
         assert!(e.contains("`reply.product` has no command"), "{e}");
+        let e = broken(COLDHEARTH, "set_setpoint = '^ok$'", "");
+        assert!(
+            e.contains("`reply.refused` is given but `set_setpoint` has no"),
+            "{e}"
+        );
+        assert!(e.contains(&line_of(COLDHEARTH, "refused =")), "{e}");
+        let e = broken(COLDHEARTH, "reply = '^ok$'", "");
+        assert!(e.contains("`safe_state.command` has no `reply`"), "{e}");
         let e = broken(COLDHEARTH, "reply = '^ok$'", "reply = '^(ok$'");
         assert!(
             e.contains("`safe_state.reply` is not a regular expression"),
