@@ -61,9 +61,12 @@ proptest! {
     }
 
     #[test]
-    fn driver_file_parser_never_panics(e in edits()) {
-        let text = mutate(&read("drivers/wren6-console.toml"), &e);
-        let _ = taucal::instrument::driver_file::DriverFile::parse("wren6-console", SourceFile::new("d.toml", text));
+    fn driver_file_parser_never_panics(e in edits(), chamber in any::<bool>()) {
+        let file = if chamber { "drivers/tillowby-coldhearth60.toml" } else { "drivers/wren6-console.toml" };
+        let text = mutate(&read(file), &e);
+        if let Err(d) = taucal::instrument::driver_file::DriverFile::parse("d", SourceFile::new("d.toml", text)) {
+            prop_assert!(d.to_string().contains("d.toml"), "{}", d);
+        }
     }
 
     #[test]
