@@ -340,8 +340,8 @@ fn build(name: &str, raw: RawDriver) -> Result<DriverFile, KeyError> {
         line_ending: line_ending.to_string(),
         timeout: Duration::from_micros((t * 1000.0) as u64),
     };
-    if raw.driver.kind != KIND_CHAMBER {
-        chamber::refuse_elsewhere(&raw, &raw.driver.kind)?;
+    if [KIND_ATTENUATOR, KIND_RANGING_CONSOLE].contains(&raw.driver.kind.as_str()) {
+        chamber::refuse_elsewhere(&raw)?;
     }
     let kind = match raw.driver.kind.as_str() {
         KIND_CHAMBER => DriverKind::Chamber(Box::new(chamber::chamber(&raw)?)),

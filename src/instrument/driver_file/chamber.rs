@@ -55,8 +55,8 @@ pub struct ChamberDriver {
 /// A chamber's safe state, as its driver file declares it.
 #[derive(Debug, Clone)]
 pub enum ChamberSafe {
-    /// Hold the air at this setpoint (room temperature, typically): the product comes back to
-    /// ambient without condensation from a chamber switched off cold.
+    /// Hold the air at this setpoint (room temperature, typically): a controlled return to
+    /// ambient, without the condensation on a product left in a chamber switched off cold.
     Hold {
         /// The setpoint held, °C.
         setpoint_c: f64,
@@ -71,13 +71,20 @@ pub enum ChamberSafe {
 }
 
 /// Refuses the chamber's keys in a driver file of another kind.
-pub(super) fn refuse_elsewhere(raw: &RawDriver, kind: &str) -> Result<(), KeyError> {
-    refuse("limits.setpoint_c", kind, raw.limits.setpoint_c.is_some())?;
-    refuse(
-        "safe_state.setpoint_c",
-        kind,
-        raw.safe_state.setpoint_c.is_some(),
-    )
+pub(super) fn refuse_elsewhere(raw: &RawDriver) -> Result<(), KeyError> {
+    for (key, present) in [
+        ("limits.setpoint_c", raw.limits.setpoint_c.is_some()),
+        ("safe_state.setpoint_c", raw.safe_state.setpoint_c.is_some()),
+    ] {
+        if present {
+            return Err(KeyError::new(
+                key,
+                format!("applies only to a {KIND_CHAMBER} driver"),
+                "remove it",
+            ));
+        }
+    }
+    Ok(())
 }
 
 /// Validates a chamber driver.
@@ -483,6 +490,9 @@ setpoint_c = 23.0
             "[safe_state]",
             "[safe_state]\nsetpoint_c = 23.0",
         );
-        assert!(e.contains("`safe_state.setpoint_c` does not apply"), "{e}");
+        assert!(
+            e.contains("`safe_state.setpoint_c` applies only to a chamber driver"),
+            "{e}"
+        );
     }
 }
