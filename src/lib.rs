@@ -15,6 +15,7 @@ pub mod report;
 pub mod runner;
 pub mod script;
 pub mod sim;
+pub mod store;
 pub mod text_file;
 pub mod toml_input;
 pub mod wiring;

@@ -51,6 +51,7 @@ struct RawBench {
     path: PathFacts,
     reference: ReferenceFacts,
     timing: Option<TimingFacts>,
+    store: Option<StoreFacts>,
     sim: Option<SimTruth>,
 }
 
@@ -61,6 +62,15 @@ struct RawMeta {
     #[serde(default)]
     description: String,
     drivers_dir: Option<String>,
+    station: Option<String>,
+}
+
+/// `[store]`: where this bench's runs are recorded.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct StoreFacts {
+    /// A results store URL (`sqlite:PATH`, relative to the bench's folder, or `postgres://…`).
+    pub url: String,
 }
 
 /// Where driver files are looked for, relative to the bench file's folder, unless the bench
@@ -148,6 +158,10 @@ pub struct Bench {
     pub sim: Option<SimTruth>,
     /// Folder of driver files, as the bench file gives it (relative to the bench's folder).
     pub drivers_dir: String,
+    /// The station's name (`[bench] station`), for the results store.
+    pub station: Option<String>,
+    /// Where its runs are recorded (`[store]`).
+    pub store: Option<StoreFacts>,
     /// Driver files of the roles not served in-process, by role.
     pub drivers: BTreeMap<String, DriverFile>,
 }
@@ -185,6 +199,8 @@ impl Bench {
                 .drivers_dir
                 .unwrap_or_else(|| DEFAULT_DRIVERS_DIR.to_string()),
             drivers: BTreeMap::new(),
+            station: raw.bench.station,
+            store: raw.store,
             source,
         };
         bench.checked()

@@ -75,6 +75,9 @@ pub enum Command {
     /// Simulated instruments.
     #[command(subcommand)]
     Sim(SimCommand),
+    /// The results store: every run indexed by unit (SQLite or PostgreSQL).
+    #[command(subcommand)]
+    Store(StoreCommand),
 }
 
 /// `taucal sim …`.
@@ -138,6 +141,14 @@ pub struct RunArgs {
     /// Reach a bench role at another address (e.g. dut=serial:/dev/ttyUSB0?baud=115200).
     #[arg(long = "connect", value_name = "ROLE=ADDRESS")]
     pub connect: Vec<String>,
+    /// The unit's serial number (default: the serial the DUT reports, else a simulated DUT's).
+    #[arg(long, value_name = "SERIAL")]
+    pub unit: Option<String>,
+    /// The station's name (default: the bench's [bench] station, else the host name).
+    #[arg(long, value_name = "NAME")]
+    pub station: Option<String>,
+    #[command(flatten)]
+    pub store: StoreArg,
 }
 
 /// `taucal resume`.
@@ -145,6 +156,101 @@ pub struct RunArgs {
 pub struct ResumeArgs {
     /// The run directory.
     pub run_dir: PathBuf,
+    #[command(flatten)]
+    pub store: StoreArg,
+}
+
+/// The results store a command writes to or reads from.
+#[derive(Debug, Args)]
+pub struct StoreArg {
+    /// Results store: sqlite:PATH, postgres://USER@HOST/DB, or none (default: $TAUCAL_STORE, else
+    /// the bench's [store] url, else sqlite: taucal.sqlite beside the run directory).
+    #[arg(long = "store", value_name = "URL")]
+    pub url: Option<String>,
+}
+
+/// `taucal store …`.
+#[derive(Debug, Subcommand)]
+pub enum StoreCommand {
+    /// Add run directories to a store (a run imported twice is one run).
+    #[command(
+        after_help = "Without --store: $TAUCAL_STORE, else taucal.sqlite beside each run directory.\n\nExamples:\n  taucal store import runs/*/\n  taucal store import runs/20261202T101500Z-rx-gain-sweep --store postgres://line4@db.lab/cal"
+    )]
+    Import(StoreImportArgs),
+    /// Copy to another store every run it lacks or holds in an older state.
+    #[command(
+        after_help = "Idempotent and safe to interrupt: runs go over in batches, each one transaction.\n\nExample:\n  taucal store sync --store sqlite:runs/taucal.sqlite --to postgres://line4@db.lab/cal"
+    )]
+    Sync(StoreSyncArgs),
+    /// List the units a store holds: serial, model, runs, latest run, whether one was accepted.
+    #[command(
+        after_help = "Examples:\n  taucal store units\n  taucal store units --store postgres://line4@db.lab/cal --format csv"
+    )]
+    Units(StoreUnitsArgs),
+    /// Print a unit's latest accepted calibration table, for firmware provisioning.
+    #[command(
+        after_help = "Examples:\n  taucal store table SN-0412 --format c > sn0412_k_table.h\n  taucal store table SN-0412 --store postgres://line4@db.lab/cal --format json"
+    )]
+    Table(StoreTableArgs),
+}
+
+/// Where store commands read when no URL is given.
+#[derive(Debug, Args)]
+pub struct StoreReadArg {
+    /// Results store (default: $TAUCAL_STORE, else sqlite:runs/taucal.sqlite).
+    #[arg(long = "store", value_name = "URL")]
+    pub url: Option<String>,
+}
+
+/// `taucal store import`.
+#[derive(Debug, Args)]
+pub struct StoreImportArgs {
+    /// Run directories.
+    #[arg(required = true, value_name = "RUN_DIR")]
+    pub run_dirs: Vec<PathBuf>,
+    #[command(flatten)]
+    pub store: StoreArg,
+}
+
+/// `taucal store sync`.
+#[derive(Debug, Args)]
+pub struct StoreSyncArgs {
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// The destination store.
+    #[arg(long, value_name = "URL")]
+    pub to: String,
+}
+
+/// A listing's format.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum ListFormat {
+    /// Aligned columns.
+    Text,
+    /// CSV with a header.
+    Csv,
+}
+
+/// `taucal store units`.
+#[derive(Debug, Args)]
+pub struct StoreUnitsArgs {
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "text")]
+    pub format: ListFormat,
+}
+
+/// `taucal store table`.
+#[derive(Debug, Args)]
+pub struct StoreTableArgs {
+    /// The unit's serial number.
+    pub serial: String,
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "csv")]
+    pub format: FormatArg,
 }
 
 /// `taucal check`.

@@ -16,6 +16,8 @@ pub mod report;
 pub mod resume;
 pub mod run;
 pub mod sim_serve;
+pub mod store;
+pub mod store_ledger;
 pub mod table;
 
 pub use exit::Exit;
@@ -49,6 +51,7 @@ pub fn main() -> Exit {
         Command::Export(a) => export::run(a),
         Command::Report(a) => report::run(a),
         Command::Completions(a) => Ok(completions::run(a)),
+        Command::Store(c) => store::run(c),
     };
     match result {
         Ok(exit) => exit,

@@ -10,7 +10,11 @@ use crate::runner::{RunObserver, Unobserved};
 
 /// Prepares the interrupted run, replays it to its last checkpoint and carries on.
 pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
-    let request = crate::runner::resume::prepare(&args.run_dir)?;
+    let mut request = crate::runner::resume::prepare(&args.run_dir)?;
+    let mut ledger = super::store_ledger::StoreLedger::for_run(&args.store, &request.bench)?;
+    if request.station.is_empty() {
+        request.station = super::store_ledger::station(None, &request.bench);
+    }
     log::notice(&format!(
         "taucal: {}",
         bench_arg::describe(&request.bench, request.seed)
@@ -27,6 +31,7 @@ pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, 
             log::notice(&format!("taucal: resuming {}", dir.display()));
         },
         observer,
+        ledger.as_mut(),
     )?;
     Ok(run::outcome(&report))
 }

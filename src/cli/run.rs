@@ -25,6 +25,8 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         "taucal: {}",
         bench_arg::describe(&bench, args.seed)
     ));
+    let mut ledger = super::store_ledger::StoreLedger::for_run(&args.store, &bench)?;
+    let station = super::store_ledger::station(args.station.as_deref(), &bench);
     let estimate = crate::runner::estimate::estimate(&plan, &bench);
     let observer: Box<dyn crate::runner::RunObserver> = match Progress::start(verbosity, &estimate)
     {
@@ -39,6 +41,8 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         seed: args.seed,
         realtime: args.realtime,
         resume: None,
+        unit: args.unit.filter(|u| !u.trim().is_empty()),
+        station,
     };
     let report = execute(
         request,
@@ -47,6 +51,7 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
             log::notice(&format!("taucal: run directory {}", dir.display()));
         },
         observer,
+        ledger.as_mut(),
     )?;
     Ok(outcome(&report))
 }

@@ -197,6 +197,20 @@ pub struct Manifest {
     pub taucal_version: String,
     /// Seed of the simulated bench, when simulated.
     pub seed: Option<u64>,
+    /// The run's identity in a results store: a UUID (absent in runs recorded before runs had
+    /// one).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub run_id: Option<String>,
+    /// The unit calibrated: `--unit`, else the DUT's reported serial, else a simulated DUT's.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub unit_serial: Option<String>,
+    /// The station it ran on: `--station`, else the bench's `[bench] station`, else the host.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub station: Option<String>,
+    /// True while the results store lacks the run's latest state (it was down): `taucal store
+    /// import` or `sync` catches up.
+    #[serde(default)]
+    pub store_pending: bool,
     /// Start, UTC, RFC 3339.
     pub started_utc: String,
     /// End, UTC, RFC 3339.

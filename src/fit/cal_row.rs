@@ -18,6 +18,13 @@ impl RowSource {
             RowSource::Modelled => "modelled",
         }
     }
+
+    /// The source a `source` column value names.
+    pub fn parse(text: &str) -> Option<RowSource> {
+        [RowSource::Measured, RowSource::Modelled]
+            .into_iter()
+            .find(|s| s.as_str() == text)
+    }
 }
 
 /// One cell of the calibration table with the statistics behind it.

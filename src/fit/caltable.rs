@@ -191,14 +191,11 @@ fn parse_row(rec: &csv::StringRecord, line: u64) -> Result<TableRow, CalTableErr
             )))
         }
     };
-    let source = match field(7) {
-        "measured" => RowSource::Measured,
-        "modelled" => RowSource::Modelled,
-        other => {
-            return Err(bad(format!(
-                "source `{other}` is not `measured` or `modelled`"
-            )))
-        }
+    let Some(source) = RowSource::parse(field(7)) else {
+        return Err(bad(format!(
+            "source `{}` is not `measured` or `modelled`",
+            field(7)
+        )));
     };
     Ok(TableRow {
         center_mhz: num(field(0), CALTABLE_HEADER[0]).map_err(bad)?,

@@ -10,6 +10,7 @@ pub mod events;
 pub mod finalise;
 pub mod inputs;
 pub mod journal;
+pub mod ledger;
 pub mod outputs;
 pub mod prepare;
 pub mod record;

@@ -59,6 +59,10 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
         wall_time_s: 0.0,
         taucal_version: env!("CARGO_PKG_VERSION").to_string(),
         seed: simulated.then_some(seed),
+        run_id: Some(uuid::Uuid::new_v4().to_string()),
+        unit_serial: req.unit.clone(),
+        station: Some(req.station.clone()).filter(|s| !s.is_empty()),
+        store_pending: false,
         started_utc: run_dir::rfc3339(now),
         finished_utc: None,
         error: None,
@@ -99,6 +103,10 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
     let earlier_wall_s = match &req.resume {
         Some(r) => {
             manifest.started_utc = r.manifest.started_utc.clone();
+            // The same run, so the same row in a results store (a run from before run ids
+            // keeps the id `store import` derives for it).
+            manifest.run_id = r.manifest.run_id.clone();
+            manifest.store_pending = r.manifest.store_pending;
             manifest.resumes = r.manifest.resumes + 1;
             // Its record goes on in the version it began in.
             manifest.record_version = r.manifest.record_version;

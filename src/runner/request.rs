@@ -23,6 +23,11 @@ pub struct RunRequest {
     pub realtime: bool,
     /// Continue an interrupted run instead of starting one.
     pub resume: Option<Resumption>,
+    /// `--unit`: the unit's serial, when the operator names it (else the DUT's own, else a
+    /// simulated DUT's).
+    pub unit: Option<String>,
+    /// The station the run is on (`--station`, the bench's `[bench] station`, or the host).
+    pub station: String,
 }
 
 /// What a resumed run starts from.

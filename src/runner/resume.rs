@@ -86,6 +86,8 @@ pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
         out: None,
         seed: manifest.seed,
         realtime: manifest.realtime,
+        unit: manifest.unit_serial.clone(),
+        station: manifest.station.clone().unwrap_or_default(),
         resume: Some(Resumption {
             dir: dir.to_path_buf(),
             manifest,
