@@ -18,5 +18,6 @@ mod report;
 mod run_forms;
 mod science;
 mod script_limits;
+mod store;
 mod truth;
 mod unattended;

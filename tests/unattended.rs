@@ -35,7 +35,7 @@ settle_ms = 30.0
 "#;
 
 /// Starts a `--realtime` run in `dir`, lets it record for `after`, then sends `signal`.
-fn interrupt(dir: &std::path::Path, out: &str, signal: Signal, after: Duration) -> i32 {
+pub(crate) fn interrupt(dir: &std::path::Path, out: &str, signal: Signal, after: Duration) -> i32 {
     let mut child = Command::new(env!("CARGO_BIN_EXE_taucal"))
         .args(["run", "r.toml", "--seed", "4", "--realtime", "--out", out])
         .current_dir(dir)
