@@ -183,6 +183,8 @@ enum Kind {
     Faults,
     /// Lines of `taucal` commands on the repository's files.
     Commands,
+    /// Runs into the results store and the store commands on them, in one directory.
+    Store,
     /// The exact stdout of the single command in the block before it.
     Output,
     /// The Performance section's reproduction.
@@ -244,6 +246,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "sh" if text.contains("cargo run --release --") => Kind::QuickStart,
         "sh" if text.contains("cargo bench --bench scale") => Kind::Performance,
         "sh" if text.contains("taucal sim serve") => Kind::Served,
+        "sh" if text.contains("taucal store ") => Kind::Store,
         "sh" if commands(block).iter().all(|c| c.starts_with("taucal ")) => Kind::Commands,
         "" if text.starts_with("taucal run RECIPE") => Kind::Synopsis,
         "" if text.starts_with("taucal: my-recipe.toml") => Kind::ErrorScreen,
@@ -335,13 +338,15 @@ fn readme_quick_start_runs_as_printed() {
             "it says so: {}",
             out.stderr
         );
-        let runs: Vec<_> = std::fs::read_dir(out.path("runs"))
+        let mut runs: Vec<_> = std::fs::read_dir(out.path("runs"))
             .expect("runs/")
             .filter_map(|e| e.ok())
             .map(|e| e.file_name().to_string_lossy().into_owned())
             .collect();
+        runs.sort();
+        // The run's directory, and the default results store beside it.
         assert!(
-            runs.len() == 1 && runs[0].ends_with("-rx-gain-sweep"),
+            runs.len() == 2 && runs[0].ends_with("-rx-gain-sweep") && runs[1] == "taucal.sqlite",
             "{runs:?}"
         );
     }
@@ -658,4 +663,34 @@ fn readme_performance_options_are_the_benchmarks_own() {
         "{}",
         block.text
     );
+}
+
+#[test]
+fn readme_store_block_runs_as_printed_in_one_directory() {
+    let block = the_block(Kind::Store);
+    let mut dir = Taucal::new()
+        .with_repo(&["recipes", "drivers"])
+        .args(["--version"])
+        .run()
+        .dir;
+    let mut outputs = Vec::new();
+    for command in commands(&block) {
+        let out = Taucal::in_dir(dir).args(taucal_args(&command)).run();
+        out.expect_code(0);
+        outputs.push((command, out.stdout.clone()));
+        dir = out.dir;
+    }
+    let units = &outputs[2].1;
+    assert!(
+        units.contains("SN-0412") && units.contains("SN-0413"),
+        "{units}"
+    );
+    // The table for firmware is what `export` makes of the unit's run.
+    let export = Taucal::in_dir(dir)
+        .args(["export", "runs/sn0412", "--format", "c"])
+        .run();
+    export.expect_code(0);
+    assert_eq!(outputs[3].1, export.stdout);
+    assert!(outputs[4].1.contains("2 runs copied"), "{}", outputs[4].1);
+    assert!(export.path("line4-central.sqlite").is_file());
 }
