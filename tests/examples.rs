@@ -638,6 +638,7 @@ fn readme_performance_options_are_the_benchmarks_own() {
         .and_then(|s| s.split("\n## ").next())
         .expect("Performance section");
     let bench = std::fs::read_to_string(root().join("benches/scale.rs")).expect("scale.rs");
+    let store = std::fs::read_to_string(root().join("benches/store.rs")).expect("store.rs");
     let mut options: Vec<&str> = section
         .split(|c: char| !(c.is_ascii_alphanumeric() || c == '-'))
         .filter(|w| w.starts_with("--") && w[2..].starts_with(|c: char| c.is_ascii_lowercase()))
@@ -647,8 +648,9 @@ fn readme_performance_options_are_the_benchmarks_own() {
     assert!(options.len() >= 8, "{options:?}");
     for option in options {
         assert!(
-            bench.contains(&format!("\"{option}\" =>")),
-            "README's {option} is not an option of benches/scale.rs"
+            bench.contains(&format!("\"{option}\" =>"))
+                || store.contains(&format!("== \"{option}\"")),
+            "README's {option} is not an option of benches/scale.rs or benches/store.rs"
         );
     }
     // The baseline it names is in the repository, and the bench runs that file.
