@@ -1,7 +1,9 @@
-//! Instrument addresses as users write them: `sim:`, `tcp:HOST:PORT`, `serial:PATH?baud=N&…`.
+//! Instrument addresses as users write them: `sim:`, `tcp:HOST:PORT`, `serial:PATH?baud=N&…`,
+//! `exec:PROGRAM ARG…`.
 //!
 //! Parsing is pure (no I/O) so a bench file's addresses are checked before anything connects.
 
+use super::command_line;
 use std::fmt;
 use thiserror::Error;
 
@@ -19,6 +21,9 @@ pub enum Address {
     },
     /// A serial port (or a pseudo-terminal's path).
     Serial(SerialSettings),
+    /// A local program whose stdin and stdout carry the lines; the words of its command line,
+    /// program first (split like a shell would, but never run by one).
+    Exec(Vec<String>),
 }
 
 /// Serial line settings; everything but the path has the usual defaults (8N1, no flow control).
@@ -72,7 +77,7 @@ pub struct AddressError {
 
 /// The forms an address may take, for hints.
 pub const ADDRESS_FORMS: &str =
-    "`sim:`, `tcp:HOST:PORT` (e.g. tcp:127.0.0.1:5025) or `serial:PATH?baud=N` (options: data_bits, parity=none|even|odd, stop_bits=1|2, flow=none|software|hardware)";
+    "`sim:`, `tcp:HOST:PORT` (e.g. tcp:127.0.0.1:5025), `serial:PATH?baud=N` (options: data_bits, parity=none|even|odd, stop_bits=1|2, flow=none|software|hardware) or `exec:PROGRAM ARG…` (a program speaking lines on stdin/stdout; quotes as in a shell, but no shell runs)";
 
 impl Address {
     /// Parses an address string.
@@ -99,6 +104,11 @@ impl Address {
                 host: host.to_string(),
                 port,
             });
+        }
+        if let Some(rest) = text.strip_prefix("exec:") {
+            return command_line::split(rest)
+                .map(Address::Exec)
+                .map_err(|r| err(&format!("bad command line: {r}")));
         }
         if let Some(rest) = text.strip_prefix("serial:") {
             return parse_serial(rest).map(Address::Serial).map_err(|r| err(&r));
@@ -179,6 +189,7 @@ impl fmt::Display for Address {
             Address::Tcp { host, port } if host.contains(':') => write!(f, "tcp:[{host}]:{port}"),
             Address::Tcp { host, port } => write!(f, "tcp:{host}:{port}"),
             Address::Serial(s) => write!(f, "serial:{}?baud={}", s.path, s.baud),
+            Address::Exec(words) => write!(f, "exec:{}", command_line::join(words)),
         }
     }
 }
@@ -215,6 +226,26 @@ mod tests {
         assert_eq!(s.stop_bits, 2);
         assert_eq!(s.flow, Flow::Hardware);
         assert_eq!(s.data_bits, 8);
+        let exec =
+            Address::parse("exec:/opt/x/taucal sim serve --stdio 'dut' --bench \"a b.toml\"")
+                .expect("exec address");
+        assert_eq!(
+            exec,
+            Address::Exec(
+                [
+                    "/opt/x/taucal",
+                    "sim",
+                    "serve",
+                    "--stdio",
+                    "dut",
+                    "--bench",
+                    "a b.toml"
+                ]
+                .map(String::from)
+                .to_vec()
+            )
+        );
+        assert_eq!(Address::parse(&exec.to_string()), Ok(exec));
     }
 
     #[test]
@@ -228,6 +259,8 @@ mod tests {
             ("serial:/dev/x?speed=9600", "unknown serial option"),
             ("serial:/dev/x?parity=mark", "parity"),
             ("gpib:7", "unknown kind"),
+            ("exec:", "names no program"),
+            ("exec:tool 'half", "bad command line: a single quote"),
         ] {
             let e = Address::parse(text).expect_err(text);
             assert!(e.reason.contains(reason), "{text}: {}", e.reason);

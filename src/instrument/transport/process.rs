@@ -1,0 +1,275 @@
+//! Local programs as instruments (`exec:PROGRAM ARG…`): the program's stdin and stdout are the
+//! line link, its stderr goes to the run log line by line, and it is ended when its stream is
+//! dropped — stdin closed first so a well-behaved program finishes on its own, then killed after
+//! a short grace — so a reconnect restarts it and no run leaves a program behind.
+//!
+//! No shell is involved: the words come from [`super::command_line::split`] and go to the
+//! operating system as they are.
+
+use super::output::{BoundedLines, STDERR_LINE_CHARS};
+use std::io;
+use std::pin::Pin;
+use std::process::Stdio;
+use std::task::{Context, Poll};
+use std::time::{Duration, Instant};
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, ReadBuf};
+use tokio::process::{Child, ChildStdin, ChildStdout, Command};
+
+/// How long a program has to end by itself once its stdin is closed, before it is killed.
+pub const END_GRACE: Duration = Duration::from_millis(300);
+
+/// Stderr lines logged per program start; past this the rest is read and dropped, so a program
+/// that floods its stderr neither blocks on a full pipe nor fills the disk.
+pub const STDERR_MAX_LINES: usize = 1000;
+
+/// A running program seen as a byte stream.
+pub struct ProcessStream {
+    label: String,
+    child: Child,
+    stdin: Option<ChildStdin>,
+    stdout: ChildStdout,
+}
+
+/// Starts `words` (program first) with piped stdin, stdout and stderr. `label` names it in
+/// messages and the log (the address as written). Must run inside a tokio runtime.
+pub fn spawn(words: &[String], label: &str) -> io::Result<ProcessStream> {
+    let Some((program, args)) = words.split_first() else {
+        return Err(io::Error::new(
+            io::ErrorKind::InvalidInput,
+            "the command line names no program",
+        ));
+    };
+    let mut child = Command::new(program)
+        .args(args)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        // The last resort when the stream is leaked rather than dropped.
+        .kill_on_drop(true)
+        .spawn()
+        .map_err(|e| start_error(program, e))?;
+    let (Some(stdin), Some(stdout), Some(stderr)) =
+        (child.stdin.take(), child.stdout.take(), child.stderr.take())
+    else {
+        return Err(io::Error::other("the program's pipes were not opened"));
+    };
+    tokio::spawn(log_stderr(stderr, label.to_string()));
+    tracing::debug!("{label}: started (pid {:?})", child.id());
+    Ok(ProcessStream {
+        label: label.to_string(),
+        child,
+        stdin: Some(stdin),
+        stdout,
+    })
+}
+
+/// Why a program did not start, in words that name it.
+fn start_error(program: &str, e: io::Error) -> io::Error {
+    let why = match e.kind() {
+        io::ErrorKind::NotFound if program.contains('/') => "there is no such file".to_string(),
+        io::ErrorKind::NotFound => "it is not on PATH (give its full path)".to_string(),
+        io::ErrorKind::PermissionDenied => "it is not executable (chmod +x)".to_string(),
+        _ => e.to_string(),
+    };
+    io::Error::new(e.kind(), format!("cannot start program `{program}`: {why}"))
+}
+
+/// Logs the program's stderr a line at a time, bounded in line length and count.
+async fn log_stderr(mut stderr: tokio::process::ChildStderr, label: String) {
+    let mut lines = BoundedLines::new(STDERR_LINE_CHARS);
+    let mut logged = 0usize;
+    let mut buf = [0u8; 4096];
+    loop {
+        let n = match stderr.read(&mut buf).await {
+            Ok(0) | Err(_) => break,
+            Ok(n) => n,
+        };
+        for line in lines.push(&buf[..n]) {
+            logged += 1;
+            if logged <= STDERR_MAX_LINES {
+                tracing::info!("{label}: stderr: {line}");
+            } else if logged == STDERR_MAX_LINES + 1 {
+                tracing::warn!(
+                    "{label}: more than {STDERR_MAX_LINES} stderr lines; the rest is not logged"
+                );
+            }
+        }
+    }
+    if let Some(line) = lines.finish() {
+        if logged < STDERR_MAX_LINES {
+            tracing::info!("{label}: stderr: {line}");
+        }
+    }
+}
+
+/// Ends `child`: waits up to [`END_GRACE`] for it to exit (its stdin is already closed), then
+/// kills it, and logs how it ended. Blocking, and bounded: it runs from `Drop`, which may be
+/// on a runtime that is shutting down.
+fn end(child: &mut Child, label: &str) {
+    let deadline = Instant::now() + END_GRACE;
+    loop {
+        match child.try_wait() {
+            Ok(Some(status)) => {
+                tracing::info!("{label}: the program ended ({status})");
+                return;
+            }
+            Ok(None) if Instant::now() < deadline => std::thread::sleep(Duration::from_millis(5)),
+            Ok(None) | Err(_) => break,
+        }
+    }
+    match child.start_kill() {
+        Ok(()) => tracing::info!(
+            "{label}: the program was killed ({} ms after its stdin closed)",
+            END_GRACE.as_millis()
+        ),
+        Err(e) => tracing::warn!("{label}: the program could not be killed: {e}"),
+    }
+    // Reap it where it goes at once; otherwise the runtime's reaper collects it.
+    let deadline = Instant::now() + Duration::from_millis(100);
+    while matches!(child.try_wait(), Ok(None)) && Instant::now() < deadline {
+        std::thread::sleep(Duration::from_millis(2));
+    }
+}
+
+impl Drop for ProcessStream {
+    fn drop(&mut self) {
+        drop(self.stdin.take());
+        end(&mut self.child, &self.label);
+    }
+}
+
+impl AsyncRead for ProcessStream {
+    fn poll_read(
+        mut self: Pin<&mut Self>,
+        cx: &mut Context<'_>,
+        buf: &mut ReadBuf<'_>,
+    ) -> Poll<io::Result<()>> {
+        Pin::new(&mut self.stdout).poll_read(cx, buf)
+    }
+}
+
+fn stdin_closed() -> io::Error {
+    io::Error::new(io::ErrorKind::BrokenPipe, "the program's stdin is closed")
+}
+
+impl AsyncWrite for ProcessStream {
+    fn poll_write(
+        mut self: Pin<&mut Self>,
+        cx: &mut Context<'_>,
+        buf: &[u8],
+    ) -> Poll<io::Result<usize>> {
+        match self.stdin.as_mut() {
+            Some(stdin) => Pin::new(stdin).poll_write(cx, buf),
+            None => Poll::Ready(Err(stdin_closed())),
+        }
+    }
+
+    fn poll_flush(mut self: Pin<&mut Self>, cx: &mut Context<'_>) -> Poll<io::Result<()>> {
+        match self.stdin.as_mut() {
+            Some(stdin) => Pin::new(stdin).poll_flush(cx),
+            None => Poll::Ready(Err(stdin_closed())),
+        }
+    }
+
+    fn poll_shutdown(mut self: Pin<&mut Self>, cx: &mut Context<'_>) -> Poll<io::Result<()>> {
+        match self.stdin.as_mut() {
+            Some(stdin) => Pin::new(stdin).poll_shutdown(cx),
+            None => Poll::Ready(Ok(())),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::instrument::transport::{Address, Link, LinkError};
+
+    fn sh(script: &str) -> Address {
+        Address::Exec(vec!["/bin/sh".into(), "-c".into(), script.into()])
+    }
+
+    #[tokio::test]
+    async fn a_program_answers_on_its_stdout_and_is_restarted_after_it_exits() {
+        // Answers two lines, then exits: the third command finds it gone, the fourth restarts it.
+        let mut link = Link::new(
+            sh(r#"read a; echo "re:$a"; read b; echo "re:$b""#),
+            "\n",
+            Duration::from_secs(5),
+        );
+        assert_eq!(link.query("one").await, Ok("re:one".into()));
+        assert_eq!(link.query("two").await, Ok("re:two".into()));
+        let gone = link.query("three").await.expect_err("the program exited");
+        assert!(!gone.is_timeout(), "{gone}");
+        assert!(!link.is_connected());
+        assert_eq!(link.query("four").await, Ok("re:four".into()));
+    }
+
+    #[tokio::test]
+    async fn a_missing_program_is_named_with_its_address() {
+        let address = Address::Exec(vec!["/nonexistent/taucal-test-tool".into(), "-x".into()]);
+        let mut link = Link::new(address, "\n", Duration::from_secs(1));
+        let e = link.query("x").await.expect_err("nothing to start");
+        assert!(matches!(e, LinkError::Connect { .. }), "{e}");
+        let text = e.to_string();
+        assert!(
+            text.contains("exec:/nonexistent/taucal-test-tool -x"),
+            "{text}"
+        );
+        assert!(
+            text.contains("program `/nonexistent/taucal-test-tool`: there is no such file"),
+            "{text}"
+        );
+        let bare = Address::Exec(vec!["taucal-no-such-tool-here".into()]);
+        let e = Link::new(bare, "\n", Duration::from_secs(1))
+            .query("x")
+            .await
+            .expect_err("not on PATH");
+        assert!(e.to_string().contains("not on PATH"), "{e}");
+    }
+
+    /// True while `pid` names a process that has not been reaped.
+    fn alive(pid: u32) -> bool {
+        std::path::Path::new(&format!("/proc/{pid}")).exists()
+    }
+
+    #[tokio::test]
+    async fn a_program_that_ignores_its_closed_stdin_is_killed_after_the_grace() {
+        // It never reads its stdin, so closing that does not end it.
+        let words: Vec<String> = ["/bin/sh", "-c", "echo $$; exec sleep 30"]
+            .map(String::from)
+            .to_vec();
+        let mut stream = spawn(&words, "exec:test").expect("starts");
+        let mut framer = crate::instrument::line::LineFramer::new();
+        let pid: u32 =
+            crate::instrument::line::read_line(&mut stream, &mut framer, Duration::from_secs(5))
+                .await
+                .expect("pid line")
+                .parse()
+                .expect("a pid");
+        assert!(alive(pid));
+        let started = Instant::now();
+        drop(stream);
+        let took = started.elapsed();
+        assert!(took >= END_GRACE, "killed before the grace: {took:?}");
+        assert!(!alive(pid), "the program outlived its stream");
+    }
+
+    #[tokio::test]
+    async fn a_program_that_ends_on_a_closed_stdin_is_not_killed() {
+        let words: Vec<String> = ["/bin/sh", "-c", "echo $$; cat >/dev/null"]
+            .map(String::from)
+            .to_vec();
+        let mut stream = spawn(&words, "exec:test").expect("starts");
+        let mut framer = crate::instrument::line::LineFramer::new();
+        let pid: u32 =
+            crate::instrument::line::read_line(&mut stream, &mut framer, Duration::from_secs(5))
+                .await
+                .expect("pid line")
+                .parse()
+                .expect("a pid");
+        let started = Instant::now();
+        drop(stream);
+        assert!(started.elapsed() < END_GRACE, "waited the whole grace");
+        assert!(!alive(pid));
+    }
+}
