@@ -7,6 +7,7 @@ mod calibration;
 mod chamber;
 mod demo_run;
 mod examples;
+mod exec;
 mod fit_offline;
 mod forms;
 mod fuzz;

@@ -108,6 +108,11 @@ pub struct SimServeArgs {
     /// Allow listening on addresses other than loopback.
     #[arg(long)]
     pub allow_remote: bool,
+    /// Serve ROLE (attenuator, dut) on stdin/stdout until stdin ends, for a run that reaches it
+    /// at `exec:taucal sim serve --stdio ROLE …`; other roles are served only where `--listen`
+    /// says, and every message goes to stderr.
+    #[arg(long, value_name = "ROLE")]
+    pub stdio: Option<String>,
 }
 
 /// Bench selection shared by the commands.

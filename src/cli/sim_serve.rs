@@ -1,17 +1,18 @@
 //! `taucal sim serve`: serve the simulated bench's instruments on TCP sockets and
-//! pseudo-terminals until SIGINT or SIGTERM.
+//! pseudo-terminals until SIGINT or SIGTERM, or one of them on stdin/stdout until stdin ends
+//! (`--stdio`), for a client that starts the server as its instrument program.
 
 use super::args::SimServeArgs;
 use super::{bench_arg, Exit};
 use crate::diagnostic::Diagnostic;
-use crate::sim::serve::{Listen, ListenAt, ServedBench};
+use crate::sim::serve::{Listen, ListenAt, ServedBench, ServedRole};
 
 /// Where each role is served when no `--listen` is given.
 pub const DEFAULT_LISTEN: [&str; 2] = ["attenuator=tcp:127.0.0.1:5025", "dut=tcp:127.0.0.1:5026"];
 
 /// Parses the listeners, refusing non-loopback ones unless `--allow-remote`.
 fn listeners(args: &SimServeArgs) -> Result<Vec<Listen>, Diagnostic> {
-    let texts: Vec<&str> = if args.listen.is_empty() {
+    let texts: Vec<&str> = if args.listen.is_empty() && args.stdio.is_none() {
         DEFAULT_LISTEN.to_vec()
     } else {
         args.listen.iter().map(String::as_str).collect()
@@ -37,7 +38,7 @@ fn listeners(args: &SimServeArgs) -> Result<Vec<Listen>, Diagnostic> {
                 );
             }
         }
-        if out.iter().any(|l| l.role == listen.role) {
+        if out.iter().any(|l| l.role == listen.role) || stdio_role(args)? == Some(listen.role) {
             return Err(Diagnostic::plain(format!(
                 "--listen {text}: the {} is already served",
                 listen.role.name()
@@ -49,15 +50,35 @@ fn listeners(args: &SimServeArgs) -> Result<Vec<Listen>, Diagnostic> {
     Ok(out)
 }
 
-/// Serves until interrupted. Prints `ROLE ADDRESS` on stdout for each role once it is ready.
+/// The role `--stdio` names, if any.
+fn stdio_role(args: &SimServeArgs) -> Result<Option<ServedRole>, Diagnostic> {
+    args.stdio
+        .as_deref()
+        .map(|role| match role {
+            "attenuator" => Ok(ServedRole::Attenuator),
+            "dut" => Ok(ServedRole::Dut),
+            other => Err(Diagnostic::plain(format!(
+                "--stdio {other}: not a role sim serve offers"
+            ))
+            .with_hint("--stdio attenuator or --stdio dut")),
+        })
+        .transpose()
+}
+
+/// Serves until interrupted. Prints `ROLE ADDRESS` on stdout for each role once it is ready
+/// (on stderr with `--stdio`, whose stdout is the served instrument's).
 pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
     let bench = bench_arg::load(&args.bench)?;
+    let stdio = stdio_role(&args)?;
     let listen = listeners(&args)?;
     let seed = args
         .seed
         .or(bench.sim.as_ref().map(|s| s.seed))
         .unwrap_or(1);
     let served = ServedBench::new(&bench, seed, args.realtime)?;
+    if let Some(role) = stdio {
+        return serve_stdio(&served, role, &listen);
+    }
     // SIGINT and SIGTERM are blocked before the runtime's threads exist (they inherit the mask)
     // and waited for on this thread alone, so a stop is seen however busy the servers are.
     let stop_signals = stop_signals();
@@ -115,6 +136,35 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
     rt.shutdown_timeout(std::time::Duration::from_millis(200));
     eprintln!("taucal: stopped ({})", signal.as_str());
     Ok(Exit::Ok)
+}
+
+/// Serves `role` on stdin/stdout, and `listen` beside it, until stdin ends. The client that
+/// started this process ends it by closing stdin (or killing it): signals keep their default
+/// effect.
+fn serve_stdio(
+    served: &ServedBench,
+    role: ServedRole,
+    listen: &[Listen],
+) -> Result<Exit, Diagnostic> {
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(|e| Diagnostic::plain(format!("cannot start the server runtime: {e}")))?;
+    let outcome = rt.block_on(async {
+        for l in listen {
+            let address = served.start(l).await.map_err(|e| {
+                Diagnostic::plain(format!("cannot serve the {}: {e}", l.role.name()))
+            })?;
+            eprintln!("{} {address}", l.role.name());
+        }
+        served.serve_stdio(role).await.map_err(|e| {
+            Diagnostic::plain(format!("serving the {} on stdin/stdout: {e}", role.name()))
+        })
+    });
+    // Stdin has ended; a blocked read of it must not hold the process.
+    rt.shutdown_timeout(std::time::Duration::from_millis(200));
+    outcome.map(|()| Exit::Ok)
 }
 
 fn stop_signals() -> nix::sys::signal::SigSet {

@@ -31,8 +31,8 @@ use console::ConsoleDevice;
 use scpi_attenuator::ScpiAttenuator;
 use std::net::{IpAddr, SocketAddr};
 use std::sync::{Arc, Mutex};
-use tokio::io::{AsyncRead, AsyncReadExt, AsyncWriteExt};
-use tokio::net::{TcpListener, TcpStream};
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
+use tokio::net::TcpListener;
 
 /// Clients served at once on one role's socket; more are closed as they connect. A bench has
 /// one client per instrument, so this leaves room for a stray connection or two.
@@ -231,7 +231,9 @@ impl ServedBench {
                         let me = me.clone();
                         tokio::spawn(async move {
                             let outcome = match role {
-                                ServedRole::Attenuator => me.serve_scpi(stream).await,
+                                ServedRole::Attenuator => {
+                                    me.serve_scpi(stream, Medium::Socket).await
+                                }
                                 ServedRole::Dut => {
                                     console::serve(
                                         stream,
@@ -260,13 +262,43 @@ impl ServedBench {
         }
     }
 
-    async fn serve_scpi(&self, mut stream: TcpStream) -> std::io::Result<()> {
+    /// Serves `role` on this process's stdin and stdout until stdin ends, for a client that
+    /// runs `taucal sim serve --stdio ROLE` as its instrument (`exec:` addresses). A pipe, like
+    /// a terminal, has no connection to drop: a dropped command is lost.
+    pub async fn serve_stdio(&self, role: ServedRole) -> std::io::Result<()> {
+        let stream = tokio::io::join(tokio::io::stdin(), tokio::io::stdout());
+        match role {
+            ServedRole::Attenuator => self.serve_scpi(stream, Medium::Terminal).await,
+            ServedRole::Dut => {
+                console::serve(
+                    stream,
+                    self.shared.clone(),
+                    self.console.clone(),
+                    Medium::Terminal,
+                )
+                .await
+            }
+            ServedRole::Chamber => match self.chamber.clone() {
+                Some(controller) => chamber::serve(stream, self.shared.clone(), controller).await,
+                None => Err(std::io::Error::other(
+                    "the bench has no [sim.chamber] to serve",
+                )),
+            },
+        }
+    }
+
+    async fn serve_scpi<S: AsyncRead + AsyncWrite + Unpin>(
+        &self,
+        mut stream: S,
+        medium: Medium,
+    ) -> std::io::Result<()> {
         let mut commands = CommandReader::default();
         while let Some(message) = commands.next(&mut stream).await? {
             // A query that falls silent is not carried out; a setting has no reply to withhold.
             let fault = self.shared.command_fault("attenuator").ok().flatten();
             match fault {
-                Some(CommandFault::Drop) => return Ok(()),
+                Some(CommandFault::Drop) if medium == Medium::Socket => return Ok(()),
+                Some(CommandFault::Drop) => continue,
                 Some(CommandFault::Silence) if message.contains('?') => continue,
                 _ => {}
             }
@@ -282,6 +314,7 @@ impl ServedBench {
             }
             if !response.is_empty() {
                 stream.write_all(&response).await?;
+                stream.flush().await?;
             }
         }
         Ok(())
@@ -323,6 +356,7 @@ mod tests {
     use crate::sim::truth::SimFaultsTruth;
     use std::time::Duration;
     use tokio::io::{AsyncBufReadExt, BufReader};
+    use tokio::net::TcpStream;
 
     /// The built-in bench served on loopback with `faults`; returns the address of `role`.
     async fn serve(faults: SimFaultsTruth, role: ServedRole) -> SocketAddr {
