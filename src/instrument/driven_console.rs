@@ -7,17 +7,22 @@
 //! for the whole run is the runner's (`runner::report_watch`), which sees every device, not only
 //! consoles. Line classification is pure; the async part only moves lines.
 
+use super::command::{Command, Filled};
 use super::driver_file::ConsoleDriver;
 use super::template::Value;
+use super::transport::run_once::{self, RunError};
 use super::transport::Link;
 use super::{BurstSpec, InstrumentError, RangingDevice};
 use crate::data::{DeviceExchange, STATUS_OK, TIMESTAMP_END_PS};
 use async_trait::async_trait;
 use regex::Captures;
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, VecDeque};
 
 /// Status given to an exchange whose record lacks a status field and a timestamp.
 pub const STATUS_INCOMPLETE: &str = "incomplete";
+
+/// Lines read beyond a burst's largest size before giving up on getting back in step.
+const RESYNC_SPARE_LINES: usize = 64;
 
 /// What one console line means.
 #[derive(Debug, Clone, PartialEq)]
@@ -214,6 +219,9 @@ pub struct DrivenConsole {
     /// Whether the device has answered on this connection: a banner before that is the
     /// greeting of a new connection, after it a restart.
     answered: bool,
+    /// The stdout lines of the last command when it was a program (`run`): its replies are
+    /// read from here instead of the link.
+    ran: Option<VecDeque<String>>,
 }
 
 impl DrivenConsole {
@@ -224,6 +232,7 @@ impl DrivenConsole {
             driver,
             link,
             answered: false,
+            ran: None,
         }
     }
 
@@ -264,14 +273,32 @@ impl DrivenConsole {
         None
     }
 
-    async fn send(&mut self, command: &str) -> Result<(), Trouble> {
-        if !self.link.is_connected() {
-            self.answered = false;
+    /// Sends a line, or runs a program and keeps its stdout lines as the replies to read.
+    async fn send(&mut self, command: &Filled) -> Result<(), Trouble> {
+        self.ran = None;
+        let words = match command {
+            Filled::Line(line) => {
+                if !self.link.is_connected() {
+                    self.answered = false;
+                }
+                return self
+                    .link
+                    .send(line)
+                    .await
+                    .map_err(|e| Trouble::Link(format!("`{line}`: {e}")));
+            }
+            Filled::Run(words) => words,
+        };
+        // Each run is a fresh start: a banner it prints first is its greeting.
+        self.answered = false;
+        match run_once::run(words, self.link.timeout()).await {
+            Ok(lines) => {
+                self.ran = Some(lines.into());
+                Ok(())
+            }
+            Err(e @ RunError::Timeout { .. }) => Err(Trouble::Link(e.to_string())),
+            Err(e) => Err(Trouble::Device(e.to_string())),
         }
-        self.link
-            .send(command)
-            .await
-            .map_err(|e| Trouble::Link(format!("`{command}`: {e}")))
     }
 
     /// The next line that is not a banner (`want` wins over the banner pattern). A banner
@@ -284,11 +311,16 @@ impl DrivenConsole {
         want: Option<&regex::Regex>,
     ) -> Result<String, Trouble> {
         loop {
-            let line = self
-                .link
-                .read_line()
-                .await
-                .map_err(|e| Trouble::Link(format!("{context}: {e}")))?;
+            let line = match self.ran.as_mut() {
+                Some(replies) => replies.pop_front().ok_or_else(|| {
+                    Trouble::Garbled(format!("{context}: the program's output ended early"))
+                })?,
+                None => self
+                    .link
+                    .read_line()
+                    .await
+                    .map_err(|e| Trouble::Link(format!("{context}: {e}")))?,
+            };
             let wanted = want.is_some_and(|w| w.is_match(&line));
             if !wanted && matches!(classify(&self.driver, &line), Ok(ConsoleLine::Banner)) {
                 if self.answered {
@@ -319,7 +351,7 @@ impl DrivenConsole {
     }
 
     async fn run_burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, Trouble> {
-        let command = self.driver.start_burst.render(&BTreeMap::from([
+        let filled = self.driver.start_burst.fill(&BTreeMap::from([
             ("frames", Value::Integer(u64::from(spec.frames))),
             (
                 "center_mhz",
@@ -327,7 +359,8 @@ impl DrivenConsole {
             ),
             ("bw_mhz", Value::Integer(u64::from(spec.channel.bw_mhz))),
         ]));
-        self.send(&command).await?;
+        let command = filled.to_string();
+        self.send(&filled).await?;
         if let Some(ack) = self.driver.start_burst_reply.clone() {
             self.expect(&command, &ack).await?;
         }
@@ -383,7 +416,19 @@ impl DrivenConsole {
     /// that end never comes) reads until the console falls silent for the link's timeout,
     /// which closes the link, and the next command starts on a fresh connection.
     async fn resync(&mut self, in_burst: bool) {
+        // A program's replies are all read already: the next command runs it afresh.
+        if self.ran.take().is_some() {
+            return;
+        }
+        // A peer that never falls silent (a program flooding its output) would hold this loop
+        // forever: past a burst's worth of lines the link is closed instead.
+        let mut budget = self.driver.frames[1] as usize + RESYNC_SPARE_LINES;
         while let Ok(line) = self.link.read_line().await {
+            budget = budget.saturating_sub(1);
+            if budget == 0 {
+                self.link.close();
+                return;
+            }
             if in_burst
                 && matches!(
                     classify(&self.driver, &line),
@@ -404,16 +449,16 @@ impl DrivenConsole {
     }
 
     /// Sends `command` and reads the reply matching `want`.
-    async fn query(&mut self, command: &str, want: &regex::Regex) -> Result<String, Trouble> {
+    async fn query(&mut self, command: &Filled, want: &regex::Regex) -> Result<String, Trouble> {
         self.send(command).await?;
-        self.expect(command, want).await
+        self.expect(&command.to_string(), want).await
     }
 }
 
 #[async_trait]
 impl RangingDevice for DrivenConsole {
     async fn identify(&mut self) -> Result<String, InstrumentError> {
-        let command = self.driver.identify.text();
+        let command = self.driver.identify.fill(&BTreeMap::new());
         let want = self.driver.identify_reply.clone();
         let line = match self.query(&command, &want).await {
             Ok(line) => line,
@@ -439,7 +484,7 @@ impl RangingDevice for DrivenConsole {
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
-        let command = self.driver.safe_command.text();
+        let command = Command::Line(self.driver.safe_command.clone()).fill(&BTreeMap::new());
         let outcome = match self.driver.safe_reply.clone() {
             Some(reply) => self.query(&command, &reply).await.map(drop),
             None => self.send(&command).await,
@@ -454,7 +499,7 @@ impl RangingDevice for DrivenConsole {
         let Some((command, reply)) = self.driver.temperature.clone() else {
             return Ok(None);
         };
-        let command = command.text();
+        let command = command.fill(&BTreeMap::new());
         let line = match self.query(&command, &reply).await {
             Ok(line) => line,
             Err(t) => return Err(self.fail(t, false).await),
@@ -640,5 +685,73 @@ mod tests {
             classify(&d, wide),
             Err("field `t3` = `281474976710656` is beyond the 48-bit counter (at most 281474976710655)".into())
         );
+    }
+
+    /// The Wren-6 driver with its burst and identity run as programs: `burst` is a /bin/sh
+    /// script given the frames and the center frequency as its arguments `$1` and `$2`.
+    fn wren_running(burst: &str) -> DrivenConsole {
+        let text = include_str!("../../drivers/wren6-console.toml")
+            .replace(
+                "start_burst = \"range go n={frames} ch={center_mhz} bw={bw_mhz}\"",
+                &format!(
+                    "start_burst = {{ run = [\"/bin/sh\", \"-c\", '{burst}', \"sh\", \"{{frames}}\", \"{{center_mhz}}\"] }}"
+                ),
+            )
+            .replace(
+                "identify = \"who\"",
+                "identify = { run = [\"/bin/sh\", \"-c\", \"echo 'fw 2.3.1 ready'; echo 'id W6-RUN'\"] }",
+            );
+        let driver = shipped("wren-run", &text);
+        // Nothing listens here: a command that used the link would fail.
+        let unused = crate::instrument::transport::Address::Tcp {
+            host: "127.0.0.1".into(),
+            port: 9,
+        };
+        let link = Link::new(unused, "\r\n", std::time::Duration::from_secs(5));
+        DrivenConsole::new("dut", driver, link)
+    }
+
+    fn spec(frames: u32) -> BurstSpec {
+        BurstSpec {
+            frames,
+            channel: crate::recipe::plan::Channel {
+                center_mhz: 5180,
+                bw_mhz: 80,
+            },
+        }
+    }
+
+    #[tokio::test]
+    async fn a_burst_run_as_a_program_reads_its_stdout_as_the_replies() {
+        let mut dut = wren_running(
+            r#"echo "range ack"; i=0; while [ $i -lt $1 ]; do echo "xr $i t1=$((1000 + i)) t2=$2 t3=62000 t4=61500 g=1 rssi=-50 rg=0 st=ok"; i=$((i + 1)); done; echo "range done n=$1""#,
+        );
+        // The banner line the identity program prints first is its greeting, not a restart.
+        assert_eq!(dut.identify().await, Ok("W6-RUN".to_string()));
+        let rows = dut.burst(&spec(5)).await.expect("burst");
+        assert_eq!(rows.len(), 5);
+        assert_eq!(
+            rows.iter().map(|x| x.t1_ps).collect::<Vec<_>>(),
+            (1000..1005).map(Some).collect::<Vec<_>>()
+        );
+        // The center frequency arrived as its own argument.
+        assert!(rows.iter().all(|x| x.t2_ps == Some(5180)));
+    }
+
+    #[tokio::test]
+    async fn a_failing_or_short_program_is_an_instrument_error() {
+        let mut dut =
+            wren_running(r#"echo "range ack"; echo "radio locked by calibration" >&2; exit 4"#);
+        let e = dut.burst(&spec(3)).await.expect_err("exit 4");
+        assert!(matches!(e, InstrumentError::Failed { .. }), "{e}");
+        let text = e.to_string();
+        assert!(text.contains("exit status: 4"), "{text}");
+        assert!(text.contains("radio locked by calibration"), "{text}");
+        let mut short = wren_running(
+            r#"echo "range ack"; echo "xr 0 t1=1 t2=2 t3=3 t4=4 g=1 rssi=-50 rg=0 st=ok""#,
+        );
+        let e = short.burst(&spec(3)).await.expect_err("no end line");
+        assert!(matches!(e, InstrumentError::Transient { .. }), "{e}");
+        assert!(e.to_string().contains("output ended early"), "{e}");
     }
 }

@@ -8,6 +8,7 @@
 
 pub mod chamber;
 
+use super::command::{Command, RunCommand};
 use super::template::{on_grid, ParamKind, Template};
 use crate::diagnostic::{did_you_mean, Diagnostic, KeyError, SourceFile};
 pub use chamber::{ChamberDriver, ChamberSafe, KIND_CHAMBER};
@@ -29,7 +30,7 @@ struct RawDriver {
     link: RawLink,
     #[serde(default)]
     scpi: Option<RawScpi>,
-    command: BTreeMap<String, String>,
+    command: RawCommands,
     reply: BTreeMap<String, String>,
     #[serde(default)]
     limits: RawLimits,
@@ -38,6 +39,80 @@ struct RawDriver {
     safe_state: RawSafe,
     #[serde(default)]
     reports: Option<RawReports>,
+}
+
+/// The `[command]` table: command lines (text) by key, and apart from them the commands given
+/// as programs (`{ run = [...] }`). It reads as the map of lines, which is what every kind
+/// offers; only the kinds that offer `run` look at `runs`.
+#[derive(Debug, Default)]
+struct RawCommands {
+    lines: BTreeMap<String, String>,
+    runs: BTreeMap<String, Vec<String>>,
+}
+
+impl std::ops::Deref for RawCommands {
+    type Target = BTreeMap<String, String>;
+    fn deref(&self) -> &Self::Target {
+        &self.lines
+    }
+}
+
+/// One `[command]` value: a line, or a table holding `run` only.
+enum RawCommand {
+    Line(String),
+    Run(Vec<String>),
+}
+
+impl<'de> Deserialize<'de> for RawCommand {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct Visit;
+        impl<'de> serde::de::Visitor<'de> for Visit {
+            type Value = RawCommand;
+            fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+                f.write_str(
+                    "a command line (text) or a program to run, `{ run = [\"program\", \"arg\", …] }`",
+                )
+            }
+            fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<RawCommand, E> {
+                Ok(RawCommand::Line(v.to_string()))
+            }
+            fn visit_map<A: serde::de::MapAccess<'de>>(
+                self,
+                mut map: A,
+            ) -> Result<RawCommand, A::Error> {
+                let mut run = None;
+                while let Some(key) = map.next_key::<String>()? {
+                    if key != "run" || run.is_some() {
+                        return Err(serde::de::Error::custom(format!(
+                            "`{key}`: a command's table holds `run` only, e.g. \
+                             {{ run = [\"tool\", \"--frames\", \"{{frames}}\"] }}"
+                        )));
+                    }
+                    run = Some(map.next_value::<Vec<String>>()?);
+                }
+                run.map(RawCommand::Run)
+                    .ok_or_else(|| serde::de::Error::missing_field("run"))
+            }
+        }
+        d.deserialize_any(Visit)
+    }
+}
+
+impl<'de> Deserialize<'de> for RawCommands {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        let mut out = RawCommands::default();
+        for (key, command) in BTreeMap::<String, RawCommand>::deserialize(d)? {
+            match command {
+                RawCommand::Line(line) => {
+                    out.lines.insert(key, line);
+                }
+                RawCommand::Run(words) => {
+                    out.runs.insert(key, words);
+                }
+            }
+        }
+        Ok(out)
+    }
 }
 
 #[derive(Debug, Deserialize)]
@@ -178,11 +253,11 @@ pub struct AttenuatorDriver {
 #[derive(Debug, Clone)]
 pub struct ConsoleDriver {
     /// Asks for the device's identity.
-    pub identify: Template,
+    pub identify: Command,
     /// Reply to `identify`; captures `id`.
     pub identify_reply: Regex,
     /// Starts a burst; parameters `frames`, `center_mhz`, `bw_mhz`.
-    pub start_burst: Template,
+    pub start_burst: Command,
     /// Acknowledgment of `start_burst`, if the console sends one.
     pub start_burst_reply: Option<Regex>,
     /// One exchange, or one burst's summary: captures a complete form of report — `t1`…`t4`,
@@ -204,7 +279,7 @@ pub struct ConsoleDriver {
     /// Unsolicited lines to ignore (a boot banner, prompts).
     pub banner: Option<Regex>,
     /// Asks for the temperature, with its reply (capturing `c`), where the device measures one.
-    pub temperature: Option<(Template, Regex)>,
+    pub temperature: Option<(Command, Regex)>,
     /// How the console writes a value it does not have.
     pub missing: String,
     /// Exchanges per burst the device accepts.
@@ -307,7 +382,7 @@ impl DriverFile {
     /// Parses and validates driver-file text.
     pub fn parse(name: &str, source: SourceFile) -> Result<DriverFile, Diagnostic> {
         let raw: RawDriver = crate::toml_input::parse(&source)?;
-        build(name, raw)
+        build(name, raw, source.path.parent())
             .map_err(|e| source.key_error(e))
             .map(|mut d| {
                 d.source = source;
@@ -316,7 +391,7 @@ impl DriverFile {
     }
 }
 
-fn build(name: &str, raw: RawDriver) -> Result<DriverFile, KeyError> {
+fn build(name: &str, raw: RawDriver, dir: Option<&Path>) -> Result<DriverFile, KeyError> {
     let line_ending = match raw.link.line_ending.as_str() {
         "lf" => "\n",
         "crlf" => "\r\n",
@@ -343,10 +418,19 @@ fn build(name: &str, raw: RawDriver) -> Result<DriverFile, KeyError> {
     if [KIND_ATTENUATOR, KIND_RANGING_CONSOLE].contains(&raw.driver.kind.as_str()) {
         chamber::refuse_elsewhere(&raw)?;
     }
+    if let Some(key) = raw.command.runs.keys().next() {
+        if raw.driver.kind != KIND_RANGING_CONSOLE {
+            return Err(KeyError::new(
+                format!("command.{key}"),
+                format!("a program (`run`) stands in for {KIND_RANGING_CONSOLE} commands only"),
+                "write this kind's commands as lines sent over its link",
+            ));
+        }
+    }
     let kind = match raw.driver.kind.as_str() {
         KIND_CHAMBER => DriverKind::Chamber(Box::new(chamber::chamber(&raw)?)),
         KIND_ATTENUATOR => DriverKind::Attenuator(attenuator(&raw)?),
-        KIND_RANGING_CONSOLE => DriverKind::RangingConsole(Box::new(console(&raw)?)),
+        KIND_RANGING_CONSOLE => DriverKind::RangingConsole(Box::new(console(&raw, dir)?)),
         other => {
             return Err(KeyError::new(
                 "driver.kind",
@@ -366,11 +450,7 @@ fn build(name: &str, raw: RawDriver) -> Result<DriverFile, KeyError> {
     })
 }
 
-fn only_keys(
-    table: &str,
-    map: &BTreeMap<String, String>,
-    allowed: &[&str],
-) -> Result<(), KeyError> {
+fn only_keys<V>(table: &str, map: &BTreeMap<String, V>, allowed: &[&str]) -> Result<(), KeyError> {
     match map.keys().find(|k| !allowed.contains(&k.as_str())) {
         Some(k) => {
             let hint = did_you_mean(k, allowed.iter().copied())
@@ -609,8 +689,63 @@ fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
     })
 }
 
-fn console(raw: &RawDriver) -> Result<ConsoleDriver, KeyError> {
+/// A console command, as a line or a program; `None` where the file has neither.
+fn command(
+    raw: &RawCommands,
+    key: &str,
+    params: &[(&str, ParamKind)],
+    dir: Option<&Path>,
+) -> Result<Option<Command>, KeyError> {
+    if let Some(line) = raw.lines.get(key) {
+        return template("command", key, line, params).map(|t| Some(Command::Line(t)));
+    }
+    let Some(words) = raw.runs.get(key) else {
+        return Ok(None);
+    };
+    RunCommand::parse(words, params, dir)
+        .map(|r| Some(Command::Run(r)))
+        .map_err(|m| {
+            let offered: Vec<&str> = params.iter().map(|(n, _)| *n).collect();
+            KeyError::new(
+                format!("command.{key}"),
+                m,
+                if offered.is_empty() {
+                    "give `{ run = [\"program\", \"arg\", …] }`; this command takes no parameters"
+                        .to_string()
+                } else {
+                    format!(
+                        "give `{{ run = [\"program\", \"arg\", …] }}`; an argument may hold {}",
+                        offered
+                            .iter()
+                            .map(|n| format!("{{{n}}}"))
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    )
+                },
+            )
+        })
+}
+
+/// `command(…)` for a command the file must have.
+fn required_command(
+    raw: &RawCommands,
+    key: &str,
+    params: &[(&str, ParamKind)],
+    dir: Option<&Path>,
+    example: &str,
+) -> Result<Command, KeyError> {
+    command(raw, key, params, dir)?.ok_or_else(|| {
+        KeyError::new(
+            "command",
+            format!("has no `{key}`"),
+            format!("add `{key} = {example}`"),
+        )
+    })
+}
+
+fn console(raw: &RawDriver, dir: Option<&Path>) -> Result<ConsoleDriver, KeyError> {
     only_keys("command", &raw.command, &CONSOLE_COMMANDS)?;
+    only_keys("command", &raw.command.runs, &CONSOLE_COMMANDS)?;
     only_keys("reply", &raw.reply, &CONSOLE_REPLIES)?;
     let l = &raw.limits;
     refuse("scpi", KIND_RANGING_CONSOLE, raw.scpi.is_some())?;
@@ -627,28 +762,19 @@ fn console(raw: &RawDriver) -> Result<ConsoleDriver, KeyError> {
     )?;
     let c = &raw.command;
     let r = &raw.reply;
-    let identify = template(
-        "command",
-        "identify",
-        required("command", c, "identify", "\"who\"")?,
-        &[],
-    )?;
+    let identify = required_command(c, "identify", &[], dir, "\"who\"")?;
     let identify_reply = pattern(
         "identify",
         required("reply", r, "identify", "'^id (?P<id>.+)$'")?,
         &["id"],
         &[],
     )?;
-    let start_burst = template(
-        "command",
+    let start_burst = required_command(
+        c,
         "start_burst",
-        required(
-            "command",
-            c,
-            "start_burst",
-            "\"start n={frames} f={center_mhz} bw={bw_mhz}\"",
-        )?,
         &BURST_PARAMS,
+        dir,
+        "\"start n={frames} f={center_mhz} bw={bw_mhz}\"",
     )?;
     let start_burst_reply = r
         .get("start_burst")
@@ -684,12 +810,9 @@ fn console(raw: &RawDriver) -> Result<ConsoleDriver, KeyError> {
         .get("banner")
         .map(|p| pattern("banner", p, &[], &[]))
         .transpose()?;
-    let temperature = match (c.get("temperature"), r.get("temperature")) {
+    let temperature = match (command(c, "temperature", &[], dir)?, r.get("temperature")) {
         (None, None) => None,
-        (Some(cmd), Some(reply)) => Some((
-            template("command", "temperature", cmd, &[])?,
-            pattern("temperature", reply, &["c"], &[])?,
-        )),
+        (Some(cmd), Some(reply)) => Some((cmd, pattern("temperature", reply, &["c"], &[])?)),
         (Some(_), None) => {
             return Err(KeyError::new(
                 "command.temperature",
@@ -1108,5 +1231,78 @@ mod tests {
             panic!("attenuator without a safe-state setting");
         };
         assert_eq!(a.safe_atten_db, a.range_db[1]);
+    }
+
+    #[test]
+    fn a_console_command_may_be_a_program_with_whole_argument_parameters() {
+        let wren = console_of(2, |t| {
+            t.replace(
+                "start_burst = \"range go n={frames} ch={center_mhz} bw={bw_mhz}\"",
+                "start_burst = { run = [\"./bin/burst\", \"--frames\", \"{frames}\", \"--ch={center_mhz}\"] }",
+            )
+            .replace("identify = \"who\"", "identify = { run = [\"wren-id\"] }")
+        });
+        let Command::Run(burst) = &wren.start_burst else {
+            panic!("start_burst is a program");
+        };
+        let values = BTreeMap::from([
+            ("frames", super::super::template::Value::Integer(16)),
+            ("center_mhz", super::super::template::Value::Integer(5180)),
+        ]);
+        // Parsed from `test.toml`, whose folder is the current one.
+        assert_eq!(
+            burst.argv(&values),
+            ["./bin/burst", "--frames", "16", "--ch=5180"]
+        );
+        assert!(matches!(wren.identify, Command::Run(_)));
+        assert!(matches!(wren.temperature, Some((Command::Line(_), _))));
+    }
+
+    #[test]
+    fn bad_program_commands_are_refused_at_their_line() {
+        let start = "start_burst = \"range go n={frames} ch={center_mhz} bw={bw_mhz}\"";
+        let at = line_of(2, "start_burst =");
+        for (to, want) in [
+            ("start_burst = { run = [] }", "names no program"),
+            (
+                "start_burst = { run = [\"{frames}\"] }",
+                "the program is fixed",
+            ),
+            (
+                "start_burst = { run = [\"t\", \"{chan}\"] }",
+                "argument 1: `{chan}`: unknown parameter",
+            ),
+            (
+                "start_burst = { run = [\"t\"], shell = true }",
+                "a command's table holds `run` only",
+            ),
+            (
+                "start_burst = { run = \"t --frames {frames}\" }",
+                "expected",
+            ),
+            (
+                "start_burst = 7",
+                "a command line (text) or a program to run",
+            ),
+        ] {
+            let e = broken(2, start, to);
+            assert!(e.contains(want), "{to}: {e}");
+            assert!(e.contains(&at), "{to}: {e}");
+        }
+        let e = broken(2, start, "start_burst = { run = [\"t\", \"{chan}\"] }");
+        assert!(e.contains("command.start_burst"), "{e}");
+        assert!(e.contains("{frames}, {center_mhz}, {bw_mhz}"), "{e}");
+        let e = broken(
+            0,
+            "set_atten = \"DAMPer:SETTing {db:.2}\"",
+            "set_atten = { run = [\"tool\", \"{db}\"] }",
+        );
+        assert!(e.contains("ranging-console commands only"), "{e}");
+        let e = broken(
+            2,
+            "temperature = \"temp?\"",
+            "temprature = { run = [\"t\"] }",
+        );
+        assert!(e.contains("did you mean `temperature`"), "{e}");
     }
 }

@@ -3,6 +3,7 @@
 //! capability without a recompile.
 
 pub mod capability;
+pub mod command;
 pub mod driven_attenuator;
 pub mod driven_chamber;
 pub mod driven_console;

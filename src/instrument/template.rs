@@ -43,6 +43,16 @@ pub struct Template {
 impl Template {
     /// Parses `text`, allowing only the parameters in `params`. `{{` and `}}` stand for braces.
     pub fn parse(text: &str, params: &[(&str, ParamKind)]) -> Result<Template, String> {
+        let t = Template::parse_word(text, params)?;
+        if t.pieces.is_empty() {
+            return Err("is empty".into());
+        }
+        Ok(t)
+    }
+
+    /// Parses one argument of a program's command line: as [`Template::parse`], but an empty
+    /// argument is an argument.
+    pub fn parse_word(text: &str, params: &[(&str, ParamKind)]) -> Result<Template, String> {
         let mut pieces = Vec::new();
         let mut literal = String::new();
         let mut chars = text.chars().peekable();
@@ -98,9 +108,6 @@ impl Template {
         }
         if !literal.is_empty() {
             pieces.push(Piece::Text(literal));
-        }
-        if pieces.is_empty() {
-            return Err("is empty".into());
         }
         Ok(Template { pieces })
     }

@@ -104,6 +104,12 @@ impl Link {
         })
     }
 
+    /// Drops the connection (ends an `exec:` program); the next command connects afresh.
+    pub fn close(&mut self) {
+        self.stream = None;
+        self.framer.clear();
+    }
+
     /// Sends one line (the terminator is added).
     pub async fn send(&mut self, line: &str) -> Result<(), LinkError> {
         let bytes = format!("{line}{}", self.ending);

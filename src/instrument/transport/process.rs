@@ -46,6 +46,9 @@ pub fn spawn(words: &[String], label: &str) -> io::Result<ProcessStream> {
         .stderr(Stdio::piped())
         // The last resort when the stream is leaked rather than dropped.
         .kill_on_drop(true)
+        // Its own process group: a Ctrl-C at the terminal reaches taucal alone, which then
+        // puts the bench in its safe state through this very program before ending it.
+        .process_group(0)
         .spawn()
         .map_err(|e| start_error(program, e))?;
     let (Some(stdin), Some(stdout), Some(stderr)) =

@@ -72,6 +72,8 @@ pub async fn run(words: &[String], timeout: Duration) -> Result<Vec<String>, Run
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .kill_on_drop(true)
+        // Out of the terminal's process group, like `exec:` programs (see `process`).
+        .process_group(0)
         .spawn()
         .map_err(|e| {
             RunError::Start(match e.kind() {
