@@ -19,17 +19,26 @@ fn free_port() -> u16 {
 }
 
 /// The demo bench with its attenuator and DUT bound to `attenuator` and `dut` through the
-/// shipped drivers.
+/// shipped drivers (`sim:` keeps the role in-process).
 fn bench_with(attenuator: &str, dut: &str) -> String {
     let demo = std::fs::read_to_string(root().join("recipes/benches/sim-demo.toml")).expect("demo");
     let drivers = root().join("drivers").display().to_string();
+    // Addresses hold quotes of their own: written as TOML strings, escaped.
+    let quoted = |a: &str| toml::Value::String(a.to_string()).to_string();
+    let role = |driver: &str, sim_driver: &str, address: &str| match address {
+        "sim:" => format!("{{ driver = \"{sim_driver}\", address = \"sim:\" }}"),
+        _ => format!("{{ driver = \"{driver}\", address = {} }}", quoted(address)),
+    };
     demo.replace(
         "attenuator = { driver = \"sim-attenuator\", address = \"sim:\" }",
-        &format!("attenuator = {{ driver = \"brackwater-tidegate95\", address = '{attenuator}' }}"),
+        &format!(
+            "attenuator = {}",
+            role("brackwater-tidegate95", "sim-attenuator", attenuator)
+        ),
     )
     .replace(
         "dut = { driver = \"sim-ranging\", address = \"sim:\" }",
-        &format!("dut = {{ driver = \"wren6-console\", address = '{dut}' }}"),
+        &format!("dut = {}", role("wren6-console", "sim-ranging", dut)),
     )
     .replace(
         "[bench]\n",
@@ -75,5 +84,53 @@ fn a_bench_served_by_a_program_on_its_stdin_and_stdout_records_the_in_process_ex
     assert!(
         without_bench_time(&exchanges) == in_process_exchanges(),
         "exchanges through the exec'd server differ from the in-process run"
+    );
+}
+
+/// Runs the demo recipe through `bench` (text) and returns the outcome.
+fn run_through(bench: &str) -> crate::support::Outcome {
+    Taucal::new()
+        .file("exec.toml", bench)
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "exec.toml",
+            "--out",
+            "run",
+        ])
+        .run()
+}
+
+#[test]
+fn an_exec_address_that_does_not_split_is_refused_before_anything_runs() {
+    let bench = bench_with("sim:", "exec:/bin/echo 'unclosed");
+    let out = run_through(&bench);
+    out.expect_code(2);
+    assert!(out.stderr.contains("roles.dut.address"), "{}", out.stderr);
+    assert!(
+        out.stderr
+            .contains("bad command line: a single quote (') is not closed"),
+        "{}",
+        out.stderr
+    );
+    assert!(
+        !out.has_dir("run"),
+        "a run directory was made for a refused bench"
+    );
+}
+
+#[test]
+fn a_missing_program_stops_the_run_naming_the_address_and_the_program() {
+    let bench = bench_with("exec:/nonexistent/taucal-tool --port 3", "sim:");
+    let out = run_through(&bench);
+    out.expect_code(3);
+    assert!(
+        out.stderr.contains(
+            "cannot connect to exec:/nonexistent/taucal-tool --port 3: cannot start program \
+             `/nonexistent/taucal-tool`: there is no such file"
+        ),
+        "{}",
+        out.stderr
     );
 }
