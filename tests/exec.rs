@@ -134,3 +134,73 @@ fn a_missing_program_stops_the_run_naming_the_address_and_the_program() {
         out.stderr
     );
 }
+
+/// A shell command line that passes `lines` command lines to the stdio server and then ends its
+/// stdin, so it exits (a shell loop passes them unbuffered, which `head` would not). With
+/// `once`, a second start finds the marker file and fails at once, as a program whose device
+/// has gone would.
+fn dying_server(port: u16, lines: u32, once: Option<&str>) -> String {
+    let gate = once.map_or(String::new(), |marker| {
+        format!("if [ -e {marker} ]; then echo 'device gone' >&2; exit 1; fi; touch {marker}; ")
+    });
+    let server = format!(
+        "{gate}i=0; while [ $i -lt {lines} ] && IFS= read -r l; do printf '%s\\n' \"$l\"; \
+         i=$((i + 1)); done | exec {} sim serve --stdio attenuator \
+         --listen dut=tcp:127.0.0.1:{port} --bench {} --seed 1",
+        taucal(),
+        repo("recipes/benches/sim-demo.toml")
+    );
+    crate::support::exec_address(&["/bin/sh", "-c", &server])
+}
+
+#[test]
+fn a_program_that_exits_mid_run_is_restarted_and_the_run_rides_through() {
+    // Every 150 command lines the attenuator's program is gone: the command in flight fails,
+    // and the link starts the program again — a fresh bench model, whose DUT console on the
+    // same port the DUT's link reconnects to. Exchanges recorded before each exit are kept,
+    // none twice.
+    let port = free_port();
+    let out = run_through(&bench_with(
+        &dying_server(port, 150, None),
+        &format!("tcp:127.0.0.1:{port}"),
+    ));
+    out.expect_code(0);
+    let log = out.read("run/run.log");
+    let ends = log.matches("the program ended (exit status: 0)").count();
+    assert!(ends >= 3, "{ends} program exits:\n{log}");
+    assert!(log.contains("; reconnecting"), "{log}");
+    assert!(out
+        .read("run/manifest.toml")
+        .contains("status = \"completed\""));
+    let exchanges = out.read("run/exchanges.csv");
+    assert!(exchanges.lines().count() > 1000);
+    crate::support::assert_recorded_once(&exchanges);
+}
+
+#[test]
+fn a_program_that_cannot_come_back_stops_the_run_with_its_data_kept() {
+    let port = free_port();
+    let work = tempfile::tempdir().expect("temporary directory");
+    let marker = work.path().join("started").display().to_string();
+    let out = run_through(&bench_with(
+        &dying_server(port, 150, Some(&marker)),
+        &format!("tcp:127.0.0.1:{port}"),
+    ));
+    out.expect_code(3);
+    assert!(
+        out.stderr.contains("run stopped: attenuator:"),
+        "{}",
+        out.stderr
+    );
+    let log = out.read("run/run.log");
+    assert!(log.contains("stderr: device gone"), "{log}");
+    assert!(log.contains("the program ended (exit status: 1)"), "{log}");
+    let manifest = out.read("run/manifest.toml");
+    assert!(manifest.contains("status = \"failed\""), "{manifest}");
+    let exchanges = out.read("run/exchanges.csv");
+    assert!(
+        exchanges.lines().count() > 10,
+        "the exchanges before the program went were not kept:\n{exchanges}"
+    );
+    crate::support::assert_recorded_once(&exchanges);
+}

@@ -209,3 +209,12 @@ pub fn skip_without(tool: &str, test: &str) {
         "SKIPPED {test}: {tool} is not installed (apt-get install {tool} to run it)"
     );
 }
+
+/// An `exec:` address for `words`, each quoted for the address's shell-like splitting.
+pub fn exec_address(words: &[&str]) -> String {
+    let quoted: Vec<String> = words
+        .iter()
+        .map(|w| format!("'{}'", w.replace('\'', r"'\''")))
+        .collect();
+    format!("exec:{}", quoted.join(" "))
+}
