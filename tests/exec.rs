@@ -204,3 +204,121 @@ fn a_program_that_cannot_come_back_stops_the_run_with_its_data_kept() {
     );
     crate::support::assert_recorded_once(&exchanges);
 }
+
+/// A recipe of one point: two bursts of four exchanges at 40 dB on 5180/80.
+const ONE_POINT: &str = r#"
+[recipe]
+name = "one-point"
+
+[[stage]]
+name = "point"
+kind = "sweep"
+center_mhz = 5180
+bw_mhz = 80
+atten_db = [40.0]
+bursts = 2
+frames = 4
+"#;
+
+/// The demo bench whose DUT is driven by `drivers/wren-run.toml` (the Wren-6 driver with its
+/// identity and temperature run as shell one-liners, its bursts as `./burst.sh` beside the
+/// driver) and whose console link, used
+/// for the safe state only, is a shell loop answering `ok`.
+fn run_command_setup(burst_script: &str) -> Taucal {
+    let driver = std::fs::read_to_string(root().join("drivers/wren6-console.toml"))
+        .expect("driver")
+        .replace(
+            "start_burst = \"range go n={frames} ch={center_mhz} bw={bw_mhz}\"",
+            "start_burst = { run = [\"./burst.sh\", \"{frames}\", \"{center_mhz}\", \"bw {bw_mhz}\"] }",
+        )
+        .replace(
+            "identify = \"who\"",
+            "identify = { run = [\"/bin/sh\", \"-c\", \"echo 'id W6-RUN-0001'\"] }",
+        )
+        .replace(
+            "temperature = \"temp?\"",
+            "temperature = { run = [\"/bin/sh\", \"-c\", \"echo 'temp 31.5'\"] }",
+        );
+    let console =
+        crate::support::exec_address(&["/bin/sh", "-c", "while read l; do echo ok; done"]);
+    let bench = std::fs::read_to_string(root().join("recipes/benches/sim-demo.toml"))
+        .expect("demo")
+        .replace(
+            "dut = { driver = \"sim-ranging\", address = \"sim:\" }",
+            &format!(
+                "dut = {{ driver = \"wren-run\", address = {} }}",
+                toml::Value::String(console)
+            ),
+        )
+        .replace("[bench]\n", "[bench]\ndrivers_dir = 'drivers'\n");
+    let t = Taucal::new()
+        .file("drivers/wren-run.toml", &driver)
+        .file("drivers/burst.sh", burst_script)
+        .file("bench.toml", &bench)
+        .file("one.toml", ONE_POINT);
+    let script = t.dir().join("drivers/burst.sh");
+    let mut mode = std::fs::metadata(&script).expect("script").permissions();
+    std::os::unix::fs::PermissionsExt::set_mode(&mut mode, 0o755);
+    std::fs::set_permissions(&script, mode).expect("chmod");
+    t.args(["run", "one.toml", "--bench", "bench.toml", "--out", "run"])
+}
+
+#[test]
+fn a_driver_command_run_as_a_program_gives_its_stdout_lines_as_replies() {
+    // Each burst's program numbers its bursts in a file, and writes its arguments back in the
+    // exchange lines: `$#` counts them, so "bw 80" arriving as one argument shows as 3 (t4).
+    let out = run_command_setup(
+        r#"#!/bin/sh
+n=$(cat bursts 2>/dev/null || echo 0); n=$((n + 1)); echo $n > bursts
+echo "range ack"
+i=0
+while [ $i -lt $1 ]; do
+  echo "xr $i t1=$((n * 1000 + i)) t2=$2 t3=${3#bw } t4=$# g=1 rssi=-40.5 rg=0 st=ok"
+  i=$((i + 1))
+done
+echo "range done n=$1"
+"#,
+    )
+    .run();
+    out.expect_code(0);
+    assert!(out.read("run/manifest.toml").contains("W6-RUN-0001"));
+    assert!(
+        out.read("run/exchanges.csv").contains(",31.5,"),
+        "temperature"
+    );
+    let exchanges = out.read("run/exchanges.csv");
+    let mut lines = exchanges.lines();
+    let header: Vec<&str> = lines.next().expect("header").split(',').collect();
+    let col = |name: &str| header.iter().position(|h| *h == name).expect(name);
+    let stamps: Vec<String> = lines
+        .map(|l| {
+            let cells: Vec<&str> = l.split(',').collect();
+            ["t1_ps", "t2_ps", "t3_ps", "t4_ps"]
+                .map(|c| cells[col(c)])
+                .join(" ")
+        })
+        .collect();
+    let want: Vec<String> = (1..=2)
+        .flat_map(|burst| (0..4).map(move |i| format!("{} 5180 80 3", burst * 1000 + i)))
+        .collect();
+    assert_eq!(stamps, want);
+}
+
+#[test]
+fn a_driver_command_whose_program_fails_stops_the_run_with_its_stderr() {
+    let out = run_command_setup(
+        "#!/bin/sh\necho 'range ack'\necho 'radio: calibration lock held by pid 77' >&2\nexit 5\n",
+    )
+    .run();
+    out.expect_code(3);
+    assert!(out.stderr.contains("exit status: 5"), "{}", out.stderr);
+    assert!(
+        out.stderr
+            .contains("radio: calibration lock held by pid 77"),
+        "{}",
+        out.stderr
+    );
+    assert!(out
+        .read("run/manifest.toml")
+        .contains("status = \"failed\""));
+}
