@@ -134,10 +134,28 @@ fn end(child: &mut Child, label: &str) {
     }
 }
 
+/// Kills whatever the program left running in its process group (a shell's background job, a
+/// pipeline's other half): ending the program alone would leave those behind.
+fn end_group(pgid: Option<u32>, label: &str) {
+    let Some(pgid) = pgid.and_then(|p| i32::try_from(p).ok()) else {
+        return;
+    };
+    use nix::sys::signal::{killpg, Signal};
+    match killpg(nix::unistd::Pid::from_raw(pgid), Signal::SIGKILL) {
+        Ok(()) => tracing::info!("{label}: processes the program left behind were killed"),
+        // Nothing left in the group: the usual case.
+        Err(nix::errno::Errno::ESRCH) => {}
+        Err(e) => tracing::warn!("{label}: the program's process group: {e}"),
+    }
+}
+
 impl Drop for ProcessStream {
     fn drop(&mut self) {
         drop(self.stdin.take());
+        // The program leads its own process group (see `spawn`), whose id is its pid.
+        let pgid = self.child.id();
         end(&mut self.child, &self.label);
+        end_group(pgid, &self.label);
     }
 }
 
@@ -230,9 +248,28 @@ mod tests {
         assert!(e.to_string().contains("not on PATH"), "{e}");
     }
 
-    /// True while `pid` names a process that has not been reaped.
+    /// True while `pid` names a running process (not gone, not a zombie awaiting its reaper).
     fn alive(pid: u32) -> bool {
-        std::path::Path::new(&format!("/proc/{pid}")).exists()
+        std::fs::read_to_string(format!("/proc/{pid}/stat"))
+            .ok()
+            .and_then(|stat| {
+                let state = stat
+                    .rsplit_once(')')?
+                    .1
+                    .split_whitespace()
+                    .next()?
+                    .to_string();
+                Some(state != "Z" && state != "X")
+            })
+            .unwrap_or(false)
+    }
+
+    /// True once `pid` has stopped running, waiting up to a second for the signal to land.
+    fn ends(pid: u32) -> bool {
+        (0..100).any(|_| {
+            std::thread::sleep(Duration::from_millis(10));
+            !alive(pid)
+        })
     }
 
     #[tokio::test]
@@ -254,7 +291,7 @@ mod tests {
         drop(stream);
         let took = started.elapsed();
         assert!(took >= END_GRACE, "killed before the grace: {took:?}");
-        assert!(!alive(pid), "the program outlived its stream");
+        assert!(ends(pid), "the program outlived its stream");
     }
 
     #[tokio::test]
@@ -273,6 +310,25 @@ mod tests {
         let started = Instant::now();
         drop(stream);
         assert!(started.elapsed() < END_GRACE, "waited the whole grace");
-        assert!(!alive(pid));
+        assert!(ends(pid));
+    }
+
+    #[tokio::test]
+    async fn what_the_program_left_running_is_ended_with_it() {
+        // A shell's background job outlives the shell unless its process group is ended.
+        let words: Vec<String> = ["/bin/sh", "-c", "sleep 300 & echo $!; exec cat >/dev/null"]
+            .map(String::from)
+            .to_vec();
+        let mut stream = spawn(&words, "exec:test").expect("starts");
+        let mut framer = crate::instrument::line::LineFramer::new();
+        let job: u32 =
+            crate::instrument::line::read_line(&mut stream, &mut framer, Duration::from_secs(5))
+                .await
+                .expect("pid line")
+                .parse()
+                .expect("a pid");
+        assert!(alive(job));
+        drop(stream);
+        assert!(ends(job), "the background job outlived the program");
     }
 }
