@@ -322,3 +322,27 @@ fn a_driver_command_whose_program_fails_stops_the_run_with_its_stderr() {
         .read("run/manifest.toml")
         .contains("status = \"failed\""));
 }
+
+#[test]
+fn a_program_that_floods_its_output_is_an_error_not_a_stuck_run() {
+    // Endless lines: none is the identity's reply, and getting back in step gives up after a
+    // burst's worth of lines. One endless line: refused at the line-length bound. Either way
+    // the program is ended and the run stops with the reason, nothing recorded twice.
+    for (program, want) in [
+        ("yes 'flood line'", "was answered `flood line`"),
+        (
+            "tr '\\000' x < /dev/zero",
+            "a line longer than 65536 bytes arrived",
+        ),
+    ] {
+        let dut = crate::support::exec_address(&["/bin/sh", "-c", program]);
+        let out = run_through(&bench_with("sim:", &dut));
+        out.expect_code(3);
+        assert!(out.stderr.contains(want), "{program}: {}", out.stderr);
+        assert!(
+            out.read("run/manifest.toml")
+                .contains("status = \"failed\""),
+            "{program}"
+        );
+    }
+}
