@@ -346,3 +346,48 @@ fn a_program_that_floods_its_output_is_an_error_not_a_stuck_run() {
         );
     }
 }
+
+#[test]
+fn a_program_flooding_its_stderr_is_logged_within_bounds_and_leaves_nothing_behind() {
+    // Beside the server, a background job writes 3000 stderr lines and then lingers; its pid
+    // goes to a file. The log takes the first 1000 lines and says the rest was dropped; the
+    // run is unaffected; and when the run ends, the lingering job is ended with the program.
+    let port = free_port();
+    let work = tempfile::tempdir().expect("temporary directory");
+    let pid_file = work.path().join("job.pid").display().to_string();
+    let server = format!(
+        "(i=0; while [ $i -lt 3000 ]; do echo \"noise $i\"; i=$((i + 1)); done; exec sleep 300) >&2 & \
+         echo $! > {pid_file}; exec {} sim serve --stdio attenuator --listen dut=tcp:127.0.0.1:{port} \
+         --bench {} --seed 1",
+        taucal(),
+        repo("recipes/benches/sim-demo.toml")
+    );
+    let attenuator = crate::support::exec_address(&["/bin/sh", "-c", &server]);
+    let out = run_through(&bench_with(&attenuator, &format!("tcp:127.0.0.1:{port}")));
+    out.expect_code(0);
+    let log = out.read("run/run.log");
+    assert!(log.contains("stderr: noise 0\n"), "{log}");
+    assert!(
+        log.contains("more than 1000 stderr lines; the rest is not logged"),
+        "{log}"
+    );
+    assert!(
+        !log.contains("stderr: noise 2999"),
+        "the flood was logged whole"
+    );
+    let job: u32 = std::fs::read_to_string(&pid_file)
+        .expect("pid file")
+        .trim()
+        .parse()
+        .expect("pid");
+    let stat = format!("/proc/{job}/stat");
+    let running = |s: &str| {
+        s.rsplit_once(')')
+            .and_then(|(_, rest)| rest.split_whitespace().next())
+            .is_some_and(|state| state != "Z" && state != "X")
+    };
+    assert!(
+        !std::fs::read_to_string(&stat).is_ok_and(|s| running(&s)),
+        "the program's background job {job} outlived the run"
+    );
+}
