@@ -175,6 +175,8 @@ enum Kind {
     SimBench,
     /// Roles on real instruments.
     RealRoles,
+    /// Roles reached through a program (`exec:`).
+    ExecRoles,
     /// A real bench's `[timing]`.
     Timing,
     /// The annotated driver file.
@@ -254,6 +256,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "toml" if text.starts_with("[recipe]") => Kind::Recipe,
         "toml" if text.starts_with("[bench]\nname") => Kind::SimBench,
         "toml" if text.starts_with("[bench]\ndrivers_dir") => Kind::RealRoles,
+        "toml" if text.starts_with("[roles]") && text.contains("exec:") => Kind::ExecRoles,
         "toml" if text.starts_with("[timing]") => Kind::Timing,
         "toml" if text.starts_with("[driver]") => Kind::Driver,
         "toml" if text.starts_with("[faults]") => Kind::Faults,
@@ -437,6 +440,60 @@ fn readme_served_run_records_the_in_process_exchanges() {
     assert!(
         without_bench_time(&out.read("run/exchanges.csv")) == in_process_exchanges(),
         "served and in-process exchanges differ"
+    );
+}
+
+#[test]
+fn readme_exec_roles_record_the_in_process_exchanges() {
+    // The block's roles in the demo bench, with the binary under test for `taucal`, a free
+    // port for 5026 (it may be taken on a shared machine) and the repository's bench path.
+    let roles: toml::Table = toml::from_str(&the_block(Kind::ExecRoles).text).expect("roles");
+    let port = std::net::TcpListener::bind("127.0.0.1:0")
+        .and_then(|l| l.local_addr())
+        .expect("a free port")
+        .port();
+    let text = toml::to_string(&roles)
+        .expect("toml")
+        .replace(
+            "exec:taucal ",
+            &format!("exec:{} ", env!("CARGO_BIN_EXE_taucal")),
+        )
+        .replace(":5026", &format!(":{port}"))
+        .replace(
+            " recipes/benches/sim-demo.toml",
+            &format!(" {}", repo("recipes/benches/sim-demo.toml")),
+        );
+    let roles: toml::Table = toml::from_str(&text).expect("roles");
+    let mut bench: toml::Table = toml::from_str(
+        &std::fs::read_to_string(root().join("recipes/benches/sim-demo.toml")).expect("demo"),
+    )
+    .expect("demo bench");
+    bench.insert("roles".into(), roles["roles"].clone());
+    if let Some(toml::Value::Table(b)) = bench.get_mut("bench") {
+        b.insert("drivers_dir".into(), repo("drivers").into());
+    }
+    let out = Taucal::new()
+        .file("exec.toml", &toml::to_string(&bench).expect("toml"))
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "exec.toml",
+            "--out",
+            "run",
+        ])
+        .run();
+    out.expect_code(0);
+    let log = out.read("run/run.log");
+    // What the program says on stderr is in the run log, and it was ended with the run.
+    assert!(
+        log.contains(&format!("stderr: dut tcp:127.0.0.1:{port}")),
+        "{log}"
+    );
+    assert!(log.contains("the program ended (exit status: 0)"), "{log}");
+    assert!(
+        without_bench_time(&out.read("run/exchanges.csv")) == in_process_exchanges(),
+        "exchanges through the exec'd server differ from the in-process run"
     );
 }
 

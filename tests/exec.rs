@@ -1,9 +1,9 @@
 //! Programs as instruments (`exec:` addresses and `run = [...]` driver commands), with the taucal
 //! binary's own stdio server as the real separate program, and small shell scripts as the
-//! misbehaving ones.
+//! misbehaving ones. The served-versus-in-process identity through `exec:` is the README's
+//! example (`examples::readme_exec_roles_record_the_in_process_exchanges`).
 
-use crate::instruments::in_process_exchanges;
-use crate::support::{repo, root, without_bench_time, Taucal};
+use crate::support::{repo, root, Taucal};
 
 /// The taucal binary under test, as an `exec:` command line writes it.
 fn taucal() -> String {
@@ -44,47 +44,6 @@ fn bench_with(attenuator: &str, dut: &str) -> String {
         "[bench]\n",
         &format!("[bench]\ndrivers_dir = '{drivers}'\n"),
     )
-}
-
-#[test]
-fn a_bench_served_by_a_program_on_its_stdin_and_stdout_records_the_in_process_exchanges() {
-    // The served model must be one for both instruments (the DUT's receive level follows the
-    // attenuator), so one server process carries both: the attenuator on its stdin/stdout,
-    // which the run starts as `exec:`, and the DUT's console on a loopback port beside it. The
-    // attenuator is identified first, so the program is up before the console is dialled.
-    let port = free_port();
-    let attenuator = format!(
-        "exec:{} sim serve --stdio attenuator --listen dut=tcp:127.0.0.1:{port} --bench {} --seed 1",
-        taucal(),
-        repo("recipes/benches/sim-demo.toml")
-    );
-    let bench = bench_with(&attenuator, &format!("tcp:127.0.0.1:{port}"));
-    let out = Taucal::new()
-        .file("exec.toml", &bench)
-        .args([
-            "run",
-            &repo("recipes/rx-gain-sweep.toml"),
-            "--bench",
-            "exec.toml",
-            "--out",
-            "run",
-        ])
-        .run();
-    out.expect_code(0);
-    let manifest = out.read("run/manifest.toml");
-    assert!(manifest.contains("SIM-STEP-ATTENUATOR"), "{manifest}");
-    let log = out.read("run/run.log");
-    assert!(
-        log.contains("stderr: dut tcp:127.0.0.1:"),
-        "the program's stderr is not in the run log:\n{log}"
-    );
-    assert!(log.contains("the program ended"), "{log}");
-    let exchanges = out.read("run/exchanges.csv");
-    assert!(exchanges.lines().count() > 1000);
-    assert!(
-        without_bench_time(&exchanges) == in_process_exchanges(),
-        "exchanges through the exec'd server differ from the in-process run"
-    );
 }
 
 /// Runs the demo recipe through `bench` (text) and returns the outcome.
