@@ -350,3 +350,52 @@ fn a_program_flooding_its_stderr_is_logged_within_bounds_and_leaves_nothing_behi
         "the program's background job {job} outlived the run"
     );
 }
+
+#[test]
+fn sim_serve_stdio_answers_on_stdout_ends_with_stdin_and_refuses_bad_roles() {
+    use std::io::Write;
+    use std::process::{Command, Stdio};
+    let mut child = Command::new(taucal())
+        .args(["sim", "serve", "--stdio", "dut", "--seed", "1"])
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("start");
+    child
+        .stdin
+        .take()
+        .expect("stdin")
+        .write_all(b"who\nrange go n=3 ch=5180 bw=80\n")
+        .expect("write");
+    // Stdin is closed here (dropped): the server answers what it read and exits.
+    let out = child.wait_with_output().expect("exit");
+    assert!(out.status.success(), "{out:?}");
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    let lines: Vec<&str> = stdout.lines().collect();
+    assert!(
+        lines
+            .iter()
+            .any(|l| l.starts_with("id Saltmarsh Radio Lab,Wren-6")),
+        "{stdout}"
+    );
+    assert_eq!(
+        lines.iter().filter(|l| l.starts_with("xr ")).count(),
+        3,
+        "{stdout}"
+    );
+    assert_eq!(lines.last(), Some(&"range done n=3"), "{stdout}");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(stderr.contains("on stdin/stdout"), "{stderr}");
+    for (args, want) in [
+        (vec!["--stdio", "reference"], "not a role sim serve offers"),
+        (
+            vec!["--stdio", "dut", "--listen", "dut=tcp:127.0.0.1:0"],
+            "already served",
+        ),
+    ] {
+        let out = Taucal::new().args(["sim", "serve"]).args(args).run();
+        out.expect_code(2);
+        assert!(out.stderr.contains(want), "{}", out.stderr);
+    }
+}

@@ -54,13 +54,11 @@ fn listeners(args: &SimServeArgs) -> Result<Vec<Listen>, Diagnostic> {
 fn stdio_role(args: &SimServeArgs) -> Result<Option<ServedRole>, Diagnostic> {
     args.stdio
         .as_deref()
-        .map(|role| match role {
-            "attenuator" => Ok(ServedRole::Attenuator),
-            "dut" => Ok(ServedRole::Dut),
-            other => Err(Diagnostic::plain(format!(
-                "--stdio {other}: not a role sim serve offers"
-            ))
-            .with_hint("--stdio attenuator or --stdio dut")),
+        .map(|role| {
+            ServedRole::from_name(role).map_err(|m| {
+                Diagnostic::plain(format!("--stdio {role}: {m}"))
+                    .with_hint("e.g. --stdio dut, or --stdio attenuator")
+            })
         })
         .transpose()
 }
@@ -77,6 +75,11 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
         .unwrap_or(1);
     let served = ServedBench::new(&bench, seed, args.realtime)?;
     if let Some(role) = stdio {
+        eprintln!(
+            "taucal: serving the simulated {} of `{}` on stdin/stdout (seed {seed}); it ends with stdin",
+            role.name(),
+            bench.name
+        );
         return serve_stdio(&served, role, &listen);
     }
     // SIGINT and SIGTERM are blocked before the runtime's threads exist (they inherit the mask)

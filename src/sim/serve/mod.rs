@@ -50,6 +50,18 @@ pub enum ServedRole {
 }
 
 impl ServedRole {
+    /// The role named `name` in bench files, if sim serve offers it.
+    pub fn from_name(name: &str) -> Result<ServedRole, String> {
+        match name {
+            "attenuator" => Ok(ServedRole::Attenuator),
+            "dut" => Ok(ServedRole::Dut),
+            "chamber" => Ok(ServedRole::Chamber),
+            other => Err(format!(
+                "`{other}` is not a role sim serve offers (attenuator, dut, chamber)"
+            )),
+        }
+    }
+
     /// The role's name in bench files.
     pub fn name(self) -> &'static str {
         match self {
@@ -84,16 +96,7 @@ impl Listen {
         let (role, at) = text
             .split_once('=')
             .ok_or_else(|| format!("`{text}` is not ROLE=WHERE"))?;
-        let role = match role {
-            "attenuator" => ServedRole::Attenuator,
-            "dut" => ServedRole::Dut,
-            "chamber" => ServedRole::Chamber,
-            other => {
-                return Err(format!(
-                    "`{other}` is not a role sim serve offers (attenuator, dut, chamber)"
-                ))
-            }
-        };
+        let role = ServedRole::from_name(role)?;
         let at = match at {
             "pty" if role == ServedRole::Dut => ListenAt::Pty,
             "pty" => return Err("only the dut's console can be served on a pty".into()),
