@@ -6,6 +6,9 @@
 //! complete form while saying `ok` is garbled. Holding the device to one form and one applied K
 //! for the whole run is the runner's (`runner::report_watch`), which sees every device, not only
 //! consoles. Line classification is pure; the async part only moves lines.
+//!
+//! A command the driver gives as a program (`{ run = [...] }`) is run instead of sent, and its
+//! stdout lines are read exactly as the link's would be, so both forms share every rule above.
 
 use super::command::{Command, Filled};
 use super::driver_file::ConsoleDriver;

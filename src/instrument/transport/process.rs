@@ -12,7 +12,7 @@ use std::pin::Pin;
 use std::process::Stdio;
 use std::task::{Context, Poll};
 use std::time::{Duration, Instant};
-use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, ReadBuf};
+use tokio::io::{AsyncRead, AsyncWrite, ReadBuf};
 use tokio::process::{Child, ChildStdin, ChildStdout, Command};
 
 /// How long a program has to end by itself once its stdin is closed, before it is killed.
@@ -56,7 +56,13 @@ pub fn spawn(words: &[String], label: &str) -> io::Result<ProcessStream> {
     else {
         return Err(io::Error::other("the program's pipes were not opened"));
     };
-    tokio::spawn(log_stderr(stderr, label.to_string()));
+    // Drained on a thread of its own: the instrument's runtime only runs while a command is
+    // under way, and a program that fills its stderr pipe between commands would block.
+    let stderr = stderr.into_owned_fd()?;
+    let log_label = label.to_string();
+    std::thread::Builder::new()
+        .name("exec-stderr".into())
+        .spawn(move || log_stderr(std::fs::File::from(stderr), &log_label))?;
     tracing::debug!("{label}: started (pid {:?})", child.id());
     Ok(ProcessStream {
         label: label.to_string(),
@@ -77,13 +83,15 @@ fn start_error(program: &str, e: io::Error) -> io::Error {
     io::Error::new(e.kind(), format!("cannot start program `{program}`: {why}"))
 }
 
-/// Logs the program's stderr a line at a time, bounded in line length and count.
-async fn log_stderr(mut stderr: tokio::process::ChildStderr, label: String) {
+/// Logs the program's stderr a line at a time, bounded in line length and count, until every
+/// writer has closed it.
+fn log_stderr(mut stderr: std::fs::File, label: &str) {
+    use std::io::Read;
     let mut lines = BoundedLines::new(STDERR_LINE_CHARS);
     let mut logged = 0usize;
     let mut buf = [0u8; 4096];
     loop {
-        let n = match stderr.read(&mut buf).await {
+        let n = match stderr.read(&mut buf) {
             Ok(0) | Err(_) => break,
             Ok(n) => n,
         };
@@ -330,5 +338,25 @@ mod tests {
         assert!(alive(job));
         drop(stream);
         assert!(ends(job), "the background job outlived the program");
+    }
+
+    #[tokio::test]
+    async fn stderr_is_drained_between_commands() {
+        // 200 kB of stderr, more than a pipe holds, while the runtime is not running (as
+        // between two commands): the program must get past it on its own.
+        let dir = tempfile::tempdir().expect("temporary directory");
+        let done = dir.path().join("done");
+        let script = format!(
+            "head -c 200000 /dev/zero | tr '\\000' e >&2; touch {}; cat >/dev/null",
+            done.display()
+        );
+        let words: Vec<String> = vec!["/bin/sh".into(), "-c".into(), script];
+        let stream = spawn(&words, "exec:test").expect("starts");
+        let waited = (0..200).any(|_| {
+            std::thread::sleep(Duration::from_millis(10));
+            done.exists()
+        });
+        drop(stream);
+        assert!(waited, "the program stayed blocked on its stderr");
     }
 }
