@@ -144,7 +144,7 @@ fn end(child: &mut Child, label: &str) {
 
 /// Kills whatever the program left running in its process group (a shell's background job, a
 /// pipeline's other half): ending the program alone would leave those behind.
-fn end_group(pgid: Option<u32>, label: &str) {
+pub(super) fn end_group(pgid: Option<u32>, label: &str) {
     let Some(pgid) = pgid.and_then(|p| i32::try_from(p).ok()) else {
         return;
     };

@@ -5,6 +5,7 @@
 //! unbounded memory. The program is killed if it outlives any of these.
 
 use super::output::Tail;
+use super::process::end_group;
 use crate::instrument::line::{LineError, LineFramer, MAX_LINE_BYTES};
 use std::process::Stdio;
 use std::time::Duration;
@@ -61,8 +62,20 @@ fn tail_text(tail: &str) -> String {
 }
 
 /// Runs `words` (program first) with no stdin and returns its stdout lines, waiting at most
-/// `timeout` for each piece of output and for its exit after its output ends.
+/// `timeout` for each piece of output and for its exit after its output ends. Whatever it
+/// leaves running in its process group is ended with it.
 pub async fn run(words: &[String], timeout: Duration) -> Result<Vec<String>, RunError> {
+    let mut pgid = None;
+    let outcome = run_program(words, timeout, &mut pgid).await;
+    end_group(pgid, words.first().map_or("", String::as_str));
+    outcome
+}
+
+async fn run_program(
+    words: &[String],
+    timeout: Duration,
+    pgid: &mut Option<u32>,
+) -> Result<Vec<String>, RunError> {
     let Some((program, args)) = words.split_first() else {
         return Err(RunError::Start("the command names no program".into()));
     };
@@ -88,6 +101,8 @@ pub async fn run(words: &[String], timeout: Duration) -> Result<Vec<String>, Run
                 _ => format!("cannot start program `{program}`: {e}"),
             })
         })?;
+    // It leads its own process group, whose id is its pid.
+    *pgid = child.id();
     let (Some(mut stdout), Some(mut stderr)) = (child.stdout.take(), child.stderr.take()) else {
         return Err(RunError::Start(format!(
             "`{program}`: its pipes were not opened"
@@ -209,6 +224,29 @@ mod tests {
         let text = e.to_string();
         assert!(text.contains("exit status: 3"), "{text}");
         assert!(text.ends_with("warming up\nradio not ready"), "{text}");
+    }
+
+    #[tokio::test]
+    async fn a_background_job_the_program_leaves_is_ended() {
+        // A job that keeps stdout open looks like a program still writing: the command times
+        // out (and the job is ended with it). One that lets go of stdout is ended all the same.
+        let lines = run(&sh("sleep 300 & echo $!"), Duration::from_secs(2)).await;
+        let Err(RunError::Timeout { .. }) = lines else {
+            panic!("the job held stdout open: {lines:?}");
+        };
+        let job = run(
+            &sh("sleep 300 >/dev/null 2>&1 & echo $!"),
+            Duration::from_secs(5),
+        )
+        .await
+        .expect("runs");
+        let pid = job[0].trim().to_string();
+        let gone = (0..100).any(|_| {
+            std::thread::sleep(Duration::from_millis(10));
+            std::fs::read_to_string(format!("/proc/{pid}/stat"))
+                .map_or(true, |s| s.contains(") Z "))
+        });
+        assert!(gone, "the background job {pid} outlived its program");
     }
 
     #[tokio::test]
