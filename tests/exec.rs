@@ -399,3 +399,72 @@ fn sim_serve_stdio_answers_on_stdout_ends_with_stdin_and_refuses_bad_roles() {
         assert!(out.stderr.contains(want), "{}", out.stderr);
     }
 }
+
+#[test]
+fn sigint_puts_the_bench_safe_through_the_program_then_ends_it() {
+    // The server writes its pid, then becomes taucal's stdio server. Ctrl-C goes to taucal
+    // alone (the program has a process group of its own): the run stops, the attenuator's
+    // safe setting travels through the program, and the program is ended with the run.
+    use nix::sys::signal::{killpg, Signal};
+    use nix::unistd::Pid;
+    use std::os::unix::process::CommandExt;
+    let port = free_port();
+    let dir = tempfile::tempdir().expect("temporary directory");
+    let pid_file = dir.path().join("server.pid").display().to_string();
+    let server = format!(
+        "echo $$ > {pid_file}; exec {} sim serve --stdio attenuator --listen dut=tcp:127.0.0.1:{port} \
+         --bench {} --seed 1",
+        taucal(),
+        repo("recipes/benches/sim-demo.toml")
+    );
+    let attenuator = crate::support::exec_address(&["/bin/sh", "-c", &server]);
+    std::fs::write(
+        dir.path().join("exec.toml"),
+        bench_with(&attenuator, &format!("tcp:127.0.0.1:{port}")),
+    )
+    .expect("bench");
+    let mut run = std::process::Command::new(taucal())
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "exec.toml",
+        ])
+        .args(["--out", "run", "--quiet"])
+        .current_dir(dir.path())
+        // Its own process group, as a shell gives a foreground job, so Ctrl-C can be sent as
+        // a terminal sends it: to the whole group.
+        .process_group(0)
+        .spawn()
+        .expect("start the run");
+    // Once the run is measuring, interrupt it.
+    let log = dir.path().join("run/run.log");
+    let measuring = (0..600).any(|_| {
+        std::thread::sleep(std::time::Duration::from_millis(50));
+        std::fs::read_to_string(&log).is_ok_and(|l| l.contains("stage `map` begins"))
+    });
+    assert!(measuring, "the run did not start measuring");
+    std::thread::sleep(std::time::Duration::from_millis(500));
+    killpg(Pid::from_raw(run.id() as i32), Signal::SIGINT).expect("SIGINT");
+    let status = run.wait().expect("the run ends");
+    assert_eq!(status.code(), Some(3));
+    let log = std::fs::read_to_string(&log).expect("log");
+    assert!(
+        log.contains("safe state: attenuator at 95 dB, ranging stopped"),
+        "{log}"
+    );
+    // Ended once, by its stdin closing: the Ctrl-C did not reach it.
+    assert_eq!(log.matches("the program ended").count(), 1, "{log}");
+    assert!(log.contains("the program ended (exit status: 0)"), "{log}");
+    let pid: u32 = std::fs::read_to_string(&pid_file)
+        .expect("pid file")
+        .trim()
+        .parse()
+        .expect("pid");
+    let running = std::fs::read_to_string(format!("/proc/{pid}/stat")).is_ok_and(|s| {
+        s.rsplit_once(')')
+            .and_then(|(_, rest)| rest.split_whitespace().next())
+            .is_some_and(|state| state != "Z" && state != "X")
+    });
+    assert!(!running, "the server {pid} outlived the run");
+}
