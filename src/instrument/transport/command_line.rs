@@ -137,6 +137,27 @@ mod tests {
         }
     }
 
+    proptest::proptest! {
+        #[test]
+        fn any_words_survive_a_join_and_a_split(
+            words in proptest::collection::vec("\\PC*", 1..6),
+            program in "\\PC+",
+        ) {
+            // Any text (unicode, quotes, blanks, backslashes) as arguments, empty ones too, and
+            // as the program's name, which may not be empty.
+            let mut line = vec![program];
+            line.extend(words);
+            proptest::prop_assert_eq!(split(&join(&line)), Ok(line));
+        }
+
+        #[test]
+        fn any_text_splits_or_is_refused_without_panicking(text in "\\PC*") {
+            if let Ok(words) = split(&text) {
+                proptest::prop_assert!(!words[0].is_empty());
+            }
+        }
+    }
+
     #[test]
     fn joined_words_split_back_to_themselves() {
         for line in [
