@@ -10,7 +10,7 @@
 //! A command the driver gives as a program (`{ run = [...] }`) is run instead of sent, and its
 //! stdout lines are read exactly as the link's would be, so both forms share every rule above.
 
-use super::command::{Command, Filled};
+use super::command::Filled;
 use super::driver_file::ConsoleDriver;
 use super::template::Value;
 use super::transport::run_once::{self, RunError};
@@ -487,7 +487,7 @@ impl RangingDevice for DrivenConsole {
     }
 
     async fn safe_state(&mut self) -> Result<(), InstrumentError> {
-        let command = Command::Line(self.driver.safe_command.clone()).fill(&BTreeMap::new());
+        let command = Filled::Line(self.driver.safe_command.text());
         let outcome = match self.driver.safe_reply.clone() {
             Some(reply) => self.query(&command, &reply).await.map(drop),
             None => self.send(&command).await,

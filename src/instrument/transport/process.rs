@@ -1,7 +1,8 @@
 //! Local programs as instruments (`exec:PROGRAM ARG…`): the program's stdin and stdout are the
 //! line link, its stderr goes to the run log line by line, and it is ended when its stream is
 //! dropped — stdin closed first so a well-behaved program finishes on its own, then killed after
-//! a short grace — so a reconnect restarts it and no run leaves a program behind.
+//! a short grace, with whatever it left running in its process group — so a reconnect restarts
+//! it and no run leaves a program behind.
 //!
 //! No shell is involved: the words come from [`super::command_line::split`] and go to the
 //! operating system as they are.
@@ -44,7 +45,7 @@ pub fn spawn(words: &[String], label: &str) -> io::Result<ProcessStream> {
         .stdin(Stdio::piped())
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
-        // The last resort when the stream is leaked rather than dropped.
+        // A program whose stream is never built (an error below) is killed as it is dropped.
         .kill_on_drop(true)
         // Its own process group: a Ctrl-C at the terminal reaches taucal alone, which then
         // puts the bench in its safe state through this very program before ending it.
