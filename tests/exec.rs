@@ -387,11 +387,35 @@ fn sim_serve_stdio_answers_on_stdout_ends_with_stdin_and_refuses_bad_roles() {
     assert_eq!(lines.last(), Some(&"range done n=3"), "{stdout}");
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(stderr.contains("on stdin/stdout"), "{stderr}");
+    // A chamber too, where the bench simulates one, speaking its shipped driver's lines.
+    let mut chamber = Command::new(taucal())
+        .args(["sim", "serve", "--stdio", "chamber", "--bench"])
+        .arg(repo("recipes/benches/overnight-soak.toml"))
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("start");
+    chamber
+        .stdin
+        .take()
+        .expect("stdin")
+        .write_all(b"whoami\nread air\n")
+        .expect("write");
+    let out = chamber.wait_with_output().expect("exit");
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    let lines: Vec<&str> = stdout.lines().collect();
+    assert!(lines[0].starts_with("TILLOWBY "), "{stdout}");
+    assert!(lines[1].starts_with("air "), "{stdout}");
     for (args, want) in [
         (vec!["--stdio", "reference"], "not a role sim serve offers"),
         (
             vec!["--stdio", "dut", "--listen", "dut=tcp:127.0.0.1:0"],
             "already served",
+        ),
+        (
+            vec!["--stdio", "chamber"],
+            "the bench has no [sim.chamber] to serve",
         ),
     ] {
         let out = Taucal::new().args(["sim", "serve"]).args(args).run();
