@@ -19,6 +19,9 @@ const BUSY_TIMEOUT: Duration = Duration::from_secs(30);
 
 impl SqliteStore {
     /// Opens the file at `path` (creating it and its folder), then creates or checks the schema.
+    /// Several processes opening a new file at once contend for the switch to WAL and the
+    /// schema's creation, where SQLite does not always wait on its own: a busy or locked
+    /// database is retried until the busy timeout.
     pub fn open(path: &Path) -> Result<SqliteStore, StoreError> {
         let url = format!("sqlite:{}", path.display());
         let connect = |message: String| StoreError::Connect {
@@ -28,18 +31,29 @@ impl SqliteStore {
         if let Some(parent) = path.parent().filter(|p| !p.as_os_str().is_empty()) {
             std::fs::create_dir_all(parent).map_err(|e| connect(e.to_string()))?;
         }
-        let conn = Connection::open(path).map_err(|e| connect(e.to_string()))?;
-        conn.busy_timeout(BUSY_TIMEOUT)
-            .map_err(|e| connect(e.to_string()))?;
-        // WAL lets readers and one writer work at once; NORMAL sync is durable across a
-        // process crash, and the run directory is the record of truth across a power loss.
-        conn.pragma_update(None, "journal_mode", "WAL")
-            .and_then(|_| conn.pragma_update(None, "synchronous", "NORMAL"))
-            .and_then(|_| conn.pragma_update(None, "foreign_keys", "ON"))
-            .map_err(|e| connect(format!("not a SQLite database, or not writable: {e}")))?;
-        let mut store = SqliteStore { conn, url };
-        store.migrate()?;
-        Ok(store)
+        let started = std::time::Instant::now();
+        loop {
+            match open_once(path) {
+                Ok((conn, found)) => {
+                    if let Some(v) = found.filter(|v| *v > SCHEMA_VERSION) {
+                        return Err(StoreError::NewerSchema {
+                            url,
+                            found: v,
+                            known: SCHEMA_VERSION,
+                        });
+                    }
+                    return Ok(SqliteStore { conn, url });
+                }
+                Err(e) if is_busy(&e) && started.elapsed() < BUSY_TIMEOUT => {
+                    std::thread::sleep(Duration::from_millis(25));
+                }
+                Err(e) => {
+                    return Err(connect(format!(
+                        "not a SQLite database taucal can use, or not writable: {e}"
+                    )))
+                }
+            }
+        }
     }
 
     fn query_err(&self, e: rusqlite::Error) -> StoreError {
@@ -47,42 +61,6 @@ impl SqliteStore {
             url: self.url.clone(),
             message: e.to_string(),
         }
-    }
-
-    fn migrate(&mut self) -> Result<(), StoreError> {
-        let url = self.url.clone();
-        let q = |e: rusqlite::Error| StoreError::Query {
-            url: url.clone(),
-            message: e.to_string(),
-        };
-        let tx = self
-            .conn
-            .transaction_with_behavior(TransactionBehavior::Immediate)
-            .map_err(q)?;
-        for stmt in create_v1(Dialect::Sqlite) {
-            tx.execute(&stmt, []).map_err(q)?;
-        }
-        let found: Option<i64> = tx
-            .query_row("SELECT MAX(version) FROM taucal_schema", [], |r| r.get(0))
-            .map_err(q)?;
-        match found {
-            None => {
-                tx.execute(
-                    "INSERT INTO taucal_schema (version) VALUES (?1)",
-                    [SCHEMA_VERSION],
-                )
-                .map_err(q)?;
-            }
-            Some(v) if v > SCHEMA_VERSION => {
-                return Err(StoreError::NewerSchema {
-                    url: url.clone(),
-                    found: v,
-                    known: SCHEMA_VERSION,
-                })
-            }
-            Some(_) => {}
-        }
-        tx.commit().map_err(q)
     }
 
     fn run_row(&self, run_id: &str) -> Result<Option<(RunRow, String)>, StoreError> {
@@ -122,6 +100,40 @@ impl SqliteStore {
             .optional()
             .map_err(|e| self.query_err(e))
     }
+}
+
+/// Whether `e` is another connection holding the lock.
+fn is_busy(e: &rusqlite::Error) -> bool {
+    matches!(
+        e.sqlite_error_code(),
+        Some(rusqlite::ErrorCode::DatabaseBusy | rusqlite::ErrorCode::DatabaseLocked)
+    )
+}
+
+/// One attempt: the connection, WAL, and the schema created where absent; returns the schema
+/// version found (a newer one is left untouched for the caller to refuse).
+fn open_once(path: &Path) -> Result<(Connection, Option<i64>), rusqlite::Error> {
+    let mut conn = Connection::open(path)?;
+    conn.busy_timeout(BUSY_TIMEOUT)?;
+    // WAL lets readers and one writer work at once; NORMAL sync is durable across a process
+    // crash, and the run directory is the record of truth across a power loss.
+    conn.pragma_update(None, "journal_mode", "WAL")?;
+    conn.pragma_update(None, "synchronous", "NORMAL")?;
+    conn.pragma_update(None, "foreign_keys", "ON")?;
+    let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+    for stmt in create_v1(Dialect::Sqlite) {
+        tx.execute(&stmt, [])?;
+    }
+    let found: Option<i64> =
+        tx.query_row("SELECT MAX(version) FROM taucal_schema", [], |r| r.get(0))?;
+    if found.is_none() {
+        tx.execute(
+            "INSERT INTO taucal_schema (version) VALUES (?1)",
+            [SCHEMA_VERSION],
+        )?;
+    }
+    tx.commit()?;
+    Ok((conn, found))
 }
 
 impl Store for SqliteStore {
