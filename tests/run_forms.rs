@@ -238,6 +238,10 @@ fn a_range_device_whose_k_nobody_states_is_refused_before_it_runs_and_runs_once_
         &out.read("run/caltable.csv"),
         "served Vellisk-5, K from the bench",
     );
+    // The unit is the serial its identity reply names (the driver's `serial` capture): a
+    // served bench is not simulated as far as the runner knows.
+    let manifest: toml::Table = toml::from_str(&out.read("run/manifest.toml")).expect("toml");
+    assert_eq!(manifest["unit_serial"].as_str(), Some("FW-V5-88341"));
     // The refit finds the K where the run did: in the bench its manifest names.
     let table = out.read("run/caltable.csv");
     let out = Taucal::in_dir(out.dir)

@@ -43,6 +43,10 @@ pub trait RangingDevice: Send {
     async fn temperature_c(&mut self) -> Result<Option<f64>, InstrumentError> {
         Ok(None)
     }
+    /// The unit's serial number, where its identity names one (a driver's `serial` capture).
+    async fn serial(&mut self) -> Result<Option<String>, InstrumentError> {
+        Ok(None)
+    }
 }
 
 /// A climatic chamber around the DUT.

@@ -225,6 +225,8 @@ pub struct DrivenConsole {
     /// The stdout lines of the last command when it was a program (`run`): its replies are
     /// read from here instead of the link.
     ran: Option<VecDeque<String>>,
+    /// The serial number the identity reply named, once it has been asked for.
+    serial: Option<Option<String>>,
 }
 
 impl DrivenConsole {
@@ -236,6 +238,7 @@ impl DrivenConsole {
             link,
             answered: false,
             ran: None,
+            serial: None,
         }
     }
 
@@ -467,9 +470,21 @@ impl RangingDevice for DrivenConsole {
             Ok(line) => line,
             Err(t) => return Err(self.fail(t, false).await),
         };
-        Ok(want
-            .captures(&line)
-            .map_or(line.clone(), |c| c["id"].to_string()))
+        let caps = want.captures(&line);
+        self.serial = Some(
+            caps.as_ref()
+                .and_then(|c| c.name("serial"))
+                .map(|m| m.as_str().trim().to_string())
+                .filter(|s| !s.is_empty()),
+        );
+        Ok(caps.map_or(line.clone(), |c| c["id"].to_string()))
+    }
+
+    async fn serial(&mut self) -> Result<Option<String>, InstrumentError> {
+        if self.serial.is_none() {
+            self.identify().await?;
+        }
+        Ok(self.serial.clone().flatten())
     }
 
     async fn burst(&mut self, spec: &BurstSpec) -> Result<Vec<DeviceExchange>, InstrumentError> {

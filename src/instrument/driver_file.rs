@@ -767,7 +767,7 @@ fn console(raw: &RawDriver, dir: Option<&Path>) -> Result<ConsoleDriver, KeyErro
         "identify",
         required("reply", r, "identify", "'^id (?P<id>.+)$'")?,
         &["id"],
-        &[],
+        &["serial"],
     )?;
     let start_burst = required_command(
         c,

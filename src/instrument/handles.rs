@@ -50,6 +50,10 @@ impl RangingHandle {
     pub fn temperature_c(&self) -> Result<Option<f64>, InstrumentError> {
         self.0.call(|d| d.temperature_c())
     }
+    /// The unit's serial number, where it reports one.
+    pub fn serial(&self) -> Result<Option<String>, InstrumentError> {
+        self.0.call(|d| d.serial())
+    }
 }
 
 /// Handle on the bench's climatic chamber.

@@ -34,7 +34,14 @@ pub fn execute(
     let identified = identify(&connected.instruments, &mut prepared.manifest);
     let m = &mut prepared.manifest;
     if m.unit_serial.is_none() {
-        m.unit_serial = simulated_serial(&req, prepared.simulated, prepared.seed);
+        // The serial the DUT reports (its driver's `serial` capture), else a simulated one's.
+        m.unit_serial = connected
+            .instruments
+            .dut
+            .serial()
+            .ok()
+            .flatten()
+            .or_else(|| simulated_serial(&req, prepared.simulated, prepared.seed));
     }
     if let Err(e) = m.write(&prepared.manifest_path) {
         tracing::warn!("cannot write {}: {e}", prepared.manifest_path.display());
