@@ -42,6 +42,12 @@ pub fn execute(
             .ok()
             .flatten()
             .or_else(|| simulated_serial(&req, prepared.simulated, prepared.seed));
+        if m.unit_serial.is_none() {
+            tracing::warn!(
+                "the DUT reports no serial number (its driver's identify reply captures no \
+                 `serial`): the run is filed as an UNIDENTIFIED unit; give --unit SERIAL"
+            );
+        }
     }
     if let Err(e) = m.write(&prepared.manifest_path) {
         tracing::warn!("cannot write {}: {e}", prepared.manifest_path.display());
