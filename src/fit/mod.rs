@@ -7,6 +7,7 @@ pub mod device_rtt;
 pub mod drift;
 pub mod fitter;
 pub mod gainmap;
+pub mod infer_states;
 pub mod level_spread;
 pub mod lsq;
 pub mod model;
