@@ -45,7 +45,7 @@ fn demo_without_bench_says_simulated_and_writes_the_contract_files() {
         Some(
             "center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm,\
              next_gain_index,switch_rising_db,switch_rising_ci95_db,switch_falling_db,\
-             switch_falling_ci95_db,hysteresis_db,hysteresis_ci95_db,hysteresis_resolved"
+             switch_falling_ci95_db,hysteresis_db,hysteresis_ci95_db,hysteresis_resolved,states"
         )
     );
     assert_eq!(

@@ -1,5 +1,5 @@
 //! One row of the calibration table, the fitter's output and the model's input: a cell's K,
-//! its statistics, and whether it was measured or modelled.
+//! its statistics, and whether it was measured, measured in inferred states, or modelled.
 
 /// Where a calibration row's delay comes from.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -8,6 +8,9 @@ pub enum RowSource {
     Measured,
     /// Filled in by a model across cells.
     Modelled,
+    /// Estimated from exchanges whose gain state the device did not report: the state was
+    /// inferred from K's plateaus against receive level ([`crate::fit::infer_states`]).
+    Inferred,
 }
 
 impl RowSource {
@@ -16,14 +19,21 @@ impl RowSource {
         match self {
             RowSource::Measured => "measured",
             RowSource::Modelled => "modelled",
+            RowSource::Inferred => "inferred",
         }
     }
 
     /// The source a `source` column value names.
     pub fn parse(text: &str) -> Option<RowSource> {
-        [RowSource::Measured, RowSource::Modelled]
+        [RowSource::Measured, RowSource::Modelled, RowSource::Inferred]
             .into_iter()
             .find(|s| s.as_str() == text)
+    }
+
+    /// True for rows estimated from exchanges of their cell (measured or inferred), false for
+    /// rows a model filled in.
+    pub fn is_from_exchanges(self) -> bool {
+        self != RowSource::Modelled
     }
 }
 
@@ -58,8 +68,11 @@ mod tests {
 
     #[test]
     fn source_labels_match_the_contract() {
-        // Design §4 caltable.csv contract: `measured` or `modelled`.
+        // Design §4 caltable.csv contract: `measured` or `modelled`; §6 adds `inferred`.
         assert_eq!(RowSource::Measured.as_str(), "measured");
         assert_eq!(RowSource::Modelled.as_str(), "modelled");
+        assert_eq!(RowSource::Inferred.as_str(), "inferred");
+        assert!(RowSource::Inferred.is_from_exchanges());
+        assert!(!RowSource::Modelled.is_from_exchanges());
     }
 }

@@ -36,7 +36,7 @@ pub struct TableRow {
     pub n_used: u64,
     /// Samples rejected.
     pub n_rejected: u64,
-    /// Measured or modelled.
+    /// Measured, modelled or inferred.
     pub source: RowSource,
 }
 
@@ -193,7 +193,7 @@ fn parse_row(rec: &csv::StringRecord, line: u64) -> Result<TableRow, CalTableErr
     };
     let Some(source) = RowSource::parse(field(7)) else {
         return Err(bad(format!(
-            "source `{}` is not `measured` or `modelled`",
+            "source `{}` is not `measured`, `modelled` or `inferred`",
             field(7)
         )));
     };

@@ -103,6 +103,9 @@ pub struct GainMap {
     pub plateaus: Vec<Plateau>,
     /// Switch points between neighbouring states, in gain-index order.
     pub switches: Vec<Switch>,
+    /// True when the DUT reported no gain index and the states were inferred from K's
+    /// plateaus ([`crate::fit::infer_states`]); such a map has no fitted switch points.
+    pub inferred: bool,
 }
 
 /// Builds the map from a rising and a falling pass (either may be absent).
@@ -158,7 +161,11 @@ pub fn analyse(points: &[MapPoint]) -> GainMap {
             });
         }
     }
-    GainMap { plateaus, switches }
+    GainMap {
+        plateaus,
+        switches,
+        inferred: false,
+    }
 }
 
 /// Fits the switch points between `below` and `above` from every point's steps out of each.

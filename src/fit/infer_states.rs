@@ -4,9 +4,10 @@
 //! The unit of evidence is a *visit*: one attenuation point of one stage, with its bursts. Raw
 //! rows are a poor unit: a burst shares its timing offset, so rows are not independent, and a
 //! device may report one averaged row per burst. Each visit is therefore summarised robustly —
-//! each burst by the median K of its rows, the visit by the mean of its burst values within
-//! 3.5 robust standard deviations of their median — with a standard error from the spread
-//! *between* its bursts. Few bursts make that spread a poor estimate, so it is shrunk toward the
+//! each burst by the median K of its rows, the visit by the frame-weighted mean of its burst
+//! values within 3.5 robust standard deviations of their median — with a standard error from
+//! the spread *between* its bursts, a burst of `f` frames counting as `f` frames' worth (so
+//! stages of different burst sizes pool). Few bursts make that spread a poor estimate, so it is shrunk toward the
 //! pooled spread of the neighbouring visits (a prior worth [`PRIOR_DF`] degrees of freedom); a
 //! visit of one burst takes its neighbours' spread outright. All spreads are then scaled by one
 //! over-dispersion factor measured from the data themselves: successive differences of the
@@ -27,13 +28,17 @@
 //! States are numbered by level as an AGC numbers them: 0 for the segment at the lowest
 //! attenuation (strongest signal). Around each switch, the visits between the last one of the
 //! stronger-signal state and the first of the weaker, both included, are marked as near the
-//! switch: their rows may hold either state (hysteresis, or a switch during the visit), so the
-//! table leaves them out rather than guess.
+//! switch, and so is every visit next to another change location that fits nearly as well
+//! ([`LOCATION_DELTA`]): with level noise the AGC toggles near its threshold, so bursts there
+//! mix states and the data place the change only roughly. A visit that leans from its state's
+//! mean toward a neighbouring state's by more than [`MIXED_Z`] standard errors is taken to mix
+//! them too. Such rows may hold either state, so the table leaves them out rather than guess.
 //!
 //! Limits, by construction: states whose K differ by less than the noise allows (or by less
 //! than [`MIN_JUMP_PS`]) are one state; a state seen at fewer than two visits is not found; and
 //! a switch is placed only to within the points around it and the hysteresis band.
 
+use crate::fit::gainmap::{GainMap, Plateau, Switch};
 use crate::fit::stats::{mad_scaled, median};
 
 /// Degrees of freedom the neighbours' spread is worth when a visit's own is shrunk toward it.
@@ -76,8 +81,18 @@ pub struct Visit {
     pub atten_db: f64,
     /// How the sweep came to it.
     pub approach: Approach,
-    /// Per burst, the de-embedded K of its usable rows (one value for a burst-averaged row).
-    pub bursts: Vec<Vec<f64>>,
+    /// Its bursts.
+    pub bursts: Vec<Burst>,
+}
+
+/// One burst of a visit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Burst {
+    /// The de-embedded K of its usable rows (one value for a burst-averaged row).
+    pub k_ps: Vec<f64>,
+    /// The frames behind them: a burst-averaged row's `frames`, or the rows of a burst
+    /// reported frame by frame. A burst's value is known as well as its frames make it.
+    pub frames: u32,
 }
 
 /// A visit as the segmentation uses it.
@@ -108,7 +123,8 @@ pub struct InferredSwitch {
     /// The switch level: midway between the highest attenuation seen in `below` and the
     /// lowest seen in `below + 1` (these overlap when the hysteresis band was visited).
     pub atten_db: f64,
-    /// Lower end of the span where the state was unsure (the visits near the switch).
+    /// Lower end of the span where the state is unsure: the visits on either side of every
+    /// change location that fits about as well as the best, and of the hysteresis band seen.
     pub unsure_from_db: f64,
     /// Upper end of that span.
     pub unsure_to_db: f64,
@@ -159,6 +175,48 @@ impl InferredStates {
             }
         }
         Ok(self.switches.last().map_or(0, |s| s.below + 1))
+    }
+
+    /// The states as a gain map: each plateau spans the attenuations where its state held
+    /// whichever way the sweep came (between the unsure spans), each switch its crossings per
+    /// direction; there is nothing to fit switch points from.
+    pub fn gain_map(&self) -> GainMap {
+        let plateaus = self
+            .states
+            .iter()
+            .enumerate()
+            .filter_map(|(s, st)| {
+                let lo = s
+                    .checked_sub(1)
+                    .and_then(|p| self.switches.get(p))
+                    .map_or(st.atten_min_db, |sw| sw.unsure_to_db);
+                let hi = self
+                    .switches
+                    .get(s)
+                    .map_or(st.atten_max_db, |sw| sw.unsure_from_db);
+                (lo <= hi).then_some(Plateau {
+                    gain_index: s as u32,
+                    atten_min_db: lo,
+                    atten_max_db: hi,
+                })
+            })
+            .collect();
+        let switches = self
+            .switches
+            .iter()
+            .map(|s| Switch {
+                below: s.below,
+                above: s.below + 1,
+                rising_db: s.rising_db,
+                falling_db: s.falling_db,
+                fit: None,
+            })
+            .collect();
+        GainMap {
+            plateaus,
+            switches,
+            inferred: true,
+        }
     }
 
     /// The state among `below` and `below + 1` whose K is nearer `k_ps`.
@@ -254,12 +312,25 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
         }
         start = end;
     }
+    let prefix = Prefix::new(&scaled);
     for below in 0..out.states.len().saturating_sub(1) {
         let (a, b) = (&out.states[below], &out.states[below + 1]);
-        let (from, to) = (
-            a.atten_max_db.min(b.atten_min_db),
-            a.atten_max_db.max(b.atten_min_db),
-        );
+        // Every visit next to a change location the data cannot tell from the best one.
+        let first = if below == 0 { 0 } else { ends[below - 1] };
+        let (change, last) = (ends[below], ends[below + 1]);
+        let best = prefix.cost(first, change) + prefix.cost(change, last);
+        let plausible = (first + MIN_SEGMENT..=last - MIN_SEGMENT)
+            .filter(|&t| prefix.cost(first, t) + prefix.cost(t, last) - best <= LOCATION_DELTA);
+        let (from, to) = plausible
+            .flat_map(|t| [order[t - 1], order[t]])
+            .map(|i| visits[i].atten_db)
+            .fold(
+                (
+                    a.atten_max_db.min(b.atten_min_db),
+                    a.atten_max_db.max(b.atten_min_db),
+                ),
+                |(lo, hi), x| (lo.min(x), hi.max(x)),
+            );
         let pass = |way: Approach| {
             let last = last_in(visits, &out.visits, below as u32, way, f64::max)?;
             let first = last_in(visits, &out.visits, below as u32 + 1, way, f64::min)?;
@@ -267,26 +338,56 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
         };
         out.switches.push(InferredSwitch {
             below: below as u32,
-            atten_db: (from + to) / 2.0,
+            atten_db: (a.atten_max_db + b.atten_min_db) / 2.0,
             unsure_from_db: from,
             unsure_to_db: to,
             rising_db: pass(Approach::Rising),
             falling_db: pass(Approach::Falling),
         });
     }
-    for (v, state) in visits.iter().zip(out.visits.iter_mut()) {
-        if *state == VisitState::Empty {
-            continue;
-        }
+    for (pos, &i) in order.iter().enumerate() {
         let near = out
             .switches
             .iter()
-            .find(|s| (s.unsure_from_db..=s.unsure_to_db).contains(&v.atten_db));
-        if let Some(s) = near {
-            *state = VisitState::NearSwitch { below: s.below };
+            .find(|s| (s.unsure_from_db..=s.unsure_to_db).contains(&visits[i].atten_db))
+            .map(|s| s.below)
+            .or_else(|| mixed(&out, &prefix, &ends, pos, scaled[pos]));
+        if let Some(below) = near {
+            out.visits[i] = VisitState::NearSwitch { below };
         }
     }
     out
+}
+
+/// For the visit at level-order position `pos` with summary `y`: the switch (by its `below`)
+/// toward whose other state it leans by more than [`MIXED_Z`] standard errors, if any — a
+/// visit whose bursts mixed two states (the AGC toggling on level noise) sits between them.
+fn mixed(
+    out: &InferredStates,
+    prefix: &Prefix,
+    ends: &[usize],
+    pos: usize,
+    y: VisitSummary,
+) -> Option<u32> {
+    let s = ends.iter().position(|&e| pos < e)?;
+    let start = if s == 0 { 0 } else { ends[s - 1] };
+    let (mean, se) = prefix.mean_se(start, ends[s]);
+    let z = (y.k_ps - mean) / y.se_ps.hypot(se);
+    if z.abs() <= MIXED_Z {
+        return None;
+    }
+    let toward = |other: usize| {
+        out.states
+            .get(other)
+            .is_some_and(|o| (o.k_ps - mean).signum() == z.signum())
+    };
+    if s + 1 < out.states.len() && toward(s + 1) {
+        Some(s as u32)
+    } else if s > 0 && toward(s - 1) {
+        Some(s as u32 - 1)
+    } else {
+        None
+    }
 }
 
 /// The extreme attenuation (`pick` = max or min) of the visits in `state` made going `way`.
@@ -308,8 +409,7 @@ fn last_in(
 /// Each visit's robust location and shrunk standard error (`None` for a visit without a
 /// usable burst), in the order given.
 pub fn summarise(visits: &[Visit]) -> Vec<Option<VisitSummary>> {
-    // Per visit: location, variance of one burst value (if two or more were kept), bursts kept.
-    let raw: Vec<Option<(f64, Option<f64>, usize)>> = visits.iter().map(locate).collect();
+    let raw: Vec<Option<Located>> = visits.iter().map(locate).collect();
     let mut order: Vec<usize> = (0..visits.len()).filter(|&i| raw[i].is_some()).collect();
     order.sort_by(|&a, &b| visits[a].atten_db.total_cmp(&visits[b].atten_db));
     // Pooled (degrees-of-freedom weighted) variances: a median of a few small-sample
@@ -318,7 +418,7 @@ pub fn summarise(visits: &[Visit]) -> Vec<Option<VisitSummary>> {
     let pooled = |js: &mut dyn Iterator<Item = usize>| {
         let (sum, df) = js
             .filter_map(|j| raw[j])
-            .filter_map(|(_, var, m)| Some((var?, m as f64 - 1.0)))
+            .filter_map(|l| Some((l.frame_var?, l.df())))
             .fold((0.0, 0.0), |(s, d), (v, df)| (s + v * df, d + df));
         (df > 0.0).then(|| sum / df)
     };
@@ -327,7 +427,7 @@ pub fn summarise(visits: &[Visit]) -> Vec<Option<VisitSummary>> {
     let overall = pooled(&mut order.iter().copied()).unwrap_or(1.0);
     let mut out = vec![None; visits.len()];
     for (pos, &i) in order.iter().enumerate() {
-        let Some((k_ps, var, m)) = raw[i] else {
+        let Some(here) = raw[i] else {
             continue;
         };
         // The nearest visits (in level order) that together give PRIOR_WINDOW_DF degrees of
@@ -341,52 +441,81 @@ pub fn summarise(visits: &[Visit]) -> Vec<Option<VisitSummary>> {
             let df: f64 = near
                 .clone()
                 .filter_map(|j| raw[j])
-                .filter(|(_, var, _)| var.is_some())
-                .map(|(_, _, m)| m as f64 - 1.0)
+                .filter(|l| l.frame_var.is_some())
+                .map(|l| l.df())
                 .sum();
             if df >= PRIOR_WINDOW_DF || (lo == 0 && hi == order.len()) {
                 break pooled(&mut near.clone()).unwrap_or(overall);
             }
             width += 1;
         };
-        let df = (m as f64 - 1.0).max(0.0);
-        let shrunk = (df * var.unwrap_or(0.0) + PRIOR_DF * prior) / (df + PRIOR_DF);
+        let df = here.df();
+        let shrunk = (df * here.frame_var.unwrap_or(0.0) + PRIOR_DF * prior) / (df + PRIOR_DF);
         out[i] = Some(VisitSummary {
-            k_ps,
-            se_ps: (shrunk / m as f64).sqrt(),
+            k_ps: here.k_ps,
+            se_ps: (shrunk / here.frames).sqrt(),
         });
     }
     out
 }
 
-/// A visit's (location, variance of one burst value when two or more are kept, bursts kept).
-fn locate(v: &Visit) -> Option<(f64, Option<f64>, usize)> {
-    let mut values: Vec<f64> = v
+/// What one visit's own bursts say.
+#[derive(Debug, Clone, Copy)]
+struct Located {
+    /// Frame-weighted mean of the kept burst values.
+    k_ps: f64,
+    /// Variance of one frame's worth, `Σ f·(x − x̄)² / (m − 1)`, from two or more bursts: a
+    /// burst value of `f` frames then has `frame_var / f` (bursts of different sizes pool).
+    frame_var: Option<f64>,
+    /// Bursts kept.
+    bursts: usize,
+    /// Frames behind them.
+    frames: f64,
+}
+
+impl Located {
+    fn df(&self) -> f64 {
+        (self.bursts as f64 - 1.0).max(0.0)
+    }
+}
+
+/// A visit's bursts, each its rows' median K with the frames behind it, outliers trimmed.
+fn locate(v: &Visit) -> Option<Located> {
+    let mut values: Vec<(f64, f64)> = v
         .bursts
         .iter()
         .filter_map(|b| {
-            median(
-                &mut b
-                    .iter()
-                    .copied()
-                    .filter(|k| k.is_finite())
-                    .collect::<Vec<_>>(),
-            )
+            let mut ks: Vec<f64> = b.k_ps.iter().copied().filter(|k| k.is_finite()).collect();
+            let frames = f64::from(b.frames.max(ks.len() as u32).max(1));
+            Some((median(&mut ks)?, frames))
         })
         .collect();
-    let center = median(&mut values.clone())?;
+    let mut xs: Vec<f64> = values.iter().map(|v| v.0).collect();
+    let center = median(&mut xs)?;
     if values.len() >= 3 {
-        let spread = mad_scaled(&mut values.clone(), center)?;
+        let spread = mad_scaled(&mut xs, center)?;
         if spread > 0.0 {
-            values.retain(|x| (x - center).abs() <= TRIM_Z * spread);
+            values.retain(|(x, _)| (x - center).abs() <= TRIM_Z * spread);
         }
     }
-    let m = values.len();
-    let mean = values.iter().sum::<f64>() / m as f64;
-    let var = (m >= 2)
-        .then(|| values.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (m as f64 - 1.0))
+    let bursts = values.len();
+    let frames: f64 = values.iter().map(|v| v.1).sum();
+    let k_ps = values.iter().map(|(x, f)| x * f).sum::<f64>() / frames;
+    let frame_var = (bursts >= 2)
+        .then(|| {
+            values
+                .iter()
+                .map(|(x, f)| f * (x - k_ps).powi(2))
+                .sum::<f64>()
+                / (bursts as f64 - 1.0)
+        })
         .filter(|v| *v > 0.0);
-    Some((mean, var, m))
+    Some(Located {
+        k_ps,
+        frame_var,
+        bursts,
+        frames,
+    })
 }
 
 /// Over-dispersion: the median standardised squared successive difference over that of χ²₁,
@@ -450,6 +579,15 @@ impl Prefix {
         ((self.wy[b] - self.wy[a]) / w, w.sqrt().recip())
     }
 }
+
+/// How much worse (in the weighted cost, a χ² scale) a change location may fit than the best
+/// and still be plausible: the χ²₁ 95 % point, 3.84. A change location is not a regular
+/// parameter, so this is a working rule; the tests measure what it gives.
+const LOCATION_DELTA: f64 = 3.84;
+
+/// A visit further than this many standard errors from its state's mean, toward a
+/// neighbouring state, is taken to mix the two.
+const MIXED_Z: f64 = 3.0;
 
 /// Hysteresis bands tried, in steps of [`BAND_STEP_DB`] from none.
 const BAND_STEPS: u32 = 24;
@@ -550,7 +688,13 @@ mod tests {
         Visit {
             atten_db,
             approach,
-            bursts: k_ps.iter().map(|k| vec![k + noise.sample(rng)]).collect(),
+            bursts: k_ps
+                .iter()
+                .map(|k| Burst {
+                    k_ps: vec![k + noise.sample(rng)],
+                    frames: 16,
+                })
+                .collect(),
         }
     }
 
@@ -633,6 +777,21 @@ mod tests {
     }
 
     #[test]
+    fn the_gain_map_of_inferred_states_has_plateaus_between_the_unsure_spans() {
+        let got = infer_states(&three_states(6, 2.0, 4.0));
+        let map = got.gain_map();
+        assert!(map.inferred);
+        assert_eq!(map.plateaus.len(), 3, "{map:?}");
+        for (p, sw) in map.plateaus.iter().skip(1).zip(&got.switches) {
+            assert_eq!(p.atten_min_db, sw.unsure_to_db);
+        }
+        // Plateaus hold their state both ways: away from the thresholds by the half band.
+        assert!(map.plateaus[0].atten_max_db <= 32.0, "{map:?}");
+        assert!(map.plateaus[1].atten_min_db >= 28.0, "{map:?}");
+        assert!(map.switches.iter().all(|s| s.fit.is_none()));
+    }
+
+    #[test]
     fn one_state_is_not_split_over_many_seeds() {
         let mut splits = 0;
         for seed in 0..300 {
@@ -704,7 +863,16 @@ mod tests {
         let empty = Visit {
             atten_db: 10.0,
             approach: Approach::Unknown,
-            bursts: vec![vec![], vec![f64::NAN]],
+            bursts: vec![
+                Burst {
+                    k_ps: vec![],
+                    frames: 0,
+                },
+                Burst {
+                    k_ps: vec![f64::NAN],
+                    frames: 1,
+                },
+            ],
         };
         let got = infer_states(&[empty]);
         assert_eq!(got.visits, vec![VisitState::Empty]);

@@ -14,6 +14,7 @@ pub mod model;
 pub mod ota;
 pub mod pairs;
 pub mod rtt;
+pub mod state_labels;
 pub mod stats;
 pub mod switch_point;
 pub mod verify;

@@ -441,7 +441,7 @@ fn row_se_ps(row: &CalRow) -> Result<f64, ModelError> {
 /// tell the user which states stay unmeasured rather than give them a number that only looks
 /// like one.
 ///
-/// Measured rows pass through unchanged; modelled rows in the input are dropped and, when
+/// Measured (and inferred-state) rows pass through unchanged; modelled rows in the input are dropped and, when
 /// wanted, modelled afresh. Modelled rows carry `n_used`, `n_rejected` and `n_bursts` of 0 and an
 /// `sd_ps` of NaN (no samples stand behind them). Output is sorted by center, bandwidth, gain.
 pub fn fill_table(
@@ -450,7 +450,7 @@ pub fn fill_table(
     options: ModelOptions,
 ) -> Result<Vec<CalRow>, ModelError> {
     let mut groups: BTreeMap<(u32, u32), Vec<&CalRow>> = BTreeMap::new();
-    for r in rows.iter().filter(|r| r.source == RowSource::Measured) {
+    for r in rows.iter().filter(|r| r.source.is_from_exchanges()) {
         groups.entry((r.center_mhz, r.bw_mhz)).or_default().push(r);
     }
     let mut out = Vec::new();

@@ -255,6 +255,11 @@ fn hysteresis_sentence(rows: &[super::GainMapRow]) -> String {
             })
         })
         .collect();
+    if rows.iter().any(|r| r.states.as_deref() == Some("inferred")) {
+        return " The DUT reported no gain index: these plateaus were inferred from where K steps \
+                against receive level, and the table's rows are marked inferred."
+            .into();
+    }
     if parts.is_empty() {
         return String::new();
     }
@@ -297,7 +302,8 @@ fn plots(page: &mut String, data: &ReportData) -> Result<(), ReportError> {
         "K per gain state",
         k_plot::svg(data)?,
         "The DUT's K (TX + RX group delay) per gain state with its 95 % interval (burst-clustered \
-         Student t), one colour per channel; hollow markers are modelled rows.",
+         Student t), one colour per channel; hollow markers are modelled rows, half-tone ones rows \
+         whose gain states the DUT did not report and were inferred from K's plateaus.",
         "No calibration table in this run.",
     );
     figure(

@@ -55,6 +55,8 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
                 .draw_series(mine.iter().map(|r| {
                     let style = match r.source {
                         RowSource::Measured => colour.filled(),
+                        // Half-tone: measured, but in states inferred from K, not reported.
+                        RowSource::Inferred => colour.mix(0.45).filled(),
                         RowSource::Modelled => colour.stroke_width(2),
                     };
                     Circle::new((f64::from(r.gain_index) + offset, r.delay_ps), 5, style)

@@ -90,6 +90,10 @@ pub struct GainMapRow {
     /// Its 95 % half-width.
     #[serde(default)]
     pub hysteresis_ci95_db: Option<f64>,
+    /// `reported` by the DUT or `inferred` from K (absent in files written before the column
+    /// was appended: reported).
+    #[serde(default)]
+    pub states: Option<String>,
 }
 
 /// One row of `verify.csv`.

@@ -3,7 +3,7 @@
 
 use crate::data::manifest::AcceptCheck;
 use crate::fit::verify::VerifyRow;
-use crate::fit::{FitResult, RowSource};
+use crate::fit::FitResult;
 use crate::recipe::Acceptance;
 use std::collections::BTreeSet;
 
@@ -39,7 +39,7 @@ fn acceptance(accept: &Acceptance, fit: &FitResult, verify: &[VerifyRow]) -> Vec
         let gains: BTreeSet<u32> = fit
             .rows
             .iter()
-            .filter(|r| r.source == RowSource::Measured)
+            .filter(|r| r.source.is_from_exchanges())
             .map(|r| r.gain_index)
             .collect();
         checks.push(AcceptCheck {

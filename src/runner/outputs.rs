@@ -55,7 +55,7 @@ pub fn fit_and_write(
     };
     let levels = &recorded.verify_stages;
     match tabulate::fit_file(&dir.join(files::EXCHANGES), bench, &settings) {
-        Ok(Tabulated { fit, checked }) => {
+        Ok(Tabulated { fit, checked, .. }) => {
             let table_path = dir.join(files::CALTABLE);
             let table_written =
                 tabulate::write_table(&table_path, &fit).map_err(|e| RunError::io(&table_path, e));
@@ -99,12 +99,14 @@ fn write_file(path: &Path, bytes: &[u8]) -> Result<(), RunError> {
 /// `gainmap.csv`: each mapped state's plateau as attenuation and as DUT receive level, then
 /// (appended columns, so older readers keep working) the fitted switch to the next state up:
 /// its attenuations rising and falling and the hysteresis, each with a 95 % half-width. The
-/// hysteresis is left empty unless its interval lies wholly above zero.
+/// hysteresis is left empty unless its interval lies wholly above zero. The last column says
+/// whether the states were `reported` by the DUT or `inferred` from K; an inferred switch has
+/// the crossings seen each way and no interval (no step was reported to fit one from).
 fn gainmap_csv(bench: &Bench, maps: &BTreeMap<String, (Channel, GainMap)>) -> String {
     let mut out = String::from(
         "center_mhz,bw_mhz,gain_index,atten_min_db,atten_max_db,rx_power_min_dbm,rx_power_max_dbm,\
          next_gain_index,switch_rising_db,switch_rising_ci95_db,switch_falling_db,\
-         switch_falling_ci95_db,hysteresis_db,hysteresis_ci95_db,hysteresis_resolved\n",
+         switch_falling_ci95_db,hysteresis_db,hysteresis_ci95_db,hysteresis_resolved,states\n",
     );
     let pair = |e: Option<Estimate>| {
         e.map_or(",".to_string(), |e| {
@@ -118,8 +120,16 @@ fn gainmap_csv(bench: &Bench, maps: &BTreeMap<String, (Channel, GainMap)>) -> St
             let next = switch.map_or(String::new(), |s| s.above.to_string());
             let resolved = fitted.and_then(|f| f.resolved_hysteresis_db());
             let known = fitted.is_some_and(|f| f.hysteresis_db.is_some());
+            let seen = |e: Option<f64>| e.map_or(",".to_string(), |a| format!("{a:.2},"));
+            let (rising, falling) = match (map.inferred, switch) {
+                (true, Some(s)) => (seen(s.rising_db), seen(s.falling_db)),
+                _ => (
+                    pair(fitted.and_then(|f| f.up_db)),
+                    pair(fitted.and_then(|f| f.down_db)),
+                ),
+            };
             out.push_str(&format!(
-                "{},{},{},{:.2},{:.2},{:.2},{:.2},{next},{},{},{},{}\n",
+                "{},{},{},{:.2},{:.2},{:.2},{:.2},{next},{rising},{falling},{},{},{}\n",
                 channel.center_mhz,
                 channel.bw_mhz,
                 p.gain_index,
@@ -127,14 +137,13 @@ fn gainmap_csv(bench: &Bench, maps: &BTreeMap<String, (Channel, GainMap)>) -> St
                 p.atten_max_db,
                 bench.dut_rx_dbm(p.atten_max_db),
                 bench.dut_rx_dbm(p.atten_min_db),
-                pair(fitted.and_then(|f| f.up_db)),
-                pair(fitted.and_then(|f| f.down_db)),
                 pair(resolved),
                 if known {
                     resolved.is_some().to_string()
                 } else {
                     String::new()
                 },
+                if map.inferred { "inferred" } else { "reported" },
             ));
         }
     }

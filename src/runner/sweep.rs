@@ -1,9 +1,13 @@
 //! Declarative measurement stages: the attenuation sweep (fixed or mid-plateau points, fixed or
 //! adaptive burst counts), the gain-state map, verification, and temperature soaks.
+//!
+//! A DUT that reports no gain index still gets a gain map: its states are inferred from K's
+//! plateaus over the map stage's own exchanges, and mid-plateau points are placed on those.
 
 use super::{RunError, Session};
-use crate::data::Exchange;
-use crate::fit::gainmap::{self, MapPoint, Pass};
+use crate::data::{Exchange, STATUS_OK};
+use crate::fit::gainmap::{self, GainMap, MapPoint, Pass};
+use crate::fit::state_labels::StateCollector;
 use crate::fit::stats::t975;
 use crate::fit::switch_point::{Estimate, Method};
 use crate::fit::{fit, Deembed, FitOptions};
@@ -19,15 +23,34 @@ pub fn run_sweep(session: &mut Session, sweep: &Sweep) -> Result<(), RunError> {
     Ok(())
 }
 
-/// Measures a point; when its instrument faults outlast the retries and the recipe says
-/// `on_point_failure = "skip"`, reports it and goes on.
-fn measure_or_skip(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), RunError> {
+/// The de-embedding the run's own estimates use: the bench's path and reference, and the K a
+/// range-reporting DUT removed (as it reported it, else as the bench says).
+fn session_deembed(session: &Session) -> Deembed {
+    let bench = session.bench();
+    Deembed::new(&bench.path, bench.reference.delay_ps.clone())
+        .with_applied_k(session.report_watch.applied_k_ps().or(bench.applied_k_ps()))
+}
+
+/// True when no usable row reports a DUT gain index (the device reports none).
+fn gainless(rows: &[Exchange]) -> bool {
+    !rows
+        .iter()
+        .any(|x| x.status == STATUS_OK && x.dut_gain.is_some() && x.is_timed())
+}
+
+/// Measures a point and returns its rows; when its instrument faults outlast the retries and
+/// the recipe says `on_point_failure = "skip"`, reports it and goes on with no rows.
+fn measure_or_skip(
+    session: &mut Session,
+    sweep: &Sweep,
+    db: f64,
+) -> Result<Vec<Exchange>, RunError> {
     match measure_point(session, sweep, db) {
         Err(RunError::Instrument(e)) if session.policy.skip_failed_points => {
             let what = format!("stage `{}` at {db} dB: {e}", sweep.name);
             tracing::warn!("skipped {what}");
             session.skipped_points.push(what);
-            Ok(())
+            Ok(Vec::new())
         }
         other => other,
     }
@@ -65,7 +88,7 @@ fn resolve(session: &Session, sweep: &Sweep) -> Result<Vec<f64>, RunError> {
 }
 
 /// One point: set, settle, run the bursts (adaptive: until the target interval is reached).
-fn measure_point(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), RunError> {
+fn measure_point(session: &mut Session, sweep: &Sweep, db: f64) -> Result<Vec<Exchange>, RunError> {
     session.set_atten(db)?;
     session.wait_ms(sweep.settle_ms)?;
     let mut rows: Vec<Exchange> = Vec::new();
@@ -97,7 +120,7 @@ fn measure_point(session: &mut Session, sweep: &Sweep, db: f64) -> Result<(), Ru
             rows.len()
         );
     }
-    Ok(())
+    Ok(rows)
 }
 
 /// Bursts needed for the target from the burst-mean spread seen so far (at least one more than
@@ -116,14 +139,26 @@ const Z975: f64 = 1.959_964;
 
 /// The 95 % half-width of the point's main gain state and the spread of its burst means,
 /// computed exactly as the final table computes them (same de-embedding, rejection and
-/// burst-clustered interval).
+/// burst-clustered interval). A DUT that reports no gain index is taken to hold one state at
+/// the point: adaptive points sit mid-plateau, where it does.
 fn main_cell(session: &Session, rows: &[Exchange]) -> Option<(f64, f64)> {
-    let bench = session.bench();
-    let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
     let options = FitOptions {
         reject_mad: session.reject_mad,
     };
-    let table = fit(deembed, options, rows);
+    let one_state: Vec<Exchange>;
+    let rows = if gainless(rows) {
+        one_state = rows
+            .iter()
+            .map(|x| Exchange {
+                dut_gain: Some(0),
+                ..x.clone()
+            })
+            .collect();
+        &one_state
+    } else {
+        rows
+    };
+    let table = fit(session_deembed(session), options, rows);
     let cell = table.rows.iter().max_by_key(|r| r.n_used)?;
     let t = t975(cell.n_bursts.checked_sub(1)? as f64)?;
     Some((
@@ -144,8 +179,9 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
     session.begin_stage(&map.name, map.channel)?;
     let first = session.points.len();
     let falling = points.iter().rev().copied();
+    let mut rows = Vec::new();
     for db in points.iter().copied().chain(falling) {
-        measure_or_skip(session, map, db)?;
+        rows.extend(measure_or_skip(session, map, db)?);
     }
     let seen: Vec<MapPoint> = session.points[first..]
         .iter()
@@ -162,7 +198,18 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
             rssi: p.rssi,
         })
         .collect();
-    let result = gainmap::analyse(&seen);
+    let result = if gainless(&rows) && !rows.is_empty() {
+        inferred_map(session, &rows)
+    } else {
+        gainmap::analyse(&seen)
+    };
+    if result.inferred {
+        tracing::info!(
+            "gain map `{}`: the DUT reports no gain index; {} states inferred from K's plateaus",
+            map.name,
+            result.plateaus.len()
+        );
+    }
     for s in &result.switches {
         tracing::info!(
             "gain map `{}`: state {} → {}: {}",
@@ -178,11 +225,39 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
     Ok(())
 }
 
+/// The gain map inferred from the map stage's rows, for a DUT that reports no gain index.
+fn inferred_map(session: &Session, rows: &[Exchange]) -> GainMap {
+    let mut collector = StateCollector::new(session_deembed(session), &[]);
+    for x in rows {
+        collector.push(x);
+    }
+    collector
+        .finish()
+        .and_then(|labels| labels.channels.into_values().next())
+        .map(|states| states.gain_map())
+        .unwrap_or_default()
+}
+
 /// A switch's fitted points and hysteresis in words; a hysteresis whose interval reaches zero is
 /// said to be not resolved, never given as a number.
 fn describe_switch(s: &gainmap::Switch, rx_dbm: impl Fn(f64) -> f64) -> String {
     let Some(fit) = &s.fit else {
-        return "no step between them was seen, so no switch point was fitted".into();
+        let seen = |e: Option<f64>, way: &str| {
+            e.map(|a| format!("{a:.2} dB attenuation {way} ({:.1} dBm)", rx_dbm(a)))
+        };
+        let crossings: Vec<String> = [seen(s.rising_db, "rising"), seen(s.falling_db, "falling")]
+            .into_iter()
+            .flatten()
+            .collect();
+        return if crossings.is_empty() {
+            "no step between them was seen, so no switch point was fitted".into()
+        } else {
+            format!(
+                "K changes between the points around {} (no step was reported, so no switch \
+                 point was fitted)",
+                crossings.join(" and ")
+            )
+        };
     };
     let point = |e: Option<Estimate>, way: &str| {
         e.map_or(format!("no switch seen with attenuation {way}"), |e| {

@@ -1,5 +1,9 @@
 //! From an exchanges file to a calibration table (and verification inputs): the one path both
 //! `taucal run` and `taucal fit` take, so they agree to the last digit.
+//!
+//! A file whose rows report no DUT gain index is read twice: once to infer the gain states
+//! from K's plateaus against receive level ([`crate::fit::state_labels`]), then to fit with
+//! each row labelled by its inferred state; its table rows are marked `inferred`.
 
 use crate::bench::Bench;
 use crate::data::csv_io::ExchangeRows;
@@ -7,8 +11,9 @@ use crate::data::file_parts::{split_at_bursts, PartReader};
 use crate::data::manifest::write_atomic;
 use crate::data::{read_exchanges, Exchange, ReadError};
 use crate::fit::model::{fill_table, ModelOptions};
+use crate::fit::state_labels::{StateCollector, StateLabels};
 use crate::fit::verify::Checked;
-use crate::fit::{burst_delays, caltable, Deembed, FitOptions, FitResult, Fitter};
+use crate::fit::{burst_delays, caltable, Deembed, FitOptions, FitResult, Fitter, RowSource};
 use crate::in_turn::in_turn;
 use std::io::Read;
 use std::path::Path;
@@ -33,6 +38,8 @@ pub struct Tabulated {
     pub fit: FitResult,
     /// Verification exchanges, de-embedded.
     pub checked: Vec<Checked>,
+    /// The inferred gain states, when the DUT reported none.
+    pub inferred: Option<StateLabels>,
 }
 
 /// Files from this size up are fitted in parts on every core at once (when there are two or
@@ -69,20 +76,32 @@ fn fit_file_split_from(
     let options = FitOptions {
         reject_mad: settings.reject_mad,
     };
+    let labels = infer_labels(exchanges, &deembed, settings)?;
+    let labels = labels.as_ref();
     let threads = std::thread::available_parallelism().map_or(1, |n| n.get().min(MAX_THREADS));
     let in_parts = (threads > 1)
         .then(|| split_at_bursts(exchanges, split_from, threads * PARTS_PER_THREAD))
         .flatten()
-        .and_then(|parts| fit_parts(parts, threads, &deembed, options, settings));
+        .and_then(|parts| fit_parts(parts, threads, &deembed, options, settings, labels));
     let (fitter, bursts) = match in_parts {
         Some(done) => done,
         None => {
             let mut fitter = Fitter::new(deembed.clone(), options);
-            let bursts = feed(&mut read_exchanges(exchanges)?, &mut fitter, settings)?;
+            let bursts = feed(
+                &mut read_exchanges(exchanges)?,
+                &mut fitter,
+                settings,
+                labels,
+            )?;
             (fitter, bursts)
         }
     };
     let mut fit = fitter.finish();
+    if labels.is_some() {
+        for row in &mut fit.rows {
+            row.source = RowSource::Inferred;
+        }
+    }
     if let Some(n) = settings.gain_states {
         let wanted: Vec<u32> = (0..n).collect();
         match fill_table(&fit.rows, &wanted, ModelOptions::default()) {
@@ -108,22 +127,77 @@ fn fit_file_split_from(
             }
         }
     }
-    Ok(Tabulated { fit, checked })
+    Ok(Tabulated {
+        fit,
+        checked,
+        inferred: labels.cloned(),
+    })
+}
+
+/// The inferred state of every burst when no usable row of the file reports a DUT gain index;
+/// `None` (after reading only up to the first that does) otherwise.
+fn infer_labels(
+    exchanges: &Path,
+    deembed: &Deembed,
+    settings: &FitSettings,
+) -> Result<Option<StateLabels>, ReadError> {
+    let mut collector = StateCollector::new(deembed.clone(), &settings.verify_stages);
+    let mut rows = read_exchanges(exchanges)?;
+    let mut row = Exchange::default();
+    while rows.read_into(&mut row)? {
+        collector.push(&row);
+        if collector.reported_gain() {
+            return Ok(None);
+        }
+    }
+    let labels = collector.finish();
+    if let Some(l) = &labels {
+        for ((center_mhz, bw_mhz), states) in &l.channels {
+            let switches: Vec<String> = states
+                .switches
+                .iter()
+                .map(|s| format!("{} → {} at {:.2} dB", s.below, s.below + 1, s.atten_db))
+                .collect();
+            tracing::info!(
+                "no DUT gain index reported: {} gain states inferred from K on {center_mhz} MHz / \
+                 {bw_mhz} MHz{}{}",
+                states.states.len(),
+                if switches.is_empty() {
+                    ""
+                } else {
+                    ", switching "
+                },
+                switches.join(", ")
+            );
+        }
+        if l.near_switch_bursts > 0 {
+            tracing::info!(
+                "{} bursts next to an inferred switch left out of the table: their state is unsure",
+                l.near_switch_bursts
+            );
+        }
+    }
+    Ok(labels)
 }
 
 /// Verification bursts: consecutive rows of one burst of a verification stage.
 type Bursts = Vec<Vec<Exchange>>;
 
-/// Gives `rows` to `fitter`, setting verification stages' rows aside burst by burst.
+/// Gives `rows` to `fitter`, setting verification stages' rows aside burst by burst; rows
+/// without a gain index take their inferred state from `labels`.
 fn feed<R: Read>(
     rows: &mut ExchangeRows<R>,
     fitter: &mut Fitter,
     settings: &FitSettings,
+    labels: Option<&StateLabels>,
 ) -> Result<Bursts, ReadError> {
     let mut bursts: Bursts = Vec::new();
     // One row reused for the whole file: no allocation per exchange.
     let mut row = Exchange::default();
     while rows.read_into(&mut row)? {
+        if let Some(l) = labels {
+            l.apply(&mut row);
+        }
         if settings.verify_stages.contains(&row.stage) {
             match bursts.last_mut() {
                 Some(b)
@@ -158,6 +232,7 @@ fn fit_parts(
     deembed: &Deembed,
     options: FitOptions,
     settings: &FitSettings,
+    labels: Option<&StateLabels>,
 ) -> Option<(Fitter, Bursts)> {
     // A part that is not plain fails the whole split: the parts not yet taken are skipped.
     let failed = AtomicBool::new(false);
@@ -175,7 +250,7 @@ fn fit_parts(
             } else {
                 Fitter::continuing(deembed.clone(), options)
             };
-            let done = fit_part(rows, fitter, settings);
+            let done = fit_part(rows, fitter, settings, labels);
             failed.fetch_or(done.is_none(), Ordering::Relaxed);
             done
         },
@@ -195,8 +270,9 @@ fn fit_part<R: Read>(
     mut rows: ExchangeRows<R>,
     mut fitter: Fitter,
     settings: &FitSettings,
+    labels: Option<&StateLabels>,
 ) -> Option<(Fitter, Bursts)> {
-    let bursts = feed(&mut rows, &mut fitter, settings).ok()?;
+    let bursts = feed(&mut rows, &mut fitter, settings, labels).ok()?;
     // Parts wait for each other: growth room held meanwhile would add to the peak.
     fitter.shrink_to_fit();
     rows.all_plain().then_some((fitter, bursts))
@@ -301,13 +377,14 @@ mod tests {
             &mut read_exchanges(&path).expect("open"),
             &mut whole,
             &settings,
+            None,
         );
         let whole_bursts = whole_bursts.expect("plain rows");
         let whole = format!("{:?}", whole.finish());
         for (parts, threads) in [(2, 2), (8, 2), (5, 3), (3, 1)] {
             let split = split_at_bursts(&path, 0, parts).expect("a split");
             let (fitter, bursts) =
-                fit_parts(split, threads, &deembed, options, &settings).expect("plain parts");
+                fit_parts(split, threads, &deembed, options, &settings, None).expect("plain parts");
             assert_eq!(format!("{:?}", fitter.finish()), whole, "{parts} parts");
             assert_eq!(bursts, whole_bursts, "{parts} parts");
         }
