@@ -12,6 +12,7 @@ mod fit_offline;
 mod forms;
 mod fuzz;
 mod gain_switch;
+mod infer;
 mod instruments;
 mod plan_preview;
 mod record_version;

@@ -9,21 +9,31 @@
 //! the spread *between* its bursts, a burst of `f` frames counting as `f` frames' worth (so
 //! stages of different burst sizes pool). Few bursts make that spread a poor estimate, so it is shrunk toward the
 //! pooled spread of the neighbouring visits (a prior worth [`PRIOR_DF`] degrees of freedom); a
-//! visit of one burst takes its neighbours' spread outright. All spreads are then scaled by one
+//! visit of one burst takes its neighbours' spread outright. The spreads of each group of
+//! visits (a stage: one burst size, one way of taking them) are then scaled by an
 //! over-dispersion factor measured from the data themselves: successive differences of the
-//! visits in level order, standardised, whose median would be that of χ²₁ if the errors were
-//! right (a few differences across real switches barely move a median).
+//! group's visits in level order, standardised, whose median would be that of χ²₁ if the
+//! errors were right (a few differences across real switches barely move a median). Per group,
+//! because the frames of a burst do not scale its noise exactly: a device trimming eight frames
+//! keeps more of their tails than one trimming sixteen.
 //!
 //! Visits are ordered by receive level (attenuation), taking the hysteresis into account: a
 //! sticky AGC holds the stronger-signal state when the level falls into its band and the
 //! weaker-signal state when it rises into it, so a visit made with attenuation rising sorts
 //! half a band lower, and one made with it falling half a band higher. The band is unknown, so
-//! widths from 0 to 12 dB are tried and the one the segmentation fits best is kept. The ordered summaries are segmented by PELT (Killick, Fearnhead & Eckley 2012) with a
+//! widths from 0 to 12 dB are tried and the one the segmentation fits best is kept (a band
+//! other than none is charged one change's penalty: it is one more parameter).
+//!
+//! The ordered summaries are segmented by PELT (Killick, Fearnhead & Eckley 2012) with a
 //! weighted Gaussian cost `Σ (y − ȳ)²/se²` — a visit counts by how well it is known — and a
-//! BIC-type penalty of `2·ln n` per change (a new mean and a change location). Segments must
+//! BIC penalty of `2·ln n` per change (a new mean and a change location). Segments must
 //! hold two visits. A change the penalty admits must then also be a practical one: adjacent
 //! segments whose means differ by less than [`MIN_JUMP_Z`] standard errors, or by less than
-//! [`MIN_JUMP_PS`], are merged, the closest pair first, until every change passes both.
+//! [`MIN_JUMP_PS`], or not by Welch's t on the scatter of their visits' values (level
+//! [`WELCH_ALPHA`]), are merged, the least distinct pair first, until every change passes all
+//! three. The last test needs no standard errors at all, so noise growing faster than the
+//! shrunk errors follow (toward sensitivity) cannot make a state; it also means a state must be
+//! seen at several visits — three at the very least — to be found.
 //!
 //! States are numbered by level as an AGC numbers them: 0 for the segment at the lowest
 //! attenuation (strongest signal). Around each switch, the visits between the last one of the
@@ -40,6 +50,8 @@
 
 use crate::fit::gainmap::{GainMap, Plateau, Switch};
 use crate::fit::stats::{mad_scaled, median};
+use statrs::distribution::{ContinuousCDF, StudentsT};
+use std::collections::BTreeMap;
 
 /// Degrees of freedom the neighbours' spread is worth when a visit's own is shrunk toward it.
 pub const PRIOR_DF: f64 = 4.0;
@@ -81,6 +93,9 @@ pub struct Visit {
     pub atten_db: f64,
     /// How the sweep came to it.
     pub approach: Approach,
+    /// Its group (the stage it belongs to): visits of one group are taken alike, and their
+    /// standard errors share one over-dispersion factor.
+    pub group: u32,
     /// Its bursts.
     pub bursts: Vec<Burst>,
 }
@@ -158,8 +173,8 @@ pub struct InferredStates {
     pub switches: Vec<InferredSwitch>,
     /// Per visit, in the order given.
     pub visits: Vec<VisitState>,
-    /// The over-dispersion factor applied to the standard errors' squares.
-    pub dispersion: f64,
+    /// Per group, the over-dispersion factor applied to its standard errors' squares.
+    pub dispersion: BTreeMap<u32, f64>,
 }
 
 impl InferredStates {
@@ -256,19 +271,41 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
     let in_order = |order: &[usize]| -> Vec<VisitSummary> {
         order.iter().filter_map(|&i| summaries[i]).collect()
     };
-    let dispersion = dispersion(&in_order(&ordered(0.0)));
+    let level_order = ordered(0.0);
+    let overall = dispersion(&in_order(&level_order));
+    let mut factors = BTreeMap::new();
+    for v in visits {
+        factors.entry(v.group).or_insert_with(|| {
+            let mine: Vec<usize> = level_order
+                .iter()
+                .copied()
+                .filter(|&i| visits[i].group == v.group)
+                .collect();
+            // A group too small to say keeps the factor of all visits together.
+            if mine.len() > MIN_GROUP_VISITS {
+                dispersion(&in_order(&mine))
+            } else {
+                overall
+            }
+        });
+    }
     let scaled = |order: &[usize]| -> Vec<VisitSummary> {
-        in_order(order)
+        order
             .iter()
-            .map(|v| VisitSummary {
-                k_ps: v.k_ps,
-                se_ps: v.se_ps * dispersion.sqrt(),
+            .filter_map(|&i| {
+                let v = summaries[i]?;
+                let factor = factors.get(&visits[i].group).copied().unwrap_or(overall);
+                Some(VisitSummary {
+                    k_ps: v.k_ps,
+                    se_ps: v.se_ps * factor.sqrt(),
+                })
             })
             .collect()
     };
     // The hysteresis band is not known: each candidate orders the visits as a band that wide
     // would, and the order the segmentation fits best (the least penalised cost; the narrowest
-    // band on a tie) is kept.
+    // band on a tie) is kept. A band is one more parameter, chosen from many orders: it is
+    // charged a change's penalty, so reordering alone does not make states out of noise.
     let mut best: Option<(f64, Vec<usize>, Vec<usize>)> = None;
     for step in 0..=BAND_STEPS {
         let order = ordered(f64::from(step) * BAND_STEP_DB);
@@ -276,7 +313,8 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
         if ys.is_empty() {
             break;
         }
-        let (ends, cost) = pelt(&ys);
+        let (ends, fit_cost) = pelt(&ys);
+        let cost = fit_cost + if step > 0 { penalty(ys.len()) } else { 0.0 };
         if best
             .as_ref()
             .is_none_or(|(c, _, _)| cost < c - 1e-9 * c.abs())
@@ -296,7 +334,7 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
         states: Vec::new(),
         switches: Vec::new(),
         visits: vec![VisitState::Empty; visits.len()],
-        dispersion,
+        dispersion: factors,
     };
     let mut start = 0;
     for (s, &end) in ends.iter().enumerate() {
@@ -589,23 +627,35 @@ const LOCATION_DELTA: f64 = 3.84;
 /// neighbouring state, is taken to mix the two.
 const MIXED_Z: f64 = 3.0;
 
+/// A group of visits needs more than this many to have an over-dispersion factor of its own.
+const MIN_GROUP_VISITS: usize = 6;
+
+/// Two-sided level of the scatter test every change must also pass ([`welch_ratio`]).
+const WELCH_ALPHA: f64 = 0.01;
+
 /// Hysteresis bands tried, in steps of [`BAND_STEP_DB`] from none.
 const BAND_STEPS: u32 = 24;
 
 /// Resolution of the band search: finer than any attenuator sweep's points need.
 const BAND_STEP_DB: f64 = 0.5;
 
+/// The BIC penalty of one change among `n` visits: a new mean and a change location, each
+/// `ln n` (Schwarz 1978).
+fn penalty(n: usize) -> f64 {
+    2.0 * (n as f64).ln()
+}
+
 /// Shortest segment, in visits.
 const MIN_SEGMENT: usize = 2;
 
-/// PELT: the segment ends (exclusive, the last is `ys.len()`) minimising cost plus `2·ln n`
-/// per change, and that minimum. The cost satisfies `C(a,c) ≥ C(a,b) + C(b,c)`, so pruning is exact.
+/// PELT: the segment ends (exclusive, the last is `ys.len()`) minimising cost plus
+/// [`penalty`] per change, and that minimum. The cost satisfies `C(a,c) ≥ C(a,b) + C(b,c)`, so pruning is exact.
 fn pelt(ys: &[VisitSummary]) -> (Vec<usize>, f64) {
     let n = ys.len();
     if n < 2 * MIN_SEGMENT {
         return (vec![n], Prefix::new(ys).cost(0, n));
     }
-    let penalty = 2.0 * (n as f64).ln();
+    let penalty = penalty(n);
     let p = Prefix::new(ys);
     let mut best = vec![f64::INFINITY; n + 1];
     let mut last = vec![0usize; n + 1];
@@ -640,8 +690,35 @@ fn pelt(ys: &[VisitSummary]) -> (Vec<usize>, f64) {
     (ends, best[n])
 }
 
+/// Welch's t of two runs of visits from the scatter of their values alone (whatever their
+/// standard errors claim), over its two-sided [`WELCH_ALPHA`] critical value: below 1 the
+/// runs do not differ by their own scatter. Standard errors shrunk toward neighbours can be
+/// too small where the noise grows fast (near sensitivity); the visits' own scatter cannot.
+fn welch_ratio(a: &[VisitSummary], b: &[VisitSummary]) -> f64 {
+    let moments = |r: &[VisitSummary]| {
+        let n = r.len() as f64;
+        let mean = r.iter().map(|v| v.k_ps).sum::<f64>() / n;
+        let var = r.iter().map(|v| (v.k_ps - mean).powi(2)).sum::<f64>() / (n - 1.0);
+        (n, mean, var / n)
+    };
+    if a.len() < 2 || b.len() < 2 {
+        return 0.0;
+    }
+    let ((na, ma, va), (nb, mb, vb)) = (moments(a), moments(b));
+    let se = (va + vb).sqrt();
+    if se == 0.0 {
+        return f64::INFINITY;
+    }
+    // Welch–Satterthwaite degrees of freedom.
+    let df = (va + vb).powi(2) / (va * va / (na - 1.0) + vb * vb / (nb - 1.0));
+    let critical = StudentsT::new(0.0, 1.0, df.max(1.0))
+        .map_or(f64::INFINITY, |t| t.inverse_cdf(1.0 - WELCH_ALPHA / 2.0));
+    (mb - ma).abs() / se / critical
+}
+
 /// Merges neighbouring segments whose means differ by less than [`MIN_JUMP_Z`] standard errors
-/// or [`MIN_JUMP_PS`], the least distinct pair first.
+/// or [`MIN_JUMP_PS`], or not by their visits' scatter ([`welch_ratio`]), the least distinct
+/// pair first.
 fn merge_small_jumps(ys: &[VisitSummary], mut ends: Vec<usize>) -> Vec<usize> {
     let p = Prefix::new(ys);
     loop {
@@ -652,9 +729,10 @@ fn merge_small_jumps(ys: &[VisitSummary], mut ends: Vec<usize>) -> Vec<usize> {
             let (m2, se2) = p.mean_se(ends[j], ends[j + 1]);
             let jump = (m2 - m1).abs();
             let z = jump / se1.hypot(se2);
-            if z < MIN_JUMP_Z || jump < MIN_JUMP_PS {
-                // Rank by how far short of the harder of the two tests it falls.
-                let shortfall = (z / MIN_JUMP_Z).min(jump / MIN_JUMP_PS);
+            let scatter = welch_ratio(&ys[a..ends[j]], &ys[ends[j]..ends[j + 1]]);
+            if z < MIN_JUMP_Z || jump < MIN_JUMP_PS || scatter < 1.0 {
+                // Rank by how far short of the hardest of the tests it falls.
+                let shortfall = (z / MIN_JUMP_Z).min(jump / MIN_JUMP_PS).min(scatter);
                 if worst.is_none_or(|(_, w)| shortfall < w) {
                     worst = Some((j, shortfall));
                 }
@@ -688,6 +766,7 @@ mod tests {
         Visit {
             atten_db,
             approach,
+            group: 0,
             bursts: k_ps
                 .iter()
                 .map(|k| Burst {
@@ -863,6 +942,7 @@ mod tests {
         let empty = Visit {
             atten_db: 10.0,
             approach: Approach::Unknown,
+            group: 0,
             bursts: vec![
                 Burst {
                     k_ps: vec![],

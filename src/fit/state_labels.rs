@@ -31,6 +31,8 @@ struct Gathered {
     atten_db: f64,
     approach: Approach,
     verifies: bool,
+    /// The stage's number, in order of first appearance.
+    group: u32,
     /// Burst number and its rows' K and frames.
     bursts: Vec<(u32, Burst)>,
 }
@@ -45,6 +47,8 @@ pub struct StateCollector {
     /// The attenuation of the last visit per (stage, channel): how the next was approached.
     last_atten: HashMap<(String, ChannelKey), f64>,
     reported_gain: bool,
+    /// Stages in order of first appearance.
+    stages: Vec<String>,
 }
 
 impl StateCollector {
@@ -58,6 +62,7 @@ impl StateCollector {
             index: HashMap::new(),
             last_atten: HashMap::new(),
             reported_gain: false,
+            stages: Vec::new(),
         }
     }
 
@@ -135,12 +140,14 @@ impl StateCollector {
                     Some(before) if before > atten_db => Approach::Falling,
                     _ => Approach::Unknown,
                 };
+                let group = self.stage_number(&key.0);
                 self.visits.push((
                     key.clone(),
                     Gathered {
                         atten_db,
                         approach,
                         verifies: self.verify_stages.contains(&key.0),
+                        group,
                         bursts: Vec::new(),
                     },
                 ));
@@ -152,6 +159,17 @@ impl StateCollector {
             .1
             .bursts
             .push((burst_no, Burst { k_ps: ks, frames }));
+    }
+
+    /// The number of `stage`, in order of first appearance.
+    fn stage_number(&mut self, stage: &str) -> u32 {
+        match self.stages.iter().position(|s| s == stage) {
+            Some(i) => i as u32,
+            None => {
+                self.stages.push(stage.to_string());
+                self.stages.len() as u32 - 1
+            }
+        }
     }
 
     /// Infers the states and labels the bursts; `None` when the device reported gain indices.
@@ -182,6 +200,7 @@ impl StateCollector {
                     Visit {
                         atten_db: g.atten_db,
                         approach: g.approach,
+                        group: g.group,
                         bursts: g.bursts.iter().map(|(_, b)| b.clone()).collect(),
                     }
                 })
