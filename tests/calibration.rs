@@ -101,7 +101,8 @@ fn the_gain_map_finds_switch_points_within_1_5_db() {
                 // so instead of giving a number.
                 let row = out.read("r/gainmap.csv").lines().nth(1).map(str::to_string);
                 assert!(
-                    row.as_deref().is_some_and(|l| l.ends_with(",,,false,reported")),
+                    row.as_deref()
+                        .is_some_and(|l| l.ends_with(",,,false,reported")),
                     "{row:?}"
                 );
             }

@@ -295,6 +295,11 @@ fn a_run_on_a_gainless_bench_gives_an_inferred_table_a_verdict_and_the_same_tabl
         run.stdout
     );
     assert!(!run.read("run/verify.csv").is_empty());
+    let report = run.read("run/report.html");
+    assert!(
+        report.contains("states shown and these plateaus were inferred"),
+        "report marks them"
+    );
     let gainmap = run.read("run/gainmap.csv");
     assert!(
         gainmap.lines().skip(1).all(|l| l.ends_with(",inferred")),

@@ -256,8 +256,9 @@ fn hysteresis_sentence(rows: &[super::GainMapRow]) -> String {
         })
         .collect();
     if rows.iter().any(|r| r.states.as_deref() == Some("inferred")) {
-        return " The DUT reported no gain index: these plateaus were inferred from where K steps \
-                against receive level, and the table's rows are marked inferred."
+        return " The DUT reported no gain index: the states shown and these plateaus were \
+                inferred from where K steps against receive level (exchanges near a switch have \
+                none), and the table's rows are marked inferred."
             .into();
     }
     if parts.is_empty() {

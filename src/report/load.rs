@@ -7,6 +7,7 @@ use crate::bench::Bench;
 use crate::data::run_dir::files;
 use crate::data::{read_exchanges, Exchange, Manifest};
 use crate::fit::rtt::COUNTER_BITS;
+use crate::fit::state_labels::StateCollector;
 use crate::fit::stats::median;
 use crate::fit::{burst_delays, read_caltable, Deembed};
 use serde::Deserialize;
@@ -46,7 +47,9 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
     let gainmap = optional_csv::<GainMapRow>(dir, files::GAINMAP, &mut absent)?;
     let verify = optional_csv::<VerifyPoint>(dir, files::VERIFY, &mut absent)?;
 
-    let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
+    let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone())
+        .with_applied_k(manifest.fit.applied_k_ps.or(bench.applied_k_ps()));
+    label_inferred(&mut rows, &deembed, &manifest.fit.verify_stages);
     let (times, bench_time) = bench_times_s(&rows);
     let mut cells: BTreeMap<(u32, u32, u32), Vec<f64>> = BTreeMap::new();
     let mut bursts = Vec::new();
@@ -105,6 +108,21 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
         levels: level_gains(&rows, bench),
         absent,
     })
+}
+
+/// Gives the rows of a DUT that reports no gain index their inferred states, as the table's
+/// fit did, so the report's plots show the states the table holds.
+fn label_inferred(rows: &mut [Exchange], deembed: &Deembed, verify_stages: &[String]) {
+    let mut collector = StateCollector::new(deembed.clone(), verify_stages);
+    for x in rows.iter() {
+        collector.push(x);
+        if collector.reported_gain() {
+            return;
+        }
+    }
+    if let Some(labels) = collector.finish() {
+        rows.iter_mut().for_each(|x| labels.apply(x));
+    }
 }
 
 fn required(dir: &Path, name: &'static str) -> Result<std::path::PathBuf, ReportError> {
