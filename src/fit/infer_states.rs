@@ -36,13 +36,17 @@
 //! seen at several visits — three at the very least — to be found.
 //!
 //! States are numbered by level as an AGC numbers them: 0 for the segment at the lowest
-//! attenuation (strongest signal). Around each switch, the visits between the last one of the
-//! stronger-signal state and the first of the weaker, both included, are marked as near the
-//! switch, and so is every visit next to another change location that fits nearly as well
-//! ([`LOCATION_DELTA`]): with level noise the AGC toggles near its threshold, so bursts there
-//! mix states and the data place the change only roughly. A visit that leans from its state's
-//! mean toward a neighbouring state's by more than [`MIXED_Z`] standard errors is taken to mix
-//! them too. Such rows may hold either state, so the table leaves them out rather than guess.
+//! attenuation (strongest signal). Around each switch, every visit whose state would change if
+//! the change were placed at another location that fits nearly as well ([`LOCATION_DELTA`]) is
+//! marked as near the switch: with level noise the AGC toggles near its threshold, so bursts
+//! there mix states and the data place the change only roughly. So is the last visit of a
+//! state, or the first of the next, when far more of its bursts are nearer the other state's K
+//! than its state's visits have ([`ACROSS_MARGIN`]): the switch came during the visit. A visit that leans from its
+//! state's mean toward a neighbouring state's by more than [`MIXED_Z`] standard errors is taken
+//! to mix them too. Such rows may hold either state, so the table leaves them out rather than
+//! guess. The unsure span of a switch, for rows judged by level alone, runs from the last
+//! visit of one state to the first of the next (or across the hysteresis band they overlap
+//! in) and over every visit marked near it.
 //!
 //! Limits, by construction: states whose K differ by less than the noise allows (or by less
 //! than [`MIN_JUMP_PS`]) are one state; a state seen at fewer than two visits is not found; and
@@ -117,6 +121,8 @@ pub struct VisitSummary {
     pub k_ps: f64,
     /// Its standard error, shrunk and scaled as the module explains.
     pub se_ps: f64,
+    /// Degrees of freedom of its own bursts' spread (bursts kept − 1).
+    pub own_df: f64,
 }
 
 /// One inferred state.
@@ -138,8 +144,9 @@ pub struct InferredSwitch {
     /// The switch level: midway between the highest attenuation seen in `below` and the
     /// lowest seen in `below + 1` (these overlap when the hysteresis band was visited).
     pub atten_db: f64,
-    /// Lower end of the span where the state is unsure: the visits on either side of every
-    /// change location that fits about as well as the best, and of the hysteresis band seen.
+    /// Lower end of the span where the state is unsure by level: between the two states'
+    /// visits (or their overlap), and over the visits whose state depends on where the change
+    /// is placed.
     pub unsure_from_db: f64,
     /// Upper end of that span.
     pub unsure_to_db: f64,
@@ -233,16 +240,6 @@ impl InferredStates {
             inferred: true,
         }
     }
-
-    /// The state among `below` and `below + 1` whose K is nearer `k_ps`.
-    pub fn nearer(&self, below: u32, k_ps: f64) -> u32 {
-        let k = |s: u32| self.states.get(s as usize).map_or(f64::NAN, |st| st.k_ps);
-        if (k_ps - k(below + 1)).abs() < (k_ps - k(below)).abs() {
-            below + 1
-        } else {
-            below
-        }
-    }
 }
 
 /// Infers the states of one channel from its visits (any order).
@@ -296,8 +293,8 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
                 let v = summaries[i]?;
                 let factor = factors.get(&visits[i].group).copied().unwrap_or(overall);
                 Some(VisitSummary {
-                    k_ps: v.k_ps,
                     se_ps: v.se_ps * factor.sqrt(),
+                    ..v
                 })
             })
             .collect()
@@ -351,17 +348,24 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
         start = end;
     }
     let prefix = Prefix::new(&scaled);
+    // Per level-order position, the switch whose change location, moved to another that fits
+    // about as well, would change the visit's state.
+    let mut flipping: Vec<Option<u32>> = vec![None; order.len()];
     for below in 0..out.states.len().saturating_sub(1) {
         let (a, b) = (&out.states[below], &out.states[below + 1]);
-        // Every visit next to a change location the data cannot tell from the best one.
         let first = if below == 0 { 0 } else { ends[below - 1] };
         let (change, last) = (ends[below], ends[below + 1]);
         let best = prefix.cost(first, change) + prefix.cost(change, last);
         let plausible = (first + MIN_SEGMENT..=last - MIN_SEGMENT)
             .filter(|&t| prefix.cost(first, t) + prefix.cost(t, last) - best <= LOCATION_DELTA);
-        let (from, to) = plausible
-            .flat_map(|t| [order[t - 1], order[t]])
-            .map(|i| visits[i].atten_db)
+        for t in plausible {
+            for slot in &mut flipping[t.min(change)..t.max(change)] {
+                *slot = Some(below as u32);
+            }
+        }
+        let (from, to) = (0..order.len())
+            .filter(|&pos| flipping[pos] == Some(below as u32))
+            .map(|pos| visits[order[pos]].atten_db)
             .fold(
                 (
                     a.atten_max_db.min(b.atten_min_db),
@@ -383,18 +387,48 @@ pub fn infer_states(visits: &[Visit]) -> InferredStates {
             falling_db: pass(Approach::Falling),
         });
     }
+    // The last visit of a state and the first of the next: many more of its bursts nearer the
+    // other state's K than its state's visits have says the switch came during the visit.
+    for (below, &change) in ends.iter().enumerate().take(ends.len().saturating_sub(1)) {
+        let (own, other) = (out.states[below].k_ps, out.states[below + 1].k_ps);
+        let first = if below == 0 { 0 } else { ends[below - 1] };
+        for (pos, run, near, far) in [
+            (change - 1, first..change, own, other),
+            (change, change..ends[below + 1], other, own),
+        ] {
+            let share = |r: std::ops::Range<usize>| {
+                let (across, all) = r
+                    .map(|p| across(&visits[order[p]], near, far))
+                    .fold((0, 0), |(a, n), (x, m)| (a + x, n + m));
+                across as f64 / all.max(1) as f64
+            };
+            let (visit, state) = (share(pos..pos + 1), share(run));
+            if flipping[pos].is_none() && visit > (2.0 * state).max(state + ACROSS_MARGIN) {
+                flipping[pos] = Some(below as u32);
+            }
+        }
+    }
     for (pos, &i) in order.iter().enumerate() {
-        let near = out
-            .switches
-            .iter()
-            .find(|s| (s.unsure_from_db..=s.unsure_to_db).contains(&visits[i].atten_db))
-            .map(|s| s.below)
-            .or_else(|| mixed(&out, &prefix, &ends, pos, scaled[pos]));
+        let near = flipping[pos].or_else(|| mixed(&out, &prefix, &ends, pos, scaled[pos]));
         if let Some(below) = near {
             out.visits[i] = VisitState::NearSwitch { below };
         }
     }
     out
+}
+
+/// How many of `v`'s bursts (each its rows' median K) are nearer `other_ps` than `own_ps`, and
+/// of how many.
+fn across(v: &Visit, own_ps: f64, other_ps: f64) -> (usize, usize) {
+    let (mut across, mut all) = (0, 0);
+    for b in &v.bursts {
+        let mut ks: Vec<f64> = b.k_ps.iter().copied().filter(|k| k.is_finite()).collect();
+        if let Some(k) = median(&mut ks) {
+            all += 1;
+            across += usize::from((k - other_ps).abs() < (k - own_ps).abs());
+        }
+    }
+    (across, all)
 }
 
 /// For the visit at level-order position `pos` with summary `y`: the switch (by its `below`)
@@ -492,6 +526,7 @@ pub fn summarise(visits: &[Visit]) -> Vec<Option<VisitSummary>> {
         out[i] = Some(VisitSummary {
             k_ps: here.k_ps,
             se_ps: (shrunk / here.frames).sqrt(),
+            own_df: df,
         });
     }
     out
@@ -633,6 +668,13 @@ const MIN_GROUP_VISITS: usize = 6;
 /// Two-sided level of the scatter test every change must also pass ([`welch_ratio`]).
 const WELCH_ALPHA: f64 = 0.01;
 
+/// The last visit of a state (or the first of the next) is taken to have switched during the
+/// visit when the share of its bursts nearer the neighbouring state's K exceeds both twice the
+/// share over its state's visits and that share plus this margin. Noise puts some bursts
+/// across in every visit; a switch puts many more in one. A state of one visit cannot be
+/// judged so.
+const ACROSS_MARGIN: f64 = 0.25;
+
 /// Hysteresis bands tried, in steps of [`BAND_STEP_DB`] from none.
 const BAND_STEPS: u32 = 24;
 
@@ -645,8 +687,12 @@ fn penalty(n: usize) -> f64 {
     2.0 * (n as f64).ln()
 }
 
-/// Shortest segment, in visits.
-const MIN_SEGMENT: usize = 2;
+/// Shortest segment, in visits: one, if it passes the scatter test on its own bursts.
+const MIN_SEGMENT: usize = 1;
+
+/// Degrees of freedom a segment's scatter must have for the scatter test to find it distinct:
+/// two visits, or one visit of three bursts.
+const MIN_LONE_DF: f64 = 1.0;
 
 /// PELT: the segment ends (exclusive, the last is `ys.len()`) minimising cost plus
 /// [`penalty`] per change, and that minimum. The cost satisfies `C(a,c) ≥ C(a,b) + C(b,c)`, so pruning is exact.
@@ -695,22 +741,27 @@ fn pelt(ys: &[VisitSummary]) -> (Vec<usize>, f64) {
 /// runs do not differ by their own scatter. Standard errors shrunk toward neighbours can be
 /// too small where the noise grows fast (near sensitivity); the visits' own scatter cannot.
 fn welch_ratio(a: &[VisitSummary], b: &[VisitSummary]) -> f64 {
-    let moments = |r: &[VisitSummary]| {
-        let n = r.len() as f64;
-        let mean = r.iter().map(|v| v.k_ps).sum::<f64>() / n;
-        let var = r.iter().map(|v| (v.k_ps - mean).powi(2)).sum::<f64>() / (n - 1.0);
-        (n, mean, var / n)
+    // (degrees of freedom, mean, squared standard error of the mean). A lone visit has no
+    // scatter of visits: its own bursts' spread stands in, if it has enough of them.
+    let moments = |r: &[VisitSummary]| match r {
+        [lone] => (lone.own_df, lone.k_ps, lone.se_ps.powi(2)),
+        _ => {
+            let n = r.len() as f64;
+            let mean = r.iter().map(|v| v.k_ps).sum::<f64>() / n;
+            let var = r.iter().map(|v| (v.k_ps - mean).powi(2)).sum::<f64>() / (n - 1.0);
+            (n - 1.0, mean, var / n)
+        }
     };
-    if a.len() < 2 || b.len() < 2 {
+    let ((da, ma, va), (db, mb, vb)) = (moments(a), moments(b));
+    if da < MIN_LONE_DF || db < MIN_LONE_DF {
         return 0.0;
     }
-    let ((na, ma, va), (nb, mb, vb)) = (moments(a), moments(b));
     let se = (va + vb).sqrt();
     if se == 0.0 {
         return f64::INFINITY;
     }
     // Welch–Satterthwaite degrees of freedom.
-    let df = (va + vb).powi(2) / (va * va / (na - 1.0) + vb * vb / (nb - 1.0));
+    let df = (va + vb).powi(2) / (va * va / da + vb * vb / db);
     let critical = StudentsT::new(0.0, 1.0, df.max(1.0))
         .map_or(f64::INFINITY, |t| t.inverse_cdf(1.0 - WELCH_ALPHA / 2.0));
     (mb - ma).abs() / se / critical
@@ -780,10 +831,15 @@ mod tests {
     /// A sweep from 10 to 70 dB in `step_db` steps, rising then falling, of a device whose K
     /// is 2100/2330/2610 ps in states switching at 30 and 50 dB with `band_db` of hysteresis.
     fn three_states(seed: u64, step_db: f64, band_db: f64) -> Vec<Visit> {
+        three_states_with_truth(seed, step_db, band_db).0
+    }
+
+    /// [`three_states`] and the state each visit was truly in.
+    fn three_states_with_truth(seed: u64, step_db: f64, band_db: f64) -> (Vec<Visit>, Vec<u32>) {
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let ks = [2100.0, 2330.0, 2610.0];
         let mut state = 0usize;
-        let mut out = Vec::new();
+        let (mut out, mut truth) = (Vec::new(), Vec::new());
         let n = ((70.0 - 10.0) / step_db) as usize;
         let mut levels: Vec<(f64, Approach)> = (0..=n)
             .map(|i| (10.0 + step_db * i as f64, Approach::Rising))
@@ -802,8 +858,9 @@ mod tests {
                 state -= 1;
             }
             out.push(visit(&mut rng, a, way, &[ks[state]; 4], 80.0));
+            truth.push(state as u32);
         }
-        out
+        (out, truth)
     }
 
     #[test]
@@ -828,17 +885,15 @@ mod tests {
     }
 
     #[test]
-    fn visits_in_the_hysteresis_band_are_near_the_switch_and_the_rest_are_in_a_state() {
-        let visits = three_states(4, 2.0, 4.0);
+    fn visits_are_in_their_true_state_or_near_the_switch() {
+        let (visits, truth) = three_states_with_truth(4, 2.0, 4.0);
         let got = infer_states(&visits);
-        for (v, s) in visits.iter().zip(&got.visits) {
+        for ((v, s), want) in visits.iter().zip(&got.visits).zip(truth) {
             let a = v.atten_db;
             match *s {
-                VisitState::In(g) => {
-                    // Clearly inside a plateau: away from both thresholds by the half band.
-                    let want = u32::from(a > 30.0) + u32::from(a > 50.0);
-                    assert_eq!(g, want, "{a} dB {v:?}");
-                }
+                // In the band too: the sweep's direction orders the visits as the AGC's
+                // history did.
+                VisitState::In(g) => assert_eq!(g, want, "{a} dB {v:?}"),
                 VisitState::NearSwitch { below } => {
                     let t = [30.0, 50.0][below as usize];
                     assert!((a - t).abs() <= 2.0 + 2.0, "{a} dB near {t}");
@@ -851,8 +906,6 @@ mod tests {
         assert_eq!(got.state_at(40.0), Ok(1));
         assert_eq!(got.state_at(68.0), Ok(2));
         assert_eq!(got.state_at(30.0), Err(0));
-        assert_eq!(got.nearer(0, 2300.0), 1);
-        assert_eq!(got.nearer(0, 2150.0), 0);
     }
 
     #[test]
@@ -963,7 +1016,11 @@ mod tests {
     #[test]
     fn the_weighted_cost_is_the_chi_square_of_a_run_about_its_mean() {
         let ys: Vec<VisitSummary> = [(1.0, 1.0), (3.0, 1.0), (2.0, 0.5)]
-            .map(|(k_ps, se_ps)| VisitSummary { k_ps, se_ps })
+            .map(|(k_ps, se_ps)| VisitSummary {
+                k_ps,
+                se_ps,
+                own_df: 0.0,
+            })
             .to_vec();
         let p = Prefix::new(&ys);
         // Weights 1, 1, 4: mean (1 + 3 + 8)/6 = 2; χ² = 1 + 1 + 0 = 2.
