@@ -179,7 +179,7 @@ fn infer_labels(
         if l.unsure_verify_bursts > 0 {
             tracing::warn!(
                 "{} verification bursts not judged: their levels lie where the inferred state is \
-                 unsure (between the fitted points around a switch); fit points closer to it",
+                 unsure (around a switch); a finer gain map (more frames a point) narrows that",
                 l.unsure_verify_bursts
             );
         }
