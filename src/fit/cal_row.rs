@@ -25,9 +25,13 @@ impl RowSource {
 
     /// The source a `source` column value names.
     pub fn parse(text: &str) -> Option<RowSource> {
-        [RowSource::Measured, RowSource::Modelled, RowSource::Inferred]
-            .into_iter()
-            .find(|s| s.as_str() == text)
+        [
+            RowSource::Measured,
+            RowSource::Modelled,
+            RowSource::Inferred,
+        ]
+        .into_iter()
+        .find(|s| s.as_str() == text)
     }
 
     /// True for rows estimated from exchanges of their cell (measured or inferred), false for
