@@ -7,11 +7,11 @@
 //! each burst by the median K of its rows, the visit by the frame-weighted mean of its burst
 //! values within 3.5 robust standard deviations of their median — with a standard error from
 //! the spread *between* its bursts, a burst of `f` frames counting as `f` frames' worth (so
-//! stages of different burst sizes pool). Few bursts make that spread a poor estimate, so it is shrunk toward the
-//! pooled spread of the neighbouring visits (a prior worth [`PRIOR_DF`] degrees of freedom); a
-//! visit of one burst takes its neighbours' spread outright. The spreads of each group of
-//! visits (a stage: one burst size, one way of taking them) are then scaled by an
-//! over-dispersion factor measured from the data themselves: successive differences of the
+//! stages of different burst sizes pool). Few bursts make that spread a poor estimate, so it is
+//! shrunk toward the pooled spread of the neighbouring visits (a prior worth [`PRIOR_DF`]
+//! degrees of freedom); a visit of one burst takes its neighbours' spread outright. The spreads
+//! of each group of visits (a stage: one burst size, one way of taking them) are then scaled by
+//! an over-dispersion factor measured from the data themselves: successive differences of the
 //! group's visits in level order, standardised, whose median would be that of χ²₁ if the
 //! errors were right (a few differences across real switches barely move a median). Per group,
 //! because the frames of a burst do not scale its noise exactly: a device trimming eight frames
@@ -26,14 +26,13 @@
 //!
 //! The ordered summaries are segmented by PELT (Killick, Fearnhead & Eckley 2012) with a
 //! weighted Gaussian cost `Σ (y − ȳ)²/se²` — a visit counts by how well it is known — and a
-//! BIC penalty of `2·ln n` per change (a new mean and a change location). Segments must
-//! hold two visits. A change the penalty admits must then also be a practical one: adjacent
-//! segments whose means differ by less than [`MIN_JUMP_Z`] standard errors, or by less than
-//! [`MIN_JUMP_PS`], or not by Welch's t on the scatter of their visits' values (level
-//! [`WELCH_ALPHA`]), are merged, the least distinct pair first, until every change passes all
-//! three. The last test needs no standard errors at all, so noise growing faster than the
-//! shrunk errors follow (toward sensitivity) cannot make a state; it also means a state must be
-//! seen at several visits — three at the very least — to be found.
+//! BIC penalty of `2·ln n` per change (a new mean and a change location). A change the penalty
+//! admits must then also be a practical one: adjacent segments whose means differ by less than
+//! [`MIN_JUMP_Z`] standard errors, or by less than [`MIN_JUMP_PS`], or not by Welch's t on the
+//! scatter of their visits' values (level [`WELCH_ALPHA`]; a segment of one visit offers its own
+//! bursts' scatter), are merged, the least distinct pair first, until every change passes all
+//! three. The last test leans on no modelled standard error, so noise growing faster than the
+//! shrunk errors follow (toward sensitivity) cannot make a state.
 //!
 //! States are numbered by level as an AGC numbers them: 0 for the segment at the lowest
 //! attenuation (strongest signal). Around each switch, every visit whose state would change if
@@ -41,16 +40,17 @@
 //! marked as near the switch: with level noise the AGC toggles near its threshold, so bursts
 //! there mix states and the data place the change only roughly. So is the last visit of a
 //! state, or the first of the next, when far more of its bursts are nearer the other state's K
-//! than its state's visits have ([`ACROSS_MARGIN`]): the switch came during the visit. A visit that leans from its
-//! state's mean toward a neighbouring state's by more than [`MIXED_Z`] standard errors is taken
-//! to mix them too. Such rows may hold either state, so the table leaves them out rather than
-//! guess. The unsure span of a switch, for rows judged by level alone, runs from the last
-//! visit of one state to the first of the next (or across the hysteresis band they overlap
-//! in) and over every visit marked near it.
+//! than its state's visits have ([`ACROSS_MARGIN`]): the switch came during the visit. A visit
+//! that leans from its state's mean toward a neighbouring state's by more than [`MIXED_Z`]
+//! standard errors is taken to mix them too. Such rows may hold either state, so the table
+//! leaves them out rather than guess. The unsure span of a switch, for rows judged by level
+//! alone, runs from the last visit of one state to the first of the next (or across the
+//! hysteresis band they overlap in) and over every visit marked near it.
 //!
 //! Limits, by construction: states whose K differ by less than the noise allows (or by less
-//! than [`MIN_JUMP_PS`]) are one state; a state seen at fewer than two visits is not found; and
-//! a switch is placed only to within the points around it and the hysteresis band.
+//! than [`MIN_JUMP_PS`]) are one state; a state seen at one visit is found only when that visit
+//! has bursts enough to show its own spread, and one seen at a few coarse visits may not be;
+//! and a switch is placed only to within the points around it and the hysteresis band.
 
 use crate::fit::gainmap::{GainMap, Plateau, Switch};
 use crate::fit::stats::{mad_scaled, median};
@@ -656,24 +656,24 @@ impl Prefix {
 /// How much worse (in the weighted cost, a χ² scale) a change location may fit than the best
 /// and still be plausible: the χ²₁ 95 % point, 3.84. A change location is not a regular
 /// parameter, so this is a working rule; the tests measure what it gives.
-const LOCATION_DELTA: f64 = 3.84;
+pub const LOCATION_DELTA: f64 = 3.84;
 
 /// A visit further than this many standard errors from its state's mean, toward a
 /// neighbouring state, is taken to mix the two.
-const MIXED_Z: f64 = 3.0;
+pub const MIXED_Z: f64 = 3.0;
 
 /// A group of visits needs more than this many to have an over-dispersion factor of its own.
 const MIN_GROUP_VISITS: usize = 6;
 
 /// Two-sided level of the scatter test every change must also pass ([`welch_ratio`]).
-const WELCH_ALPHA: f64 = 0.01;
+pub const WELCH_ALPHA: f64 = 0.01;
 
 /// The last visit of a state (or the first of the next) is taken to have switched during the
 /// visit when the share of its bursts nearer the neighbouring state's K exceeds both twice the
 /// share over its state's visits and that share plus this margin. Noise puts some bursts
 /// across in every visit; a switch puts many more in one. A state of one visit cannot be
 /// judged so.
-const ACROSS_MARGIN: f64 = 0.25;
+pub const ACROSS_MARGIN: f64 = 0.25;
 
 /// Hysteresis bands tried, in steps of [`BAND_STEP_DB`] from none.
 const BAND_STEPS: u32 = 24;
