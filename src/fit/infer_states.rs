@@ -665,7 +665,8 @@ pub const MIXED_Z: f64 = 3.0;
 /// A group of visits needs more than this many to have an over-dispersion factor of its own.
 const MIN_GROUP_VISITS: usize = 6;
 
-/// Two-sided level of the scatter test every change must also pass ([`welch_ratio`]).
+/// Two-sided level of the scatter test every change must also pass: Welch's t on the values of
+/// the two segments' visits.
 pub const WELCH_ALPHA: f64 = 0.01;
 
 /// The last visit of a state (or the first of the next) is taken to have switched during the
