@@ -130,35 +130,28 @@ fn a_one_state_device_is_not_split_in_98_percent_of_seeds() {
     );
 }
 
-#[test]
-fn three_states_with_hysteresis_are_counted_and_placed_in_95_percent_of_seeds() {
-    // The Vellisk-5 bench as shipped: three states (K = 1650 + [940, 1180, 1460] ps),
-    // thresholds −33 and −57 dBm with 2 dB of hysteresis, burst-averaged distances and no gain
-    // index. A gain-map sweep up and down in 2 dB steps, 2 bursts of 16 frames a point. Each
-    // inferred switch must lie within the step plus the hysteresis of its threshold.
-    let b = bench("sim-vellisk5.toml");
-    let truth = b.sim.clone().expect("simulated");
-    let (step_db, band_db) = (2.0, truth.dut.gain_hysteresis_db);
+/// Seeds of `truth` (mapped up and down in `step_db` steps, 2 bursts of `frames` a point) in
+/// which three states are found, each switch within the step plus the hysteresis of its
+/// threshold; and the worst switch error among those.
+fn placed(b: &Bench, truth: &SimTruth, step_db: f64, frames: u32, seeds: u64) -> (u32, f64) {
+    let band_db = truth.dut.gain_hysteresis_db;
     let stages = [Stage {
         name: "map",
         attens_db: up_and_down(16.0, 86.0, step_db),
         bursts: 2,
-        frames: 16,
+        frames,
     }];
-    let seeds = 120;
-    let mut right = 0;
-    let mut worst_db: f64 = 0.0;
+    let (mut right, mut worst_db) = (0, 0.0f64);
     for seed in 0..seeds {
-        let rows = simulate(&b, &truth, 100 + seed, &stages);
-        let states = inferred(&b, &truth, &rows);
+        let rows = simulate(b, truth, 100 + seed, &stages);
+        let states = inferred(b, truth, &rows);
         let errors: Vec<f64> = states
             .switches
             .iter()
             .zip(&truth.dut.gain_thresholds_dbm)
             .map(|(s, t)| (b.dut_rx_dbm(s.atten_db) - t).abs())
             .collect();
-        let ok = states.states.len() == 3 && errors.iter().all(|e| *e <= step_db + band_db);
-        if ok {
+        if states.states.len() == 3 && errors.iter().all(|e| *e <= step_db + band_db) {
             right += 1;
             worst_db = errors.iter().copied().fold(worst_db, f64::max);
         } else {
@@ -168,13 +161,42 @@ fn three_states_with_hysteresis_are_counted_and_placed_in_95_percent_of_seeds() 
             );
         }
     }
-    eprintln!(
-        "three states: right in {right} of {seeds} seeds; worst switch error {worst_db:.2} dB"
-    );
-    assert!(
-        f64::from(right) >= 0.95 * seeds as f64,
-        "{right} of {seeds} seeds"
-    );
+    (right, worst_db)
+}
+
+#[test]
+fn three_states_with_hysteresis_are_counted_and_placed_in_95_percent_of_seeds() {
+    // The Vellisk-5 bench as shipped: three states (K = 1650 + [940, 1180, 1460] ps),
+    // thresholds −33 and −57 dBm with 2 dB of hysteresis, burst-averaged distances and no gain
+    // index, mapped at 2 dB steps, 16 frames a burst. Then the Marlet-40 bench with 4 dB of
+    // hysteresis reporting raw timestamps, mapped likewise.
+    let vellisk = bench("sim-vellisk5.toml");
+    let marlet = bench("sim-marlet40.toml");
+    let mut wide = marlet.sim.clone().expect("simulated");
+    wide.dut.gain_hysteresis_db = 4.0;
+    wide.dut.reports = DutReports::Timestamps;
+    wide.dut.applied_k_ps = None;
+    let seeds = 120;
+    for (name, b, truth, step_db, frames) in [
+        (
+            "vellisk-5",
+            &vellisk,
+            vellisk.sim.clone().expect("simulated"),
+            2.0,
+            16,
+        ),
+        ("marlet-40, 4 dB band", &marlet, wide, 2.0, 16),
+    ] {
+        let (right, worst_db) = placed(b, &truth, step_db, frames, seeds);
+        eprintln!(
+            "{name}: three states placed in {right} of {seeds} seeds; worst switch error \
+             {worst_db:.2} dB"
+        );
+        assert!(
+            f64::from(right) >= 0.95 * seeds as f64,
+            "{name}: {right} of {seeds} seeds"
+        );
+    }
 }
 
 /// Per state, (K, ci95) of the table fitted from `rows` written to a file in `dir`.
