@@ -273,6 +273,20 @@ mod tests {
             .unwrap_or(false)
     }
 
+    /// Starts `/bin/sh -c script`, whose first line is a process id, and reads that id.
+    async fn started_with_pid(script: &str) -> (ProcessStream, u32) {
+        let words: Vec<String> = ["/bin/sh", "-c", script].map(String::from).to_vec();
+        let mut stream = spawn(&words, "exec:test").expect("starts");
+        let mut framer = crate::instrument::line::LineFramer::new();
+        let pid =
+            crate::instrument::line::read_line(&mut stream, &mut framer, Duration::from_secs(5))
+                .await
+                .expect("pid line")
+                .parse()
+                .expect("a pid");
+        (stream, pid)
+    }
+
     /// True once `pid` has stopped running, waiting up to a second for the signal to land.
     fn ends(pid: u32) -> bool {
         (0..100).any(|_| {
@@ -284,17 +298,7 @@ mod tests {
     #[tokio::test]
     async fn a_program_that_ignores_its_closed_stdin_is_killed_after_the_grace() {
         // It never reads its stdin, so closing that does not end it.
-        let words: Vec<String> = ["/bin/sh", "-c", "echo $$; exec sleep 30"]
-            .map(String::from)
-            .to_vec();
-        let mut stream = spawn(&words, "exec:test").expect("starts");
-        let mut framer = crate::instrument::line::LineFramer::new();
-        let pid: u32 =
-            crate::instrument::line::read_line(&mut stream, &mut framer, Duration::from_secs(5))
-                .await
-                .expect("pid line")
-                .parse()
-                .expect("a pid");
+        let (stream, pid) = started_with_pid("echo $$; exec sleep 30").await;
         assert!(alive(pid));
         let started = Instant::now();
         drop(stream);
@@ -305,17 +309,7 @@ mod tests {
 
     #[tokio::test]
     async fn a_program_that_ends_on_a_closed_stdin_is_not_killed() {
-        let words: Vec<String> = ["/bin/sh", "-c", "echo $$; cat >/dev/null"]
-            .map(String::from)
-            .to_vec();
-        let mut stream = spawn(&words, "exec:test").expect("starts");
-        let mut framer = crate::instrument::line::LineFramer::new();
-        let pid: u32 =
-            crate::instrument::line::read_line(&mut stream, &mut framer, Duration::from_secs(5))
-                .await
-                .expect("pid line")
-                .parse()
-                .expect("a pid");
+        let (stream, pid) = started_with_pid("echo $$; cat >/dev/null").await;
         let started = Instant::now();
         drop(stream);
         assert!(started.elapsed() < END_GRACE, "waited the whole grace");
@@ -325,17 +319,7 @@ mod tests {
     #[tokio::test]
     async fn what_the_program_left_running_is_ended_with_it() {
         // A shell's background job outlives the shell unless its process group is ended.
-        let words: Vec<String> = ["/bin/sh", "-c", "sleep 300 & echo $!; exec cat >/dev/null"]
-            .map(String::from)
-            .to_vec();
-        let mut stream = spawn(&words, "exec:test").expect("starts");
-        let mut framer = crate::instrument::line::LineFramer::new();
-        let job: u32 =
-            crate::instrument::line::read_line(&mut stream, &mut framer, Duration::from_secs(5))
-                .await
-                .expect("pid line")
-                .parse()
-                .expect("a pid");
+        let (stream, job) = started_with_pid("sleep 300 & echo $!; exec cat >/dev/null").await;
         assert!(alive(job));
         drop(stream);
         assert!(ends(job), "the background job outlived the program");
