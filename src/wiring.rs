@@ -56,8 +56,8 @@ pub fn connect(
                 "add [sim], or give every role a driver file and an address",
             )));
         };
-        let model =
-            SimBench::new(truth, &bench.path, seed).map_err(|e| bench.source.key_error(e))?;
+        let model = SimBench::new(truth, &truth.true_path(&bench.path), seed)
+            .map_err(|e| bench.source.key_error(e))?;
         let world = SimWorld {
             bench: model,
             chamber: truth.chamber.as_ref().map(SimChamber::new),

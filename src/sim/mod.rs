@@ -15,6 +15,7 @@ pub mod device_report;
 pub mod faults;
 pub mod front;
 pub mod model;
+pub mod population;
 pub mod serve;
 pub mod timing;
 pub mod truth;

@@ -4,9 +4,11 @@
 //! `jitter_ps`, `outlier_rate`, `[sim.reference] delay_ps`) are a contract; the rest have
 //! defaults chosen to look like a typical 5 GHz conducted bench.
 
-use crate::bench::PerGain;
+pub use super::population::{SimPopulation, SimStation};
+use crate::bench::{PathFacts, PerGain};
 use crate::diagnostic::KeyError;
 use serde::Deserialize;
+use std::collections::BTreeMap;
 
 /// Everything the simulator needs beyond the bench's `[path]`.
 #[derive(Debug, Clone, Deserialize)]
@@ -37,6 +39,23 @@ pub struct SimTruth {
     /// A climatic chamber around the DUT, served to a bench role `chamber`.
     #[serde(default)]
     pub chamber: Option<SimChamberTruth>,
+    /// The true path where it differs from the one the bench declares.
+    #[serde(default)]
+    pub path: Option<SimPath>,
+    /// How units vary around `[sim.dut]`, for `taucal sim fleet`.
+    #[serde(default)]
+    pub population: Option<SimPopulation>,
+    /// Stations of a simulated line, by name, for `taucal sim fleet`.
+    #[serde(default)]
+    pub stations: BTreeMap<String, SimStation>,
+}
+
+/// `[sim.path]`: the path as it truly is.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimPath {
+    /// True one-way cable and fixture delay, where it differs from `[path] cable_delay_ps`.
+    pub cable_delay_ps: f64,
 }
 
 /// Truth of the device under test.
@@ -326,8 +345,27 @@ impl SimTruth {
         }
     }
 
+    /// The path the simulator uses: the declared one, its cable delay replaced by `[sim.path]`'s
+    /// where given.
+    pub fn true_path(&self, declared: &PathFacts) -> PathFacts {
+        let mut path = declared.clone();
+        if let Some(p) = &self.path {
+            path.cable_delay_ps = p.cable_delay_ps;
+        }
+        path
+    }
+
     /// Checks what serde cannot: table lengths, orderings and ranges.
     pub fn validate(&self) -> Result<(), KeyError> {
+        if let Some(p) = &self.path {
+            finite("sim.path.cable_delay_ps", p.cable_delay_ps)?;
+        }
+        if let Some(p) = &self.population {
+            p.validate()?;
+        }
+        for (name, st) in &self.stations {
+            finite(&format!("sim.stations.{name}.path_error_ps"), st.path_error_ps)?;
+        }
         let d = &self.dut;
         if d.rx_delay_ps.is_empty() {
             return Err(KeyError::new(
@@ -524,7 +562,7 @@ fn finite_all(key: &str, v: &[f64]) -> Result<(), KeyError> {
         .try_for_each(|(i, x)| finite(&format!("{key}.{i}"), *x))
 }
 
-fn non_negative(key: &str, v: f64) -> Result<(), KeyError> {
+pub(crate) fn non_negative(key: &str, v: f64) -> Result<(), KeyError> {
     if v.is_finite() && v >= 0.0 {
         Ok(())
     } else {
