@@ -8,6 +8,7 @@ pub mod data;
 pub mod diagnostic;
 pub mod export;
 pub mod fit;
+pub mod fleet;
 pub mod in_turn;
 pub mod instrument;
 pub mod recipe;

@@ -78,6 +78,47 @@ pub enum Command {
     /// The results store: every run indexed by unit (SQLite or PostgreSQL).
     #[command(subcommand)]
     Store(StoreCommand),
+    /// Population science on the store: spread per cell, outlier units, station bias.
+    #[command(subcommand)]
+    Fleet(FleetCommand),
+}
+
+/// `taucal fleet …`.
+#[derive(Debug, Subcommand)]
+pub enum FleetCommand {
+    /// Per cell over each unit's latest accepted run: spread, percentiles, tolerance interval.
+    #[command(
+        after_help = "Columns: center_mhz,bw_mhz,gain_index,units,mean_ps,sd_ps,p05_ps,p50_ps,p95_ps,tol_lo_ps,tol_hi_ps,\nthen noise_sd_ps,unit_sd_ps (the spread split into measurement noise and true unit spread).\nThe text form then lists outlier units by a robust score.\n\nExamples:\n  taucal fleet stats\n  taucal fleet stats --store postgres://line4@db.lab/cal --format csv"
+    )]
+    Stats(FleetStatsArgs),
+    /// Each station's offset against the fleet, with a 95 % interval; flags biased stations.
+    #[command(
+        after_help = "Columns: station,units,offset_ps,ci95_ps,flagged. A station whose true path is e ps longer\nthan it declares shows an offset of about +2e ps (the round trip).\n\nExamples:\n  taucal fleet stations\n  taucal fleet stations --threshold-ps 30 --format csv"
+    )]
+    Stations(FleetStationsArgs),
+}
+
+/// `taucal fleet stats`.
+#[derive(Debug, Args)]
+pub struct FleetStatsArgs {
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "text")]
+    pub format: ListFormat,
+}
+
+/// `taucal fleet stations`.
+#[derive(Debug, Args)]
+pub struct FleetStationsArgs {
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "text")]
+    pub format: ListFormat,
+    /// Smallest offset worth flagging, ps.
+    #[arg(long, value_name = "PS", default_value_t = 20.0)]
+    pub threshold_ps: f64,
 }
 
 /// `taucal sim …`.
@@ -88,6 +129,38 @@ pub enum SimCommand {
         after_help = "Examples:\n  taucal sim serve\n  taucal sim serve --bench recipes/benches/sim-demo.toml --listen attenuator=tcp:127.0.0.1:5025 --listen dut=pty\n\nPrints `ROLE ADDRESS` for each role served, then runs until SIGINT or SIGTERM."
     )]
     Serve(SimServeArgs),
+    /// Calibrate a simulated fleet: N units drawn from the bench's [sim.population], each a real
+    /// run in virtual time, recorded into the store.
+    #[command(
+        after_help = "Units get serials of their own and go to the stations in turn; a station named in the bench's\n[sim.stations] has that true path error. The same --seed gives the same fleet.\n\nExamples:\n  taucal sim fleet recipes/factory-quick.toml --bench recipes/benches/sim-fleet-line.toml --units 200\n  taucal sim fleet recipes/factory-quick.toml --bench recipes/benches/sim-fleet-line.toml --units 1000 --stations a,b,c --store sqlite:/tmp/fleet.sqlite --truth-out truth.csv"
+    )]
+    Fleet(SimFleetArgs),
+}
+
+/// `taucal sim fleet`.
+#[derive(Debug, Args)]
+pub struct SimFleetArgs {
+    /// Recipe file.
+    pub recipe: PathBuf,
+    #[command(flatten)]
+    pub bench: BenchArg,
+    /// How many units.
+    #[arg(long, value_name = "N")]
+    pub units: u32,
+    /// Stations, comma-separated (default: the bench's [sim.stations], else its station).
+    #[arg(long, value_name = "A,B,C", value_delimiter = ',')]
+    pub stations: Vec<String>,
+    /// Seed of the fleet (default: the bench's [sim] seed).
+    #[arg(long, value_name = "N")]
+    pub seed: Option<u64>,
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// Write each unit's true K per cell here (CSV).
+    #[arg(long, value_name = "FILE")]
+    pub truth_out: Option<PathBuf>,
+    /// Folder for the units' run directories (default runs/fleet-<seed>).
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
 }
 
 /// `taucal sim serve`.

@@ -8,6 +8,7 @@ pub mod csv_file;
 pub mod exit;
 pub mod export;
 pub mod fit;
+pub mod fleet;
 pub mod log;
 pub mod ota;
 pub mod pairs;
@@ -15,6 +16,7 @@ pub mod progress;
 pub mod report;
 pub mod resume;
 pub mod run;
+pub mod sim_fleet;
 pub mod sim_serve;
 pub mod store;
 pub mod store_ledger;
@@ -38,7 +40,11 @@ pub fn main() -> Exit {
             };
         }
     };
-    let verbosity = log::Verbosity::from_flags(cli.quiet, cli.verbose);
+    let mut verbosity = log::Verbosity::from_flags(cli.quiet, cli.verbose);
+    // A fleet is hundreds of runs: their stage-by-stage news would bury its warnings.
+    if matches!(cli.command, Command::Sim(SimCommand::Fleet(_))) && !cli.verbose {
+        verbosity = log::Verbosity::Quiet;
+    }
     log::init(verbosity);
     let result = match cli.command {
         Command::Run(a) => run::run(a, verbosity),
@@ -46,12 +52,14 @@ pub fn main() -> Exit {
         Command::Resume(a) => resume::run(a, verbosity),
         Command::Fit(a) => fit::run(a),
         Command::Sim(SimCommand::Serve(a)) => sim_serve::run(a),
+        Command::Sim(SimCommand::Fleet(a)) => sim_fleet::run(a),
         Command::Pairs(a) => pairs::run(a),
         Command::Ota(a) => ota::run(a),
         Command::Export(a) => export::run(a),
         Command::Report(a) => report::run(a),
         Command::Completions(a) => Ok(completions::run(a)),
         Command::Store(c) => store::run(c),
+        Command::Fleet(c) => fleet::run(c),
     };
     match result {
         Ok(exit) => exit,

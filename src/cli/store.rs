@@ -23,7 +23,7 @@ pub fn run(command: StoreCommand) -> Result<Exit, Diagnostic> {
     }
 }
 
-fn fail(e: StoreError) -> Diagnostic {
+pub(super) fn fail(e: StoreError) -> Diagnostic {
     let hint = match &e {
         StoreError::Url { .. } => URL_HINT,
         StoreError::Connect { .. } => {
@@ -39,7 +39,7 @@ fn fail(e: StoreError) -> Diagnostic {
 
 /// Opens a store that must exist already (a reading command never creates an empty SQLite
 /// file where a typo put it).
-fn open_existing(url: &StoreUrl) -> Result<Box<dyn Store>, Diagnostic> {
+pub(super) fn open_existing(url: &StoreUrl) -> Result<Box<dyn Store>, Diagnostic> {
     if let StoreUrl::Sqlite(path) = url {
         if !path.is_file() {
             return Err(Diagnostic::plain(format!(
@@ -56,7 +56,7 @@ fn open_existing(url: &StoreUrl) -> Result<Box<dyn Store>, Diagnostic> {
 
 /// The store a reading command uses: `--store`, else `TAUCAL_STORE`, else
 /// `sqlite:runs/taucal.sqlite`.
-fn read_url(arg: &StoreReadArg) -> Result<StoreUrl, Diagnostic> {
+pub(super) fn read_url(arg: &StoreReadArg) -> Result<StoreUrl, Diagnostic> {
     let env = std::env::var(resolve::ENV).ok();
     let text = arg
         .url

@@ -48,6 +48,25 @@ pub struct UnitSummary {
     pub accepted: bool,
 }
 
+/// One cell of a unit's latest accepted table, for the fleet's statistics.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FleetCell {
+    /// The unit.
+    pub serial: String,
+    /// The station its latest accepted run was on.
+    pub station: String,
+    /// Channel center, MHz.
+    pub center_mhz: i64,
+    /// Bandwidth, MHz.
+    pub bw_mhz: i64,
+    /// Gain state.
+    pub gain_index: i64,
+    /// K, ps.
+    pub delay_ps: f64,
+    /// 95 % half-width, ps.
+    pub ci95_ps: f64,
+}
+
 /// A results store.
 pub trait Store {
     /// Its URL, password hidden.
@@ -62,6 +81,8 @@ pub trait Store {
     fn units(&mut self) -> Result<Vec<UnitSummary>, StoreError>;
     /// The latest accepted run of unit `serial`.
     fn latest_accepted(&mut self, serial: &str) -> Result<Option<RunRecord>, StoreError>;
+    /// The measured cells of every unit's latest accepted run, in no particular order.
+    fn fleet_cells(&mut self) -> Result<Vec<FleetCell>, StoreError>;
 }
 
 /// Opens (creating or migrating) the store at `url`; `None` for `none`.

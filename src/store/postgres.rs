@@ -3,8 +3,10 @@
 //! multi-row insert per table, so a sync over a network costs a few round trips per run.
 
 use super::record::{AcceptRow, CellRow, RunRow, VerifyLevel};
-use super::schema::{create_v1, Dialect, LATEST_ACCEPTED_QUERY, SCHEMA_VERSION, UNITS_QUERY};
-use super::{RunRecord, RunVersion, Store, StoreError, UnitSummary};
+use super::schema::{
+    create_v1, Dialect, FLEET_CELLS_QUERY, LATEST_ACCEPTED_QUERY, SCHEMA_VERSION, UNITS_QUERY,
+};
+use super::{FleetCell, RunRecord, RunVersion, Store, StoreError, UnitSummary};
 use postgres::types::ToSql;
 use postgres::{Client, NoTls, Statement, Transaction};
 use std::collections::HashMap;
@@ -447,5 +449,24 @@ impl Store for PgStore {
             Some(id) => self.get_run(&id),
             None => Ok(None),
         }
+    }
+
+    fn fleet_cells(&mut self) -> Result<Vec<FleetCell>, StoreError> {
+        let rows = self
+            .client
+            .query(FLEET_CELLS_QUERY, &[])
+            .map_err(|e| self.err(e))?;
+        Ok(rows
+            .iter()
+            .map(|r| FleetCell {
+                serial: r.get(0),
+                station: r.get(1),
+                center_mhz: r.get(2),
+                bw_mhz: r.get(3),
+                gain_index: r.get(4),
+                delay_ps: r.get(5),
+                ci95_ps: r.get(6),
+            })
+            .collect())
     }
 }

@@ -115,3 +115,15 @@ pub const UNITS_QUERY: &str = "SELECT u.serial, u.model,
 pub const LATEST_ACCEPTED_QUERY: &str = "SELECT run_id FROM runs
   WHERE unit_serial = $1 AND accepted
   ORDER BY COALESCE(finished_utc, started_utc) DESC, run_id DESC LIMIT 1";
+
+/// The measured cells of each unit's latest accepted run (the same choice as
+/// [`LATEST_ACCEPTED_QUERY`]), chosen by the database in one pass with a window function.
+/// Predicted or modelled cells are left out: the population is what was measured.
+pub const FLEET_CELLS_QUERY: &str = "WITH latest AS (
+    SELECT run_id, unit_serial, station,
+      ROW_NUMBER() OVER (PARTITION BY unit_serial
+        ORDER BY COALESCE(finished_utc, started_utc) DESC, run_id DESC) AS pick
+    FROM runs WHERE accepted)
+  SELECT l.unit_serial, l.station, c.center_mhz, c.bw_mhz, c.gain_index, c.delay_ps, c.ci95_ps
+  FROM latest l JOIN cal_cells c ON c.run_id = l.run_id
+  WHERE l.pick = 1 AND c.source IN ('measured', 'inferred')";

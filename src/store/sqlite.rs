@@ -3,7 +3,7 @@
 
 use super::record::{AcceptRow, CellRow, RunRow, VerifyLevel};
 use super::schema::{create_v1, Dialect, SCHEMA_VERSION};
-use super::{RunRecord, RunVersion, Store, StoreError, UnitSummary};
+use super::{FleetCell, RunRecord, RunVersion, Store, StoreError, UnitSummary};
 use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
 use std::path::Path;
 use std::time::Duration;
@@ -404,5 +404,27 @@ impl Store for SqliteStore {
             Some(id) => self.get_run(&id),
             None => Ok(None),
         }
+    }
+
+    fn fleet_cells(&mut self) -> Result<Vec<FleetCell>, StoreError> {
+        let mut s = self
+            .conn
+            .prepare(super::schema::FLEET_CELLS_QUERY)
+            .map_err(|e| self.query_err(e))?;
+        let rows = s
+            .query_map([], |r| {
+                Ok(FleetCell {
+                    serial: r.get(0)?,
+                    station: r.get(1)?,
+                    center_mhz: r.get(2)?,
+                    bw_mhz: r.get(3)?,
+                    gain_index: r.get(4)?,
+                    delay_ps: r.get(5)?,
+                    ci95_ps: r.get(6)?,
+                })
+            })
+            .and_then(|rows| rows.collect::<Result<Vec<_>, _>>());
+        drop(s);
+        rows.map_err(|e| self.query_err(e))
     }
 }
