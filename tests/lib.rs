@@ -9,6 +9,7 @@ mod demo_run;
 mod examples;
 mod exec;
 mod fit_offline;
+mod fleet;
 mod forms;
 mod fuzz;
 mod gain_switch;

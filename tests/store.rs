@@ -363,14 +363,14 @@ fn eight_concurrent_runs_into_one_sqlite_file_are_eight_runs() {
 /// A database of this test's own on the server `TAUCAL_TEST_POSTGRES` names, dropped at the
 /// end; `None` (the test says it was skipped) where the variable is unset — except under CI,
 /// which sets it.
-struct PgDatabase {
+pub(crate) struct PgDatabase {
     admin: String,
     name: String,
-    url: String,
+    pub(crate) url: String,
 }
 
 impl PgDatabase {
-    fn new(test: &str) -> Option<PgDatabase> {
+    pub(crate) fn new(test: &str) -> Option<PgDatabase> {
         use std::io::Write;
         let Ok(admin) = std::env::var("TAUCAL_TEST_POSTGRES") else {
             assert!(

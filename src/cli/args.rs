@@ -117,7 +117,12 @@ pub struct FleetStationsArgs {
     #[arg(long, value_enum, default_value = "text")]
     pub format: ListFormat,
     /// Smallest offset worth flagging, ps.
-    #[arg(long, value_name = "PS", default_value_t = 20.0)]
+    #[arg(
+        long,
+        value_name = "PS",
+        default_value_t = 20.0,
+        allow_negative_numbers = true
+    )]
     pub threshold_ps: f64,
 }
 

@@ -1,7 +1,7 @@
 //! `taucal fleet stats` and `taucal fleet stations`: the fleet's statistics from a store, as
 //! aligned text or CSV.
 
-use super::args::{FleetCommand, FleetStatsArgs, FleetStationsArgs, ListFormat};
+use super::args::{FleetCommand, FleetStationsArgs, FleetStatsArgs, ListFormat};
 use super::store::{fail, open_existing, read_url};
 use super::{log, Exit};
 use crate::diagnostic::Diagnostic;
@@ -43,7 +43,11 @@ fn num(v: f64, decimals: usize) -> String {
 }
 
 /// Prints `rows` under `header`: CSV, or text with numbers right-aligned.
-fn print_table(header: &[&str], rows: &[Vec<String>], format: ListFormat) -> Result<(), Diagnostic> {
+fn print_table(
+    header: &[&str],
+    rows: &[Vec<String>],
+    format: ListFormat,
+) -> Result<(), Diagnostic> {
     match format {
         ListFormat::Csv => {
             let mut w = csv::Writer::from_writer(Vec::new());

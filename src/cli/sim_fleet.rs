@@ -45,14 +45,17 @@ pub fn run(args: SimFleetArgs) -> Result<Exit, Diagnostic> {
         .with_hint("give a simulated bench with [sim.population], e.g. recipes/benches/sim-fleet-line.toml"));
     };
     if args.units == 0 {
-        return Err(Diagnostic::plain("--units 0: a fleet needs at least one unit")
-            .with_hint("e.g. --units 200"));
+        return Err(
+            Diagnostic::plain("--units 0: a fleet needs at least one unit")
+                .with_hint("e.g. --units 200"),
+        );
     }
     let plan = crate::recipe::load(&args.recipe, &[], &bench)?;
     let url = read_url(&args.store)?;
     if url == StoreUrl::Off {
-        return Err(Diagnostic::plain("--store none: a fleet is recorded into a store")
-            .with_hint(URL_HINT));
+        return Err(
+            Diagnostic::plain("--store none: a fleet is recorded into a store").with_hint(URL_HINT),
+        );
     }
     // Opened once here so the schema exists before the workers connect, and a bad URL stops
     // the fleet before any unit runs.
@@ -120,10 +123,7 @@ fn plan_units(
     (0..u64::from(count))
         .map(|i| {
             let station = stations[i as usize % stations.len()].clone();
-            let error_ps = base
-                .stations
-                .get(&station)
-                .map_or(0.0, |s| s.path_error_ps);
+            let error_ps = base.stations.get(&station).map_or(0.0, |s| s.path_error_ps);
             let drawn = population.draw(base, seed, i);
             let mut truth = on_station(&drawn, &bench.path, error_ps);
             truth.dut.serial = Some(format!("{prefix}-F{seed}-{i:05}"));
@@ -240,12 +240,7 @@ fn run_one(
         unit: Some(unit.serial.clone()),
         station: unit.station.clone(),
     };
-    let report = execute(
-        request,
-        |_| {},
-        Box::new(crate::runner::Unobserved),
-        ledger,
-    )?;
+    let report = execute(request, |_| {}, Box::new(crate::runner::Unobserved), ledger)?;
     let mut channels: Vec<(u32, u32)> = report
         .fit
         .as_ref()

@@ -40,7 +40,8 @@ pub fn outliers(units: &[UnitDeviation]) -> Vec<Outlier> {
         .collect();
     out.sort_by(|a, b| {
         let m = |o: &Outlier| o.score.abs().max(o.unit.worst_z.abs());
-        m(b).total_cmp(&m(a)).then_with(|| a.unit.serial.cmp(&b.unit.serial))
+        m(b).total_cmp(&m(a))
+            .then_with(|| a.unit.serial.cmp(&b.unit.serial))
     });
     out
 }

@@ -65,10 +65,7 @@ pub fn station_offsets(units: &[UnitDeviation], threshold_ps: f64) -> Vec<Statio
                 .filter(|(v, _)| *v != 0.0)
                 .collect();
             let var: f64 = terms.iter().map(|t| t.0).sum();
-            let dof_den: f64 = terms
-                .iter()
-                .map(|&(v, n)| v * v / (n as f64 - 1.0))
-                .sum();
+            let dof_den: f64 = terms.iter().map(|&(v, n)| v * v / (n as f64 - 1.0)).sum();
             let ci95 = if terms.is_empty() {
                 0.0
             } else {

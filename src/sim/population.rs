@@ -74,8 +74,8 @@ impl SimPopulation {
             *th += shift_db;
         }
         // Clamped so a wide spread cannot draw a clock the simulator refuses.
-        d.clock_ppm = (d.clock_ppm + self.clock_ppm_sd * normal())
-            .clamp(-CLOCK_LIMIT_PPM, CLOCK_LIMIT_PPM);
+        d.clock_ppm =
+            (d.clock_ppm + self.clock_ppm_sd * normal()).clamp(-CLOCK_LIMIT_PPM, CLOCK_LIMIT_PPM);
         t
     }
 }
@@ -147,10 +147,13 @@ mod tests {
             })
             .collect();
         let mean = ks.iter().sum::<f64>() / ks.len() as f64;
-        let sd = (ks.iter().map(|k| (k - mean).powi(2)).sum::<f64>() / (ks.len() - 1) as f64)
-            .sqrt();
+        let sd =
+            (ks.iter().map(|k| (k - mean).powi(2)).sum::<f64>() / (ks.len() - 1) as f64).sqrt();
         let want = (400.0f64 + 225.0 + 100.0).sqrt();
-        assert!((mean - 2650.0).abs() < 3.0 * want / 4000f64.sqrt(), "{mean}");
+        assert!(
+            (mean - 2650.0).abs() < 3.0 * want / 4000f64.sqrt(),
+            "{mean}"
+        );
         assert!((sd / want - 1.0).abs() < 0.05, "{sd} vs {want}");
     }
 

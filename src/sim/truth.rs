@@ -364,7 +364,10 @@ impl SimTruth {
             p.validate()?;
         }
         for (name, st) in &self.stations {
-            finite(&format!("sim.stations.{name}.path_error_ps"), st.path_error_ps)?;
+            finite(
+                &format!("sim.stations.{name}.path_error_ps"),
+                st.path_error_ps,
+            )?;
         }
         let d = &self.dut;
         if d.rx_delay_ps.is_empty() {
