@@ -187,6 +187,8 @@ enum Kind {
     Commands,
     /// Runs into the results store and the store commands on them, in one directory.
     Store,
+    /// A simulated fleet and the fleet commands on its store, in one directory.
+    Fleet,
     /// The exact stdout of the single command in the block before it.
     Output,
     /// The Performance section's reproduction.
@@ -249,6 +251,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "sh" if text.contains("cargo bench --bench scale") => Kind::Performance,
         "sh" if text.contains("taucal sim serve") => Kind::Served,
         "sh" if text.contains("taucal store ") => Kind::Store,
+        "sh" if text.contains("taucal sim fleet") => Kind::Fleet,
         "sh" if commands(block).iter().all(|c| c.starts_with("taucal ")) => Kind::Commands,
         "" if text.starts_with("taucal run RECIPE") => Kind::Synopsis,
         "" if text.starts_with("taucal: my-recipe.toml") => Kind::ErrorScreen,
@@ -752,4 +755,45 @@ fn readme_store_block_runs_as_printed_in_one_directory() {
     assert_eq!(outputs[3].1, export.stdout);
     assert!(outputs[4].1.contains("2 runs copied"), "{}", outputs[4].1);
     assert!(export.path("line4-central.sqlite").is_file());
+}
+
+#[test]
+fn readme_fleet_example_runs_as_printed() {
+    let block = the_block(Kind::Fleet);
+    let mut dir = Taucal::new()
+        .with_repo(&["recipes", "drivers"])
+        .args(["--version"])
+        .run()
+        .dir;
+    let mut outputs = Vec::new();
+    for command in commands(&block) {
+        let out = Taucal::in_dir(dir).args(taucal_args(&command)).run();
+        out.expect_code(0);
+        outputs.push(out.stdout.clone());
+        dir = out.dir;
+    }
+    assert!(
+        outputs[0].contains("calibrated 200 units"),
+        "{}",
+        outputs[0]
+    );
+    assert_eq!(
+        std::fs::read_to_string(dir.path().join("truth.csv"))
+            .expect("truth")
+            .lines()
+            .count(),
+        1 + 200 * 3
+    );
+    assert!(
+        outputs[1].contains("tol_lo_ps") && outputs[1].contains("unit_sd_ps"),
+        "{}",
+        outputs[1]
+    );
+    // The station the bench gave a 40 ps longer path is the one flagged.
+    let flagged: Vec<&str> = outputs[2]
+        .lines()
+        .filter(|l| l.trim_end().ends_with("yes"))
+        .collect();
+    assert_eq!(flagged.len(), 1, "{}", outputs[2]);
+    assert!(flagged[0].starts_with("line-d"), "{}", outputs[2]);
 }
