@@ -4,7 +4,7 @@
 
 use super::args::{SimFleetArgs, StoreArg};
 use super::store::{fail, read_url};
-use super::{bench_arg, log, Exit};
+use super::{bench_arg, Exit};
 use crate::bench::Bench;
 use crate::diagnostic::Diagnostic;
 use crate::runner::request::RunRequest;
@@ -67,13 +67,15 @@ pub fn run(args: SimFleetArgs) -> Result<Exit, Diagnostic> {
         .out
         .clone()
         .unwrap_or_else(|| PathBuf::from(format!("runs/fleet-{seed}")));
-    log::notice(&format!(
+    // Straight to stderr: the runs' own news is silenced (warnings only) for a fleet, the
+    // fleet's is not.
+    eprintln!(
         "taucal: fleet of {} units (seed {seed}) on stations {} into {}; run directories in {}",
         units.len(),
         stations.join(", "),
         url.redacted(),
         out.display()
-    ));
+    );
     let started = std::time::Instant::now();
     let outcomes = run_units(&units, &plan, &bench, &url, &out)?;
     let accepted = outcomes.iter().filter(|o| o.accepted).count();
@@ -195,7 +197,7 @@ fn run_units(
                             outcomes.lock().expect("not poisoned")[i] = Some(o);
                             let n = done.fetch_add(1, Ordering::SeqCst) + 1;
                             if n % 100 == 0 {
-                                log::notice(&format!("taucal: {n} of {} units", units.len()));
+                                eprintln!("taucal: {n} of {} units", units.len());
                             }
                         }
                         Err(d) => {
