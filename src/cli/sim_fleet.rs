@@ -62,6 +62,14 @@ pub fn run(args: SimFleetArgs) -> Result<Exit, Diagnostic> {
     drop(crate::store::open(&url).map_err(fail)?);
     let seed = args.seed.unwrap_or(base.seed);
     let stations = station_names(&args.stations, &bench, &base);
+    for s in stations.iter().filter(|s| !base.stations.contains_key(*s)) {
+        if !base.stations.is_empty() {
+            eprintln!(
+                "taucal: station `{s}` is not in the bench's [sim.stations]: its true path is the \
+                 declared one"
+            );
+        }
+    }
     let units = plan_units(&bench, &base, seed, args.units, &stations)?;
     let out = args
         .out
