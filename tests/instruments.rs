@@ -659,3 +659,67 @@ fn a_served_run_resumes_cut_back_to_its_checkpoint_and_refuses_changed_files() {
     assert_eq!(m["status"].as_str(), Some("completed"));
     assert_eq!(m["resumes"].as_integer(), Some(1));
 }
+
+#[test]
+fn a_served_bench_uses_its_true_path_where_it_differs_from_the_declared_one() {
+    // `[sim.path]` 50 ps longer than the declared 6100 ps one way: the served run records what
+    // the in-process run on that bench records, and both tables sit 2 × 50 ps above the demo's
+    // (the round trip crosses the path twice; the fitter removes only the declared delay).
+    let demo = std::fs::read_to_string(root().join("recipes/benches/sim-demo.toml")).expect("demo");
+    let truth = format!("{demo}\n[sim.path]\ncable_delay_ps = 6150.0\n");
+    let dir = tempfile::tempdir().expect("tempdir");
+    let truth_file = dir.path().join("long-path.toml");
+    std::fs::write(&truth_file, &truth).expect("write");
+    let server = Server::start_bench(
+        &truth_file.display().to_string(),
+        &["attenuator=tcp:127.0.0.1:0", "dut=tcp:127.0.0.1:0"],
+    );
+    let drivers = root().join("drivers").display().to_string();
+    let bench = served_bench(
+        "brackwater-tidegate95",
+        &server.address("attenuator"),
+        &server.address("dut"),
+        &drivers,
+    );
+    let recipe = repo("recipes/rx-gain-sweep.toml");
+    let served = Taucal::new()
+        .file("served.toml", &bench)
+        .args([
+            "run",
+            &recipe,
+            "--bench",
+            "served.toml",
+            "--out",
+            "run",
+            "-q",
+        ])
+        .run();
+    served.expect_code(0);
+    let in_process = Taucal::new()
+        .file("long.toml", &truth)
+        .args(["run", &recipe, "--bench", "long.toml", "--out", "run", "-q"])
+        .run();
+    in_process.expect_code(0);
+    assert!(
+        without_bench_time(&served.read("run/exchanges.csv"))
+            == without_bench_time(&in_process.read("run/exchanges.csv")),
+        "served and in-process exchanges differ"
+    );
+    let demo_run = Taucal::new()
+        .args(["run", &recipe, "--out", "run", "-q"])
+        .run();
+    demo_run.expect_code(0);
+    let (long, short) = (
+        crate::support::csv_numbers(&served.read("run/caltable.csv")),
+        crate::support::csv_numbers(&demo_run.read("run/caltable.csv")),
+    );
+    assert_eq!(long.len(), short.len());
+    for (l, s) in long.iter().zip(&short) {
+        let shift = l[3] - s[3];
+        assert!(
+            (shift - 100.0).abs() < 1.0,
+            "gain {}: shifted {shift} ps, not 100",
+            l[2]
+        );
+    }
+}

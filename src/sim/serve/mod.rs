@@ -149,7 +149,8 @@ pub struct ServedBench {
 }
 
 impl ServedBench {
-    /// Builds the model from the bench's `[sim]` and `[path]` with `seed`.
+    /// Builds the model from the bench's `[sim]` and its true path (`[sim.path]` where it
+    /// differs from the declared `[path]`) with `seed`.
     pub fn new(bench: &Bench, seed: u64, realtime: bool) -> Result<ServedBench, Diagnostic> {
         let Some(truth) = &bench.sim else {
             return Err(bench.source.key_error(crate::diagnostic::KeyError::new(
@@ -158,8 +159,8 @@ impl ServedBench {
                 "serve a simulated bench, e.g. recipes/benches/sim-demo.toml",
             )));
         };
-        let model =
-            SimBench::new(truth, &bench.path, seed).map_err(|e| bench.source.key_error(e))?;
+        let model = SimBench::new(truth, &truth.true_path(&bench.path), seed)
+            .map_err(|e| bench.source.key_error(e))?;
         let mode = if realtime {
             ClockMode::Paced
         } else {
