@@ -80,15 +80,24 @@ fn an_exec_address_that_does_not_split_is_refused_before_anything_runs() {
 }
 
 #[test]
-fn a_missing_program_stops_the_run_naming_the_address_and_the_program() {
+fn a_missing_program_is_refused_before_anything_runs_naming_the_role_and_the_program() {
     let bench = bench_with("exec:/nonexistent/taucal-tool --port 3", "sim:");
     let out = run_through(&bench);
-    out.expect_code(3);
+    out.expect_code(2);
     assert!(
-        out.stderr.contains(
-            "cannot connect to exec:/nonexistent/taucal-tool --port 3: cannot start program \
-             `/nonexistent/taucal-tool`: there is no such file"
-        ),
+        out.stderr.contains("roles.attenuator.address")
+            && out.stderr.contains(
+                "names the program `/nonexistent/taucal-tool`, which is not an executable file"
+            ),
+        "{}",
+        out.stderr
+    );
+    assert!(!out.has_dir("run"), "nothing ran");
+    // A bare name is looked up on PATH.
+    let out = run_through(&bench_with("exec:taucal-no-such-tool-here", "sim:"));
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains("not an executable on PATH"),
         "{}",
         out.stderr
     );

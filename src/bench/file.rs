@@ -6,6 +6,7 @@ use crate::instrument::driver_file::{
     DriverFile, DriverKind, KIND_ATTENUATOR, KIND_CHAMBER, KIND_RANGING_CONSOLE,
 };
 use crate::instrument::template::on_grid;
+use crate::instrument::transport::process::find_program;
 use crate::instrument::transport::{Address, ADDRESS_FORMS};
 use crate::sim::SimTruth;
 use serde::Deserialize;
@@ -524,13 +525,31 @@ impl Bench {
                     ));
                 }
             } else {
-                Address::parse(&binding.address).map_err(|e| {
+                let address = Address::parse(&binding.address).map_err(|e| {
                     KeyError::new(
                         format!("roles.{role}.address"),
                         format!("is not an address: {}", e.reason),
                         format!("addresses are {ADDRESS_FORMS}"),
                     )
                 })?;
+                if let Address::Exec(words) = &address {
+                    let program = &words[0];
+                    if find_program(program).is_none() {
+                        return Err(KeyError::new(
+                            format!("roles.{role}.address"),
+                            format!(
+                                "names the program `{program}`, which is not {}",
+                                if program.contains('/') {
+                                    "an executable file"
+                                } else {
+                                    "an executable on PATH"
+                                }
+                            ),
+                            "give the program's path (relative ones are from the directory \
+                             taucal runs in), or install it",
+                        ));
+                    }
+                }
                 if SIM_DRIVERS.iter().any(|(_, d)| *d == binding.driver) {
                     return Err(KeyError::new(
                         format!("roles.{role}.driver"),

@@ -33,6 +33,27 @@ pub struct ProcessStream {
 
 /// Starts `words` (program first) with piped stdin, stdout and stderr. `label` names it in
 /// messages and the log (the address as written). Must run inside a tokio runtime.
+/// Where `program` would be found when started: a name with a `/` as a path (relative to the
+/// working directory), another name on `PATH`. `None` when no such executable file exists, so a
+/// bench naming a missing program is refused before anything runs.
+pub fn find_program(program: &str) -> Option<std::path::PathBuf> {
+    use std::os::unix::fs::PermissionsExt;
+    let runnable = |p: &std::path::Path| {
+        p.metadata()
+            .is_ok_and(|m| m.is_file() && m.permissions().mode() & 0o111 != 0)
+    };
+    if program.contains('/') {
+        let p = std::path::PathBuf::from(program);
+        return runnable(&p).then_some(p);
+    }
+    std::env::var_os("PATH").and_then(|paths| {
+        std::env::split_paths(&paths)
+            .map(|dir| dir.join(program))
+            .find(|p| runnable(p))
+    })
+}
+
+/// Starts `words` (program, then its arguments) as a line link.
 pub fn spawn(words: &[String], label: &str) -> io::Result<ProcessStream> {
     let Some((program, args)) = words.split_first() else {
         return Err(io::Error::new(
