@@ -19,4 +19,5 @@ pub mod sim;
 pub mod store;
 pub mod text_file;
 pub mod toml_input;
+pub mod touchstone;
 pub mod wiring;

@@ -22,5 +22,6 @@ mod run_forms;
 mod science;
 mod script_limits;
 mod store;
+mod touchstone;
 mod truth;
 mod unattended;
