@@ -366,7 +366,9 @@ fn readme_synopsis_matches_the_commands_and_their_options() {
         let words: Vec<&str> = line.split_whitespace().skip(1).collect();
         let sub: Vec<&str> = words
             .iter()
-            .take_while(|w| w.chars().all(|c| c.is_ascii_lowercase()))
+            .take_while(|w| {
+                !w.starts_with('-') && w.chars().all(|c| c.is_ascii_lowercase() || c == '-')
+            })
             .copied()
             .collect();
         assert!(!sub.is_empty(), "{line}");

@@ -112,3 +112,81 @@ fn group_delay_equals_scikit_rf_on_the_same_file_in_every_form_and_unit() {
         );
     }
 }
+
+#[test]
+fn path_delay_prints_an_ideal_lines_delay_per_channel_and_refuses_what_it_cannot_use() {
+    use crate::support::Taucal;
+    // 1.2 m of cable, velocity factor 0.70: 1.2 / (0.70 · 299 792 458 m/s) = 5718.2 ps.
+    let tau = 1.2 / (0.70 * 299_792_458.0);
+    let out = Taucal::new()
+        .file("line.s2p", &ideal_line(tau))
+        .args([
+            "path-delay",
+            "line.s2p",
+            "--channel",
+            "5180/80",
+            "--channel",
+            "5500/160",
+        ])
+        .run();
+    out.expect_code(0);
+    let lines: Vec<&str> = out.stdout.lines().collect();
+    assert_eq!(
+        lines[0],
+        "center_mhz,bw_mhz,s21_delay_ps,s12_delay_ps,ripple_u_ps,points"
+    );
+    for (line, channel) in lines[1..].iter().zip(["5180,80,", "5500,160,"]) {
+        assert!(line.starts_with(channel), "{line}");
+        let f: Vec<f64> = line
+            .split(',')
+            .map(|v| v.parse().expect("number"))
+            .collect();
+        assert!(
+            (f[2] - 5718.2).abs() < 0.05 && (f[3] - 5718.2).abs() < 0.05,
+            "{line}"
+        );
+        assert!(f[4] < 0.001, "an ideal line has no ripple: {line}");
+    }
+    for (args, says) in [
+        (vec!["--channel", "4000/80"], "not inside the file's"),
+        (vec!["--channel", "5180"], "is not CENTER_MHZ/BW_MHZ"),
+    ] {
+        let mut all = vec!["path-delay", "line.s2p"];
+        all.extend(args);
+        let out = Taucal::new()
+            .file("line.s2p", &ideal_line(tau))
+            .args(all)
+            .run();
+        out.expect_code(2);
+        assert!(out.stderr.contains(says), "{}", out.stderr);
+    }
+    let out = Taucal::new()
+        .file(
+            "bad.s2p",
+            "# GHz S RI R 50\n5.0 0 0 1 0 1 0 0 0\n5.1 0 0 1 oops 1 0 0 0\n",
+        )
+        .args(["path-delay", "bad.s2p", "--channel", "5050/20"])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains("bad.s2p")
+            && out.stderr.contains("line 3")
+            && out.stderr.contains("`oops`"),
+        "{}",
+        out.stderr
+    );
+}
+
+/// A matched lossless line of delay `tau_s`, 4.9 to 5.9 GHz in 5 MHz steps, Touchstone 1.1 RI.
+fn ideal_line(tau_s: f64) -> String {
+    let mut text = String::from("# Hz S RI R 50\n");
+    for k in 0..=200 {
+        let f = 4.9e9 + 5e6 * f64::from(k);
+        let w = 2.0 * PI * f;
+        let (re, im) = ((-w * tau_s).cos(), (-w * tau_s).sin());
+        text.push_str(&format!(
+            "{f} 0 0 {re:.15e} {im:.15e} {re:.15e} {im:.15e} 0 0\n"
+        ));
+    }
+    text
+}

@@ -62,6 +62,11 @@ pub enum Command {
         after_help = "PAIRS.csv has the columns unit_a,unit_b,sum_ps,se_ps (other columns are ignored).\nThe pair graph needs an odd cycle in every connected group: three units measured pairwise at least.\n\nExample:\n  taucal pairs line-4-pairs.csv > unit-delays.csv"
     )]
     Pairs(PairsArgs),
+    /// A measured path's group delay per channel, from a VNA's Touchstone file.
+    #[command(
+        after_help = "Prints center_mhz,bw_mhz,s21_delay_ps,s12_delay_ps,ripple_u_ps,points: the group delay\n-dφ/dω averaged over each channel's band, both ways, and the in-band ripple as a standard\nuncertainty (rectangular). A one-port file gives S11's (a reflection: twice the one-way delay).\n\nExample:\n  taucal path-delay fixture.s2p --channel 5180/80 --channel 5500/160"
+    )]
+    PathDelay(PathDelayArgs),
     /// Calibrate the range offset of a device that reports ranges, from ranges at known distances.
     #[command(
         after_help = "Prints `offset <value> m` (median of measured − true at the --at distance), then a CSV table\nof the errors at every true distance before and after subtracting it. Rows whose measured or\ntrue value is empty or not a number are skipped and counted.\n\nExamples:\n  taucal ota ranges.csv --measured distance_mm --truth true_m --unit mm --at 5\n  taucal ota log.csv --measured range --truth truth --unit m --at 2.5 > errors.txt"
@@ -379,6 +384,16 @@ pub struct FitArgs {
 pub struct PairsArgs {
     /// Pairs file: columns unit_a,unit_b,sum_ps,se_ps.
     pub pairs: PathBuf,
+}
+
+/// `taucal path-delay`.
+#[derive(Debug, Args)]
+pub struct PathDelayArgs {
+    /// Touchstone file of the path as a two-port (.s2p; version 1.x or 2.0).
+    pub file: PathBuf,
+    /// A channel as CENTER_MHZ/BW_MHZ; repeat for more.
+    #[arg(long = "channel", value_name = "CENTER/BW", required = true)]
+    pub channels: Vec<String>,
 }
 
 /// A length unit on the command line.

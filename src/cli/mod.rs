@@ -12,6 +12,7 @@ pub mod fleet;
 pub mod log;
 pub mod ota;
 pub mod pairs;
+pub mod path_delay;
 pub mod progress;
 pub mod report;
 pub mod resume;
@@ -54,6 +55,7 @@ pub fn main() -> Exit {
         Command::Sim(SimCommand::Serve(a)) => sim_serve::run(a),
         Command::Sim(SimCommand::Fleet(a)) => sim_fleet::run(a),
         Command::Pairs(a) => pairs::run(a),
+        Command::PathDelay(a) => path_delay::run(a),
         Command::Ota(a) => ota::run(a),
         Command::Export(a) => export::run(a),
         Command::Report(a) => report::run(a),
