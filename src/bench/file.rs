@@ -1,5 +1,6 @@
 //! Reading a bench file: raw TOML structs, then a validated [`Bench`].
 
+use super::uncertainty::{input_uncertainty, BenchUncertainty, Stated};
 use super::{PathFacts, PerGain, TimingFacts};
 use crate::diagnostic::{Diagnostic, KeyError, SourceFile};
 use crate::instrument::driver_file::{
@@ -49,8 +50,8 @@ struct RawBench {
     roles: BTreeMap<String, RoleBinding>,
     attenuator: AttenuatorFacts,
     dut: UnitFacts,
-    path: PathFacts,
-    reference: ReferenceFacts,
+    path: RawPath,
+    reference: RawReference,
     timing: Option<TimingFacts>,
     store: Option<StoreFacts>,
     sim: Option<SimTruth>,
@@ -64,6 +65,29 @@ struct RawMeta {
     description: String,
     drivers_dir: Option<String>,
     station: Option<String>,
+}
+
+/// `[path]` as written: [`PathFacts`] with the values' uncertainties.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawPath {
+    cable_delay_ps: Stated<f64>,
+    fixed_loss_db: f64,
+    #[serde(default)]
+    atten_delay_ps_per_db: f64,
+    cable_delay_u_ps: Option<f64>,
+    atten_delay_u_ps: Option<f64>,
+}
+
+/// `[reference]` as written: [`ReferenceFacts`] with its K's uncertainty.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawReference {
+    delay_ps: Stated<PerGain>,
+    delay_u_ps: Option<f64>,
+    tx_power_dbm: f64,
+    max_input_dbm: f64,
+    min_input_dbm: f64,
 }
 
 /// `[store]`: where this bench's runs are recorded.
@@ -120,8 +144,7 @@ pub struct UnitFacts {
 }
 
 /// The reference unit: its calibrated K, and its level facts.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct ReferenceFacts {
     /// The reference's K as calibrated (constant, or per its reported gain index).
     pub delay_ps: PerGain,
@@ -152,6 +175,8 @@ pub struct Bench {
     pub path: PathFacts,
     /// The reference unit.
     pub reference: ReferenceFacts,
+    /// Standard uncertainties of the path's delays and the reference's K (GUM type B).
+    pub uncertainty: BenchUncertainty,
     /// How long actions take on a real bench (for estimates only); `None` when the file has no
     /// `[timing]`, and the defaults apply.
     pub timing: Option<TimingFacts>,
@@ -185,14 +210,26 @@ impl Bench {
     /// Parses and validates bench text.
     pub fn parse(source: SourceFile) -> Result<Bench, Diagnostic> {
         let raw: RawBench = crate::toml_input::parse(&source)?;
+        let uncertainty = stated_uncertainty(&raw.path, &raw.reference)
+            .map_err(|e| source.key_error(KeyError::new(e.key, e.problem, e.hint)))?;
         let bench = Bench {
             name: raw.bench.name,
             description: raw.bench.description,
             roles: raw.roles,
             attenuator: raw.attenuator,
             dut: raw.dut,
-            path: raw.path,
-            reference: raw.reference,
+            path: PathFacts {
+                cable_delay_ps: raw.path.cable_delay_ps.value(),
+                fixed_loss_db: raw.path.fixed_loss_db,
+                atten_delay_ps_per_db: raw.path.atten_delay_ps_per_db,
+            },
+            reference: ReferenceFacts {
+                delay_ps: raw.reference.delay_ps.value(),
+                tx_power_dbm: raw.reference.tx_power_dbm,
+                max_input_dbm: raw.reference.max_input_dbm,
+                min_input_dbm: raw.reference.min_input_dbm,
+            },
+            uncertainty,
             timing: raw.timing,
             sim: raw.sim,
             drivers_dir: raw
@@ -702,6 +739,35 @@ impl Bench {
             applied_k_ps: None,
         }
     }
+}
+
+/// The uncertainties `[path]` and `[reference]` state. The attenuator's is one standard
+/// uncertainty of its added delay at any setting used (a slope's uncertainty would need the
+/// settings each cell was measured at, which the table does not keep).
+fn stated_uncertainty(
+    path: &RawPath,
+    reference: &RawReference,
+) -> Result<BenchUncertainty, super::uncertainty::BadStatement> {
+    Ok(BenchUncertainty {
+        cable: input_uncertainty(
+            &path.cable_delay_ps,
+            path.cable_delay_u_ps,
+            "path.cable_delay_ps",
+            "path.cable_delay_u_ps",
+        )?,
+        atten: input_uncertainty(
+            &Stated::Plain(path.atten_delay_ps_per_db),
+            path.atten_delay_u_ps,
+            "path.atten_delay_ps_per_db",
+            "path.atten_delay_u_ps",
+        )?,
+        reference: input_uncertainty(
+            &reference.delay_ps,
+            reference.delay_u_ps,
+            "reference.delay_ps",
+            "reference.delay_u_ps",
+        )?,
+    })
 }
 
 #[cfg(test)]

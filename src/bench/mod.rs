@@ -5,8 +5,10 @@ pub mod file;
 pub mod path;
 pub mod per_gain;
 pub mod timing;
+pub mod uncertainty;
 
 pub use file::{AttenuatorFacts, Bench, ReferenceFacts, RoleBinding, UnitFacts};
 pub use path::PathFacts;
 pub use per_gain::PerGain;
 pub use timing::TimingFacts;
+pub use uncertainty::{BenchUncertainty, InputUncertainty};

@@ -54,6 +54,9 @@ pub struct CalRow {
     pub delay_ps: f64,
     /// Half-width of the two-sided 95 % Student-t interval of `delay_ps`.
     pub ci95_ps: f64,
+    /// Degrees of freedom of that interval (infinite for a normal quantile): with `ci95_ps`
+    /// it gives the statistical standard uncertainty, the budget's type A component.
+    pub stat_dof: f64,
     /// Samples kept.
     pub n_used: u64,
     /// Samples rejected as outliers.

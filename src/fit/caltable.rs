@@ -220,6 +220,7 @@ mod tests {
             gain_index,
             delay_ps,
             ci95_ps,
+            stat_dof: 11.0,
             n_used: 120,
             n_rejected: 3,
             n_bursts: 12,

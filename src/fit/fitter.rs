@@ -638,6 +638,7 @@ fn cell_row(
         gain_index,
         delay_ps,
         ci95_ps,
+        stat_dof: df,
         n_used: n as u64,
         n_rejected: (samples().count() - n) as u64,
         n_bursts,

@@ -161,6 +161,8 @@ pub struct Prediction {
     pub se_ps: f64,
     /// Half-width of its two-sided 95 % interval.
     pub ci95_ps: f64,
+    /// Degrees of freedom of that interval (infinite when it is a normal one).
+    pub dof: f64,
 }
 
 /// A fitted K model: polynomial in gain index, optionally plus a linear temperature term.
@@ -179,6 +181,7 @@ pub struct GainModel {
     gain_half_range: f64,
     variance_scale: f64,
     quantile: f64,
+    quantile_dof: f64,
 }
 
 impl GainModel {
@@ -191,6 +194,7 @@ impl GainModel {
             delay_ps: self.fit.predict(&x),
             se_ps,
             ci95_ps: self.quantile * se_ps,
+            dof: self.quantile_dof,
         }
     }
 
@@ -343,11 +347,12 @@ pub fn fit_gain_model(obs: &[Observation], options: ModelOptions) -> Result<Gain
     } else {
         0.0
     };
-    let (variance_scale, quantile) = if birge > 1.0 {
-        (birge, t975(fit.dof as f64).unwrap_or(f64::INFINITY))
+    let (variance_scale, quantile_dof) = if birge > 1.0 {
+        (birge, fit.dof as f64)
     } else {
-        (1.0, t975(f64::INFINITY).unwrap_or(f64::INFINITY))
+        (1.0, f64::INFINITY)
     };
+    let quantile = t975(quantile_dof).unwrap_or(f64::INFINITY);
     Ok(GainModel {
         chosen,
         candidates,
@@ -358,6 +363,7 @@ pub fn fit_gain_model(obs: &[Observation], options: ModelOptions) -> Result<Gain
         gain_half_range,
         variance_scale,
         quantile,
+        quantile_dof,
     })
 }
 
@@ -504,6 +510,7 @@ pub fn fill_table(
                 gain_index,
                 delay_ps: p.delay_ps,
                 ci95_ps: p.ci95_ps,
+                stat_dof: p.dof,
                 n_used: 0,
                 n_rejected: 0,
                 n_bursts: 0,
@@ -648,6 +655,7 @@ mod tests {
             gain_index,
             delay_ps,
             ci95_ps,
+            stat_dof: 3.0,
             n_used: 40,
             n_rejected: 1,
             n_bursts: 4,
