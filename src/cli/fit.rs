@@ -141,10 +141,16 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
             std::fs::create_dir_all(dir)
                 .map_err(|e| Diagnostic::plain(format!("cannot create {}: {e}", dir.display())))?;
             let path = dir.join(files::CALTABLE);
-            tabulate::write_table(&path, &fit)
+            tabulate::write_table(&path, &fit, &bench.uncertainty)
                 .map_err(|e| Diagnostic::plain(format!("cannot write {}: {e}", path.display())))?;
             log::notice(&table::render(&fit.rows));
             println!("{}", path.display());
+            let budget = dir.join(files::BUDGET);
+            let text = crate::runner::outputs::budget_text(&fit, &bench);
+            crate::data::manifest::write_atomic(&budget, text.as_bytes()).map_err(|e| {
+                Diagnostic::plain(format!("cannot write {}: {e}", budget.display()))
+            })?;
+            println!("{}", budget.display());
             if !fit.drift.is_empty() {
                 let drift = dir.join(files::DRIFT);
                 let text = crate::fit::drift::drift_csv(&fit.drift);
@@ -156,7 +162,7 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         }
         None => {
             let text =
-                tabulate::caltable_text(&fit).map_err(|e| Diagnostic::plain(e.to_string()))?;
+                tabulate::caltable_text(&fit, &bench.uncertainty).map_err(|e| Diagnostic::plain(e.to_string()))?;
             print!("{}", String::from_utf8_lossy(&text));
         }
     }

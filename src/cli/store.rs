@@ -266,6 +266,8 @@ fn table(args: StoreTableArgs) -> Result<Exit, Diagnostic> {
             n_used: c.n_used as u64,
             n_rejected: c.n_rejected as u64,
             source,
+            // The store keeps the design §4 columns of a cell; its budget stays in the run.
+            budget: None,
         });
     }
     let table = ExportTable {

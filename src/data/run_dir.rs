@@ -13,6 +13,8 @@ pub mod files {
     pub const EXCHANGES: &str = "exchanges.csv";
     /// The calibration table.
     pub const CALTABLE: &str = "caltable.csv";
+    /// Each cell's uncertainty budget, component by component.
+    pub const BUDGET: &str = "budget.csv";
     /// Gain-state plateaus found by gain-map stages.
     pub const GAINMAP: &str = "gainmap.csv";
     /// Temperature coefficients of K, when the run spans temperatures.

@@ -109,6 +109,7 @@ pub(crate) mod test_table {
             n_used: 40,
             n_rejected: 1,
             source,
+            budget: None,
         };
         ExportTable {
             run: RunFacts {

@@ -1,14 +1,18 @@
-//! `caltable.csv`: the table the DUT's firmware loads, in the column contract of design §4.
+//! `caltable.csv`: the table the DUT's firmware loads, in the column contract of design §4,
+//! with the budget's columns appended after `source` (design §6). Tables in the older
+//! 8-column form are still read; their rows have no budget.
 //!
 //! Writing and reading live together so the format has one definition; the reader is for tests
 //! and for tools that apply or compare tables, and names the line of any bad input.
 
+use crate::bench::BenchUncertainty;
+use crate::fit::budget_cell::{cell_budget, dof_text, RowBudget};
 use crate::fit::cal_row::{CalRow, RowSource};
 use std::io::{Read, Write};
 use thiserror::Error;
 
-/// The contract header, in order.
-pub const CALTABLE_HEADER: [&str; 8] = [
+/// The contract header, in order: the design §4 columns, then the budget's.
+pub const CALTABLE_HEADER: [&str; 14] = [
     "center_mhz",
     "bw_mhz",
     "gain_index",
@@ -17,7 +21,16 @@ pub const CALTABLE_HEADER: [&str; 8] = [
     "n_used",
     "n_rejected",
     "source",
+    "u_stat_ps",
+    "u_bench_ps",
+    "u_comb_ps",
+    "dof",
+    "k",
+    "expanded_ps",
 ];
+
+/// Columns of the older form, which ends at `source`.
+const OLD_COLUMNS: usize = 8;
 
 /// One row as the file holds it: the contract columns only.
 #[derive(Debug, Clone, PartialEq)]
@@ -38,9 +51,22 @@ pub struct TableRow {
     pub n_rejected: u64,
     /// Measured, modelled or inferred.
     pub source: RowSource,
+    /// The cell's uncertainty budget; `None` in an older table or where it did not combine.
+    pub budget: Option<RowBudget>,
+}
+
+impl TableRow {
+    /// The row of `r` with its budget from the bench's stated uncertainties.
+    pub fn with_budget(r: &CalRow, bench: &BenchUncertainty) -> Self {
+        Self {
+            budget: cell_budget(r, bench).row_budget(),
+            ..Self::from(r)
+        }
+    }
 }
 
 impl From<&CalRow> for TableRow {
+    /// The row without a budget.
     fn from(r: &CalRow) -> Self {
         Self {
             center_mhz: r.center_mhz,
@@ -51,6 +77,7 @@ impl From<&CalRow> for TableRow {
             n_used: r.n_used,
             n_rejected: r.n_rejected,
             source: r.source,
+            budget: None,
         }
     }
 }
@@ -76,7 +103,10 @@ pub enum CalTableError {
         column: &'static str,
     },
     /// The header is not the contract header.
-    #[error("caltable line 1: header is `{found}`, expected `{}`", CALTABLE_HEADER.join(","))]
+    #[error(
+        "caltable line 1: header is `{found}`, expected `{}` (or its first {OLD_COLUMNS} columns)",
+        CALTABLE_HEADER.join(",")
+    )]
     Header {
         /// The header as read.
         found: String,
@@ -91,9 +121,17 @@ pub enum CalTableError {
     },
 }
 
-/// Write `rows` as `caltable.csv` (header first, delay and interval to 3 decimals).
-pub fn write_caltable<W: Write>(out: W, rows: &[CalRow]) -> Result<(), CalTableError> {
-    let rows: Vec<TableRow> = rows.iter().map(TableRow::from).collect();
+/// Write `rows` as `caltable.csv` (header first, delay and interval to 3 decimals), each with
+/// its budget from the bench's stated uncertainties.
+pub fn write_caltable<W: Write>(
+    out: W,
+    rows: &[CalRow],
+    bench: &BenchUncertainty,
+) -> Result<(), CalTableError> {
+    let rows: Vec<TableRow> = rows
+        .iter()
+        .map(|r| TableRow::with_budget(r, bench))
+        .collect();
     write_table_rows(out, &rows)
 }
 
@@ -114,7 +152,21 @@ pub fn write_table_rows<W: Write>(out: W, rows: &[TableRow]) -> Result<(), CalTa
                 });
             }
         }
-        w.write_record([
+        let budget = row.budget.map_or_else(
+            || vec![String::new(); CALTABLE_HEADER.len() - OLD_COLUMNS],
+            |b| {
+                vec![
+                    format!("{:.3}", b.u_stat_ps),
+                    format!("{:.3}", b.u_bench_ps),
+                    format!("{:.3}", b.u_comb_ps),
+                    dof_text(b.dof),
+                    format!("{:.3}", b.k),
+                    format!("{:.3}", b.expanded_ps),
+                ]
+            },
+        );
+        w.write_record(
+            [
             row.center_mhz.to_string(),
             row.bw_mhz.to_string(),
             row.gain_index.to_string(),
@@ -123,7 +175,10 @@ pub fn write_table_rows<W: Write>(out: W, rows: &[TableRow]) -> Result<(), CalTa
             row.n_used.to_string(),
             row.n_rejected.to_string(),
             row.source.as_str().to_string(),
-        ])
+        ]
+            .into_iter()
+            .chain(budget),
+        )
         .map_err(CalTableError::Write)?;
     }
     w.flush()
@@ -144,7 +199,9 @@ pub fn read_caltable<R: Read>(input: R) -> Result<Vec<TableRow>, CalTableError> 
             })
         }
     };
-    if header.iter().ne(CALTABLE_HEADER) {
+    let columns = header.len();
+    let known = columns == OLD_COLUMNS || columns == CALTABLE_HEADER.len();
+    if !known || header.iter().ne(CALTABLE_HEADER[..columns].iter().copied()) {
         return Err(CalTableError::Header {
             found: header.iter().collect::<Vec<_>>().join(","),
         });
@@ -153,7 +210,7 @@ pub fn read_caltable<R: Read>(input: R) -> Result<Vec<TableRow>, CalTableError> 
     for rec in records {
         let rec = rec.map_err(|e| line_error(&e, 0))?;
         let line = rec.position().map_or(0, |p| p.line());
-        rows.push(parse_row(&rec, line)?);
+        rows.push(parse_row(&rec, line, columns)?);
     }
     Ok(rows)
 }
@@ -165,13 +222,16 @@ fn line_error(e: &csv::Error, fallback_line: u64) -> CalTableError {
     }
 }
 
-fn parse_row(rec: &csv::StringRecord, line: u64) -> Result<TableRow, CalTableError> {
+fn parse_row(
+    rec: &csv::StringRecord,
+    line: u64,
+    columns: usize,
+) -> Result<TableRow, CalTableError> {
     let bad = |message: String| CalTableError::Line { line, message };
-    if rec.len() != CALTABLE_HEADER.len() {
+    if rec.len() != columns {
         return Err(bad(format!(
-            "{} fields, expected {}",
-            rec.len(),
-            CALTABLE_HEADER.len()
+            "{} fields, expected {columns} as the header has",
+            rec.len()
         )));
     }
     let field = |i: usize| rec.get(i).unwrap_or_default().trim();
@@ -206,7 +266,49 @@ fn parse_row(rec: &csv::StringRecord, line: u64) -> Result<TableRow, CalTableErr
         n_used: num(field(5), CALTABLE_HEADER[5]).map_err(bad)?,
         n_rejected: num(field(6), CALTABLE_HEADER[6]).map_err(bad)?,
         source,
+        budget: if columns == OLD_COLUMNS {
+            None
+        } else {
+            parse_budget(rec, line)?
+        },
     })
+}
+
+/// The budget columns of a row: all empty (no budget) or all numbers.
+fn parse_budget(rec: &csv::StringRecord, line: u64) -> Result<Option<RowBudget>, CalTableError> {
+    let fields: Vec<&str> = (OLD_COLUMNS..CALTABLE_HEADER.len())
+        .map(|i| rec.get(i).unwrap_or_default().trim())
+        .collect();
+    if fields.iter().all(|f| f.is_empty()) {
+        return Ok(None);
+    }
+    let mut values = [0.0; 6];
+    for (i, (v, text)) in values.iter_mut().zip(&fields).enumerate() {
+        let column = CALTABLE_HEADER[OLD_COLUMNS + i];
+        // Only the degrees of freedom may be infinite.
+        let allowed = |x: f64| x >= 0.0 && (x.is_finite() || column == "dof");
+        *v = match text.parse::<f64>() {
+            Ok(x) if allowed(x) => x,
+            _ => {
+                return Err(CalTableError::Line {
+                    line,
+                    message: format!(
+                        "{column} `{text}` is not a non-negative number (the budget columns are \
+                         all numbers or all empty)"
+                    ),
+                })
+            }
+        };
+    }
+    let [u_stat_ps, u_bench_ps, u_comb_ps, dof, k, expanded_ps] = values;
+    Ok(Some(RowBudget {
+        u_stat_ps,
+        u_bench_ps,
+        u_comb_ps,
+        dof,
+        k,
+        expanded_ps,
+    }))
 }
 
 #[cfg(test)]
@@ -237,28 +339,85 @@ mod tests {
         ]
     }
 
-    /// Design §4 contract header, then rows with delay and interval to 3 decimals.
-    const GOLDEN: &str = "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source\n\
-                          5180,80,0,2400.123,1.500,120,3,measured\n\
-                          5180,80,1,2650.000,1.000,120,3,measured\n\
-                          5180,80,2,-3.250,12.000,120,3,modelled\n";
+    /// A bench stating u = 2 ps for the cable (contribution 4 ps) and 3 ps for the reference.
+    fn golden_bench() -> BenchUncertainty {
+        use crate::bench::uncertainty::{InputUncertainty, UncertaintyFrom};
+        let u = |u_ps| {
+            Some(InputUncertainty {
+                u_ps,
+                dof: f64::INFINITY,
+                from: UncertaintyFrom::Standard,
+            })
+        };
+        BenchUncertainty {
+            cable: u(2.0),
+            atten: None,
+            reference: u(3.0),
+        }
+    }
+
+    /// Design §4 contract columns with delay and interval to 3 decimals, then the §6 budget.
+    /// Row 0 by hand: u_stat = 1.5 / t₉₅(11) = 1.5 / 2.201 = 0.682 (t from any table);
+    /// u_bench = √(4² + 3²) = 5; u_comb = √(5² + 0.682²) = 5.046. Row 2: u_stat = 12 / 2.201
+    /// = 5.452, u_comb = 7.398, ν_eff = 7.398⁴ / (5.452⁴ / 11) = 37.3, t₉₅(37.3) = 2.026.
+    const GOLDEN: &str = "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source,\
+                          u_stat_ps,u_bench_ps,u_comb_ps,dof,k,expanded_ps\n\
+                          5180,80,0,2400.123,1.500,120,3,measured,0.682,5.000,5.046,33064.7,1.960,9.891\n\
+                          5180,80,1,2650.000,1.000,120,3,measured,0.454,5.000,5.021,164275.6,1.960,9.840\n\
+                          5180,80,2,-3.250,12.000,120,3,modelled,5.452,5.000,7.398,37.3,2.026,14.985\n";
+
+    /// The older form, which ends at `source`.
+    const OLD_FORM: &str = "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source\n\
+                            5180,80,0,2400.123,1.500,120,3,measured\n";
 
     #[test]
     fn writes_the_golden_table_byte_for_byte() {
         let mut out = Vec::new();
-        assert!(write_caltable(&mut out, &golden_rows()).is_ok());
+        assert!(write_caltable(&mut out, &golden_rows(), &golden_bench()).is_ok());
         assert_eq!(String::from_utf8_lossy(&out), GOLDEN);
+    }
+
+    #[test]
+    fn reads_the_older_form_without_a_budget() {
+        let rows = read_caltable(OLD_FORM.as_bytes()).expect("reads");
+        assert_eq!(rows.len(), 1);
+        assert_eq!(rows[0].ci95_ps, 1.5);
+        assert_eq!(rows[0].budget, None);
+    }
+
+    #[test]
+    fn reads_an_empty_budget_and_refuses_a_partial_one() {
+        let head = CALTABLE_HEADER.join(",");
+        let rows = read_caltable(format!("{head}\n5180,80,0,1,1,2,0,measured,,,,,,\n").as_bytes());
+        assert_eq!(rows.ok().map(|r| r[0].budget), Some(None));
+        assert_eq!(
+            error_line(&format!("{head}\n5180,80,0,1,1,2,0,measured,1,,,,,\n")),
+            Some(2)
+        );
+        assert_eq!(
+            error_line(&format!("{head}\n5180,80,0,1,1,2,0,measured,1,1,1,inf,-2,1\n")),
+            Some(2)
+        );
     }
 
     #[test]
     fn reads_back_what_it_wrote() {
         let rows = read_caltable(GOLDEN.as_bytes());
+        let round = |v: f64| (v * 1000.0).round() / 1000.0;
         let expect: Vec<TableRow> = golden_rows()
             .iter()
             .map(|r| {
-                let mut t = TableRow::from(r);
-                t.delay_ps = (t.delay_ps * 1000.0).round() / 1000.0;
-                t.ci95_ps = (t.ci95_ps * 1000.0).round() / 1000.0;
+                let mut t = TableRow::with_budget(r, &golden_bench());
+                t.delay_ps = round(t.delay_ps);
+                t.ci95_ps = round(t.ci95_ps);
+                t.budget = t.budget.map(|b| RowBudget {
+                    u_stat_ps: round(b.u_stat_ps),
+                    u_bench_ps: round(b.u_bench_ps),
+                    u_comb_ps: round(b.u_comb_ps),
+                    dof: (b.dof * 10.0).round() / 10.0,
+                    k: round(b.k),
+                    expanded_ps: round(b.expanded_ps),
+                });
                 t
             })
             .collect();
@@ -268,7 +427,7 @@ mod tests {
     #[test]
     fn refuses_non_finite_values_when_writing() {
         let rows = [row(4, f64::NAN, 1.0, RowSource::Measured)];
-        let err = write_caltable(Vec::new(), &rows);
+        let err = write_caltable(Vec::new(), &rows, &BenchUncertainty::default());
         assert!(matches!(
             err,
             Err(CalTableError::NotFinite {
@@ -289,7 +448,7 @@ mod tests {
 
     #[test]
     fn names_the_line_of_bad_input() {
-        let head = CALTABLE_HEADER.join(",");
+        let head = CALTABLE_HEADER[..OLD_COLUMNS].join(",");
         let good = "5180,80,0,1.000,1.000,2,0,measured";
         assert_eq!(
             error_line(&format!("{head}\n{good}\n5180,80,x,1,1,2,0,measured\n")),

@@ -1,6 +1,6 @@
 //! A run's fourth phase: the table fitted from the exchanges on disk (exactly as `taucal fit`
 //! reads them), and the files made from it and from the stages: `caltable.csv`, `drift.csv`,
-//! `gainmap.csv`, `verify.csv`.
+//! `gainmap.csv`, `verify.csv`, `budget.csv`.
 
 use super::prepare::Prepared;
 use super::record::Recorded;
@@ -9,6 +9,7 @@ use super::RunError;
 use crate::bench::Bench;
 use crate::data::manifest::{write_atomic, SingleState};
 use crate::data::run_dir::files;
+use crate::fit::budget_cell::{budget_csv, budgets};
 use crate::fit::gainmap::GainMap;
 use crate::fit::switch_point::Estimate;
 use crate::fit::verify::{self, VerifyRow};
@@ -57,8 +58,12 @@ pub fn fit_and_write(
     match tabulate::fit_file(&dir.join(files::EXCHANGES), bench, &settings) {
         Ok(Tabulated { fit, checked, .. }) => {
             let table_path = dir.join(files::CALTABLE);
-            let table_written =
-                tabulate::write_table(&table_path, &fit).map_err(|e| RunError::io(&table_path, e));
+            let table_written = tabulate::write_table(&table_path, &fit, &bench.uncertainty)
+                .map_err(|e| RunError::io(&table_path, e));
+            let budget_written = write_file(
+                &dir.join(files::BUDGET),
+                budget_text(&fit, bench).as_bytes(),
+            );
             let drift_written = if fit.drift.is_empty() {
                 Ok(())
             } else {
@@ -81,6 +86,7 @@ pub fn fit_and_write(
             };
             let written = gain_map_written
                 .and(table_written)
+                .and(budget_written)
                 .and(drift_written)
                 .and(verify_written);
             (outputs, written)
@@ -90,6 +96,11 @@ pub fn fit_and_write(
             (Outputs::default(), gain_map_written)
         }
     }
+}
+
+/// `budget.csv`: every cell's budget from the bench's stated uncertainties.
+pub fn budget_text(fit: &FitResult, bench: &Bench) -> String {
+    budget_csv(&budgets(&fit.rows, &bench.uncertainty))
 }
 
 fn write_file(path: &Path, bytes: &[u8]) -> Result<(), RunError> {

@@ -5,7 +5,7 @@
 //! from K's plateaus against receive level ([`crate::fit::state_labels`]), then to fit with
 //! each row labelled by its inferred state; its table rows are marked `inferred`.
 
-use crate::bench::Bench;
+use crate::bench::{Bench, BenchUncertainty};
 use crate::data::csv_io::ExchangeRows;
 use crate::data::file_parts::{split_at_bursts, PartReader};
 use crate::data::manifest::write_atomic;
@@ -285,16 +285,20 @@ fn fit_part<R: Read>(
     rows.all_plain().then_some((fitter, bursts))
 }
 
-/// The table as `caltable.csv` text.
-pub fn caltable_text(result: &FitResult) -> std::io::Result<Vec<u8>> {
+/// The table as `caltable.csv` text, with each cell's budget from the bench's uncertainties.
+pub fn caltable_text(result: &FitResult, bench: &BenchUncertainty) -> std::io::Result<Vec<u8>> {
     let mut out = Vec::new();
-    caltable::write_caltable(&mut out, &result.rows).map_err(std::io::Error::other)?;
+    caltable::write_caltable(&mut out, &result.rows, bench).map_err(std::io::Error::other)?;
     Ok(out)
 }
 
 /// Writes `caltable.csv` atomically.
-pub fn write_table(path: &Path, result: &FitResult) -> std::io::Result<()> {
-    write_atomic(path, &caltable_text(result)?)
+pub fn write_table(
+    path: &Path,
+    result: &FitResult,
+    bench: &BenchUncertainty,
+) -> std::io::Result<()> {
+    write_atomic(path, &caltable_text(result, bench)?)
 }
 
 #[cfg(test)]
