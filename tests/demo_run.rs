@@ -3,7 +3,8 @@
 use crate::support::{repo, Taucal};
 
 const EXCHANGES_HEADER: &str = "stage,point,burst,seq,atten_db,center_mhz,bw_mhz,t1_ps,t2_ps,t3_ps,t4_ps,dut_gain,dut_rssi_dbm,ref_gain,temp_c,status,time_s,rtt_ps,range_mm,frames";
-const CALTABLE_HEADER: &str = "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source,\
+const CALTABLE_HEADER: &str =
+    "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source,\
                                u_stat_ps,u_bench_ps,u_comb_ps,dof,k,expanded_ps";
 
 fn manifest(text: &str) -> toml::Table {
@@ -33,7 +34,11 @@ fn demo_without_bench_says_simulated_and_writes_the_contract_files() {
         budget.lines().next(),
         Some("center_mhz,bw_mhz,gain_index,component,type,distribution,sensitivity,u_ps,contribution_ps,dof")
     );
-    assert_eq!(budget.lines().count(), 1 + 3 * 4, "four components a cell:\n{budget}");
+    assert_eq!(
+        budget.lines().count(),
+        1 + 3 * 4,
+        "four components a cell:\n{budget}"
+    );
     let m = manifest(&out.read("demo/manifest.toml"));
     assert_eq!(m["status"].as_str(), Some("completed"));
     let bench_s = m["bench_time_s"].as_float().expect("bench_time_s");

@@ -3,6 +3,7 @@
 mod support;
 
 mod bad_input;
+mod budget;
 mod calibration;
 mod chamber;
 mod demo_run;

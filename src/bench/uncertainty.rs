@@ -160,7 +160,7 @@ pub fn input_uncertainty<T>(
                 ));
             }
             let dof = c.dof.unwrap_or(f64::INFINITY);
-            if !(dof >= 1.0) {
+            if dof.is_nan() || dof < 1.0 {
                 return Err(bad(
                     &key("dof"),
                     format!("{dof} is not a number of degrees of freedom"),
@@ -207,7 +207,12 @@ mod tests {
     fn refuses_bad_statements_naming_the_key() {
         let key = |r: Result<Option<InputUncertainty>, BadStatement>| r.err().map(|e| e.key);
         assert_eq!(
-            key(input_uncertainty(&cert(8.0, 0.0, None), None, "path.cable_delay_ps", "u")),
+            key(input_uncertainty(
+                &cert(8.0, 0.0, None),
+                None,
+                "path.cable_delay_ps",
+                "u"
+            )),
             Some("path.cable_delay_ps.k".to_string())
         );
         assert_eq!(
@@ -215,15 +220,30 @@ mod tests {
             Some("r.expanded_ps".to_string())
         );
         assert_eq!(
-            key(input_uncertainty(&cert(1.0, 2.0, Some(0.5)), None, "r", "u")),
+            key(input_uncertainty(
+                &cert(1.0, 2.0, Some(0.5)),
+                None,
+                "r",
+                "u"
+            )),
             Some("r.dof".to_string())
         );
         assert_eq!(
-            key(input_uncertainty(&Stated::Plain(1.0), Some(-2.0), "r", "r_u")),
+            key(input_uncertainty(
+                &Stated::Plain(1.0),
+                Some(-2.0),
+                "r",
+                "r_u"
+            )),
             Some("r_u".to_string())
         );
         assert_eq!(
-            key(input_uncertainty(&cert(1.0, 2.0, None), Some(2.0), "r", "r_u")),
+            key(input_uncertainty(
+                &cert(1.0, 2.0, None),
+                Some(2.0),
+                "r",
+                "r_u"
+            )),
             Some("r_u".to_string())
         );
         assert_eq!(

@@ -161,8 +161,8 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
             }
         }
         None => {
-            let text =
-                tabulate::caltable_text(&fit, &bench.uncertainty).map_err(|e| Diagnostic::plain(e.to_string()))?;
+            let text = tabulate::caltable_text(&fit, &bench.uncertainty)
+                .map_err(|e| Diagnostic::plain(e.to_string()))?;
             print!("{}", String::from_utf8_lossy(&text));
         }
     }

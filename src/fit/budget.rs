@@ -187,7 +187,7 @@ mod tests {
             u_ps: 3.0,
             dof: f64::INFINITY,
         };
-        let c = combine(&[b.clone()]).expect("combines");
+        let c = combine(std::slice::from_ref(&b)).expect("combines");
         assert_eq!(c.u_comb_ps, 6.0);
         assert_eq!(c.dof_eff, f64::INFINITY);
         assert!(close(c.k, 1.959_964, 1e-5), "k {}", c.k);

@@ -215,7 +215,10 @@ mod tests {
         assert_eq!(lines[0], BUDGET_HEADER);
         assert!(lines[1].starts_with("5500,40,2,statistical,A,t,1,"));
         assert!(lines[1].ends_with(",11.0"));
-        assert_eq!(lines[2], "5500,40,2,cable_delay,B,not stated,-2,0.000,0.000,inf");
+        assert_eq!(
+            lines[2],
+            "5500,40,2,cable_delay,B,not stated,-2,0.000,0.000,inf"
+        );
     }
 
     #[test]

@@ -167,15 +167,15 @@ pub fn write_table_rows<W: Write>(out: W, rows: &[TableRow]) -> Result<(), CalTa
         );
         w.write_record(
             [
-            row.center_mhz.to_string(),
-            row.bw_mhz.to_string(),
-            row.gain_index.to_string(),
-            format!("{:.3}", row.delay_ps),
-            format!("{:.3}", row.ci95_ps),
-            row.n_used.to_string(),
-            row.n_rejected.to_string(),
-            row.source.as_str().to_string(),
-        ]
+                row.center_mhz.to_string(),
+                row.bw_mhz.to_string(),
+                row.gain_index.to_string(),
+                format!("{:.3}", row.delay_ps),
+                format!("{:.3}", row.ci95_ps),
+                row.n_used.to_string(),
+                row.n_rejected.to_string(),
+                row.source.as_str().to_string(),
+            ]
             .into_iter()
             .chain(budget),
         )
@@ -367,7 +367,8 @@ mod tests {
                           5180,80,2,-3.250,12.000,120,3,modelled,5.452,5.000,7.398,37.3,2.026,14.985\n";
 
     /// The older form, which ends at `source`.
-    const OLD_FORM: &str = "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source\n\
+    const OLD_FORM: &str =
+        "center_mhz,bw_mhz,gain_index,delay_ps,ci95_ps,n_used,n_rejected,source\n\
                             5180,80,0,2400.123,1.500,120,3,measured\n";
 
     #[test]
@@ -395,7 +396,9 @@ mod tests {
             Some(2)
         );
         assert_eq!(
-            error_line(&format!("{head}\n5180,80,0,1,1,2,0,measured,1,1,1,inf,-2,1\n")),
+            error_line(&format!(
+                "{head}\n5180,80,0,1,1,2,0,measured,1,1,1,inf,-2,1\n"
+            )),
             Some(2)
         );
     }

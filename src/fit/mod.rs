@@ -1,8 +1,8 @@
 //! The fitter: pure functions from recorded exchanges to a calibration table.
 
-pub mod cal_row;
 pub mod budget;
 pub mod budget_cell;
+pub mod cal_row;
 pub mod caltable;
 pub mod deembed;
 pub mod device_rtt;
