@@ -218,6 +218,19 @@ fn certificate_values_enter_the_table_and_the_budget() {
         budget.contains(",atten_delay,B,normal,-2,0.500,1.000,inf"),
         "{budget}"
     );
+    // The report's budget table: a row per cell, the cable's 8.0 ps in each.
+    let report = out.read("r/report.html");
+    let section = report
+        .split("<section id=\"budget\">")
+        .nth(1)
+        .and_then(|s| s.split("</section>").next())
+        .expect("budget section");
+    assert_eq!(
+        section.matches("<tr><td class=\"text\">").count(),
+        3,
+        "{section}"
+    );
+    assert_eq!(section.matches("<td>8.0</td>").count(), 3, "{section}");
 }
 
 fn refused(edits: &[(&str, &str)], words: &str) {

@@ -89,6 +89,7 @@ pub fn render(data: &ReportData) -> Result<String, ReportError> {
     );
     verdict(&mut page, data);
     summary(&mut page, data);
+    super::budget_table::section(&mut page, &data.budget, &data.table);
     plots(&mut page, data)?;
     provenance(&mut page, data);
     let _ = write!(

@@ -2,7 +2,10 @@
 //! for the report happens here, so the plots and the page are pure functions of the data.
 
 use super::drift_plot::BenchTime;
-use super::{BurstPoint, CellSpread, GainMapRow, LevelGains, ReportData, ReportError, VerifyPoint};
+use super::{
+    BudgetLine, BurstPoint, CellSpread, GainMapRow, LevelGains, ReportData, ReportError,
+    VerifyPoint,
+};
 use crate::bench::Bench;
 use crate::data::run_dir::files;
 use crate::data::{read_exchanges, Exchange, Manifest};
@@ -44,6 +47,7 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
         absent.push(files::CALTABLE);
         Vec::new()
     };
+    let budget = optional_csv::<BudgetLine>(dir, files::BUDGET, &mut absent)?;
     let gainmap = optional_csv::<GainMapRow>(dir, files::GAINMAP, &mut absent)?;
     let verify = optional_csv::<VerifyPoint>(dir, files::VERIFY, &mut absent)?;
 
@@ -100,6 +104,7 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
     Ok(ReportData {
         manifest,
         table,
+        budget,
         gainmap,
         verify,
         cells,

@@ -11,6 +11,7 @@
 pub mod html;
 pub mod load;
 
+mod budget_table;
 mod drift_plot;
 mod gainmap_plot;
 mod k_plot;
@@ -61,6 +62,32 @@ pub enum ReportError {
         /// Cause.
         source: std::io::Error,
     },
+}
+
+/// One row of `budget.csv`: a cell's component.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+pub struct BudgetLine {
+    /// Channel center, MHz.
+    pub center_mhz: u32,
+    /// Bandwidth, MHz.
+    pub bw_mhz: u32,
+    /// Gain state.
+    pub gain_index: u32,
+    /// Component name.
+    pub component: String,
+    /// GUM evaluation type, `A` or `B`.
+    #[serde(rename = "type")]
+    pub evaluation: String,
+    /// Assumed distribution.
+    pub distribution: String,
+    /// Sensitivity coefficient.
+    pub sensitivity: f64,
+    /// Standard uncertainty, ps.
+    pub u_ps: f64,
+    /// |c·u|, ps.
+    pub contribution_ps: f64,
+    /// Degrees of freedom (`inf` reads as infinite).
+    pub dof: f64,
 }
 
 /// One row of `gainmap.csv`.
@@ -165,6 +192,8 @@ pub struct ReportData {
     pub manifest: Manifest,
     /// The calibration table.
     pub table: Vec<TableRow>,
+    /// Each cell's uncertainty budget, component by component.
+    pub budget: Vec<BudgetLine>,
     /// Gain-state plateaus.
     pub gainmap: Vec<GainMapRow>,
     /// Verification rows.
