@@ -48,6 +48,7 @@ fn demo_without_bench_says_simulated_and_writes_the_contract_files() {
         "bench {bench_s} s, wall {wall_s} s"
     );
     assert_eq!(m["seed"].as_integer(), Some(1));
+    assert_eq!(m["caltable_version"].as_integer(), Some(2));
     assert_eq!(m["recipe"]["sha256"].as_str().map(str::len), Some(64));
     assert_eq!(m["bench"]["simulated"].as_bool(), Some(true));
     assert!(!out.read("demo/run.log").is_empty());

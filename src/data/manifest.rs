@@ -251,6 +251,10 @@ pub struct Manifest {
     /// [`RecordVersion`](super::RecordVersion)); a manifest without it is of a version 1 run.
     #[serde(default = "version_one")]
     pub record_version: u32,
+    /// Version of the run's `caltable.csv` layout: 1 ends at `source`, 2 appends the budget
+    /// columns ([`CALTABLE_VERSION`](crate::fit::caltable::CALTABLE_VERSION)).
+    #[serde(default = "version_one")]
+    pub caltable_version: u32,
 }
 
 /// Runs recorded before the manifest said otherwise wrote record version 1.

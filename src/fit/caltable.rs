@@ -29,6 +29,10 @@ pub const CALTABLE_HEADER: [&str; 14] = [
     "expanded_ps",
 ];
 
+/// The layout [`write_caltable`] writes, as the manifest records it: version 1 ended at
+/// `source`, version 2 appends the budget columns.
+pub const CALTABLE_VERSION: u32 = 2;
+
 /// Columns of the older form, which ends at `source`.
 const OLD_COLUMNS: usize = 8;
 

@@ -99,6 +99,7 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
         faults: BTreeMap::new(),
         skipped_points: Vec::new(),
         record_version: RecordVersion::CURRENT.number(),
+        caltable_version: crate::fit::caltable::CALTABLE_VERSION,
     };
     let earlier_wall_s = match &req.resume {
         Some(r) => {
