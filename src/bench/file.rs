@@ -778,6 +778,32 @@ mod tests {
         Bench::built_in().expect("demo bench")
     }
 
+    #[test]
+    fn a_certificate_gives_the_value_and_its_uncertainty() {
+        let text = BUILT_IN_DEMO
+            .replacen(
+                "delay_ps = 2800.0 ",
+                "delay_ps = { value_ps = [2800.0, 2950.0], expanded_ps = 6.0, k = 3.0, dof = 9 } ",
+                1,
+            )
+            .replacen(
+                "cable_delay_ps = 6100.0",
+                "cable_delay_ps = 6100.0\ncable_delay_u_ps = 1.5",
+                1,
+            );
+        let bench = Bench::parse(SourceFile::new("b.toml", text)).expect("bench parses");
+        assert_eq!(
+            bench.reference.delay_ps,
+            PerGain::Each(vec![2800.0, 2950.0])
+        );
+        assert_eq!(bench.path.cable_delay_ps, 6100.0);
+        let u = bench.uncertainty;
+        assert_eq!(u.reference.map(|r| (r.u_ps, r.dof)), Some((2.0, 9.0)));
+        assert_eq!(u.cable.map(|c| (c.u_ps, c.dof)), Some((1.5, f64::INFINITY)));
+        assert_eq!(u.atten, None);
+        assert_eq!(demo().uncertainty, super::BenchUncertainty::default());
+    }
+
     /// Every setting of the demo attenuator's grid, 0 to 95 dB in 0.25 dB.
     fn every_setting() -> impl Iterator<Item = f64> {
         (0..=380).map(|k| f64::from(k) * 0.25)
