@@ -68,28 +68,6 @@ pub struct Entry {
     pub n_rejected: u64,
     /// `measured` or `modelled`.
     pub source: String,
-    /// The cell's uncertainty budget, when the table carries one (appended in layout 1: a
-    /// reader that does not know it skips it).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub budget: Option<EntryBudget>,
-}
-
-/// The `caltable.csv` budget columns of a cell.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct EntryBudget {
-    /// Statistical standard uncertainty (type A).
-    pub u_stat_ps: f64,
-    /// The bench's inputs combined (type B).
-    pub u_bench_ps: f64,
-    /// Combined standard uncertainty.
-    pub u_comb_ps: f64,
-    /// Effective degrees of freedom; absent when infinite (JSON has no infinity).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub dof: Option<f64>,
-    /// Coverage factor at 95 %.
-    pub k: f64,
-    /// Expanded uncertainty.
-    pub expanded_ps: f64,
 }
 
 impl From<&TableRow> for Entry {
@@ -103,14 +81,6 @@ impl From<&TableRow> for Entry {
             n_used: r.n_used,
             n_rejected: r.n_rejected,
             source: RowSource::as_str(r.source).to_string(),
-            budget: r.budget.map(|b| EntryBudget {
-                u_stat_ps: b.u_stat_ps,
-                u_bench_ps: b.u_bench_ps,
-                u_comb_ps: b.u_comb_ps,
-                dof: b.dof.is_finite().then_some(b.dof),
-                k: b.k,
-                expanded_ps: b.expanded_ps,
-            }),
         }
     }
 }
