@@ -4,7 +4,7 @@
 //! `every_readme_block_is_run_by_a_test`.
 
 use crate::instruments::{in_process_exchanges, Server};
-use crate::support::{repo, root, without_bench_time, Outcome, Taucal};
+use crate::support::{contract_columns, repo, root, without_bench_time, Outcome, Taucal};
 
 fn toml_files(dir: &str) -> Vec<String> {
     let mut files: Vec<String> = std::fs::read_dir(root().join(dir))
@@ -670,10 +670,15 @@ fn readme_commands_on_the_demo_data_run_as_printed() {
             }
             let args = taucal_args(&command);
             match args[0].as_str() {
-                // "prints the run's caltable.csv again"
+                // "prints the run's caltable.csv again" (the stored run's table is of the
+                // older layout: the budget columns are appended to it)
                 "fit" => {
                     let table = args[1].replace("exchanges.csv", "caltable.csv");
-                    assert_eq!(out.stdout, out.read(&table), "{command}");
+                    assert_eq!(
+                        contract_columns(&out.stdout),
+                        contract_columns(&out.read(&table)),
+                        "{command}"
+                    );
                 }
                 "report" => {
                     let page = out.read(&format!("{}/report.html", args[1]));

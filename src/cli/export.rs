@@ -32,8 +32,13 @@ pub fn run(args: ExportArgs) -> Result<Exit, Diagnostic> {
         )
         .with_hint(hint)
     })?;
-    let rows = read_caltable(std::io::BufReader::new(file))
+    let mut rows = read_caltable(std::io::BufReader::new(file))
         .map_err(|e| Diagnostic::in_file(&table_path, format!("{}: {e}", table_path.display())))?;
+    // An export is what provisioning loads: the design §4 columns, as the results store keeps
+    // them. The budget stays with the run (caltable.csv, budget.csv, the report).
+    for row in &mut rows {
+        row.budget = None;
+    }
     let manifest = Manifest::read(&manifest_path).map_err(|e| {
         Diagnostic::in_file(
             &manifest_path,

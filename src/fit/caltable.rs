@@ -136,14 +136,25 @@ pub fn write_caltable<W: Write>(
         .iter()
         .map(|r| TableRow::with_budget(r, bench))
         .collect();
-    write_table_rows(out, &rows)
+    write_rows(out, &rows, CALTABLE_HEADER.len())
 }
 
-/// Write table rows in the `caltable.csv` format: what [`write_caltable`] writes, for rows that
-/// were read back or came without their statistics.
+/// Write table rows in the `caltable.csv` format, for rows that were read back or came without
+/// their statistics: with the budget columns when a row has a budget, else in the older
+/// 8-column form, so a table without budgets is written as it was read.
 pub fn write_table_rows<W: Write>(out: W, rows: &[TableRow]) -> Result<(), CalTableError> {
+    let columns = if rows.iter().any(|r| r.budget.is_some()) {
+        CALTABLE_HEADER.len()
+    } else {
+        OLD_COLUMNS
+    };
+    write_rows(out, rows, columns)
+}
+
+/// Writes the first `columns` columns: all of them, or the older form's.
+fn write_rows<W: Write>(out: W, rows: &[TableRow], columns: usize) -> Result<(), CalTableError> {
     let mut w = csv::Writer::from_writer(out);
-    w.write_record(CALTABLE_HEADER)
+    w.write_record(&CALTABLE_HEADER[..columns])
         .map_err(CalTableError::Write)?;
     for (index, row) in rows.iter().enumerate() {
         for (column, value) in [("delay_ps", row.delay_ps), ("ci95_ps", row.ci95_ps)] {
@@ -157,9 +168,9 @@ pub fn write_table_rows<W: Write>(out: W, rows: &[TableRow]) -> Result<(), CalTa
             }
         }
         let budget = row.budget.map_or_else(
-            || vec![String::new(); CALTABLE_HEADER.len() - OLD_COLUMNS],
+            || vec![String::new(); columns - OLD_COLUMNS],
             |b| {
-                vec![
+                [
                     format!("{:.3}", b.u_stat_ps),
                     format!("{:.3}", b.u_bench_ps),
                     format!("{:.3}", b.u_comb_ps),
@@ -167,6 +178,9 @@ pub fn write_table_rows<W: Write>(out: W, rows: &[TableRow]) -> Result<(), CalTa
                     format!("{:.3}", b.k),
                     format!("{:.3}", b.expanded_ps),
                 ]
+                .into_iter()
+                .take(columns - OLD_COLUMNS)
+                .collect()
             },
         );
         w.write_record(
@@ -383,11 +397,14 @@ mod tests {
     }
 
     #[test]
-    fn reads_the_older_form_without_a_budget() {
+    fn reads_the_older_form_without_a_budget_and_writes_it_back_as_it_was() {
         let rows = read_caltable(OLD_FORM.as_bytes()).expect("reads");
         assert_eq!(rows.len(), 1);
         assert_eq!(rows[0].ci95_ps, 1.5);
         assert_eq!(rows[0].budget, None);
+        let mut out = Vec::new();
+        assert!(write_table_rows(&mut out, &rows).is_ok());
+        assert_eq!(String::from_utf8_lossy(&out), OLD_FORM);
     }
 
     #[test]

@@ -167,6 +167,15 @@ pub fn csv_numbers(text: &str) -> Vec<Vec<f64>> {
         .collect()
 }
 
+/// A `caltable.csv` cut to its design §4 contract columns (those up to `source`): what a table
+/// of either layout holds alike.
+pub fn contract_columns(table: &str) -> String {
+    table
+        .lines()
+        .map(|l| l.split(',').take(8).collect::<Vec<_>>().join(",") + "\n")
+        .collect()
+}
+
 /// Panics if `exchanges.csv` holds any exchange (stage, point, burst, seq) twice.
 pub fn assert_recorded_once(exchanges: &str) {
     let mut keys = std::collections::BTreeSet::new();
