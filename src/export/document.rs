@@ -66,7 +66,7 @@ pub struct Entry {
     pub n_used: u64,
     /// Samples rejected.
     pub n_rejected: u64,
-    /// `measured` or `modelled`.
+    /// `measured`, `modelled`, `inferred` or `predicted`.
     pub source: String,
 }
 

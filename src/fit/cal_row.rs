@@ -1,5 +1,6 @@
 //! One row of the calibration table, the fitter's output and the model's input: a cell's K,
-//! its statistics, and whether it was measured, measured in inferred states, or modelled.
+//! its statistics, and whether it was measured, measured in inferred states, modelled, or
+//! predicted from a population.
 
 /// Where a calibration row's delay comes from.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -11,6 +12,9 @@ pub enum RowSource {
     /// Estimated from exchanges whose gain state the device did not report: the state was
     /// inferred from K's plateaus against receive level ([`crate::fit::infer_states`]).
     Inferred,
+    /// Not measured: predicted from the unit's measured cells through a population model
+    /// (`[fit] predict`, [`crate::fit::predict`]); its interval is a prediction interval.
+    Predicted,
 }
 
 impl RowSource {
@@ -20,6 +24,7 @@ impl RowSource {
             RowSource::Measured => "measured",
             RowSource::Modelled => "modelled",
             RowSource::Inferred => "inferred",
+            RowSource::Predicted => "predicted",
         }
     }
 
@@ -29,15 +34,16 @@ impl RowSource {
             RowSource::Measured,
             RowSource::Modelled,
             RowSource::Inferred,
+            RowSource::Predicted,
         ]
         .into_iter()
         .find(|s| s.as_str() == text)
     }
 
     /// True for rows estimated from exchanges of their cell (measured or inferred), false for
-    /// rows a model filled in.
+    /// rows a model filled in or predicted.
     pub fn is_from_exchanges(self) -> bool {
-        self != RowSource::Modelled
+        matches!(self, RowSource::Measured | RowSource::Inferred)
     }
 }
 
@@ -81,5 +87,8 @@ mod tests {
         assert_eq!(RowSource::Inferred.as_str(), "inferred");
         assert!(RowSource::Inferred.is_from_exchanges());
         assert!(!RowSource::Modelled.is_from_exchanges());
+        assert_eq!(RowSource::Predicted.as_str(), "predicted");
+        assert_eq!(RowSource::parse("predicted"), Some(RowSource::Predicted));
+        assert!(!RowSource::Predicted.is_from_exchanges());
     }
 }

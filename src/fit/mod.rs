@@ -15,6 +15,7 @@ pub mod lsq;
 pub mod model;
 pub mod ota;
 pub mod pairs;
+pub mod predict;
 pub mod rtt;
 pub mod state_labels;
 pub mod stats;

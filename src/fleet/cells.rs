@@ -117,6 +117,7 @@ mod tests {
             gain_index: 0,
             delay_ps: k,
             ci95_ps: 19.59964,
+            exchanges: 160,
         };
         let s = cell_stats(&[cell("A", 2000.0), cell("B", 2060.0)]);
         assert_eq!(s.len(), 1);

@@ -5,5 +5,8 @@
 pub mod cells;
 pub mod centred;
 pub mod outliers;
+pub mod plan;
+pub mod plan_validate;
+pub mod shrinkage;
 pub mod stations;
 pub mod tolerance;

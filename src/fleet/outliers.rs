@@ -64,6 +64,7 @@ mod tests {
             gain_index: g,
             delay_ps: k,
             ci95_ps: 40.0,
+            exchanges: 160,
         }
     }
 

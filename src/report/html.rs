@@ -305,7 +305,9 @@ fn plots(page: &mut String, data: &ReportData) -> Result<(), ReportError> {
         k_plot::svg(data)?,
         "The DUT's K (TX + RX group delay) per gain state with its 95 % interval (burst-clustered \
          Student t), one colour per channel; hollow markers are modelled rows, half-tone ones rows \
-         whose gain states the DUT did not report and were inferred from K's plateaus.",
+         whose gain states the DUT did not report and were inferred from K's plateaus, hollow \
+         half-tone ones rows predicted from the population ([fit] predict; their interval is a \
+         95 % prediction interval).",
         "No calibration table in this run.",
     );
     figure(

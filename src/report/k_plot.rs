@@ -58,6 +58,8 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
                         // Half-tone: measured, but in states inferred from K, not reported.
                         RowSource::Inferred => colour.mix(0.45).filled(),
                         RowSource::Modelled => colour.stroke_width(2),
+                        // Hollow half-tone: predicted from the population, not measured.
+                        RowSource::Predicted => colour.mix(0.45).stroke_width(2),
                     };
                     Circle::new((f64::from(r.gain_index) + offset, r.delay_ps), 5, style)
                 }))?

@@ -65,6 +65,8 @@ pub struct FleetCell {
     pub delay_ps: f64,
     /// 95 % half-width, ps.
     pub ci95_ps: f64,
+    /// Exchanges the estimate used or rejected (the cell's cost on the bench).
+    pub exchanges: i64,
 }
 
 /// A results store.

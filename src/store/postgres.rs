@@ -466,6 +466,7 @@ impl Store for PgStore {
                 gain_index: r.get(4),
                 delay_ps: r.get(5),
                 ci95_ps: r.get(6),
+                exchanges: r.get(7),
             })
             .collect())
     }

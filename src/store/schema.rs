@@ -124,6 +124,7 @@ pub const FLEET_CELLS_QUERY: &str = "WITH latest AS (
       ROW_NUMBER() OVER (PARTITION BY unit_serial
         ORDER BY COALESCE(finished_utc, started_utc) DESC, run_id DESC) AS pick
     FROM runs WHERE accepted)
-  SELECT l.unit_serial, l.station, c.center_mhz, c.bw_mhz, c.gain_index, c.delay_ps, c.ci95_ps
+  SELECT l.unit_serial, l.station, c.center_mhz, c.bw_mhz, c.gain_index, c.delay_ps, c.ci95_ps,
+    c.n_used + c.n_rejected
   FROM latest l JOIN cal_cells c ON c.run_id = l.run_id
   WHERE l.pick = 1 AND c.source IN ('measured', 'inferred')";

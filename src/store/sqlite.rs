@@ -421,6 +421,7 @@ impl Store for SqliteStore {
                     gain_index: r.get(4)?,
                     delay_ps: r.get(5)?,
                     ci95_ps: r.get(6)?,
+                    exchanges: r.get(7)?,
                 })
             })
             .and_then(|rows| rows.collect::<Result<Vec<_>, _>>());
