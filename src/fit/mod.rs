@@ -16,6 +16,7 @@ pub mod model;
 pub mod ota;
 pub mod pairs;
 pub mod predict;
+pub mod predict_file;
 pub mod rtt;
 pub mod state_labels;
 pub mod stats;

@@ -6,6 +6,8 @@
 //!
 //! Pure: the model comes in as numbers ([`crate::fit::predict_file`] reads and writes it).
 
+use super::cal_row::{CalRow, RowSource};
+
 /// A cell: center frequency and bandwidth in MHz, gain state.
 pub type Cell = (u32, u32, u32);
 
@@ -131,6 +133,57 @@ impl PredictModel {
     }
 }
 
+/// `rows` with a `predicted` row for every model cell the table has not measured, predicted
+/// from every model cell it has (each with its own ci95 as its noise); rows of those cells that
+/// a model across gain states filled in are replaced, measured rows never altered. A table
+/// with none of the model's cells is returned as it is: there is nothing to predict from.
+pub fn with_predicted_rows(
+    model: &PredictModel,
+    rows: &[CalRow],
+) -> Result<Vec<CalRow>, PredictError> {
+    let given: Vec<Given> = rows
+        .iter()
+        .filter(|r| r.source.is_from_exchanges())
+        .filter_map(|r| {
+            model
+                .index_of((r.center_mhz, r.bw_mhz, r.gain_index))
+                .map(|index| Given {
+                    index,
+                    delay_ps: r.delay_ps,
+                    noise_sd_ps: r.ci95_ps / Z95,
+                })
+        })
+        .collect();
+    if given.is_empty() {
+        return Ok(rows.to_vec());
+    }
+    let predicted = model.predict(&given)?;
+    let replaced = |r: &CalRow| {
+        !r.source.is_from_exchanges()
+            && predicted
+                .iter()
+                .any(|p| model.cells[p.index] == (r.center_mhz, r.bw_mhz, r.gain_index))
+    };
+    let mut out: Vec<CalRow> = rows.iter().filter(|r| !replaced(r)).cloned().collect();
+    out.extend(predicted.iter().map(|p| {
+        let (center_mhz, bw_mhz, gain_index) = model.cells[p.index];
+        CalRow {
+            center_mhz,
+            bw_mhz,
+            gain_index,
+            delay_ps: p.delay_ps,
+            ci95_ps: Z95 * p.sd_ps,
+            n_used: 0,
+            n_rejected: 0,
+            n_bursts: 0,
+            sd_ps: f64::NAN,
+            source: RowSource::Predicted,
+        }
+    }));
+    out.sort_by_key(|r| (r.center_mhz, r.bw_mhz, r.gain_index));
+    Ok(out)
+}
+
 /// Lower-triangular L with L·Lᵀ = A.
 struct Cholesky {
     l: Vec<Vec<f64>>,
@@ -225,5 +278,41 @@ mod tests {
         }]);
         // ρ = 1 and no noise: the given block is 900, still positive definite; SD 0.
         assert_eq!(exact.unwrap()[0].sd_ps, 0.0);
+    }
+
+    #[test]
+    fn a_table_gains_predicted_rows_and_keeps_its_measured_ones() {
+        let measured = CalRow {
+            center_mhz: 5180,
+            bw_mhz: 80,
+            gain_index: 0,
+            delay_ps: 2450.0,
+            ci95_ps: 0.0,
+            n_used: 160,
+            n_rejected: 0,
+            n_bursts: 10,
+            sd_ps: 300.0,
+            source: RowSource::Measured,
+        };
+        let modelled = CalRow {
+            gain_index: 1,
+            source: RowSource::Modelled,
+            ..measured.clone()
+        };
+        let rows = with_predicted_rows(&model(0.8), &[measured.clone(), modelled]).unwrap();
+        assert_eq!(rows.len(), 2);
+        assert_eq!(rows[0], measured);
+        assert_eq!(rows[1].source, RowSource::Predicted);
+        assert!((rows[1].delay_ps - 2640.0).abs() < 1e-9);
+        assert!((rows[1].ci95_ps - Z95 * 18.0).abs() < 1e-9);
+        let elsewhere = CalRow {
+            center_mhz: 2412,
+            bw_mhz: 20,
+            ..measured
+        };
+        assert_eq!(
+            with_predicted_rows(&model(0.8), std::slice::from_ref(&elsewhere)).unwrap(),
+            vec![elsewhere]
+        );
     }
 }
