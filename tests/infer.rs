@@ -214,6 +214,7 @@ fn table_of(
         reject_mad: 5.0,
         verify_stages: Vec::new(),
         gain_states: None,
+        predict: None,
         applied_k_ps: truth.dut.applied_k_ps,
     };
     let t = fit_file(&path, b, &settings).expect("fit");

@@ -101,6 +101,31 @@ pub enum FleetCommand {
         after_help = "Columns: station,units,offset_ps,ci95_ps,flagged. A station whose true path is e ps longer\nthan it declares shows an offset of about +2e ps (the round trip).\n\nExamples:\n  taucal fleet stations\n  taucal fleet stations --threshold-ps 30 --format csv"
     )]
     Stations(FleetStationsArgs),
+    /// A reduced calibration: the cells to measure, and a model that predicts the rest.
+    #[command(
+        after_help = "From each unit's latest accepted table: the fleet's mean and Ledoit–Wolf covariance over\ncells, and the N cells (chosen greedily) that keep the worst prediction SD of the others\nsmallest. MODEL.toml is the predictor a recipe names in `[fit] predict`; --validate leaves\neach unit out in turn and reports how often the 95 % prediction intervals held its measured\nvalues, and the exchanges the plan spends against the full calibration.\n\nExamples:\n  taucal fleet plan --measure 1 --out model.toml --max-ci95-ps 50 --validate\n  taucal fleet plan --store postgres://line4@db.lab/cal --measure 4 --out line4-model.toml"
+    )]
+    Plan(FleetPlanArgs),
+}
+
+/// `taucal fleet plan`.
+#[derive(Debug, Args)]
+pub struct FleetPlanArgs {
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// How many cells each unit will have measured.
+    #[arg(long, value_name = "N")]
+    pub measure: usize,
+    /// Where to write the population model (TOML).
+    #[arg(long, value_name = "MODEL.toml")]
+    pub out: PathBuf,
+    /// The recipe's acceptance limit on a cell's 95 % half-width: predicted intervals wider
+    /// than it are reported.
+    #[arg(long, value_name = "PS")]
+    pub max_ci95_ps: Option<f64>,
+    /// Leave each unit out in turn: coverage of the prediction intervals, exchanges spent.
+    #[arg(long)]
+    pub validate: bool,
 }
 
 /// `taucal fleet stats`.

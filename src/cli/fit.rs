@@ -24,6 +24,7 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         verify_stages: Vec::new(),
         gain_states: None,
         applied_k_ps: None,
+        predict: None,
     };
     let mut from = "default";
     let mut manifest = None;
@@ -36,6 +37,11 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         settings.verify_stages = m.fit.verify_stages;
         settings.gain_states = m.fit.gain_states;
         settings.applied_k_ps = m.fit.applied_k_ps;
+        // The run predicted its unmeasured cells: the offline fit does the same, from the
+        // same model file.
+        if let Some(model) = &m.fit.predict {
+            settings.predict = Some(crate::fit::predict_file::read_model(std::path::Path::new(model))?);
+        }
         from = "the run's manifest";
     }
     let mut reject_from = from;

@@ -1,13 +1,17 @@
-//! `taucal fleet stats` and `taucal fleet stations`: the fleet's statistics from a store, as
-//! aligned text or CSV.
+//! `taucal fleet stats`, `taucal fleet stations` and `taucal fleet plan`: the fleet's
+//! statistics from a store, as aligned text or CSV, and a reduced calibration plan.
 
-use super::args::{FleetCommand, FleetStationsArgs, FleetStatsArgs, ListFormat};
+use super::args::{FleetCommand, FleetPlanArgs, FleetStationsArgs, FleetStatsArgs, ListFormat};
 use super::store::{fail, open_existing, read_url};
 use super::{log, Exit};
 use crate::diagnostic::Diagnostic;
 use crate::fleet::cells::{cell_stats, TOL_CONFIDENCE, TOL_PROPORTION};
 use crate::fleet::centred::deviations;
+use crate::fit::predict::Z95;
+use crate::fit::predict_file::model_toml;
 use crate::fleet::outliers::{outliers, CUTOFF_Z};
+use crate::fleet::plan::{plan as make_plan, population};
+use crate::fleet::plan_validate::leave_one_out;
 use crate::fleet::stations::station_offsets;
 use crate::store::FleetCell;
 
@@ -16,6 +20,7 @@ pub fn run(command: FleetCommand) -> Result<Exit, Diagnostic> {
     match command {
         FleetCommand::Stats(a) => stats(a),
         FleetCommand::Stations(a) => stations(a),
+        FleetCommand::Plan(a) => plan(a),
     }
 }
 
@@ -214,6 +219,114 @@ fn stations(args: FleetStationsArgs) -> Result<Exit, Diagnostic> {
              than declared shows as +2e ps",
             args.threshold_ps
         ));
+    }
+    Ok(Exit::Ok)
+}
+
+fn plan(args: FleetPlanArgs) -> Result<Exit, Diagnostic> {
+    if let Some(l) = args.max_ci95_ps {
+        if !(l.is_finite() && l > 0.0) {
+            return Err(Diagnostic::plain(format!("--max-ci95-ps {l}: not a half-width"))
+                .with_hint("give the recipe's [accept] max_ci95_ps in ps, e.g. --max-ci95-ps 50"));
+        }
+    }
+    let cells = fleet(&args.store)?;
+    let bad = |e: crate::fleet::plan::PlanError| Diagnostic::plain(e.to_string());
+    let pop = population(&cells).map_err(bad)?;
+    let p = make_plan(&pop, args.measure).map_err(|e| {
+        bad(e).with_hint("each unit's latest accepted run must hold the same cells; --measure counts cells")
+    })?;
+    let m = &p.model;
+    let header = format!(
+        "taucal population model: {} units, {} cells; measure {} of them, predict the rest\n\
+         written by `taucal fleet plan --measure {}`; name it in a recipe's [fit] predict\n\
+         covariance: Ledoit–Wolf shrinkage {:.4} (of measured K, measurement noise included)",
+        pop.units.len(),
+        m.cells.len(),
+        m.measured.len(),
+        args.measure,
+        p.shrinkage
+    );
+    crate::data::manifest::write_atomic(&args.out, model_toml(m, &header).as_bytes()).map_err(
+        |e| Diagnostic::in_file(&args.out, format!("cannot write the population model: {e}")),
+    )?;
+    println!(
+        "plan: measure {} of {} cells, chosen greedily to keep the worst prediction SD of the \
+         rest smallest; {} units ({} left out for lacking a cell), Ledoit–Wolf shrinkage {:.4}",
+        m.measured.len(),
+        m.cells.len(),
+        pop.units.len(),
+        pop.incomplete,
+        p.shrinkage
+    );
+    let head = [
+        "center_mhz",
+        "bw_mhz",
+        "gain_index",
+        "action",
+        "mean_ps",
+        "sd_ps",
+        "pred_sd_ps",
+        "pred_ci95_ps",
+    ];
+    let mut over = Vec::new();
+    let rows: Vec<Vec<String>> = (0..m.cells.len())
+        .map(|i| {
+            let (c, b, g) = m.cells[i];
+            let pred = p.expected.iter().find(|e| e.index == i);
+            let ci = pred.map(|e| Z95 * e.sd_ps);
+            if let (Some(ci), Some(limit)) = (ci, args.max_ci95_ps) {
+                if ci > limit {
+                    over.push((m.cells[i], ci));
+                }
+            }
+            vec![
+                c.to_string(),
+                b.to_string(),
+                g.to_string(),
+                if pred.is_some() { "predict" } else { "measure" }.to_string(),
+                num(m.mean_ps[i], 1),
+                num(m.cov_ps2[i][i].sqrt(), 1),
+                pred.map_or(String::new(), |e| num(e.sd_ps, 1)),
+                ci.map_or(String::new(), |c| num(c, 1)),
+            ]
+        })
+        .collect();
+    print_table(&head, &rows, ListFormat::Text)?;
+    match args.max_ci95_ps {
+        None => println!("no acceptance limit given (--max-ci95-ps): predicted intervals not judged"),
+        Some(limit) if over.is_empty() => {
+            println!("every predicted 95 % interval is within the acceptance limit ±{limit} ps")
+        }
+        Some(limit) => {
+            for ((c, b, g), ci) in &over {
+                println!(
+                    "NOT WITHIN LIMIT: {c}/{b}/{g} predicted to ±{ci:.1} ps, over the acceptance \
+                     limit ±{limit} ps: the population's spread does not allow better from these \
+                     {} cells; measure this cell too, or more cells",
+                    m.measured.len()
+                );
+            }
+        }
+    }
+    println!("model written to {}", args.out.display());
+    if args.validate {
+        let v = leave_one_out(&pop, &m.measured).map_err(bad)?;
+        println!(
+            "validate: leaving each of {} units out, {} of {} prediction intervals held the \
+             measured value ({:.1} %; widened by that value's own noise)",
+            v.units,
+            v.covered,
+            v.intervals,
+            100.0 * v.coverage()
+        );
+        println!(
+            "validate: exchanges per unit {:.0} with the plan against {:.0} for the full \
+             calibration ({:.1} %)",
+            v.plan_exchanges,
+            v.full_exchanges,
+            100.0 * v.exchange_ratio()
+        );
     }
     Ok(Exit::Ok)
 }

@@ -170,6 +170,9 @@ pub struct FitInfo {
     /// absent when it did not say, and the bench or driver must.
     #[serde(default)]
     pub applied_k_ps: Option<f64>,
+    /// The population model that predicted unmeasured cells (`[fit] predict`), as found.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub predict: Option<String>,
 }
 
 impl Default for FitInfo {
@@ -180,6 +183,7 @@ impl Default for FitInfo {
             single_state: Vec::new(),
             gain_states: None,
             applied_k_ps: None,
+            predict: None,
         }
     }
 }

@@ -6,7 +6,9 @@ use super::script_source::ScriptSource;
 use super::vars::Vars;
 use crate::bench::Bench;
 use crate::diagnostic::{Diagnostic, KeyError, SourceFile};
-use std::path::Path;
+use crate::fit::predict::PredictModel;
+use crate::fit::predict_file::read_model;
+use std::path::{Path, PathBuf};
 
 /// Channel bandwidths taucal accepts, MHz (IEEE 802.11 OFDM channel widths).
 pub const BANDWIDTHS_MHZ: [u32; 5] = [20, 40, 80, 160, 320];
@@ -207,8 +209,19 @@ pub struct Plan {
     pub reject_mad: f64,
     /// The DUT's number of gain states, when the recipe says; unmeasured ones are modelled.
     pub gain_states: Option<u32>,
+    /// The population model that predicts unmeasured cells (`[fit] predict`).
+    pub predict: Option<Predictor>,
     /// What to do when an instrument fails.
     pub faults: FaultPolicy,
+}
+
+/// A recipe's `[fit] predict`: the model file and what it holds.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Predictor {
+    /// The model file, as found from the recipe's folder.
+    pub path: PathBuf,
+    /// The model.
+    pub model: PredictModel,
 }
 
 /// Default rejection threshold (scaled MADs).
@@ -323,6 +336,21 @@ pub(super) fn build(
         .map(|v| vars.count("fit.gain_states", v, 1, 64))
         .transpose()
         .map_err(located)?;
+    let predict = match &raw.fit.predict {
+        Some(rel) => {
+            let path = base_dir.join(rel);
+            if !path.is_file() {
+                return Err(located(KeyError::new(
+                    "fit.predict",
+                    format!("\"{rel}\": no such file ({})", path.display()),
+                    "give the model `taucal fleet plan --out` wrote, relative to the recipe's folder",
+                )));
+            }
+            let model = read_model(&path)?;
+            Some(Predictor { path, model })
+        }
+        None => None,
+    };
     let defaults = FaultPolicy::default();
     let faults =
         FaultPolicy {
@@ -364,6 +392,7 @@ pub(super) fn build(
     Ok(Plan {
         faults,
         gain_states,
+        predict,
         name,
         description: raw.recipe.description,
         source: source.clone(),

@@ -49,6 +49,9 @@ pub struct RawFit {
     pub reject_mad: Option<toml::Value>,
     /// How many gain states the DUT has; states not measured are modelled.
     pub gain_states: Option<toml::Value>,
+    /// A population model (`taucal fleet plan --out`), relative to the recipe's folder: cells
+    /// the run does not measure are predicted from those it does.
+    pub predict: Option<String>,
 }
 
 /// `[faults]`.

@@ -52,6 +52,7 @@ pub fn fit_and_write(
             .map(|(n, _)| n.clone())
             .collect(),
         gain_states: plan.gain_states,
+        predict: plan.predict.as_ref().map(|p| p.model.clone()),
         applied_k_ps: recorded.applied_k_ps,
     };
     let levels = &recorded.verify_stages;

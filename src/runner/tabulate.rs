@@ -11,6 +11,7 @@ use crate::data::file_parts::{split_at_bursts, PartReader};
 use crate::data::manifest::write_atomic;
 use crate::data::{read_exchanges, Exchange, ReadError};
 use crate::fit::model::{fill_table, ModelOptions};
+use crate::fit::predict::{with_predicted_rows, PredictModel};
 use crate::fit::state_labels::{StateCollector, StateLabels};
 use crate::fit::verify::Checked;
 use crate::fit::{burst_delays, caltable, Deembed, FitOptions, FitResult, Fitter, RowSource};
@@ -30,6 +31,8 @@ pub struct FitSettings {
     pub gain_states: Option<u32>,
     /// The K a range-reporting DUT removed from its ranges; when `None`, the bench's.
     pub applied_k_ps: Option<f64>,
+    /// The population model that predicts the cells not measured.
+    pub predict: Option<PredictModel>,
 }
 
 /// The table, and the verification exchanges judged one by one.
@@ -109,6 +112,15 @@ fn fit_file_split_from(
             Err(e) => tracing::warn!(
                 "unmeasured gain states left out of the table, not modelled: {e}. Measure them, \
                  or more states, so that a model can be chosen and checked"
+            ),
+        }
+    }
+    if let Some(model) = &settings.predict {
+        match with_predicted_rows(model, &fit.rows) {
+            Ok(rows) => fit.rows = rows,
+            Err(e) => tracing::warn!(
+                "unmeasured cells left out of the table, not predicted: {e}. The population \
+                 model does not fit this unit's measured cells; rebuild it with `taucal fleet plan`"
             ),
         }
     }
@@ -375,6 +387,7 @@ mod tests {
             reject_mad: 5.0,
             verify_stages: vec!["verify".into()],
             gain_states: Some(4),
+            predict: None,
             applied_k_ps: None,
         };
         let one = fit_file_split_from(&path, &bench, &settings, u64::MAX).expect("fit");
@@ -417,6 +430,7 @@ mod tests {
             reject_mad: 5.0,
             verify_stages: vec!["verify".into()],
             gain_states: None,
+            predict: None,
             applied_k_ps: None,
         };
         let indexed = fit_file_split_from(&path, &bench, &settings, u64::MAX).expect("fit");
@@ -468,6 +482,7 @@ mod tests {
             reject_mad: 5.0,
             verify_stages: Vec::new(),
             gain_states: None,
+            predict: None,
             applied_k_ps: None,
         };
         let lines = text.lines().count();
