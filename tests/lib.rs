@@ -16,6 +16,7 @@ mod fuzz;
 mod gain_switch;
 mod infer;
 mod instruments;
+mod plan;
 mod plan_preview;
 mod record_version;
 mod report;

@@ -40,7 +40,9 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         // The run predicted its unmeasured cells: the offline fit does the same, from the
         // same model file.
         if let Some(model) = &m.fit.predict {
-            settings.predict = Some(crate::fit::predict_file::read_model(std::path::Path::new(model))?);
+            settings.predict = Some(crate::fit::predict_file::read_model(std::path::Path::new(
+                model,
+            ))?);
         }
         from = "the run's manifest";
     }

@@ -5,10 +5,10 @@ use super::args::{FleetCommand, FleetPlanArgs, FleetStationsArgs, FleetStatsArgs
 use super::store::{fail, open_existing, read_url};
 use super::{log, Exit};
 use crate::diagnostic::Diagnostic;
-use crate::fleet::cells::{cell_stats, TOL_CONFIDENCE, TOL_PROPORTION};
-use crate::fleet::centred::deviations;
 use crate::fit::predict::Z95;
 use crate::fit::predict_file::model_toml;
+use crate::fleet::cells::{cell_stats, TOL_CONFIDENCE, TOL_PROPORTION};
+use crate::fleet::centred::deviations;
 use crate::fleet::outliers::{outliers, CUTOFF_Z};
 use crate::fleet::plan::{plan as make_plan, population};
 use crate::fleet::plan_validate::leave_one_out;
@@ -226,15 +226,20 @@ fn stations(args: FleetStationsArgs) -> Result<Exit, Diagnostic> {
 fn plan(args: FleetPlanArgs) -> Result<Exit, Diagnostic> {
     if let Some(l) = args.max_ci95_ps {
         if !(l.is_finite() && l > 0.0) {
-            return Err(Diagnostic::plain(format!("--max-ci95-ps {l}: not a half-width"))
-                .with_hint("give the recipe's [accept] max_ci95_ps in ps, e.g. --max-ci95-ps 50"));
+            return Err(
+                Diagnostic::plain(format!("--max-ci95-ps {l}: not a half-width")).with_hint(
+                    "give the recipe's [accept] max_ci95_ps in ps, e.g. --max-ci95-ps 50",
+                ),
+            );
         }
     }
     let cells = fleet(&args.store)?;
     let bad = |e: crate::fleet::plan::PlanError| Diagnostic::plain(e.to_string());
     let pop = population(&cells).map_err(bad)?;
     let p = make_plan(&pop, args.measure).map_err(|e| {
-        bad(e).with_hint("each unit's latest accepted run must hold the same cells; --measure counts cells")
+        bad(e).with_hint(
+            "each unit's latest accepted run must hold the same cells; --measure counts cells",
+        )
     })?;
     let m = &p.model;
     let header = format!(
@@ -294,7 +299,9 @@ fn plan(args: FleetPlanArgs) -> Result<Exit, Diagnostic> {
         .collect();
     print_table(&head, &rows, ListFormat::Text)?;
     match args.max_ci95_ps {
-        None => println!("no acceptance limit given (--max-ci95-ps): predicted intervals not judged"),
+        None => {
+            println!("no acceptance limit given (--max-ci95-ps): predicted intervals not judged")
+        }
         Some(limit) if over.is_empty() => {
             println!("every predicted 95 % interval is within the acceptance limit ±{limit} ps")
         }

@@ -92,11 +92,7 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
         fit: FitInfo {
             reject_mad: req.plan.reject_mad,
             gain_states: req.plan.gain_states,
-            predict: req
-                .plan
-                .predict
-                .as_ref()
-                .map(|p| absolute(&p.path)),
+            predict: req.plan.predict.as_ref().map(|p| absolute(&p.path)),
             ..FitInfo::default()
         },
         realtime: req.realtime,
