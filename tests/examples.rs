@@ -189,6 +189,8 @@ enum Kind {
     Store,
     /// A simulated fleet and the fleet commands on its store, in one directory.
     Fleet,
+    /// A simulated fleet and a reduced plan made from it, in one directory.
+    Plan,
     /// The exact stdout of the single command in the block before it.
     Output,
     /// The Performance section's reproduction.
@@ -251,6 +253,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "sh" if text.contains("cargo bench --bench scale") => Kind::Performance,
         "sh" if text.contains("taucal sim serve") => Kind::Served,
         "sh" if text.contains("taucal store ") => Kind::Store,
+        "sh" if text.contains("taucal fleet plan") => Kind::Plan,
         "sh" if text.contains("taucal sim fleet") => Kind::Fleet,
         "sh" if commands(block).iter().all(|c| c.starts_with("taucal ")) => Kind::Commands,
         "" if text.starts_with("taucal run RECIPE") => Kind::Synopsis,
@@ -803,4 +806,40 @@ fn readme_fleet_example_runs_as_printed() {
         .collect();
     assert_eq!(flagged.len(), 1, "{}", outputs[2]);
     assert!(flagged[0].starts_with("line-d"), "{}", outputs[2]);
+}
+
+#[test]
+fn readme_plan_example_runs_as_printed() {
+    let block = the_block(Kind::Plan);
+    let mut dir = Taucal::new()
+        .with_repo(&["recipes", "drivers"])
+        .args(["--version"])
+        .run()
+        .dir;
+    let mut outputs = Vec::new();
+    for command in commands(&block) {
+        let out = Taucal::in_dir(dir).args(taucal_args(&command)).run();
+        out.expect_code(0);
+        outputs.push(out.stdout.clone());
+        dir = out.dir;
+    }
+    assert!(
+        outputs[0].contains("calibrated 200 units"),
+        "{}",
+        outputs[0]
+    );
+    let plan = &outputs[1];
+    let action = |a: &str| {
+        plan.lines()
+            .filter(|l| l.split_whitespace().nth(3) == Some(a))
+            .count()
+    };
+    assert_eq!((action("measure"), action("predict")), (1, 2), "{plan}");
+    assert!(
+        plan.contains("validate: leaving each of 200 units out"),
+        "{plan}"
+    );
+    assert!(plan.contains("validate: exchanges per unit"), "{plan}");
+    let model = std::fs::read_to_string(dir.path().join("model.toml")).expect("model");
+    assert_eq!(model.matches("[[cell]]").count(), 3, "{model}");
 }
