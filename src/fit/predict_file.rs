@@ -96,7 +96,8 @@ fn check(raw: &RawModel) -> Result<(), KeyError> {
                 "list each (center_mhz, bw_mhz, gain_index) once",
             ));
         }
-        if !(c.noise_sd_ps >= 0.0) {
+        // The TOML reader refuses nan and inf, so plain comparisons decide.
+        if c.noise_sd_ps < 0.0 {
             return Err(KeyError::new(
                 at("noise_sd_ps"),
                 "negative",
@@ -110,7 +111,7 @@ fn check(raw: &RawModel) -> Result<(), KeyError> {
                 format!("give this cell's covariance with each of the {n} cells, in order"),
             ));
         }
-        if !(c.cov_ps2[i] > 0.0) {
+        if c.cov_ps2[i] <= 0.0 {
             return Err(KeyError::new(
                 at("cov_ps2"),
                 format!("the cell's own variance, entry {i}, is not positive"),

@@ -113,9 +113,9 @@ mod tests {
                 1.622_947_757_903_002,
             ],
         ];
-        for i in 0..3 {
-            for j in 0..3 {
-                assert!((s.cov[i][j] - want[i][j]).abs() < 1e-12, "{i},{j}: {s:?}");
+        for (got, want) in s.cov.iter().zip(&want) {
+            for (g, w) in got.iter().zip(want) {
+                assert!((g - w).abs() < 1e-12, "{g} against {w}: {s:?}");
             }
         }
         assert!((s.mean[0] - 2.1).abs() < 1e-12);
