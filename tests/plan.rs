@@ -227,3 +227,36 @@ fn a_reduced_recipe_predicts_the_other_states_within_their_intervals() {
     t.expect_code(0);
     assert_eq!(t.stdout.matches(",predicted").count(), 2, "{}", t.stdout);
 }
+
+#[test]
+fn a_missing_or_broken_model_is_named_where_it_is_given() {
+    let full = std::fs::read_to_string(repo(RECIPE)).expect("recipe");
+    let recipe = full.replace("[accept]", "[fit]\npredict = \"model.toml\"\n\n[accept]");
+    let bench = repo(BENCH);
+    let check = |t: Taucal| {
+        let out = t.args(["check", "r.toml", "--bench", bench.as_str()]).run();
+        out.expect_code(2);
+        out.stderr
+    };
+    let e = check(Taucal::new().file("r.toml", &recipe));
+    assert!(
+        e.contains("r.toml") && e.contains("fit.predict") && e.contains("no such file"),
+        "{e}"
+    );
+    // Cell 1's covariance with cell 0 differs from cell 0's with cell 1.
+    let model = "[[cell]]\ncenter_mhz = 5180\nbw_mhz = 80\ngain_index = 0\nmeasure = true\n\
+                 mean_ps = 2400.0\nnoise_sd_ps = 20.0\ncov_ps2 = [900.0, 700.0]\n\n\
+                 [[cell]]\ncenter_mhz = 5180\nbw_mhz = 80\ngain_index = 1\nmeasure = false\n\
+                 mean_ps = 2600.0\nnoise_sd_ps = 20.0\ncov_ps2 = [600.0, 900.0]\n";
+    let e = check(
+        Taucal::new()
+            .file("r.toml", &recipe)
+            .file("model.toml", model),
+    );
+    assert!(
+        e.contains("model.toml line 17")
+            && e.contains("cell.1.cov_ps2.0")
+            && e.contains("symmetric"),
+        "{e}"
+    );
+}

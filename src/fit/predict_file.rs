@@ -123,7 +123,7 @@ fn check(raw: &RawModel) -> Result<(), KeyError> {
             if (a - b).abs() > 1e-6 * (a.abs() + b.abs()).max(1.0) {
                 return Err(KeyError::new(
                     format!("{}.{j}", at("cov_ps2")),
-                    format!("{a} but cell {j} has {b} with this cell: not symmetric"),
+                    format!("is {a}, but cell {j} gives {b} for the same pair: not symmetric"),
                     "a covariance matrix is symmetric",
                 ));
             }
