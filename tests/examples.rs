@@ -842,4 +842,5 @@ fn readme_plan_example_runs_as_printed() {
     assert!(plan.contains("validate: exchanges per unit"), "{plan}");
     let model = std::fs::read_to_string(dir.path().join("model.toml")).expect("model");
     assert_eq!(model.matches("[[cell]]").count(), 3, "{model}");
+    assert!(outputs[2].contains("check passed"), "{}", outputs[2]);
 }

@@ -60,8 +60,8 @@ fn fleet(
     out
 }
 
-/// `fleet plan --measure 1` with the recipe's limit of ±50 ps and `--validate`.
-fn plan(dir: tempfile::TempDir, store: &str) -> crate::support::Outcome {
+/// `fleet plan --measure 1` with the recipe's limit of ±50 ps and `--validate`, and `extra`.
+fn plan(dir: tempfile::TempDir, store: &str, extra: &[&str]) -> crate::support::Outcome {
     let url = format!("sqlite:{store}");
     let out = Taucal::in_dir(dir)
         .args([
@@ -77,6 +77,7 @@ fn plan(dir: tempfile::TempDir, store: &str) -> crate::support::Outcome {
             "50",
             "--validate",
         ])
+        .args(extra.iter().copied())
         .run();
     out.expect_code(0);
     out
@@ -103,7 +104,7 @@ fn leave_one_out_covers_about_95_percent_for_a_third_of_the_exchanges() {
     let (mut covered, mut intervals) = (0.0, 0.0);
     for seed in [31, 32, 33] {
         let out = fleet(Taucal::new(), &repo(RECIPE), 4.0, 200, seed, "f.sqlite");
-        let out = plan(out.dir, "f.sqlite");
+        let out = plan(out.dir, "f.sqlite", &[]);
         let s = &out.stdout;
         assert!(
             s.contains("every predicted 95 % interval is within the acceptance limit ±50 ps"),
@@ -134,7 +135,7 @@ fn a_population_too_spread_to_predict_within_the_limit_is_said_so() {
     // and one cell measured to about ±47 ps predicts the others to about ±72 ps; both
     // predicted cells are reported over the ±50 ps limit.
     let out = fleet(Taucal::new(), &repo(RECIPE), 30.0, 100, 41, "f.sqlite");
-    let out = plan(out.dir, "f.sqlite");
+    let out = plan(out.dir, "f.sqlite", &[]);
     let over = out
         .stdout
         .lines()
@@ -145,12 +146,18 @@ fn a_population_too_spread_to_predict_within_the_limit_is_said_so() {
 
 #[test]
 fn a_reduced_recipe_predicts_the_other_states_within_their_intervals() {
-    // Plan on one fleet, then calibrate a fresh fleet (another seed) with a recipe that
-    // measures only the chosen state and names the model in [fit] predict. Each predicted
-    // row's 95 % interval is checked against the simulator's truth: 100 units, 200 intervals,
-    // binomial SE 1.5 %, so 90–99 % (the tight 93–97 % check is the pooled leave-one-out one).
+    // Plan on one fleet, then calibrate a fresh fleet (another seed) with the plan's reduced
+    // recipe: it measures only the chosen state and names the model in [fit] predict. Each
+    // predicted row's 95 % interval is checked against the simulator's truth: 100 units, 200
+    // intervals, binomial SE 1.5 %, so 90–99 % (the tight 93–97 % check is the pooled
+    // leave-one-out one).
     let out = fleet(Taucal::new(), &repo(RECIPE), 4.0, 150, 51, "plan.sqlite");
-    let out = plan(out.dir, "plan.sqlite");
+    let full = repo(RECIPE);
+    let out = plan(
+        out.dir,
+        "plan.sqlite",
+        &["--recipe", full.as_str(), "--recipe-out", "reduced.toml"],
+    );
     let model = out.read("model.toml");
     let measured: Vec<usize> = model
         .split("[[cell]]")
@@ -162,17 +169,19 @@ fn a_reduced_recipe_predicts_the_other_states_within_their_intervals() {
         })
         .collect();
     assert_eq!(measured.len(), 1, "{model}");
-    let full = std::fs::read_to_string(repo(RECIPE)).expect("recipe");
-    let reduced = full
-        .replace(
-            "atten_db = [27.0, 49.0, 75.0]",
-            &format!("atten_db = [{:.1}]", MID_PLATEAU_DB[measured[0]]),
-        )
-        .replace("min_gain_states = 3", "min_gain_states = 1")
-        .replace("[accept]", "[fit]\npredict = \"model.toml\"\n\n[accept]");
-    assert!(reduced.contains("predict = \"model.toml\"") && reduced.contains("atten_db = ["));
-    let t = Taucal::in_dir(out.dir).file("reduced.toml", &reduced);
-    let out = fleet(t, "reduced.toml", 4.0, 100, 52, "reduced.sqlite");
+    // The reduced recipe keeps the chosen state's mid-plateau point only.
+    let reduced = out.read("reduced.toml");
+    let point = format!("atten_db = [{:.1}]", MID_PLATEAU_DB[measured[0]]);
+    assert!(reduced.contains(&point), "{reduced}");
+    assert!(reduced.contains("predict = \"model.toml\""), "{reduced}");
+    let out = fleet(
+        Taucal::in_dir(out.dir),
+        "reduced.toml",
+        4.0,
+        100,
+        52,
+        "reduced.sqlite",
+    );
 
     let truth: std::collections::HashMap<(String, u32), f64> = out
         .read("truth.csv")

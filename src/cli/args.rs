@@ -126,6 +126,14 @@ pub struct FleetPlanArgs {
     /// Leave each unit out in turn: coverage of the prediction intervals, exchanges spent.
     #[arg(long)]
     pub validate: bool,
+    /// The full factory recipe (one mid-plateau point per gain state in each sweep stage), to
+    /// cut down to the plan's cells with --recipe-out.
+    #[arg(long, value_name = "RECIPE.toml", requires = "recipe_out")]
+    pub recipe: Option<PathBuf>,
+    /// Where to write the reduced recipe: the full one measuring only the plan's cells, with
+    /// `[fit] predict` naming the model.
+    #[arg(long, value_name = "RECIPE.toml", requires = "recipe")]
+    pub recipe_out: Option<PathBuf>,
 }
 
 /// `taucal fleet stats`.

@@ -11,6 +11,7 @@ use crate::fleet::cells::{cell_stats, TOL_CONFIDENCE, TOL_PROPORTION};
 use crate::fleet::centred::deviations;
 use crate::fleet::outliers::{outliers, CUTOFF_Z};
 use crate::fleet::plan::{plan as make_plan, population};
+use crate::fleet::plan_recipe::reduce;
 use crate::fleet::plan_validate::leave_one_out;
 use crate::fleet::stations::station_offsets;
 use crate::store::FleetCell;
@@ -317,6 +318,10 @@ fn plan(args: FleetPlanArgs) -> Result<Exit, Diagnostic> {
         }
     }
     println!("model written to {}", args.out.display());
+    if let (Some(full), Some(out)) = (&args.recipe, &args.recipe_out) {
+        write_reduced(full, out, &args.out, m)?;
+        println!("reduced recipe written to {}", out.display());
+    }
     if args.validate {
         let v = leave_one_out(&pop, &m.measured).map_err(bad)?;
         println!(
@@ -336,4 +341,42 @@ fn plan(args: FleetPlanArgs) -> Result<Exit, Diagnostic> {
         );
     }
     Ok(Exit::Ok)
+}
+
+/// Writes `full` cut to `model`'s measured cells as `out`, naming the model at `model_path`.
+fn write_reduced(
+    full: &std::path::Path,
+    out: &std::path::Path,
+    model_path: &std::path::Path,
+    model: &crate::fit::predict::PredictModel,
+) -> Result<(), Diagnostic> {
+    let text = crate::text_file::read(full)
+        .map_err(|e| Diagnostic::in_file(full, format!("cannot read the recipe: {e}")))?;
+    // The reduced recipe names the model relative to its own folder when they share one.
+    let folder = |p: &std::path::Path| {
+        let parent = p.parent().filter(|d| !d.as_os_str().is_empty());
+        std::fs::canonicalize(parent.unwrap_or(std::path::Path::new(".")))
+    };
+    let predict = match (folder(out), folder(model_path), model_path.file_name()) {
+        (Ok(a), Ok(b), Some(name)) if a == b => name.to_string_lossy().into_owned(),
+        _ => std::fs::canonicalize(model_path)
+            .unwrap_or_else(|_| model_path.to_path_buf())
+            .display()
+            .to_string(),
+    };
+    let reduced = reduce(&text, model, &predict).map_err(|e| {
+        let source = crate::diagnostic::SourceFile::new(full, text.clone());
+        source.key_error(crate::diagnostic::KeyError::new(
+            e.key,
+            e.message,
+            "give a factory recipe whose sweep stages hold one mid-plateau point per gain state",
+        ))
+    })?;
+    let header = format!(
+        "# {}, cut by `taucal fleet plan` to the cells its model measures; the model\n\
+         # ({predict}) predicts the rest.\n\n",
+        full.display()
+    );
+    crate::data::manifest::write_atomic(out, format!("{header}{reduced}").as_bytes())
+        .map_err(|e| Diagnostic::in_file(out, format!("cannot write the reduced recipe: {e}")))
 }

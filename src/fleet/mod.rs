@@ -6,6 +6,7 @@ pub mod cells;
 pub mod centred;
 pub mod outliers;
 pub mod plan;
+pub mod plan_recipe;
 pub mod plan_validate;
 pub mod shrinkage;
 pub mod stations;
