@@ -177,6 +177,8 @@ pub fn with_predicted_rows(
             n_rejected: 0,
             n_bursts: 0,
             sd_ps: f64::NAN,
+            // A normal prediction interval: its "degrees of freedom" are unlimited.
+            stat_dof: f64::INFINITY,
             source: RowSource::Predicted,
         }
     }));
@@ -292,6 +294,7 @@ mod tests {
             n_rejected: 0,
             n_bursts: 10,
             sd_ps: 300.0,
+            stat_dof: 9.0,
             source: RowSource::Measured,
         };
         let modelled = CalRow {
