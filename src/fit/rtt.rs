@@ -76,15 +76,23 @@ fn ls_line(points: impl Iterator<Item = (i64, i64)> + Clone) -> Option<(f64, f64
 }
 
 /// `(t1, t2)` counter readings of a burst as wrap-safe offsets from the burst's first exchange,
-/// ready for [`rate_ratio`].
+/// ready for [`rate_ratio`]. Each offset is the previous one plus the step from the previous
+/// reading, so a burst may span any time as long as consecutive exchanges are less than 2^47 ps
+/// (140.7 s) apart: a difference from the first reading alone would fold a burst longer than
+/// that back on itself and give a wrong clock ratio without a sign.
 pub fn burst_offsets(t1_t2_ps: &[(u64, u64)]) -> Vec<(i64, i64)> {
-    let Some(&(first_t1, first_t2)) = t1_t2_ps.first() else {
-        return Vec::new();
-    };
-    t1_t2_ps
-        .iter()
-        .map(|&(t1, t2)| (wrapped_diff_ps(t1, first_t1), wrapped_diff_ps(t2, first_t2)))
-        .collect()
+    let mut out: Vec<(i64, i64)> = Vec::with_capacity(t1_t2_ps.len());
+    for (k, &(t1, t2)) in t1_t2_ps.iter().enumerate() {
+        out.push(match k {
+            0 => (0, 0),
+            _ => {
+                let (p1, p2) = t1_t2_ps[k - 1];
+                let (o1, o2) = out[k - 1];
+                (o1 + wrapped_diff_ps(t1, p1), o2 + wrapped_diff_ps(t2, p2))
+            }
+        });
+    }
+    out
 }
 
 /// RTT with the initiator's turnaround expressed in the responder's timebase:
@@ -192,6 +200,24 @@ mod tests {
         assert_eq!(rate_ratio(&[]), None);
         assert_eq!(rate_ratio(&[(3, 4)]), None);
         assert_eq!(rate_ratio(&[(3, 4), (3, 9)]), None);
+    }
+
+    #[test]
+    fn a_burst_longer_than_half_the_counter_keeps_its_clock_ratio() {
+        // 200 exchanges a second apart span 199 s, more than 2^47 ps = 140.7 s; the DUT's clock
+        // runs 20 ppm fast. Offsets from the first reading alone would fold the last 59 s back.
+        let ratio = 1.0 + 20e-6;
+        let readings: Vec<(u64, u64)> = (0..200u64)
+            .map(|k| {
+                let t1 = (k * 1_000_000_000_000 + 123) & COUNTER_MASK;
+                let t2 = ((k as f64 * 1e12 * ratio) as u64 + 9_000_000) & COUNTER_MASK;
+                (t1, t2)
+            })
+            .collect();
+        let offsets = burst_offsets(&readings);
+        assert_eq!(offsets[199].0, 199_000_000_000_000);
+        let slope = rate_ratio(&offsets).expect("a ratio");
+        assert!((slope - ratio).abs() < 1e-12, "{slope}");
     }
 
     #[test]
