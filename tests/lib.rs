@@ -16,6 +16,7 @@ mod fuzz;
 mod gain_switch;
 mod infer;
 mod instruments;
+mod late_paths;
 mod plan;
 mod plan_preview;
 mod record_version;

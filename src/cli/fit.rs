@@ -139,10 +139,11 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         .median_clock_offset_ppm
         .map_or_else(|| "unknown".to_string(), |p| format!("{p:+.2} ppm"));
     log::notice(&format!(
-        "taucal: {} rows, {} usable, {} bursts; median DUT clock offset {ppm}",
+        "taucal: {} rows, {} usable, {} bursts, {} judged late; median DUT clock offset {ppm}",
         s.rows_pushed,
         s.rows_pushed - s.rows_unusable,
         s.bursts,
+        s.rows_judged_late,
     ));
     match &args.out {
         Some(dir) => {

@@ -10,6 +10,7 @@ pub mod drift;
 pub mod fitter;
 pub mod gainmap;
 pub mod infer_states;
+pub mod late_tail;
 pub mod level_spread;
 pub mod lsq;
 pub mod model;

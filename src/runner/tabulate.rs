@@ -100,6 +100,14 @@ fn fit_file_split_from(
         }
     };
     let mut fit = fitter.finish();
+    if fit.summary.rows_judged_late > 0 {
+        // Kept by the rejection window but more likely late paths than the core: say so, so
+        // a bench with near multipath is seen as one.
+        tracing::info!(
+            "{} rows judged late (a late side beside the core of their cells)",
+            fit.summary.rows_judged_late
+        );
+    }
     if labels.is_some() {
         for row in &mut fit.rows {
             row.source = RowSource::Inferred;

@@ -178,6 +178,7 @@ impl SimBench {
                 processing_gain_db: d.processing_gain_db,
                 jitter_ps: d.jitter_ps,
                 outlier_rate: d.outlier_rate,
+                late_spread: d.late_spread,
             },
             clock: Counter48::new(dut_start_ps, d.clock_ppm),
         };
@@ -190,6 +191,7 @@ impl SimBench {
                 processing_gain_db: r.processing_gain_db,
                 jitter_ps: r.jitter_ps,
                 outlier_rate: r.outlier_rate,
+                late_spread: r.late_spread,
             },
             clock: Counter48::new(ref_start_ps, 0.0),
         };

@@ -31,6 +31,9 @@ pub struct Receiver {
     pub jitter_ps: f64,
     /// Probability that a time of arrival locks to a late path.
     pub outlier_rate: f64,
+    /// Spread of a late lock beyond one sample period, in sample periods (see
+    /// [`late_path_delay_ps`]).
+    pub late_spread: f64,
 }
 
 /// One drawn time-of-arrival error.
@@ -68,7 +71,7 @@ impl Receiver {
         let excess: f64 = Exp1.sample(late_rng);
         let late_path = u < self.outlier_rate;
         let late_ps = if late_path {
-            late_path_delay_ps(excess, bw_hz)
+            late_path_delay_ps(excess * self.late_spread, bw_hz)
         } else {
             0.0
         };
@@ -99,7 +102,9 @@ pub fn crb_sigma_ps(snr_eff_db: f64, bw_hz: f64) -> f64 {
 }
 
 /// Extra delay of a late-path lock: `(1 + x)` sample periods of a `bw_hz` channel, `x` an Exp(1)
-/// draw. Never less than one sample period, so a late detection stands well clear of the jitter.
+/// draw scaled by the receiver's late spread. Never less than one sample period: on wide
+/// channels with coarse jitter that is only a few jitter sigmas, close enough to the core to
+/// survive a symmetric rejection window.
 pub fn late_path_delay_ps(exp1_draw: f64, bw_hz: f64) -> f64 {
     (1.0 + exp1_draw.max(0.0)) * sample_period_ps(bw_hz)
 }
@@ -129,6 +134,7 @@ mod tests {
             processing_gain_db: 20.0,
             jitter_ps: 0.0,
             outlier_rate: 0.0,
+            late_spread: 1.0,
         }
     }
 

@@ -82,6 +82,11 @@ pub struct SimDut {
     /// Probability that a time of arrival locks to a late path.
     #[serde(default)]
     pub outlier_rate: f64,
+    /// How widely late-path locks spread beyond one sample period, in sample periods: a lock
+    /// lands `(1 + late_spread·x)` periods late, `x` drawn from Exp(1). 0 puts every late
+    /// detection exactly one period late.
+    #[serde(default = "default_late_spread")]
+    pub late_spread: f64,
     /// Receiver noise figure.
     #[serde(default = "default_nf")]
     pub noise_figure_db: f64,
@@ -181,6 +186,10 @@ pub struct SimReference {
     /// a reference unit is chosen for clean detection, so late paths are the DUT's by default.
     #[serde(default)]
     pub outlier_rate: f64,
+    /// How widely the reference's late-path locks spread beyond one sample period, as
+    /// `[sim.dut] late_spread`.
+    #[serde(default = "default_late_spread")]
+    pub late_spread: f64,
     /// The reference's 48-bit picosecond counter when the simulation starts; drawn from the
     /// seed unless given.
     #[serde(default)]
@@ -291,6 +300,10 @@ fn default_seed() -> u64 {
 fn default_tx_power() -> f64 {
     15.0
 }
+fn default_late_spread() -> f64 {
+    1.0
+}
+
 fn default_jitter() -> f64 {
     300.0
 }
@@ -450,6 +463,8 @@ impl SimTruth {
             }
         }
         non_negative("sim.reference.jitter_ps", r.jitter_ps)?;
+        non_negative("sim.dut.late_spread", d.late_spread)?;
+        non_negative("sim.reference.late_spread", r.late_spread)?;
         non_negative("sim.reference.rssi_noise_db", r.rssi_noise_db)?;
         non_negative("sim.reference.gain_hysteresis_db", r.gain_hysteresis_db)?;
         outlier_rate("sim.dut.outlier_rate", d.outlier_rate)?;
@@ -699,5 +714,20 @@ mod tests {
         t.reference.outlier_rate = 0.7;
         let err = t.validate().expect_err("rate above 0.5 must be rejected");
         assert_eq!(err.key, "sim.reference.outlier_rate");
+    }
+
+    #[test]
+    fn late_spread_defaults_to_one_period_and_may_not_be_negative() {
+        let mut t = truth();
+        assert_eq!((t.dut.late_spread, t.reference.late_spread), (1.0, 1.0));
+        t.dut.late_spread = -0.5;
+        let err = t
+            .validate()
+            .expect_err("a negative spread must be rejected");
+        assert_eq!(err.key, "sim.dut.late_spread");
+        t.dut.late_spread = 0.0;
+        t.reference.late_spread = f64::NAN;
+        let err = t.validate().expect_err("NaN must be rejected");
+        assert_eq!(err.key, "sim.reference.late_spread");
     }
 }
