@@ -35,17 +35,8 @@ impl DrivenChamber {
         }
     }
 
-    /// A lost connection, a timeout or an unreadable reply may pass; an error the chamber
-    /// reports itself is a refusal, which will not.
     fn error(&self, context: &str, e: ScpiError) -> InstrumentError {
-        let message = format!("{context}{e}");
-        match e {
-            ScpiError::Link(_) | ScpiError::Reply { .. } => InstrumentError::Transient {
-                role: self.role.clone(),
-                message,
-            },
-            ScpiError::Instrument(_) => self.refused(message),
-        }
+        e.for_role(&self.role, context)
     }
 
     /// Why the driver file forbids the setpoint `c`, if it does: outside the rated range, or

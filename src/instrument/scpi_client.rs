@@ -4,6 +4,7 @@
 //! the instrument's own code and text. Reply parsing is pure and tested apart.
 
 use super::transport::{Link, LinkError};
+use super::InstrumentError;
 use thiserror::Error;
 
 /// Most entries read from an error queue in one drain: a queue that never reports "no error"
@@ -29,6 +30,22 @@ pub enum ScpiError {
         /// What was expected.
         expected: String,
     },
+}
+
+impl ScpiError {
+    /// The error as the runner judges it for `role`, its message after `context`: a lost
+    /// connection, a timeout or an unreadable reply may pass; an error the instrument reports
+    /// itself is a refusal, which will not.
+    pub fn for_role(self, role: &str, context: &str) -> InstrumentError {
+        let message = format!("{context}{self}");
+        let role = role.to_string();
+        match self {
+            ScpiError::Link(_) | ScpiError::Reply { .. } => {
+                InstrumentError::Transient { role, message }
+            }
+            ScpiError::Instrument(_) => InstrumentError::Refused { role, message },
+        }
+    }
 }
 
 /// Parses one `SYST:ERR?` reply: `<code>,"<text>"` (SCPI 1999 Vol 2 §21.8). Code 0 means the
