@@ -737,22 +737,28 @@ fn readme_performance_options_are_the_benchmarks_own() {
     );
 }
 
-#[test]
-fn readme_store_block_runs_as_printed_in_one_directory() {
-    let block = the_block(Kind::Store);
+/// Runs a README block's commands one after the other in one copy of the repository's recipes
+/// and drivers, each expected to succeed; returns the directory and each command's stdout.
+fn run_block_in_one_directory(kind: Kind) -> (tempfile::TempDir, Vec<String>) {
     let mut dir = Taucal::new()
         .with_repo(&["recipes", "drivers"])
         .args(["--version"])
         .run()
         .dir;
     let mut outputs = Vec::new();
-    for command in commands(&block) {
+    for command in commands(&the_block(kind)) {
         let out = Taucal::in_dir(dir).args(taucal_args(&command)).run();
         out.expect_code(0);
-        outputs.push((command, out.stdout.clone()));
+        outputs.push(out.stdout.clone());
         dir = out.dir;
     }
-    let units = &outputs[2].1;
+    (dir, outputs)
+}
+
+#[test]
+fn readme_store_block_runs_as_printed_in_one_directory() {
+    let (dir, outputs) = run_block_in_one_directory(Kind::Store);
+    let units = &outputs[2];
     assert!(
         units.contains("SN-0412") && units.contains("SN-0413"),
         "{units}"
@@ -762,26 +768,14 @@ fn readme_store_block_runs_as_printed_in_one_directory() {
         .args(["export", "runs/sn0412", "--format", "c"])
         .run();
     export.expect_code(0);
-    assert_eq!(outputs[3].1, export.stdout);
-    assert!(outputs[4].1.contains("2 runs copied"), "{}", outputs[4].1);
+    assert_eq!(outputs[3], export.stdout);
+    assert!(outputs[4].contains("2 runs copied"), "{}", outputs[4]);
     assert!(export.path("line4-central.sqlite").is_file());
 }
 
 #[test]
 fn readme_fleet_example_runs_as_printed() {
-    let block = the_block(Kind::Fleet);
-    let mut dir = Taucal::new()
-        .with_repo(&["recipes", "drivers"])
-        .args(["--version"])
-        .run()
-        .dir;
-    let mut outputs = Vec::new();
-    for command in commands(&block) {
-        let out = Taucal::in_dir(dir).args(taucal_args(&command)).run();
-        out.expect_code(0);
-        outputs.push(out.stdout.clone());
-        dir = out.dir;
-    }
+    let (dir, outputs) = run_block_in_one_directory(Kind::Fleet);
     assert!(
         outputs[0].contains("calibrated 200 units"),
         "{}",
@@ -810,19 +804,7 @@ fn readme_fleet_example_runs_as_printed() {
 
 #[test]
 fn readme_plan_example_runs_as_printed() {
-    let block = the_block(Kind::Plan);
-    let mut dir = Taucal::new()
-        .with_repo(&["recipes", "drivers"])
-        .args(["--version"])
-        .run()
-        .dir;
-    let mut outputs = Vec::new();
-    for command in commands(&block) {
-        let out = Taucal::in_dir(dir).args(taucal_args(&command)).run();
-        out.expect_code(0);
-        outputs.push(out.stdout.clone());
-        dir = out.dir;
-    }
+    let (dir, outputs) = run_block_in_one_directory(Kind::Plan);
     assert!(
         outputs[0].contains("calibrated 200 units"),
         "{}",
