@@ -27,14 +27,15 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
         predict: None,
     };
     let mut from = "default";
-    let mut manifest = None;
-    if let Some(path) = &manifest_path {
-        let m = Manifest::read(path).map_err(|e| {
+    let manifest = match &manifest_path {
+        Some(path) => Some(Manifest::read(path).map_err(|e| {
             Diagnostic::in_file(path, format!("cannot read the run's manifest: {e}"))
-        })?;
-        manifest = Some(m.clone());
+        })?),
+        None => None,
+    };
+    if let Some(m) = &manifest {
         settings.reject_mad = m.fit.reject_mad;
-        settings.verify_stages = m.fit.verify_stages;
+        settings.verify_stages = m.fit.verify_stages.clone();
         settings.gain_states = m.fit.gain_states;
         settings.applied_k_ps = m.fit.applied_k_ps;
         // The run predicted its unmeasured cells: the offline fit does the same, from the
