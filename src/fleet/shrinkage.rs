@@ -85,8 +85,9 @@ mod tests {
     #[test]
     fn matches_scikit_learn_on_a_worked_example() {
         // Reference: scikit-learn's `ledoit_wolf_shrinkage` / `ledoit_wolf` (assume_centered =
-        // False), its published source transcribed step by step (β = Σ‖x‖⁴ form) and run on
-        // these five observations of three variables: shrinkage 0.568422411289542, μ 1.74667.
+        // False), its published source followed step by step in plain Python (β = Σ‖x‖⁴ form)
+        // and run on these five observations of three variables: shrinkage 0.568422411289542,
+        // μ 1.74667.
         let rows = vec![
             vec![1.0, 2.0, 0.5],
             vec![2.0, 1.0, 1.5],
