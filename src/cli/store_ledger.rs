@@ -32,15 +32,6 @@ impl StoreLedger {
             .parent()
             .unwrap_or(Path::new("."))
             .to_path_buf();
-        if arg.url.is_none() && env.as_deref().is_none_or(|e| e.trim().is_empty()) {
-            if let Some(s) = &bench.store {
-                StoreUrl::parse(&s.url).map_err(|e| {
-                    bench
-                        .source
-                        .key_error(KeyError::new("store.url", e.to_string(), URL_HINT))
-                })?;
-            }
-        }
         let bench_url = bench.store.as_ref().map(|s| (s.url.clone(), folder));
         let (url, origin) = resolve::choose(
             arg.url.as_deref(),
@@ -49,12 +40,20 @@ impl StoreLedger {
             Path::new(""),
         )
         .map_err(|e| {
-            let from = if arg.url.is_some() {
-                "--store"
-            } else {
-                resolve::ENV
-            };
-            Diagnostic::plain(format!("{from}: {e}")).with_hint(URL_HINT)
+            // The URL at fault is the one the choice took: the flag's, the environment's, or
+            // the bench file's, which is shown at its line.
+            let env_set = env.as_deref().is_some_and(|v| !v.trim().is_empty());
+            match (arg.url.is_some(), env_set) {
+                (true, _) => Diagnostic::plain(format!("--store: {e}")).with_hint(URL_HINT),
+                (false, true) => {
+                    Diagnostic::plain(format!("{}: {e}", resolve::ENV)).with_hint(URL_HINT)
+                }
+                (false, false) => {
+                    bench
+                        .source
+                        .key_error(KeyError::new("store.url", e.to_string(), URL_HINT))
+                }
+            }
         })?;
         if url == StoreUrl::Off {
             return Ok(Box::new(NoLedger));
