@@ -91,12 +91,14 @@ fn the_expanded_interval_covers_the_truth_when_the_bench_is_off_by_its_stated_u(
         cable: stated(CABLE_U_PS),
         atten: None,
         reference: stated(REF_U_PS),
+        measured: None,
     };
     let deembed = Deembed {
         cable_delay_ps: CABLE_PS,
         atten_delay_ps_per_db: 0.0,
         reference_delay: PerGain::Same(REF_K_PS),
         applied_k_ps: None,
+        measured: None,
     };
     let (mut expanded_in, mut statistical_in, mut total) = (0u32, 0u32, 0u32);
     let mut u_stat_sum = 0.0;

@@ -82,6 +82,7 @@ fn deembed() -> Deembed {
         atten_delay_ps_per_db: PATH.atten_delay_ps_per_db,
         reference_delay: PerGain::Same(2700.0),
         applied_k_ps: None,
+        measured: None,
     }
 }
 

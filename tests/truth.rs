@@ -140,6 +140,7 @@ fn fit(case: &Case, rows: &[Exchange]) -> FitResult {
         atten_delay_ps_per_db: case.path.atten_delay_ps_per_db,
         reference_delay: case.reference.clone(),
         applied_k_ps: None,
+        measured: None,
     };
     let mut f = Fitter::new(deembed, FitOptions::default());
     for r in rows {

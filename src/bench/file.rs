@@ -1,6 +1,10 @@
 //! Reading a bench file: raw TOML structs, then a validated [`Bench`].
 
-use super::uncertainty::{input_uncertainty, BenchUncertainty, Stated};
+use super::certificate::ReferenceCertificate;
+use super::measured_path::{read_file, MeasuredPath};
+use super::uncertainty::{
+    input_uncertainty, BenchUncertainty, InputUncertainty, Stated, UncertaintyFrom,
+};
 use super::{PathFacts, PerGain, TimingFacts};
 use crate::diagnostic::{Diagnostic, KeyError, SourceFile};
 use crate::instrument::driver_file::{
@@ -13,6 +17,7 @@ use crate::sim::SimTruth;
 use serde::Deserialize;
 use std::collections::BTreeMap;
 use std::path::Path;
+use std::sync::Arc;
 
 /// The simulated demo bench, compiled in as the default (same text as `recipes/benches/sim-demo.toml`).
 pub const BUILT_IN_DEMO: &str = include_str!("../../recipes/benches/sim-demo.toml");
@@ -71,20 +76,27 @@ struct RawMeta {
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct RawPath {
-    cable_delay_ps: Stated<f64>,
+    cable_delay_ps: Option<Stated<f64>>,
     fixed_loss_db: f64,
-    #[serde(default)]
-    atten_delay_ps_per_db: f64,
+    atten_delay_ps_per_db: Option<f64>,
     cable_delay_u_ps: Option<f64>,
     atten_delay_u_ps: Option<f64>,
+    /// A VNA measurement of the cables and fixtures, instead of `cable_delay_ps`.
+    touchstone: Option<String>,
+    /// The one-way standard uncertainty of the Touchstone files' group delay (the VNA's).
+    touchstone_u_ps: Option<f64>,
+    /// The attenuator measured at some of its settings: setting (dB, as text) → file.
+    atten_touchstone: Option<BTreeMap<String, String>>,
 }
 
 /// `[reference]` as written: [`ReferenceFacts`] with its K's uncertainty.
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct RawReference {
-    delay_ps: Stated<PerGain>,
+    delay_ps: Option<Stated<PerGain>>,
     delay_u_ps: Option<f64>,
+    /// The reference's calibration certificate file, instead of `delay_ps`.
+    certificate: Option<String>,
     tx_power_dbm: f64,
     max_input_dbm: f64,
     min_input_dbm: f64,
@@ -154,6 +166,9 @@ pub struct ReferenceFacts {
     pub max_input_dbm: f64,
     /// Lowest receive level worth measuring.
     pub min_input_dbm: f64,
+    /// The certificate `delay_ps` came from, when the bench names one (`[reference]
+    /// certificate`).
+    pub certificate: Option<ReferenceCertificate>,
 }
 
 /// A validated bench.
@@ -171,8 +186,12 @@ pub struct Bench {
     pub attenuator: AttenuatorFacts,
     /// The DUT's level facts.
     pub dut: UnitFacts,
-    /// Cable and fixture delays and losses.
+    /// Cable and fixture delays and losses. With a measured path (`measured_path`), its
+    /// `cable_delay_ps` is 0 and `atten_delay_ps_per_db` too when the attenuator is measured:
+    /// the delays are per channel, in `measured_path`.
     pub path: PathFacts,
+    /// The path as a VNA measured it (`[path] touchstone`), per channel.
+    pub measured_path: Option<Arc<MeasuredPath>>,
     /// The reference unit.
     pub reference: ReferenceFacts,
     /// Standard uncertainties of the path's delays and the reference's K (GUM type B).
@@ -210,8 +229,38 @@ impl Bench {
     /// Parses and validates bench text.
     pub fn parse(source: SourceFile) -> Result<Bench, Diagnostic> {
         let raw: RawBench = crate::toml_input::parse(&source)?;
-        let uncertainty = stated_uncertainty(&raw.path, &raw.reference)
+        let folder = source.path.parent().unwrap_or(Path::new(".")).to_path_buf();
+        let measured_path = measured_path(&raw.path, &folder).map_err(|e| source.key_error(e))?;
+        let certificate = match &raw.reference.certificate {
+            Some(name) => Some(reference_certificate(
+                &raw.reference,
+                &folder,
+                name,
+                &source,
+            )?),
+            None => None,
+        };
+        let mut uncertainty = stated_uncertainty(&raw.path, &raw.reference)
             .map_err(|e| source.key_error(KeyError::new(e.key, e.problem, e.hint)))?;
+        if let Some(c) = &certificate {
+            uncertainty.reference = Some(c.uncertainty);
+        }
+        uncertainty.measured = measured_path.clone();
+        if measured_path.is_some() {
+            uncertainty.cable = raw.path.touchstone_u_ps.map(stated_u);
+            if measured_path.as_ref().is_some_and(|m| !m.atten.is_empty()) {
+                uncertainty.atten = uncertainty.cable;
+            }
+        }
+        let reference_k = match (&certificate, &raw.reference.delay_ps) {
+            (Some(c), _) => c.k_ps.clone(),
+            (None, Some(d)) => d.value(),
+            (None, None) => return Err(source.key_error(KeyError::new(
+                "reference",
+                "states no K for the reference unit",
+                "give delay_ps (the reference's calibrated K in ps) or certificate = \"FILE.toml\"",
+            ))),
+        };
         let bench = Bench {
             name: raw.bench.name,
             description: raw.bench.description,
@@ -219,15 +268,17 @@ impl Bench {
             attenuator: raw.attenuator,
             dut: raw.dut,
             path: PathFacts {
-                cable_delay_ps: raw.path.cable_delay_ps.value(),
+                cable_delay_ps: raw.path.cable_delay_ps.as_ref().map_or(0.0, Stated::value),
                 fixed_loss_db: raw.path.fixed_loss_db,
-                atten_delay_ps_per_db: raw.path.atten_delay_ps_per_db,
+                atten_delay_ps_per_db: raw.path.atten_delay_ps_per_db.unwrap_or(0.0),
             },
+            measured_path,
             reference: ReferenceFacts {
-                delay_ps: raw.reference.delay_ps.value(),
+                delay_ps: reference_k,
                 tx_power_dbm: raw.reference.tx_power_dbm,
                 max_input_dbm: raw.reference.max_input_dbm,
                 min_input_dbm: raw.reference.min_input_dbm,
+                certificate,
             },
             uncertainty,
             timing: raw.timing,
@@ -273,6 +324,26 @@ impl Bench {
             d.message = format!("with --connect {}: {}", overrides.join(" "), d.message);
             d
         })
+    }
+
+    /// The measured path's delays on each of `channels` (center, bandwidth, MHz); empty when
+    /// the path is given as numbers. An error names the file's key when a channel's band is
+    /// not inside its file.
+    pub fn channel_paths(
+        &self,
+        channels: &[(u32, u32)],
+    ) -> Result<Vec<super::measured_path::OnChannel>, Diagnostic> {
+        let Some(m) = &self.measured_path else {
+            return Ok(Vec::new());
+        };
+        channels
+            .iter()
+            .map(|&(c, b)| {
+                m.channel(c, b)
+                    .map(|p| ((c, b), p))
+                    .map_err(|e| self.source.key_error(e))
+            })
+            .collect()
     }
 
     /// The folder driver files are read from.
@@ -727,6 +798,17 @@ impl Bench {
         }
         if let Some(sim) = &self.sim {
             sim.validate()?;
+            // The simulator's path is one number for every channel; a measured declaration
+            // gives none, so the truth must be said.
+            if self.measured_path.is_some() && sim.path.is_none() {
+                return Err(KeyError::new(
+                    "sim",
+                    "has no [sim.path], but the bench's path is a Touchstone file",
+                    "give the simulated path's true one-way delay: [sim.path] cable_delay_ps = … \
+                     (the file's delay to rehearse an agreeing declaration, another to rehearse \
+                     a wrong one)",
+                ));
+            }
         }
         Ok(())
     }
@@ -741,6 +823,143 @@ impl Bench {
     }
 }
 
+/// A standard uncertainty stated directly, with infinite degrees of freedom.
+fn stated_u(u_ps: f64) -> InputUncertainty {
+    InputUncertainty {
+        u_ps,
+        dof: f64::INFINITY,
+        from: UncertaintyFrom::Standard,
+    }
+}
+
+/// `[path] touchstone` and `atten_touchstone` read from the bench's `folder`, with the keys
+/// they exclude refused; `None` when the path is given as numbers.
+fn measured_path(path: &RawPath, folder: &Path) -> Result<Option<Arc<MeasuredPath>>, KeyError> {
+    let Some(name) = &path.touchstone else {
+        if path.cable_delay_ps.is_none() {
+            return Err(KeyError::new(
+                "path",
+                "states no cable delay",
+                "give cable_delay_ps (one-way, ps) or touchstone = \"FILE.s2p\" (a VNA measurement)",
+            ));
+        }
+        for (key, given) in [
+            ("path.touchstone_u_ps", path.touchstone_u_ps.is_some()),
+            ("path.atten_touchstone", path.atten_touchstone.is_some()),
+        ] {
+            if given {
+                return Err(KeyError::new(
+                    key,
+                    "is given without path.touchstone",
+                    "measure the cables too and name the file with touchstone = \"FILE.s2p\", or remove this key",
+                ));
+            }
+        }
+        return Ok(None);
+    };
+    let refuse = |key: &str, instead: &str| {
+        KeyError::new(
+            key,
+            "is given as well as path.touchstone",
+            format!("the path's delay comes from one source: remove {key}{instead}"),
+        )
+    };
+    if path.cable_delay_ps.is_some() {
+        return Err(refuse(
+            "path.cable_delay_ps",
+            ", or touchstone to use the number",
+        ));
+    }
+    if path.cable_delay_u_ps.is_some() {
+        return Err(refuse(
+            "path.cable_delay_u_ps",
+            "; the file's uncertainty is touchstone_u_ps",
+        ));
+    }
+    if let Some(u) = path.touchstone_u_ps {
+        if !(u.is_finite() && u >= 0.0) {
+            return Err(KeyError::new(
+                "path.touchstone_u_ps",
+                format!("{u} is negative or not finite"),
+                "give the one-way standard uncertainty of the measured group delay in ps, ≥ 0",
+            ));
+        }
+    }
+    let cable = read_file(folder, "path.touchstone", name)?;
+    let mut atten = Vec::new();
+    if let Some(files) = &path.atten_touchstone {
+        for key in ["path.atten_delay_ps_per_db", "path.atten_delay_u_ps"] {
+            let given = match key {
+                "path.atten_delay_ps_per_db" => path.atten_delay_ps_per_db.is_some(),
+                _ => path.atten_delay_u_ps.is_some(),
+            };
+            if given {
+                return Err(KeyError::new(
+                    key,
+                    "is given as well as path.atten_touchstone",
+                    format!("the attenuator's delay comes from its files: remove {key}"),
+                ));
+            }
+        }
+        if files.is_empty() {
+            return Err(KeyError::new(
+                "path.atten_touchstone",
+                "names no file",
+                "map settings to files, e.g. { \"0\" = \"att-0db.s2p\", \"30\" = \"att-30db.s2p\" }",
+            ));
+        }
+        for (setting, file) in files {
+            let key = format!("path.atten_touchstone.{setting}");
+            let db = setting
+                .trim()
+                .parse::<f64>()
+                .ok()
+                .filter(|d| d.is_finite() && *d >= 0.0)
+                .ok_or_else(|| {
+                    KeyError::new(
+                        key.clone(),
+                        format!("`{setting}` is not an attenuator setting in dB"),
+                        "key each file by its setting in dB, e.g. \"30\" = \"att-30db.s2p\"",
+                    )
+                })?;
+            atten.push((db, read_file(folder, &key, file)?));
+        }
+    }
+    Ok(Some(Arc::new(MeasuredPath::new(cable, atten))))
+}
+
+/// `[reference] certificate` read from the bench's `folder`, refusing the keys it replaces.
+fn reference_certificate(
+    reference: &RawReference,
+    folder: &Path,
+    name: &str,
+    bench: &SourceFile,
+) -> Result<ReferenceCertificate, Diagnostic> {
+    for (key, given) in [
+        ("reference.delay_ps", reference.delay_ps.is_some()),
+        ("reference.delay_u_ps", reference.delay_u_ps.is_some()),
+    ] {
+        if given {
+            return Err(bench.key_error(KeyError::new(
+                key,
+                "is given as well as reference.certificate",
+                format!(
+                    "the reference's K and its uncertainty come from the certificate: remove {key}"
+                ),
+            )));
+        }
+    }
+    let path = folder.join(name);
+    if !path.is_file() {
+        return Err(bench.key_error(KeyError::new(
+            "reference.certificate",
+            format!("names `{}`, which is not a file", path.display()),
+            "name the reference's certificate file (TOML), relative to the bench file's folder",
+        )));
+    }
+    super::certificate::load(&path)
+}
+
 /// The uncertainties `[path]` and `[reference]` state. The attenuator's is one standard
 /// uncertainty of its added delay at any setting used (a slope's uncertainty would need the
 /// settings each cell was measured at, which the table does not keep).
@@ -748,25 +967,30 @@ fn stated_uncertainty(
     path: &RawPath,
     reference: &RawReference,
 ) -> Result<BenchUncertainty, super::uncertainty::BadStatement> {
+    let plain = Stated::Plain(PerGain::Same(0.0));
     Ok(BenchUncertainty {
-        cable: input_uncertainty(
-            &path.cable_delay_ps,
-            path.cable_delay_u_ps,
-            "path.cable_delay_ps",
-            "path.cable_delay_u_ps",
-        )?,
+        cable: match &path.cable_delay_ps {
+            Some(c) => input_uncertainty(
+                c,
+                path.cable_delay_u_ps,
+                "path.cable_delay_ps",
+                "path.cable_delay_u_ps",
+            )?,
+            None => None,
+        },
         atten: input_uncertainty(
-            &Stated::Plain(path.atten_delay_ps_per_db),
+            &Stated::Plain(path.atten_delay_ps_per_db.unwrap_or(0.0)),
             path.atten_delay_u_ps,
             "path.atten_delay_ps_per_db",
             "path.atten_delay_u_ps",
         )?,
         reference: input_uncertainty(
-            &reference.delay_ps,
+            reference.delay_ps.as_ref().unwrap_or(&plain),
             reference.delay_u_ps,
             "reference.delay_ps",
             "reference.delay_u_ps",
         )?,
+        measured: None,
     })
 }
 

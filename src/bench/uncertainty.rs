@@ -88,7 +88,7 @@ pub struct InputUncertainty {
 }
 
 /// Every bench input's uncertainty; `None` where the bench states none.
-#[derive(Debug, Clone, Copy, PartialEq, Default)]
+#[derive(Debug, Clone, PartialEq, Default)]
 pub struct BenchUncertainty {
     /// `[path] cable_delay_ps`: the one-way cable and fixture delay.
     pub cable: Option<InputUncertainty>,
@@ -96,6 +96,9 @@ pub struct BenchUncertainty {
     pub atten: Option<InputUncertainty>,
     /// `[reference] delay_ps`: the reference unit's K, in every gain state.
     pub reference: Option<InputUncertainty>,
+    /// `[path] touchstone`: the measured path, whose in-band ripple each channel's budget
+    /// takes (`cable` and `atten` then hold `touchstone_u_ps`).
+    pub measured: Option<std::sync::Arc<super::MeasuredPath>>,
 }
 
 /// A key whose uncertainty statement cannot be used: the key and why.

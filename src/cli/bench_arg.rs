@@ -65,6 +65,16 @@ pub fn of_run(explicit: Option<&Path>, m: &Manifest) -> Result<Bench, Diagnostic
         ))
         .with_hint("give the bench as it was with --bench FILE"));
     }
+    // The files the bench names, as the run read them (a manifest from before they were
+    // recorded has none to compare).
+    let now = crate::runner::inputs::bench_files(&bench);
+    let recorded: std::collections::BTreeMap<_, _> = now
+        .keys()
+        .filter_map(|k| m.inputs.get(k).map(|f| (k.clone(), f.clone())))
+        .collect();
+    if !recorded.is_empty() {
+        crate::runner::inputs::unchanged(&recorded, &now)?;
+    }
     Ok(bench)
 }
 

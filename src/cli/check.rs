@@ -14,6 +14,14 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
     let plan = crate::recipe::load(&args.recipe, &args.set, &bench)?;
     println!("recipe `{}`: {}", plan.name, plan.description.trim());
     println!("{}", bench_arg::describe(&bench, None));
+    if let Some(c) = &bench.reference.certificate {
+        let today = super::run_date::today()?;
+        println!("{}", super::run_date::certificate_line(c, today));
+        if c.overdue_on(today) && plan.accept.refuse_overdue_reference {
+            println!("a run would be refused: the recipe sets accept.refuse_overdue_reference");
+        }
+    }
+    describe_measured_path(&bench, &plan)?;
     if let Some((lo, hi)) = bench.usable_atten_db() {
         println!(
             "usable attenuation {lo}..{hi} dB (DUT receive level {:.1} to {:.1} dBm)",
@@ -67,6 +75,41 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
     }
     println!("check passed: nothing was run");
     Ok(Exit::Ok)
+}
+
+/// The measured path's delays on each channel the plan starts on, from its Touchstone files.
+fn describe_measured_path(
+    bench: &crate::bench::Bench,
+    plan: &crate::recipe::Plan,
+) -> Result<(), Diagnostic> {
+    let Some(m) = &bench.measured_path else {
+        return Ok(());
+    };
+    let name = |f: &crate::bench::measured_path::MeasuredFile| {
+        f.path
+            .file_name()
+            .map_or_else(String::new, |n| n.to_string_lossy().into_owned())
+    };
+    for ((center, bw), p) in bench.channel_paths(&crate::recipe::channels(plan))? {
+        println!(
+            "path on {center} MHz / {bw} MHz from {}: S21 {:.1} ps, S12 {:.1} ps (round trip {:.1} ps), in-band ripple u {:.2} ps",
+            name(&m.cable),
+            p.cable.s21_ps,
+            p.cable.s12_ps,
+            p.cable.round_trip_ps(),
+            p.cable.ripple_u_ps
+        );
+        for ((db, a), (_, file)) in p.atten.iter().zip(&m.atten) {
+            println!(
+                "  attenuator at {db} dB from {}: S21 {:.1} ps, S12 {:.1} ps, ripple u {:.2} ps (settings nearest {db} dB use it)",
+                name(file),
+                a.s21_ps,
+                a.s12_ps,
+                a.ripple_u_ps
+            );
+        }
+    }
+    Ok(())
 }
 
 /// `n` and the noun, plural unless `n` is 1.

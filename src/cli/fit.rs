@@ -114,6 +114,10 @@ pub fn run(args: FitArgs) -> Result<Exit, Diagnostic> {
             ))
         })?
         .fit;
+    // Exchanges on a channel the measured path does not cover could not be de-embedded.
+    if let Some(e) = bench.measured_path.as_ref().and_then(|m| m.refused()) {
+        return Err(bench.source.key_error(e));
+    }
     let s = &fit.summary;
     if s.rows_without_applied_k > 0 {
         return Err(Diagnostic::plain(format!(

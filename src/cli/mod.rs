@@ -17,6 +17,7 @@ pub mod progress;
 pub mod report;
 pub mod resume;
 pub mod run;
+pub mod run_date;
 pub mod sim_fleet;
 pub mod sim_serve;
 pub mod store;

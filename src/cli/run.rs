@@ -25,6 +25,7 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         "taucal: {}",
         bench_arg::describe(&bench, args.seed)
     ));
+    let overdue = overdue_reference(&bench, &plan)?;
     let mut ledger = super::store_ledger::StoreLedger::for_run(&args.store, &bench)?;
     let station = super::store_ledger::station(args.station.as_deref(), &bench);
     let estimate = crate::runner::estimate::estimate(&plan, &bench);
@@ -49,11 +50,41 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         |dir| {
             log::open_run_logs(dir, files::LOG, files::JSON_LOG, false);
             log::notice(&format!("taucal: run directory {}", dir.display()));
+            if let Some(line) = &overdue {
+                tracing::warn!("{line}");
+            }
         },
         observer,
         ledger.as_mut(),
     )?;
     Ok(outcome(&report))
+}
+
+/// A warning when the reference's certificate is past due on the run's start date; an error
+/// instead (nothing runs) when the recipe sets `accept.refuse_overdue_reference`.
+fn overdue_reference(
+    bench: &crate::bench::Bench,
+    plan: &crate::recipe::Plan,
+) -> Result<Option<String>, Diagnostic> {
+    let Some(c) = &bench.reference.certificate else {
+        return Ok(None);
+    };
+    let today = super::run_date::today()?;
+    if !c.overdue_on(today) {
+        return Ok(None);
+    }
+    let line = super::run_date::certificate_line(c, today);
+    if plan.accept.refuse_overdue_reference {
+        return Err(Diagnostic::in_file(
+            &plan.source.path,
+            format!("refused: {line}, and the recipe sets accept.refuse_overdue_reference"),
+        )
+        .with_hint(
+            "have the reference unit calibrated again and name the new certificate in the \
+             bench's [reference] certificate",
+        ));
+    }
+    Ok(Some(line))
 }
 
 /// Prints how a run ended and returns its exit status (shared with `taucal resume`).

@@ -259,6 +259,25 @@ pub struct Manifest {
     /// columns ([`CALTABLE_VERSION`](crate::fit::caltable::CALTABLE_VERSION)).
     #[serde(default = "version_one")]
     pub caltable_version: u32,
+    /// The reference unit's calibration certificate, when the bench names one (its file's
+    /// SHA-256 is under `inputs`, as `reference.certificate`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reference_certificate: Option<CertificateRecord>,
+}
+
+/// What a run records of the reference's certificate.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct CertificateRecord {
+    /// The certificate's id.
+    pub id: String,
+    /// The issuing lab.
+    pub lab: String,
+    /// Date of issue, YYYY-MM-DD.
+    pub issued: String,
+    /// Due date, YYYY-MM-DD.
+    pub due: String,
+    /// True when the run started after the due date.
+    pub overdue: bool,
 }
 
 /// Runs recorded before the manifest said otherwise wrote record version 1.

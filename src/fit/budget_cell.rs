@@ -92,6 +92,21 @@ fn bench_component(
     }
 }
 
+/// A measured path's in-band ripple (cables' and the attenuator's, independent mismatches, so
+/// root-sum-square). The delay a frame sees lies somewhere between the band's extremes with
+/// none more likely known: a rectangular distribution of half-width (max − min)/2, u = a/√3
+/// (GUM 4.3.7). Type B; no degrees of freedom are lost on a bound taken as given (GUM G.4.2).
+fn ripple_component(u_ps: f64) -> Component {
+    Component {
+        name: "path_ripple",
+        evaluation: Evaluation::B,
+        distribution: "rectangular",
+        sensitivity: PATH_SENSITIVITY,
+        u_ps,
+        dof: f64::INFINITY,
+    }
+}
+
 /// The budget of one row. The bench's inputs shift every cell alike: they are listed in each.
 pub fn cell_budget(row: &CalRow, bench: &BenchUncertainty) -> CellBudget {
     let u_stat_ps = t975(row.stat_dof).map(|t| row.ci95_ps / t);
@@ -103,12 +118,21 @@ pub fn cell_budget(row: &CalRow, bench: &BenchUncertainty) -> CellBudget {
         u_ps: u_stat_ps.unwrap_or(f64::NAN),
         dof: row.stat_dof,
     };
-    let components = vec![
+    let mut components = vec![
         statistical,
         bench_component("cable_delay", PATH_SENSITIVITY, bench.cable),
         bench_component("atten_delay", PATH_SENSITIVITY, bench.atten),
         bench_component("reference_k", REFERENCE_SENSITIVITY, bench.reference),
     ];
+    if let Some(m) = &bench.measured {
+        components.push(ripple_component(
+            m.channel(row.center_mhz, row.bw_mhz)
+                .ok()
+                .map_or(f64::NAN, |p| {
+                    p.cable.ripple_u_ps.hypot(p.atten_ripple_u_ps())
+                }),
+        ));
+    }
     let combined = u_stat_ps.and_then(|_| combine(&components));
     CellBudget {
         center_mhz: row.center_mhz,
@@ -195,6 +219,7 @@ mod tests {
             cable: stated(3.0, f64::INFINITY),
             atten: stated(0.0, f64::INFINITY),
             reference: stated(5.0, 20.0),
+            measured: None,
         };
         let b = cell_budget(&row(4.0 * t9, 9.0), &bench);
         let r = b.row_budget().expect("combines");

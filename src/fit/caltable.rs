@@ -371,6 +371,7 @@ mod tests {
             cable: u(2.0),
             atten: None,
             reference: u(3.0),
+            measured: None,
         }
     }
 

@@ -5,7 +5,8 @@
 //! gain state because both ends see the same attenuation:
 //! `K_dut = RTT_corr − 2·τ_path(A) − K_ref(g_ref)` (design §2).
 
-use crate::bench::{PathFacts, PerGain};
+use crate::bench::{MeasuredPath, PathFacts, PerGain};
+use std::sync::Arc;
 
 /// The bench delays the fitter subtracts from every corrected RTT.
 #[derive(Debug, Clone, PartialEq)]
@@ -19,6 +20,9 @@ pub struct Deembed {
     /// The K a range-reporting DUT removed before reporting, added back to its ranges
     /// (`RTT = 2d/c + K_app`); `None` when unknown, and then ranges cannot be used.
     pub applied_k_ps: Option<f64>,
+    /// A path measured with a VNA: per channel, the round trip τ21 + τ12 replaces
+    /// 2·(cable + slope·A).
+    pub measured: Option<Arc<MeasuredPath>>,
 }
 
 impl Deembed {
@@ -29,7 +33,13 @@ impl Deembed {
             atten_delay_ps_per_db: path.atten_delay_ps_per_db,
             reference_delay,
             applied_k_ps: None,
+            measured: None,
         }
+    }
+
+    /// The same de-embedding with the path's delays from a VNA measurement, per channel.
+    pub fn with_measured(self, measured: Option<Arc<MeasuredPath>>) -> Self {
+        Self { measured, ..self }
     }
 
     /// The same de-embedding for a DUT that removed `applied_k_ps` from the ranges it reports.
@@ -40,16 +50,36 @@ impl Deembed {
         }
     }
 
-    /// One-way path delay with the attenuator at `atten_db`.
+    /// One-way path delay with the attenuator at `atten_db`, from the bench's numbers.
     pub fn one_way_path_ps(&self, atten_db: f64) -> f64 {
         self.cable_delay_ps + self.atten_delay_ps_per_db * atten_db
     }
 
-    /// The DUT's K from a clock-corrected RTT: `RTT_corr − 2·τ_path(atten_db) − K_ref(ref_gain)`.
-    /// `None` when the reference table has no value for `ref_gain`.
-    pub fn dut_k_ps(&self, rtt_corr_ps: f64, atten_db: f64, ref_gain: Option<u32>) -> Option<f64> {
+    /// The path's round-trip delay on `channel` (center, bandwidth, MHz) with the attenuator at
+    /// `atten_db`: τ21 + τ12 of a measured path, else twice the one-way delay. `None` when the
+    /// measured path does not cover the channel (`check` and the fit say so beforehand).
+    pub fn round_trip_path_ps(&self, channel: (u32, u32), atten_db: f64) -> Option<f64> {
+        match &self.measured {
+            None => Some(2.0 * self.one_way_path_ps(atten_db)),
+            Some(m) => m
+                .channel(channel.0, channel.1)
+                .ok()
+                .map(|c| c.round_trip_ps(atten_db)),
+        }
+    }
+
+    /// The DUT's K from a clock-corrected RTT on `channel`:
+    /// `RTT_corr − τ_path,round trip(atten_db) − K_ref(ref_gain)`. `None` when the reference
+    /// table has no value for `ref_gain` or the measured path none for the channel.
+    pub fn dut_k_ps(
+        &self,
+        rtt_corr_ps: f64,
+        channel: (u32, u32),
+        atten_db: f64,
+        ref_gain: Option<u32>,
+    ) -> Option<f64> {
         let k_ref_ps = self.reference_delay.at(ref_gain)?;
-        Some(rtt_corr_ps - 2.0 * self.one_way_path_ps(atten_db) - k_ref_ps)
+        Some(rtt_corr_ps - self.round_trip_path_ps(channel, atten_db)? - k_ref_ps)
     }
 }
 
@@ -57,6 +87,8 @@ impl Deembed {
 mod tests {
     use super::*;
     use proptest::prelude::*;
+
+    const CH: (u32, u32) = (5180, 20);
 
     fn demo_path() -> PathFacts {
         // Design §4 example bench: cable 6100 ps one way, reference K 2800 ps.
@@ -72,19 +104,19 @@ mod tests {
         let d = Deembed::new(&demo_path(), PerGain::Same(2800.0));
         // 2·(6100 + 0.5·40) + 2800 = 15 040 of bench delay; the rest is the DUT.
         let rtt = 15_040.0 + 2_400.0;
-        assert_eq!(d.dut_k_ps(rtt, 40.0, None), Some(2_400.0));
-        assert_eq!(d.dut_k_ps(rtt, 40.0, Some(9)), Some(2_400.0));
+        assert_eq!(d.dut_k_ps(rtt, CH, 40.0, None), Some(2_400.0));
+        assert_eq!(d.dut_k_ps(rtt, CH, 40.0, Some(9)), Some(2_400.0));
     }
 
     #[test]
     fn per_gain_reference_needs_a_known_gain() {
         let d = Deembed::new(&demo_path(), PerGain::Each(vec![2800.0, 2900.0]));
         assert_eq!(
-            d.dut_k_ps(20_000.0, 0.0, Some(1)),
+            d.dut_k_ps(20_000.0, CH, 0.0, Some(1)),
             Some(20_000.0 - 12_200.0 - 2900.0)
         );
-        assert_eq!(d.dut_k_ps(20_000.0, 0.0, Some(2)), None);
-        assert_eq!(d.dut_k_ps(20_000.0, 0.0, None), None);
+        assert_eq!(d.dut_k_ps(20_000.0, CH, 0.0, Some(2)), None);
+        assert_eq!(d.dut_k_ps(20_000.0, CH, 0.0, None), None);
     }
 
     #[test]
@@ -108,9 +140,10 @@ mod tests {
                 atten_delay_ps_per_db: slope,
                 reference_delay: PerGain::Same(k_ref),
                 applied_k_ps: None,
+                measured: None,
             };
             let rtt = k_dut + 2.0 * (cable + slope * atten) + k_ref;
-            let got = d.dut_k_ps(rtt, atten, None);
+            let got = d.dut_k_ps(rtt, CH, atten, None);
             prop_assert!(got.is_some_and(|k| (k - k_dut).abs() < 1e-8));
         }
     }

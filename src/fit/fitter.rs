@@ -128,7 +128,12 @@ struct Pending {
 impl Pending {
     /// The exchange as the correction needs it.
     fn timed(&self) -> Timed {
-        (self.t_ps, self.atten_db, self.ref_gain)
+        (
+            self.t_ps,
+            (self.cell.0, self.cell.1),
+            self.atten_db,
+            self.ref_gain,
+        )
     }
 
     /// Where its delay is filed: its cell, with its temperature.
@@ -486,11 +491,11 @@ impl Fitter {
         if !self.direct.is_empty() {
             let delays = &mut self.burst.delays;
             delays.clear();
-            delays.extend(
-                self.direct
-                    .iter()
-                    .map(|d| self.deembed.dut_k_ps(d.rtt_ps, d.atten_db, d.ref_gain)),
-            );
+            delays.extend(self.direct.iter().map(|d| {
+                let channel = (d.cell.0, d.cell.1);
+                self.deembed
+                    .dut_k_ps(d.rtt_ps, channel, d.atten_db, d.ref_gain)
+            }));
             let filed = self.direct.drain(..).map(|d| (d.cell, d.temp_c));
             self.cells.file(burst_id, filed, delays, &mut self.summary);
             if self.pending.is_empty() {
@@ -529,14 +534,14 @@ impl Fitter {
     }
 }
 
-/// A usable exchange as the clock correction and de-embedding need it: (t1..t4, attenuation,
-/// reference gain).
-type Timed = ([u64; 4], f64, Option<u32>);
+/// A usable exchange as the clock correction and de-embedding need it: (t1..t4, channel,
+/// attenuation, reference gain).
+type Timed = ([u64; 4], (u32, u32), f64, Option<u32>);
 
 /// The clock-rate ratio of a burst's usable exchanges, if they yield one; `t1_t2` is a buffer.
 fn own_ratio(items: &[Timed], t1_t2: &mut Vec<(u64, u64)>) -> Option<f64> {
     t1_t2.clear();
-    t1_t2.extend(items.iter().map(|(t, _, _)| (t[0], t[1])));
+    t1_t2.extend(items.iter().map(|(t, _, _, _)| (t[0], t[1])));
     rate_ratio(&burst_offsets(t1_t2))
 }
 
@@ -545,10 +550,14 @@ fn own_ratio(items: &[Timed], t1_t2: &mut Vec<(u64, u64)>) -> Option<f64> {
 /// burst's usable exchanges.
 fn corrected_delays(deembed: &Deembed, items: &[Timed], ratio: f64, delays: &mut Vec<Option<f64>>) {
     delays.clear();
-    delays.extend(items.iter().map(|&([t1, t2, t3, t4], atten_db, ref_gain)| {
-        let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
-        deembed.dut_k_ps(rtt_ps, atten_db, ref_gain)
-    }));
+    delays.extend(
+        items
+            .iter()
+            .map(|&([t1, t2, t3, t4], channel, atten_db, ref_gain)| {
+                let rtt_ps = corrected_rtt_from_counters_ps(t1, t2, t3, t4, ratio);
+                deembed.dut_k_ps(rtt_ps, channel, atten_db, ref_gain)
+            }),
+    );
 }
 
 /// De-embedded delays of one burst's rows, aligned with `rows`: `None` for an unusable row or
@@ -562,10 +571,12 @@ pub fn burst_delays(deembed: &Deembed, rows: &[Exchange], fallback_ratio: f64) -
             continue;
         }
         match timing(x, deembed.applied_k_ps) {
-            Timing::Counters(t) => counted.push((i, (t, x.atten_db, x.ref_gain))),
+            Timing::Counters(t) => {
+                counted.push((i, (t, (x.center_mhz, x.bw_mhz), x.atten_db, x.ref_gain)))
+            }
             Timing::Rtt(rtt_ps) => {
                 out[i] = deembed
-                    .dut_k_ps(rtt_ps, x.atten_db, x.ref_gain)
+                    .dut_k_ps(rtt_ps, (x.center_mhz, x.bw_mhz), x.atten_db, x.ref_gain)
                     .filter(|k| k.is_finite());
             }
             Timing::RangeWithoutK | Timing::Missing => {}
@@ -1148,6 +1159,7 @@ mod tests {
             atten_delay_ps_per_db: 0.0,
             reference_delay: PerGain::Same(0.0),
             applied_k_ps: None,
+            measured: None,
         };
         let rows: Vec<Exchange> = (0..2u32)
             .flat_map(|burst| {

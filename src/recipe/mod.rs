@@ -25,7 +25,29 @@ pub fn load(path: &Path, overrides: &[String], bench: &Bench) -> Result<Plan, Di
     })?;
     let source = SourceFile::new(path, text);
     let base = path.parent().unwrap_or(Path::new("."));
-    parse(source, overrides, bench, base)
+    let plan = parse(source, overrides, bench, base)?;
+    // A measured path must cover every channel the stages name (a script's own channel changes
+    // are checked when its exchanges are fitted).
+    bench.channel_paths(&channels(&plan))?;
+    Ok(plan)
+}
+
+/// The channels (center, bandwidth, MHz) the plan's stages start on, each once, in order.
+pub fn channels(plan: &Plan) -> Vec<(u32, u32)> {
+    let mut out: Vec<(u32, u32)> = Vec::new();
+    for stage in &plan.stages {
+        let channel = match stage {
+            Stage::Sweep(s) | Stage::GainMap(s) => s.channel,
+            Stage::Verify(v) => v.sweep.channel,
+            Stage::Script(s) => s.channel,
+            Stage::Soak(_) => continue,
+        };
+        let key = (channel.center_mhz, channel.bw_mhz);
+        if !out.contains(&key) {
+            out.push(key);
+        }
+    }
+    out
 }
 
 /// The bench a recipe names as its own (`[recipe] bench`, relative to the recipe's folder), for

@@ -159,6 +159,8 @@ pub struct Acceptance {
     pub min_gain_states: Option<u32>,
     /// Largest verification range error allowed with the per-gain table.
     pub max_range_error_m: Option<f64>,
+    /// Refuse to run, rather than warn, when the reference's certificate is past its due date.
+    pub refuse_overdue_reference: bool,
 }
 
 /// What the runner does when an instrument fails.
@@ -307,6 +309,7 @@ pub(super) fn build(
             .map(|v| positive(&vars, "accept.max_range_error_m", v))
             .transpose()
             .map_err(located)?,
+        refuse_overdue_reference: raw.accept.refuse_overdue_reference,
     };
     if accept.max_range_error_m.is_some() && !stages.iter().any(|s| matches!(s, Stage::Verify(_))) {
         return Err(located(KeyError::new(

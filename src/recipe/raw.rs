@@ -76,6 +76,9 @@ pub struct RawAccept {
     pub min_gain_states: Option<toml::Value>,
     /// Largest verification range error allowed with the per-gain table, at any level.
     pub max_range_error_m: Option<toml::Value>,
+    /// Refuse to run when the bench's reference certificate is past its due date (else warn).
+    #[serde(default)]
+    pub refuse_overdue_reference: bool,
 }
 
 /// One `[[stage]]`; which keys apply depends on `kind`.

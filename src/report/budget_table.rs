@@ -3,13 +3,36 @@
 
 use super::html::escape;
 use super::BudgetLine;
+use crate::data::manifest::CertificateRecord;
 use crate::fit::budget_cell::dof_text;
 use crate::fit::TableRow;
 use std::fmt::Write;
 
 /// The budget section. Without `budget.csv` (an older run) it says so and shows nothing else.
-pub fn section(page: &mut String, lines: &[BudgetLine], table: &[TableRow]) {
+/// The reference's certificate, when the run had one, is named first: its K is an input.
+pub fn section(
+    page: &mut String,
+    lines: &[BudgetLine],
+    table: &[TableRow],
+    certificate: Option<&CertificateRecord>,
+) {
     page.push_str("<section id=\"budget\">\n<h2>Uncertainty budget</h2>\n");
+    if let Some(c) = certificate {
+        let _ = writeln!(
+            page,
+            "<p class=\"certificate\">Reference K from certificate <strong>{}</strong> ({}), \
+             issued {}, due {}{}.</p>",
+            escape(&c.id),
+            escape(&c.lab),
+            escape(&c.issued),
+            escape(&c.due),
+            if c.overdue {
+                " — <strong>past due</strong> when this run started"
+            } else {
+                ""
+            }
+        );
+    }
     if lines.is_empty() {
         page.push_str(
             "<p class=\"empty\">No budget: the run wrote no <code>budget.csv</code>.</p>\n",
@@ -115,7 +138,7 @@ mod tests {
             line(1, "cable_delay", 8.0),
         ];
         let mut page = String::new();
-        section(&mut page, &lines, &[]);
+        section(&mut page, &lines, &[], None);
         assert_eq!(page.matches("<tr><td class=\"text\">").count(), 2);
         assert_eq!(page.matches("<br><small>").count(), 2);
         assert!(
@@ -123,7 +146,24 @@ mod tests {
             "{page}"
         );
         let mut empty = String::new();
-        section(&mut empty, &[], &[]);
+        section(&mut empty, &[], &[], None);
         assert!(empty.contains("No budget"));
+        let c = CertificateRecord {
+            id: "C-1<".into(),
+            lab: "Lab".into(),
+            issued: "2026-01-01".into(),
+            due: "2027-01-01".into(),
+            overdue: true,
+        };
+        let mut cert = String::new();
+        section(&mut cert, &lines, &[], Some(&c));
+        assert!(
+            cert.contains("certificate <strong>C-1&lt;</strong>"),
+            "{cert}"
+        );
+        assert!(
+            cert.contains("due 2027-01-01 — <strong>past due</strong>"),
+            "{cert}"
+        );
     }
 }

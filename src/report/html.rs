@@ -89,7 +89,12 @@ pub fn render(data: &ReportData) -> Result<String, ReportError> {
     );
     verdict(&mut page, data);
     summary(&mut page, data);
-    super::budget_table::section(&mut page, &data.budget, &data.table);
+    super::budget_table::section(
+        &mut page,
+        &data.budget,
+        &data.table,
+        m.reference_certificate.as_ref(),
+    );
     plots(&mut page, data)?;
     provenance(&mut page, data);
     let _ = write!(

@@ -52,6 +52,7 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
     let verify = optional_csv::<VerifyPoint>(dir, files::VERIFY, &mut absent)?;
 
     let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone())
+        .with_measured(bench.measured_path.clone())
         .with_applied_k(manifest.fit.applied_k_ps.or(bench.applied_k_ps()));
     label_inferred(&mut rows, &deembed, &manifest.fit.verify_stages);
     let (times, bench_time) = bench_times_s(&rows);

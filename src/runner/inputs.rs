@@ -1,6 +1,7 @@
-//! The files a run reads besides its recipe and bench — script files and driver files — each
-//! with its SHA-256, kept in the manifest so that `taucal resume` continues a run only with the
-//! very files it began with.
+//! The files a run reads besides its recipe and bench — script files, driver files, and the
+//! files the bench names (Touchstone files, the reference's certificate) — each with its
+//! SHA-256, kept in the manifest so that `taucal resume` continues a run, and `taucal fit`
+//! refits it, only with the very files it began with.
 
 use crate::bench::Bench;
 use crate::data::manifest::{sha256_hex, InputFile};
@@ -25,12 +26,40 @@ pub fn input_files(plan: &Plan, bench: &Bench) -> BTreeMap<String, InputFile> {
             }
         }
     }
+    files.extend(bench_files(bench));
     for (role, driver) in &bench.drivers {
         files.insert(
             format!("driver.{role}"),
             InputFile {
                 path: driver.source.path.display().to_string(),
                 sha256: sha256_hex(driver.source.text.as_bytes()),
+            },
+        );
+    }
+    files
+}
+
+/// The files the bench itself names, by their keys (`path.touchstone`,
+/// `path.atten_touchstone.SETTING`, `reference.certificate`): what its numbers came from.
+pub fn bench_files(bench: &Bench) -> BTreeMap<String, InputFile> {
+    let mut files = BTreeMap::new();
+    if let Some(m) = &bench.measured_path {
+        for f in m.files() {
+            files.insert(
+                f.key.clone(),
+                InputFile {
+                    path: f.path.display().to_string(),
+                    sha256: f.sha256.clone(),
+                },
+            );
+        }
+    }
+    if let Some(c) = &bench.reference.certificate {
+        files.insert(
+            "reference.certificate".to_string(),
+            InputFile {
+                path: c.path.display().to_string(),
+                sha256: c.sha256.clone(),
             },
         );
     }
@@ -45,8 +74,10 @@ pub fn unchanged(
     for (key, file) in now {
         let what = if key.starts_with("script.") {
             "script file"
-        } else {
+        } else if key.starts_with("driver.") {
             "driver file"
+        } else {
+            "file the bench names"
         };
         match recorded.get(key) {
             Some(then) if then.sha256 == file.sha256 => {}

@@ -101,6 +101,16 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
         skipped_points: Vec::new(),
         record_version: RecordVersion::CURRENT.number(),
         caltable_version: crate::fit::caltable::CALTABLE_VERSION,
+        reference_certificate: bench.reference.certificate.as_ref().map(|c| {
+            crate::data::manifest::CertificateRecord {
+                id: c.id.clone(),
+                lab: c.lab.clone(),
+                issued: c.issued.to_string(),
+                due: c.due.to_string(),
+                overdue: c
+                    .overdue_on(crate::bench::certificate::run_date(now).unwrap_or(now.date())),
+            }
+        }),
     };
     let earlier_wall_s = match &req.resume {
         Some(r) => {
@@ -110,6 +120,10 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
             manifest.run_id = r.manifest.run_id.clone();
             manifest.store_pending = r.manifest.store_pending;
             manifest.resumes = r.manifest.resumes + 1;
+            // Judged once, on the day the run started.
+            if r.manifest.reference_certificate.is_some() {
+                manifest.reference_certificate = r.manifest.reference_certificate.clone();
+            }
             // Its record goes on in the version it began in.
             manifest.record_version = r.manifest.record_version;
             r.manifest.wall_time_s

@@ -28,6 +28,7 @@ pub fn run_sweep(session: &mut Session, sweep: &Sweep) -> Result<(), RunError> {
 fn session_deembed(session: &Session) -> Deembed {
     let bench = session.bench();
     Deembed::new(&bench.path, bench.reference.delay_ps.clone())
+        .with_measured(bench.measured_path.clone())
         .with_applied_k(session.report_watch.applied_k_ps().or(bench.applied_k_ps()))
 }
 

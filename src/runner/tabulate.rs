@@ -75,6 +75,7 @@ fn fit_file_split_from(
     split_from: u64,
 ) -> Result<Tabulated, ReadError> {
     let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone())
+        .with_measured(bench.measured_path.clone())
         .with_applied_k(settings.applied_k_ps.or(bench.applied_k_ps()));
     let options = FitOptions {
         reject_mad: settings.reject_mad,
