@@ -17,6 +17,7 @@ mod gain_switch;
 mod infer;
 mod instruments;
 mod late_paths;
+mod measured_path;
 mod plan;
 mod plan_preview;
 mod record_version;

@@ -178,8 +178,11 @@ pub fn parse(text: &str, ports_from_name: Option<usize>) -> Result<Network, Touc
         let line_no = chunk[0].1;
         let f = chunk[0].0 * unit_hz;
         let falls_back = net.freq_hz.last().is_some_and(|last| f <= *last);
-        // Version 1.x two-port noise data follow the network data: the frequency falls back.
-        if falls_back && n == 2 && !version2 {
+        // Version 1.x two-port noise data follow the network data: the frequency falls back,
+        // on a line of five numbers (frequency, minimum noise figure, Γopt's magnitude and
+        // angle, Rn). A network row that falls back is a file out of order.
+        let noise_row = || numbers.iter().filter(|(_, l)| *l == line_no).count() == 5;
+        if falls_back && n == 2 && !version2 && noise_row() {
             break;
         }
         if chunk.len() < per {
@@ -285,6 +288,11 @@ mod tests {
                 "number of ports is unknown",
             ),
             ("# GHz S RI\n2 0 0\n1 0 0\n", Some(1), "must increase"),
+            (
+                "# GHz S RI\n1 0 0 1 0 1 0 0 0\n3 0 0 1 0 1 0 0 0\n2 0 0 1 0 1 0 0 0\n",
+                Some(2),
+                "line 4: frequencies must increase",
+            ),
             ("# GHz S RI\n1 0 0 1\n", Some(1), "ends after"),
             (
                 "[Version] 2.0\n# GHz S RI\n[Number of Ports] 2\n1 0 0 1 0 1 0 0 0\n",
