@@ -183,6 +183,10 @@ enum Kind {
     Driver,
     /// A recipe's `[faults]`.
     Faults,
+    /// A bench's `[path]` from Touchstone files.
+    MeasuredPath,
+    /// A reference unit's certificate file.
+    Certificate,
     /// Lines of `taucal` commands on the repository's files.
     Commands,
     /// Runs into the results store and the store commands on them, in one directory.
@@ -266,6 +270,8 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "toml" if text.starts_with("[timing]") => Kind::Timing,
         "toml" if text.starts_with("[driver]") => Kind::Driver,
         "toml" if text.starts_with("[faults]") => Kind::Faults,
+        "toml" if text.starts_with("[path]\ntouchstone") => Kind::MeasuredPath,
+        "toml" if text.starts_with("[certificate]") => Kind::Certificate,
         _ => return None,
     })
 }
@@ -825,4 +831,46 @@ fn readme_plan_example_runs_as_printed() {
     let model = std::fs::read_to_string(dir.path().join("model.toml")).expect("model");
     assert_eq!(model.matches("[[cell]]").count(), 3, "{model}");
     assert!(outputs[2].contains("check passed"), "{}", outputs[2]);
+}
+
+#[test]
+fn readme_measured_path_is_the_shipped_benchs() {
+    // The shipped bench is checked with every bench and run by the Commands block after it.
+    let block = the_block(Kind::MeasuredPath);
+    let shipped = std::fs::read_to_string(root().join("recipes/benches/sim-measured-path.toml"))
+        .expect("shipped bench");
+    assert!(shipped.contains(&block.text), "{}", block.text);
+}
+
+#[test]
+fn readme_certificate_file_is_read_as_printed() {
+    let block = the_block(Kind::Certificate);
+    let setup = Taucal::new()
+        .with_repo(&["recipes", "demo-data"])
+        .file("demo-data/readme-certificate.toml", &block.text);
+    let bench = setup.dir().join("recipes/benches/sim-measured-path.toml");
+    let text = std::fs::read_to_string(&bench).expect("bench");
+    assert!(text.contains("heron-ref-certificate.toml"));
+    std::fs::write(
+        &bench,
+        text.replace("heron-ref-certificate.toml", "readme-certificate.toml"),
+    )
+    .expect("write bench");
+    let out = setup
+        .args([
+            "check",
+            "recipes/rx-gain-sweep.toml",
+            "--bench",
+            "recipes/benches/sim-measured-path.toml",
+        ])
+        .run();
+    out.expect_code(0);
+    assert!(
+        out.stdout.contains(
+            "reference K from certificate HVT-2026-0142 (Hollin Vale Timing Laboratory), \
+             issued 2026-02-10, due 2027-02-10"
+        ),
+        "{}",
+        out.stdout
+    );
 }
