@@ -230,46 +230,48 @@ impl MeasuredPath {
     }
 }
 
+/// A file of an ideal line, 5.0–5.5 GHz, of one-way delays `tau21_ps` and `tau12_ps`.
+#[cfg(test)]
+pub(crate) fn test_line(key: &str, tau21_ps: f64, tau12_ps: f64) -> MeasuredFile {
+    use crate::touchstone::Complex;
+    let freq_hz: Vec<f64> = (0..=100).map(|k| 5.0e9 + 5e6 * f64::from(k)).collect();
+    let at = |f: f64, tau_ps: f64| {
+        let phi = -2.0 * std::f64::consts::PI * f * tau_ps * 1e-12;
+        Complex {
+            re: phi.cos(),
+            im: phi.sin(),
+        }
+    };
+    let s = freq_hz
+        .iter()
+        .map(|f| {
+            let zero = Complex { re: 0.0, im: 0.0 };
+            vec![zero, at(*f, tau12_ps), at(*f, tau21_ps), zero]
+        })
+        .collect();
+    MeasuredFile {
+        key: key.to_string(),
+        path: PathBuf::from(format!("{key}.s2p")),
+        sha256: key.to_string(),
+        network: Network {
+            ports: 2,
+            freq_hz,
+            s,
+        },
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::touchstone::Complex;
-
-    fn file(key: &str, tau21_ps: f64, tau12_ps: f64) -> MeasuredFile {
-        let freq_hz: Vec<f64> = (0..=100).map(|k| 5.0e9 + 5e6 * f64::from(k)).collect();
-        let at = |f: f64, tau_ps: f64| {
-            let phi = -2.0 * std::f64::consts::PI * f * tau_ps * 1e-12;
-            Complex {
-                re: phi.cos(),
-                im: phi.sin(),
-            }
-        };
-        let s = freq_hz
-            .iter()
-            .map(|f| {
-                let zero = Complex { re: 0.0, im: 0.0 };
-                vec![zero, at(*f, tau12_ps), at(*f, tau21_ps), zero]
-            })
-            .collect();
-        MeasuredFile {
-            key: key.to_string(),
-            path: PathBuf::from(format!("{key}.s2p")),
-            sha256: key.to_string(),
-            network: Network {
-                ports: 2,
-                freq_hz,
-                s,
-            },
-        }
-    }
 
     #[test]
     fn the_round_trip_is_both_ways_and_the_nearest_attenuator_setting() {
         let path = MeasuredPath::new(
-            file("path.touchstone", 1000.0, 1010.0),
+            test_line("path.touchstone", 1000.0, 1010.0),
             vec![
-                (30.0, file("path.atten_touchstone.30", 80.0, 80.0)),
-                (0.0, file("path.atten_touchstone.0", 50.0, 50.0)),
+                (30.0, test_line("path.atten_touchstone.30", 80.0, 80.0)),
+                (0.0, test_line("path.atten_touchstone.0", 50.0, 50.0)),
             ],
         );
         let ch = path.channel(5200, 80).expect("inside the file");
@@ -284,5 +286,10 @@ mod tests {
             .expect_err("past the file's 5500 MHz");
         assert_eq!(e.key, "path.touchstone");
         assert!(e.message.contains("5480/80"), "{}", e.message);
+        // Remembered, so a fit that met the channel can say so afterwards.
+        assert_eq!(
+            path.refused().map(|e| e.key),
+            Some("path.touchstone".into())
+        );
     }
 }

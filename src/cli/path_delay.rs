@@ -1,5 +1,6 @@
-//! `taucal path-delay`: a measured path's group delay per channel, from a Touchstone file, for
-//! the bench file's `[path] cable_delay_ps` and its uncertainty.
+//! `taucal path-delay`: a measured path's group delay per channel, from a Touchstone file, to
+//! look at before naming the file in a bench's `[path] touchstone` (or copying a number into
+//! `cable_delay_ps`).
 
 use super::args::PathDelayArgs;
 use super::{csv_file, Exit};

@@ -56,15 +56,17 @@ impl Deembed {
     }
 
     /// The path's round-trip delay on `channel` (center, bandwidth, MHz) with the attenuator at
-    /// `atten_db`: τ21 + τ12 of a measured path, else twice the one-way delay. `None` when the
+    /// `atten_db`: τ21 + τ12 of a measured path (with the attenuator's files, or its slope
+    /// both ways), else twice the one-way delay. `None` when the
     /// measured path does not cover the channel (`check` and the fit say so beforehand).
     pub fn round_trip_path_ps(&self, channel: (u32, u32), atten_db: f64) -> Option<f64> {
         match &self.measured {
             None => Some(2.0 * self.one_way_path_ps(atten_db)),
+            // Without attenuator files the bench's slope still applies (it is 0 with them).
             Some(m) => m
                 .channel(channel.0, channel.1)
                 .ok()
-                .map(|c| c.round_trip_ps(atten_db)),
+                .map(|c| c.round_trip_ps(atten_db) + 2.0 * self.atten_delay_ps_per_db * atten_db),
         }
     }
 
@@ -117,6 +119,23 @@ mod tests {
         );
         assert_eq!(d.dut_k_ps(20_000.0, CH, 0.0, Some(2)), None);
         assert_eq!(d.dut_k_ps(20_000.0, CH, 0.0, None), None);
+    }
+
+    #[test]
+    fn a_measured_path_gives_both_ways_and_the_slope_still_applies_without_attenuator_files() {
+        use crate::bench::measured_path::test_line;
+        let measured = MeasuredPath::new(test_line("path.touchstone", 1000.0, 1010.0), vec![]);
+        let d = Deembed::new(&demo_path(), PerGain::Same(2800.0))
+            .with_measured(Some(Arc::new(measured)));
+        // τ21 + τ12 = 2010 ps, and 2·0.5 ps/dB·40 dB of attenuator.
+        let k = d
+            .dut_k_ps(10_000.0, (5200, 80), 40.0, None)
+            .expect("covered");
+        assert!(
+            (k - (10_000.0 - 2010.0 - 40.0 - 2800.0)).abs() < 1e-6,
+            "{k}"
+        );
+        assert_eq!(d.dut_k_ps(10_000.0, (5600, 80), 40.0, None), None);
     }
 
     #[test]
