@@ -211,6 +211,25 @@ fn a_changed_touchstone_file_stops_an_offline_refit() {
         "{}",
         refit.stderr
     );
+    // Another bench whose file stops short of the run's channel: the fit says which key.
+    let narrow = Taucal::in_dir(refit.dir)
+        .file("short.s2p", &line_s2p(tau, tau, 5.1, 5.45))
+        .file(
+            "narrow.toml",
+            &bench(tau, "delay_ps = 2650.0").replace("line.s2p", "short.s2p"),
+        )
+        .args(["fit", "run/exchanges.csv", "--bench", "narrow.toml"])
+        .run();
+    narrow.expect_code(2);
+    assert!(
+        narrow.stderr.contains("narrow.toml line")
+            && narrow.stderr.contains("`path.touchstone`")
+            && narrow
+                .stderr
+                .contains("5480.000–5520.000 MHz is not inside"),
+        "{}",
+        narrow.stderr
+    );
 }
 
 #[test]
