@@ -23,6 +23,7 @@ use crate::sim::front::{
     SimAttenuatorFront, SimChamberFront, SimRangingFront, SimShared, SimWorld,
 };
 use crate::sim::model::SimBench;
+use crate::sim::shared_reference::Seat;
 use std::sync::Arc;
 
 /// The instruments a run drives.
@@ -47,6 +48,18 @@ pub fn connect(
     clock: Arc<BenchClock>,
     seed: u64,
 ) -> Result<Instruments, Diagnostic> {
+    connect_slot(bench, clock, seed, None)
+}
+
+/// [`connect`] for one slot of a station: an in-process simulated bench takes its place at the
+/// shared reference through `seat` (a driven bench's reference is a real one, and the seat is
+/// let go).
+pub fn connect_slot(
+    bench: &Bench,
+    clock: Arc<BenchClock>,
+    seed: u64,
+    seat: Option<Seat>,
+) -> Result<Instruments, Diagnostic> {
     let in_process = |role: &str| bench.roles.get(role).is_none_or(|b| b.address == "sim:");
     let shared = if in_process("attenuator") || in_process("dut") {
         let Some(truth) = bench.sim.as_ref() else {
@@ -63,16 +76,20 @@ pub fn connect(
             chamber: truth.chamber.as_ref().map(SimChamber::new),
             faults: FaultInjector::new(&truth.faults, seed),
         };
-        Some((SimShared::new(world, clock), truth.attenuator.switch_ms))
+        let shared = SimShared::new(world, clock);
+        let shared = match seat {
+            Some(seat) => shared.with_seat(seat),
+            None => shared,
+        };
+        Some((shared, truth.attenuator.switch_ms))
     } else {
         None
     };
     let attenuator: Box<dyn Attenuator> = match (&shared, driven(bench, "attenuator")?) {
-        (_, Some((DriverKind::Attenuator(d), link))) => Box::new(DrivenAttenuator::new(
-            "attenuator",
-            d,
-            ScpiClient::new(link),
-        )),
+        (_, Some((DriverKind::Attenuator(d), link))) => Box::new(
+            DrivenAttenuator::new("attenuator", d, ScpiClient::new(link))
+                .on_channel(bench.slot.as_ref().map_or(1, |s| s.channel)),
+        ),
         (Some((shared, switch_ms)), _) => Box::new(SimAttenuatorFront::new(
             shared.clone(),
             *switch_ms,

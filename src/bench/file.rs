@@ -60,6 +60,8 @@ struct RawBench {
     timing: Option<TimingFacts>,
     store: Option<StoreFacts>,
     sim: Option<SimTruth>,
+    #[serde(default)]
+    slot: Vec<super::SlotFacts>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -209,6 +211,10 @@ pub struct Bench {
     pub store: Option<StoreFacts>,
     /// Driver files of the roles not served in-process, by role.
     pub drivers: BTreeMap<String, DriverFile>,
+    /// DUT slots (`[[slot]]`); empty on a one-DUT bench.
+    pub slots: Vec<super::SlotFacts>,
+    /// The slot this bench was narrowed to ([`Bench::for_slot`]), if any.
+    pub slot: Option<super::SlotOf>,
 }
 
 impl Bench {
@@ -290,6 +296,8 @@ impl Bench {
             drivers: BTreeMap::new(),
             station: raw.bench.station,
             store: raw.store,
+            slots: raw.slot,
+            slot: None,
             source,
         };
         bench.checked()
@@ -298,6 +306,8 @@ impl Bench {
     fn checked(mut self) -> Result<Bench, Diagnostic> {
         self.validate().map_err(|e| self.source.key_error(e))?;
         self.drivers = self.load_drivers()?;
+        self.validate_slots()
+            .map_err(|e| self.source.key_error(e))?;
         Ok(self)
     }
 
@@ -370,7 +380,7 @@ impl Bench {
 
     fn fits(&self, role: &str, driver: &DriverFile) -> Result<(), KeyError> {
         let key = format!("roles.{role}.driver");
-        let wanted = match role {
+        let wanted = match self.role_kind(role) {
             "attenuator" => KIND_ATTENUATOR,
             "chamber" => KIND_CHAMBER,
             _ => KIND_RANGING_CONSOLE,
@@ -429,7 +439,7 @@ impl Bench {
                 Ok(())
             }
             DriverKind::RangingConsole(c) => {
-                let limit = if role == "dut" {
+                let limit = if self.role_kind(role) == "dut" {
                     self.dut.max_input_dbm
                 } else {
                     self.reference.max_input_dbm
@@ -593,9 +603,19 @@ impl Bench {
     }
 
     fn validate(&self) -> Result<(), KeyError> {
-        for role in ROLES.iter().chain(&OPTIONAL_ROLES) {
+        let slot_roles = self.roles.keys().map(String::as_str).filter(|r| {
+            !ROLES.contains(r) && !OPTIONAL_ROLES.contains(r) && self.role_kind(r) != *r
+        });
+        let names: Vec<&str> = ROLES
+            .iter()
+            .chain(&OPTIONAL_ROLES)
+            .copied()
+            .chain(slot_roles)
+            .collect();
+        for role in &names {
             let Some(binding) = self.roles.get(*role) else {
-                if OPTIONAL_ROLES.contains(role) {
+                // A slotted bench binds its DUTs and attenuators under roles its slots name.
+                if OPTIONAL_ROLES.contains(role) || (self.is_slotted() && *role != "reference") {
                     continue;
                 }
                 return Err(KeyError::new(
@@ -621,9 +641,10 @@ impl Bench {
                         "leave it out, or give the role a driver file and an address",
                     ));
                 }
+                let kind = self.role_kind(role);
                 let expected = SIM_DRIVERS
                     .iter()
-                    .find(|(r, _)| r == role)
+                    .find(|(r, _)| *r == kind)
                     .map_or("sim-ranging", |(_, d)| d);
                 if binding.driver != expected {
                     return Err(KeyError::new(
@@ -673,11 +694,7 @@ impl Bench {
                 }
             }
         }
-        if let Some(extra) = self
-            .roles
-            .keys()
-            .find(|r| !ROLES.contains(&r.as_str()) && !OPTIONAL_ROLES.contains(&r.as_str()))
-        {
+        if let Some(extra) = self.roles.keys().find(|r| !names.contains(&r.as_str())) {
             return Err(KeyError::new(
                 format!("roles.{extra}"),
                 "is not a role taucal knows",
@@ -700,10 +717,8 @@ impl Bench {
                 "add [sim.chamber] (start_c, ramp_c_per_min, dut_tau_s), or remove the chamber role",
             ));
         }
-        let any_sim = ["attenuator", "dut"].iter().any(|r| {
-            self.roles
-                .get(*r)
-                .is_some_and(|b| b.address.starts_with("sim:"))
+        let any_sim = self.roles.iter().any(|(r, b)| {
+            ["attenuator", "dut"].contains(&self.role_kind(r)) && b.address.starts_with("sim:")
         });
         if any_sim && self.sim.is_none() {
             return Err(KeyError::new(

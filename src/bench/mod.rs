@@ -6,6 +6,7 @@ pub mod file;
 pub mod measured_path;
 pub mod path;
 pub mod per_gain;
+pub mod slot;
 pub mod timing;
 pub mod uncertainty;
 
@@ -14,5 +15,6 @@ pub use file::{AttenuatorFacts, Bench, ReferenceFacts, RoleBinding, UnitFacts};
 pub use measured_path::{ChannelPath, MeasuredPath};
 pub use path::PathFacts;
 pub use per_gain::PerGain;
+pub use slot::{SlotFacts, SlotOf};
 pub use timing::TimingFacts;
 pub use uncertainty::{BenchUncertainty, InputUncertainty};

@@ -56,18 +56,46 @@ static RUN_LOG: Mutex<Option<File>> = Mutex::new(None);
 static RUN_JSONL: Mutex<Option<File>> = Mutex::new(None);
 static PROGRESS: Mutex<Option<ProgressBar>> = Mutex::new(None);
 
+thread_local! {
+    /// A slot's own `run.log` and `run.jsonl`, on the thread that runs the slot: its lines go
+    /// there instead of the station's.
+    static SLOT_LOGS: std::cell::RefCell<Option<[File; 2]>> = const { std::cell::RefCell::new(None) };
+}
+
 /// Writes into one of the run directory's log files once it is open; drops lines before that.
 #[derive(Clone, Copy)]
 struct FileWriter(&'static Mutex<Option<File>>);
 
+impl FileWriter {
+    /// Which of a slot's two files this writer stands for.
+    fn slot_file(&self) -> usize {
+        usize::from(std::ptr::eq(self.0, &RUN_JSONL))
+    }
+
+    /// Runs `f` on this thread's slot file, if the thread has one.
+    fn on_slot_file<R>(&self, f: impl FnOnce(&mut File) -> io::Result<R>) -> Option<io::Result<R>> {
+        SLOT_LOGS.with(|logs| {
+            logs.borrow_mut()
+                .as_mut()
+                .map(|files| f(&mut files[self.slot_file()]))
+        })
+    }
+}
+
 impl Write for FileWriter {
     fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
+        if let Some(done) = self.on_slot_file(|f| f.write(buf)) {
+            return done;
+        }
         match self.0.lock().ok().as_mut().and_then(|g| g.as_mut()) {
             Some(f) => f.write(buf),
             None => Ok(buf.len()),
         }
     }
     fn flush(&mut self) -> io::Result<()> {
+        if let Some(done) = self.on_slot_file(|f| f.flush()) {
+            return done;
+        }
         match self.0.lock().ok().as_mut().and_then(|g| g.as_mut()) {
             Some(f) => f.flush(),
             None => Ok(()),
@@ -164,6 +192,24 @@ pub fn open_run_logs(dir: &Path, text: &str, json: &str, append: bool) {
                 path.display()
             ),
         }
+    }
+}
+
+/// Starts a slot's own `run.log` and `run.jsonl` in `dir`, for the lines logged on this
+/// thread (the slot's); a resumed slot (`append`) continues them.
+pub fn open_thread_logs(dir: &Path, text: &str, json: &str, append: bool) {
+    let open = |name: &str| {
+        let path = dir.join(name);
+        std::fs::OpenOptions::new()
+            .create(true)
+            .write(true)
+            .append(append)
+            .truncate(!append)
+            .open(&path)
+            .inspect_err(|e| tracing::warn!("cannot create {}: {e}", path.display()))
+    };
+    if let (Ok(t), Ok(j)) = (open(text), open(json)) {
+        SLOT_LOGS.with(|logs| *logs.borrow_mut() = Some([t, j]));
     }
 }
 

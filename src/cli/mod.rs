@@ -18,6 +18,7 @@ pub mod report;
 pub mod resume;
 pub mod run;
 pub mod run_date;
+pub mod run_station;
 pub mod sim_fleet;
 pub mod sim_serve;
 pub mod store;

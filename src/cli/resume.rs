@@ -10,6 +10,10 @@ use crate::runner::{RunObserver, Unobserved};
 
 /// Prepares the interrupted run, replays it to its last checkpoint and carries on.
 pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
+    let top = args.run_dir.join(files::MANIFEST);
+    if let Ok(Some(_)) = crate::data::station_manifest::StationManifest::read_if_station(&top) {
+        return super::run_station::resume(&args.run_dir, &args.store);
+    }
     let mut request = crate::runner::resume::prepare(&args.run_dir)?;
     let mut ledger = super::store_ledger::StoreLedger::for_run(&args.store, &request.bench)?;
     if request.station.is_empty() {

@@ -15,6 +15,9 @@ use std::sync::Arc;
 /// Validates, runs, fits, and reports.
 pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
     let bench = bench_arg::for_recipe(&args.bench, &args.recipe)?.reconnect(&args.connect)?;
+    if bench.is_slotted() {
+        return super::run_station::run(args, bench);
+    }
     let plan = crate::recipe::load(&args.recipe, &args.set, &bench)?;
     for stage in &plan.stages {
         if let crate::recipe::Stage::Script(s) = stage {
@@ -44,6 +47,7 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         resume: None,
         unit: args.unit.filter(|u| !u.trim().is_empty()),
         station,
+        seat: None,
     };
     let report = execute(
         request,

@@ -249,6 +249,7 @@ fn run_one(
         resume: None,
         unit: Some(unit.serial.clone()),
         station: unit.station.clone(),
+        seat: None,
     };
     let report = execute(request, |_| {}, Box::new(crate::runner::Unobserved), ledger)?;
     let mut channels: Vec<(u32, u32)> = report

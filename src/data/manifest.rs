@@ -263,6 +263,10 @@ pub struct Manifest {
     /// SHA-256 is under `inputs`, as `reference.certificate`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reference_certificate: Option<CertificateRecord>,
+    /// The bench's slot this run calibrated (`[[slot]] name`), when the bench has slots: the
+    /// run directory is then `slot-NAME/` inside the station's run.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub slot: Option<String>,
 }
 
 /// What a run records of the reference's certificate.

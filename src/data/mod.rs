@@ -11,6 +11,7 @@ pub mod record_version;
 mod row_batches;
 pub mod run_dir;
 pub mod run_lock;
+pub mod station_manifest;
 
 pub use csv_io::{read_exchanges, ExchangeWriter, ReadError, RecordSink};
 pub use exchange::{DeviceExchange, Exchange, Taken, STATUS_OK, TIMESTAMP_END_PS};

@@ -15,6 +15,7 @@ pub struct DrivenAttenuator {
     role: String,
     driver: AttenuatorDriver,
     scpi: ScpiClient,
+    channel: u32,
 }
 
 impl DrivenAttenuator {
@@ -24,7 +25,20 @@ impl DrivenAttenuator {
             role: role.to_string(),
             driver,
             scpi,
+            channel: 1,
         }
+    }
+
+    /// The same attenuator driving its channel `channel` (from 1; the bench checked it is one
+    /// the driver has).
+    pub fn on_channel(mut self, channel: u32) -> Self {
+        self.channel = channel;
+        self
+    }
+
+    /// The values every command is filled with besides its own: the channel.
+    fn values(&self) -> BTreeMap<&'static str, Value> {
+        BTreeMap::from([("channel", Value::Integer(u64::from(self.channel)))])
     }
 
     fn refused(&self, message: impl Into<String>) -> InstrumentError {
@@ -40,6 +54,12 @@ impl DrivenAttenuator {
 
     /// Why the driver file forbids `db`, if it does.
     pub fn refuse(&self, db: f64) -> Option<String> {
+        if !(1..=self.driver.channels).contains(&self.channel) {
+            return Some(format!(
+                "channel {} is not one of the driver's {}; nothing was sent",
+                self.channel, self.driver.channels
+            ));
+        }
         let [lo, hi] = self.driver.range_db;
         if !db.is_finite() || db < lo - 1e-9 || db > hi + 1e-9 {
             return Some(format!(
@@ -86,10 +106,9 @@ impl Attenuator for DrivenAttenuator {
                 sent.map_or("no number".to_string(), |v| format!("{v} dB"))
             )));
         }
-        let command = self
-            .driver
-            .set_atten
-            .render(&BTreeMap::from([("db", Value::Real(db))]));
+        let mut values = self.values();
+        values.insert("db", Value::Real(db));
+        let command = self.driver.set_atten.render(&values);
         let outcome = match self.apply(&command).await {
             // A connection lost before or during the command: the link reconnects, and setting
             // an attenuation twice is harmless, so try once more.
@@ -107,7 +126,7 @@ impl Attenuator for DrivenAttenuator {
     }
 
     async fn atten_db(&mut self) -> Result<f64, InstrumentError> {
-        let command = self.driver.get_atten.text();
+        let command = self.driver.get_atten.render(&self.values());
         let reply = self
             .scpi
             .query(&command)

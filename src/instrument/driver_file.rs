@@ -145,6 +145,7 @@ struct RawLimits {
     range_db: Option<[f64; 2]>,
     step_db: Option<f64>,
     max_input_dbm: Option<f64>,
+    channels: Option<u32>,
     frames: Option<[u32; 2]>,
     center_mhz: Option<[u32; 2]>,
     bw_mhz: Option<Vec<u32>>,
@@ -247,6 +248,9 @@ pub struct AttenuatorDriver {
     pub settle_ms: f64,
     /// The setting that protects both receivers.
     pub safe_atten_db: f64,
+    /// Independent channels (`limits.channels`, 1 unless given); with more than one, every
+    /// command names its channel as `{channel}`.
+    pub channels: u32,
 }
 
 /// A ranging device's console: a line protocol defined entirely by the file.
@@ -594,14 +598,40 @@ fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
             "set_atten",
             "\"DAMP:SETT {db:.2}\"",
         )?,
-        &[("db", ParamKind::Real)],
+        &[("db", ParamKind::Real), ("channel", ParamKind::Integer)],
     )?;
     let get_atten = template(
         "command",
         "get_atten",
         required("command", &raw.command, "get_atten", "\"DAMP:SETT?\"")?,
-        &[],
+        &[("channel", ParamKind::Integer)],
     )?;
+    let channels = l.channels.unwrap_or(1);
+    if !(1..=64).contains(&channels) {
+        return Err(KeyError::new(
+            "limits.channels",
+            format!("{channels} is not a channel count"),
+            "give the attenuator's independent channels, 1 to 64",
+        ));
+    }
+    // A multi-channel attenuator's command without its channel would set whichever channel
+    // the instrument last chose: a slot's DUT could get another slot's (lower) setting.
+    for (key, t) in [
+        ("command.set_atten", &set_atten),
+        ("command.get_atten", &get_atten),
+    ] {
+        if (channels > 1) != t.has_param("channel") {
+            return Err(KeyError::new(
+                key,
+                if channels > 1 {
+                    "does not name the channel, but the attenuator has several".to_string()
+                } else {
+                    "names `{channel}`, but limits.channels is 1".to_string()
+                },
+                "with limits.channels above 1 every command takes `{channel}`; without, none does",
+            ));
+        }
+    }
     let get_atten_reply = pattern(
         "get_atten",
         required("reply", &raw.reply, "get_atten", "'^(?P<db>[-+0-9.eE]+)$'")?,
@@ -686,6 +716,7 @@ fn attenuator(raw: &RawDriver) -> Result<AttenuatorDriver, KeyError> {
         max_input_dbm,
         settle_ms,
         safe_atten_db,
+        channels,
     })
 }
 
@@ -749,6 +780,11 @@ fn console(raw: &RawDriver, dir: Option<&Path>) -> Result<ConsoleDriver, KeyErro
     only_keys("reply", &raw.reply, &CONSOLE_REPLIES)?;
     let l = &raw.limits;
     refuse("scpi", KIND_RANGING_CONSOLE, raw.scpi.is_some())?;
+    refuse(
+        "limits.channels",
+        KIND_RANGING_CONSOLE,
+        raw.limits.channels.is_some(),
+    )?;
     refuse(
         "limits.range_db",
         KIND_RANGING_CONSOLE,

@@ -160,6 +160,13 @@ impl Template {
         })
     }
 
+    /// True when the template uses parameter `name`.
+    pub fn has_param(&self, name: &str) -> bool {
+        self.pieces
+            .iter()
+            .any(|p| matches!(p, Piece::Param { name: n, .. } if n == name))
+    }
+
     /// Fills a template that takes no parameters.
     pub fn text(&self) -> String {
         self.render(&BTreeMap::new())

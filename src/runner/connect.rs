@@ -6,7 +6,8 @@ use crate::bench::Bench;
 use crate::clock::BenchClock;
 use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
-use crate::wiring::{connect as start_instruments, Instruments};
+use crate::sim::shared_reference::Seat;
+use crate::wiring::{connect_slot as start_instruments, Instruments};
 use std::sync::Arc;
 
 /// The instruments of a run and what stops it.
@@ -20,16 +21,22 @@ pub struct Connected {
     pub signals: tokio::runtime::Runtime,
 }
 
-/// Starts the bench's instruments (`seed` for a simulated bench) and the signal listener.
+/// Starts the bench's instruments (`seed` for a simulated bench; `seat` at a reference shared
+/// with other slots) and the signal listener.
 /// Errors here are in the bench's configuration; an instrument that cannot be reached shows on
 /// its first command.
-pub fn connect(bench: &Bench, clock: Arc<BenchClock>, seed: u64) -> Result<Connected, Diagnostic> {
+pub fn connect(
+    bench: &Bench,
+    clock: Arc<BenchClock>,
+    seed: u64,
+    seat: Option<Seat>,
+) -> Result<Connected, Diagnostic> {
     let signals = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(1)
         .enable_all()
         .build()
         .map_err(|e| Diagnostic::plain(format!("cannot start the signal runtime: {e}")))?;
-    let instruments = start_instruments(bench, clock, seed)?;
+    let instruments = start_instruments(bench, clock, seed, seat)?;
     let stop = StopFlag::default();
     stop.listen(signals.handle());
     Ok(Connected {

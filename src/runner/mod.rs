@@ -19,6 +19,7 @@ pub mod request;
 pub mod resume;
 pub mod run;
 pub mod session;
+pub mod slots;
 pub mod stop;
 pub mod sweep;
 pub mod tabulate;

@@ -111,6 +111,7 @@ pub fn prepare(req: &RunRequest, on_dir: impl FnOnce(&Path)) -> Result<Prepared,
                     .overdue_on(crate::bench::certificate::run_date(now).unwrap_or(now.date())),
             }
         }),
+        slot: bench.slot.as_ref().map(|s| s.name.clone()),
     };
     let earlier_wall_s = match &req.resume {
         Some(r) => {

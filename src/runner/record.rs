@@ -85,7 +85,12 @@ pub fn record(
         s.set_journal(journal);
     }
     if let Some(r) = &req.resume {
-        s.set_replay(r.replay.clone(), prepared.simulated);
+        // A slot's exchanges depended on its neighbours' use of the shared reference, which a
+        // resumption does not repeat: its record is taken as it stands, as a real bench's is.
+        s.set_replay(
+            r.replay.clone(),
+            prepared.simulated && req.bench.slot.is_none(),
+        );
         s.report_watch = ReportWatch::knowing_applied_k(r.manifest.fit.applied_k_ps);
     }
     s.set_observer(observer);

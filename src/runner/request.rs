@@ -28,6 +28,8 @@ pub struct RunRequest {
     pub unit: Option<String>,
     /// The station the run is on (`--station`, the bench's `[bench] station`, or the host).
     pub station: String,
+    /// The run's place at a reference shared with other slots of a station, when it is one.
+    pub seat: Option<crate::sim::shared_reference::Seat>,
 }
 
 /// What a resumed run starts from.

@@ -50,6 +50,22 @@ pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
         &bench.source.text,
         &manifest.bench.sha256,
     )?;
+    // A slot's run continues on its slot of the bench.
+    let bench = match &manifest.slot {
+        Some(name) => bench
+            .slots
+            .iter()
+            .position(|s| &s.name == name)
+            .and_then(|i| bench.for_slot(i))
+            .ok_or_else(|| {
+                Diagnostic::in_file(
+                    &bench.source.path,
+                    format!("the bench has no slot `{name}`, which this run calibrated"),
+                )
+                .with_hint("restore the bench the run used, or start a new run")
+            })?,
+        None => bench,
+    };
     let plan = crate::recipe::load(
         Path::new(&manifest.recipe.file),
         &manifest.recipe.overrides,
@@ -88,6 +104,7 @@ pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
         realtime: manifest.realtime,
         unit: manifest.unit_serial.clone(),
         station: manifest.station.clone().unwrap_or_default(),
+        seat: None,
         resume: Some(Resumption {
             dir: dir.to_path_buf(),
             manifest,

@@ -24,13 +24,14 @@ use std::path::Path;
 /// `ledger` records the run once its unit is known and again when it has ended.
 /// Errors returned here happen before anything runs; later failures are in the report.
 pub fn execute(
-    req: RunRequest,
+    mut req: RunRequest,
     on_dir: impl FnOnce(&Path),
     observer: Box<dyn RunObserver>,
     ledger: &mut dyn RunLedger,
 ) -> Result<RunReport, Diagnostic> {
     let mut prepared = prepare(&req, on_dir)?;
-    let connected = connect(&req.bench, prepared.clock.clone(), prepared.seed)?;
+    let seat = req.seat.take();
+    let connected = connect(&req.bench, prepared.clock.clone(), prepared.seed, seat)?;
     let identified = identify(&connected.instruments, &mut prepared.manifest);
     let m = &mut prepared.manifest;
     if m.unit_serial.is_none() {

@@ -16,6 +16,7 @@ use super::chamber::SimChamber;
 use super::device_report::DeviceReport;
 use super::faults::{CommandFault, FaultInjector};
 use super::model::{BurstRequest, SimBench};
+use super::shared_reference::Seat;
 use super::truth::SimFaultsTruth;
 use crate::clock::{BenchClock, ClockMode};
 use crate::data::DeviceExchange;
@@ -63,6 +64,7 @@ pub struct SimShared {
     model_clock: Arc<BenchClock>,
     clock: Arc<BenchClock>,
     chamber_clock: Arc<BenchClock>,
+    seat: Option<Arc<Seat>>,
 }
 
 impl SimShared {
@@ -74,7 +76,16 @@ impl SimShared {
             model_clock: Arc::new(BenchClock::new(ClockMode::Virtual)),
             chamber_clock: clock.clone(),
             clock,
+            seat: None,
         }
+    }
+
+    /// The same world as one slot of a station whose reference it shares through `seat`:
+    /// its exchanges contend for the reference's air time, on the run's clock.
+    pub fn with_seat(mut self, seat: Seat) -> Self {
+        seat.attach(self.clock.clone());
+        self.seat = Some(Arc::new(seat));
+        self
     }
 
     /// The same world with its chamber, and so the DUT's temperature, following `clock`
@@ -138,7 +149,23 @@ impl SimShared {
             let mut world = self.lock("dut")?;
             world.faults.burst(request.frames)?;
             world.settle_to(now_ps);
-            let mut outcome = world.bench.run_burst(start_ps, request);
+            // On a shared reference the burst books its exchanges' air time on the run's
+            // clock, which all slots share from the start; the model's own clock takes the
+            // same delays.
+            let delays_ps = match &self.seat {
+                Some(seat) => {
+                    let run_start_ps = self.clock.now_ps();
+                    let nominal = world.bench.departures_ps(run_start_ps, request.frames);
+                    seat.book(
+                        run_start_ps,
+                        &nominal,
+                        world.bench.exchange_air_ps(),
+                        world.bench.interval_ps(),
+                    )
+                }
+                None => Vec::new(),
+            };
+            let mut outcome = world.bench.run_burst_delayed(start_ps, request, &delays_ps);
             for x in &mut outcome.exchanges {
                 if world.faults.exchange_fails() {
                     *x = DeviceExchange {

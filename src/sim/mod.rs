@@ -17,6 +17,7 @@ pub mod front;
 pub mod model;
 pub mod population;
 pub mod serve;
+pub mod shared_reference;
 pub mod timing;
 pub mod truth;
 

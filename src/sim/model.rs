@@ -76,6 +76,8 @@ pub struct SimBench {
     loss_snr_db: f64,
     burst_offset_ps: f64,
     turnaround_ps: u64,
+    /// Air time of the measurement frame.
+    frame_ps: u64,
     setup_ps: u64,
     interval_ps: u64,
     streams: Streams,
@@ -209,6 +211,7 @@ impl SimBench {
             loss_snr_db: d.loss_snr_db,
             burst_offset_ps: d.burst_offset_ps,
             turnaround_ps: us_to_ps(f.frame_duration_us + f.sifs_us),
+            frame_ps: us_to_ps(f.frame_duration_us),
             setup_ps: us_to_ps(f.burst_setup_ms * 1e3),
             interval_ps: us_to_ps(f.frame_interval_us),
             streams: Streams {
@@ -274,9 +277,42 @@ impl SimBench {
     /// Runs one burst that starts at bench time `start_ps` (integer picoseconds since the run
     /// began). Exchange `k` departs the reference at `start_ps + setup + k·interval`.
     pub fn run_burst(&mut self, start_ps: u64, req: &BurstRequest) -> BurstOutcome {
+        self.run_burst_delayed(start_ps, req, &[])
+    }
+
+    /// When the exchanges of a burst of `frames` that starts at `start_ps` depart, unhindered.
+    pub fn departures_ps(&self, start_ps: u64, frames: u32) -> Vec<u64> {
+        let first_ps = start_ps.saturating_add(self.setup_ps);
+        (0..u64::from(frames))
+            .map(|k| first_ps.saturating_add(k.saturating_mul(self.interval_ps)))
+            .collect()
+    }
+
+    /// How long one exchange holds the air: the measurement frame, SIFS and the
+    /// acknowledgement (taken as long as the frame).
+    pub fn exchange_air_ps(&self) -> u64 {
+        self.turnaround_ps.saturating_add(self.frame_ps)
+    }
+
+    /// The spacing of a burst's exchanges.
+    pub fn interval_ps(&self) -> u64 {
+        self.interval_ps
+    }
+
+    /// As [`SimBench::run_burst`], exchange `k` departing `delays_ps[k]` late (a shared
+    /// reference was busy); missing delays are zero. The burst lasts as much longer as its last
+    /// exchange was delayed.
+    pub fn run_burst_delayed(
+        &mut self,
+        start_ps: u64,
+        req: &BurstRequest,
+        delays_ps: &[u64],
+    ) -> BurstOutcome {
+        let late_ps = delays_ps.last().copied().unwrap_or(0);
         let duration_ps = self
             .setup_ps
-            .saturating_add(u64::from(req.frames).saturating_mul(self.interval_ps));
+            .saturating_add(u64::from(req.frames).saturating_mul(self.interval_ps))
+            .saturating_add(late_ps);
         if req.bw_mhz == 0 {
             let refused = DeviceExchange::empty(STATUS_REJECTED);
             return BurstOutcome {
@@ -303,11 +339,13 @@ impl SimBench {
             burst_offset_ps: z * self.burst_offset_ps,
             turnaround_bench_ps: self.dut.clock.ticks_to_bench_ps(self.turnaround_ps as f64),
         };
-        let first_ps = start_ps.saturating_add(self.setup_ps);
-        let exchanges = (0..u64::from(req.frames))
-            .map(|k| {
-                let t1_bench_ps = first_ps.saturating_add(k.saturating_mul(self.interval_ps));
-                self.exchange(t1_bench_ps, &conditions)
+        let exchanges = self
+            .departures_ps(start_ps, req.frames)
+            .into_iter()
+            .enumerate()
+            .map(|(k, t1_bench_ps)| {
+                let late = delays_ps.get(k).copied().unwrap_or(0);
+                self.exchange(t1_bench_ps.saturating_add(late), &conditions)
             })
             .collect();
         BurstOutcome {

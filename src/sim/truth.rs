@@ -48,6 +48,10 @@ pub struct SimTruth {
     /// Stations of a simulated line, by name, for `taucal sim fleet`.
     #[serde(default)]
     pub stations: BTreeMap<String, SimStation>,
+    /// The DUT in each slot of a slotted bench (`[[sim.slot]]`, keys as `[sim.dut]`), in the
+    /// order of the bench's `[[slot]]` tables.
+    #[serde(default)]
+    pub slot: Vec<SimDut>,
 }
 
 /// `[sim.path]`: the path as it truly is.
@@ -123,6 +127,10 @@ pub struct SimDut {
     /// The unit's serial number, for the results store; the simulation itself ignores it.
     #[serde(default)]
     pub serial: Option<String>,
+    /// In `[[sim.slot]]` only: faults injected into this slot's instruments instead of
+    /// `[sim.faults]` (one flaky unit on a station).
+    #[serde(default)]
+    pub faults: Option<SimFaultsTruth>,
 }
 
 /// The form in which a DUT reports its ranging (`[sim.dut] reports`).
@@ -383,6 +391,13 @@ impl SimTruth {
             )?;
         }
         let d = &self.dut;
+        if d.faults.is_some() {
+            return Err(KeyError::new(
+                "sim.dut.faults",
+                "belongs to a slot's unit ([[sim.slot]]), not to [sim.dut]",
+                "put the bench's faults under [sim.faults]",
+            ));
+        }
         if d.rx_delay_ps.is_empty() {
             return Err(KeyError::new(
                 "sim.dut.rx_delay_ps",

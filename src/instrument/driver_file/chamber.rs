@@ -95,6 +95,7 @@ pub(super) fn chamber(raw: &RawDriver) -> Result<ChamberDriver, KeyError> {
     for (key, present) in [
         ("limits.range_db", l.range_db.is_some()),
         ("limits.step_db", l.step_db.is_some()),
+        ("limits.channels", l.channels.is_some()),
         ("limits.max_input_dbm", l.max_input_dbm.is_some()),
         ("limits.frames", l.frames.is_some()),
         ("limits.center_mhz", l.center_mhz.is_some()),
