@@ -25,6 +25,7 @@ mod report;
 mod run_forms;
 mod science;
 mod script_limits;
+mod slots;
 mod store;
 mod touchstone;
 mod truth;

@@ -1,0 +1,223 @@
+//! DUT slots through the real binary: a four-slot station recovers each slot's own unit,
+//! each slot's directory is a standard run (`fit` gives its table again), one slot's failure
+//! leaves the others complete, the store holds one run per slot, and a stopped station
+//! resumes its unfinished slots. The station here is not the shipped one: its units differ.
+
+use crate::support::{assert_tables_agree, csv_numbers, Taucal};
+
+/// Four units, K per state far enough apart between slots (≥ 100 ps) that a slot fitted
+/// with another's exchanges could not pass as itself.
+const UNITS: [(&str, f64, [f64; 3]); 4] = [
+    ("QX-0001", 1300.0, [800.0, 1000.0, 1300.0]),
+    ("QX-0002", 1450.0, [780.0, 1090.0, 1420.0]),
+    ("QX-0003", 1600.0, [820.0, 1060.0, 1350.0]),
+    ("QX-0004", 1700.0, [850.0, 1120.0, 1450.0]),
+];
+
+/// A station of four slots on a simulated bench; `faults_in_c` is a `[sim.slot.faults]` body
+/// for slot c's unit (empty for none).
+fn station(faults_in_c: &str) -> String {
+    let mut text = String::from(
+        r#"[bench]
+name = "test station"
+[roles]
+att4 = { driver = "sim-attenuator", address = "sim:" }
+u1 = { driver = "sim-ranging", address = "sim:" }
+u2 = { driver = "sim-ranging", address = "sim:" }
+u3 = { driver = "sim-ranging", address = "sim:" }
+u4 = { driver = "sim-ranging", address = "sim:" }
+reference = { driver = "sim-ranging", address = "sim:" }
+[attenuator]
+range_db = [0.0, 90.0]
+step_db = 0.5
+[dut]
+tx_power_dbm = 14.0
+max_input_dbm = -12.0
+min_input_dbm = -80.0
+[path]
+cable_delay_ps = 5200.0
+fixed_loss_db = 7.0
+[reference]
+delay_ps = 3100.0
+tx_power_dbm = 14.0
+max_input_dbm = -12.0
+min_input_dbm = -80.0
+"#,
+    );
+    for (i, name) in ["a", "b", "c", "d"].iter().enumerate() {
+        text += &format!(
+            "[[slot]]\nname = \"{name}\"\ndut = \"u{}\"\nattenuator = \"att4\"\nchannel = {}\n",
+            i + 1,
+            i + 1
+        );
+    }
+    text += "[sim]\nseed = 11\ntx_power_dbm = 14.0\n[sim.dut]\ntx_delay_ps = 1500.0\n\
+             rx_delay_ps = [800.0, 1000.0, 1300.0]\ngain_thresholds_dbm = [-28.0, -52.0]\n\
+             [sim.reference]\ndelay_ps = 3100.0\n";
+    for (i, (serial, tx, rx)) in UNITS.iter().enumerate() {
+        text += &format!(
+            "[[sim.slot]]\nserial = \"{serial}\"\ntx_delay_ps = {tx:.1}\nrx_delay_ps = [{:.1}, {:.1}, {:.1}]\n\
+             gain_thresholds_dbm = [-28.0, -52.0]\nclock_ppm = {}.0\njitter_ps = 280.0\noutlier_rate = 0.02\n",
+            rx[0],
+            rx[1],
+            rx[2],
+            7 * i as i32 - 9
+        );
+        if i == 2 && !faults_in_c.is_empty() {
+            text += &format!("[sim.slot.faults]\n{faults_in_c}\n");
+        }
+    }
+    text
+}
+
+/// Three points, one per gain state (received −16, −39 and −64 dBm).
+const RECIPE: &str = r#"[recipe]
+name = "slot-check"
+description = "one point per gain state"
+[accept]
+min_gain_states = 3
+[faults]
+retries = 1
+backoff_ms = 10.0
+[[stage]]
+name = "cal"
+kind = "sweep"
+center_mhz = 5240
+bw_mhz = 40
+atten_db = [23.0, 46.0, 71.0]
+bursts = 12
+frames = 16
+settle_ms = 10.0
+"#;
+
+fn run_station(faults_in_c: &str, extra: &[&str]) -> crate::support::Outcome {
+    let mut args = vec!["run", "r.toml", "--bench", "b.toml", "--out", "st", "-q"];
+    args.extend(extra);
+    Taucal::new()
+        .file("b.toml", &station(faults_in_c))
+        .file("r.toml", RECIPE)
+        .args(args)
+        .run()
+}
+
+fn table(text: &str) -> toml::Table {
+    toml::from_str(text).expect("toml")
+}
+
+#[test]
+fn every_slot_recovers_its_own_unit_within_its_interval() {
+    let out = run_station("", &["--store", "none"]);
+    out.expect_code(0);
+    let top = table(&out.read("st/manifest.toml"));
+    assert_eq!(top["kind"].as_str(), Some("station"));
+    assert_eq!(top["status"].as_str(), Some("completed"));
+    let slots = top["slot"].as_array().expect("slots");
+    assert_eq!(slots.len(), 4);
+    for (i, name) in ["a", "b", "c", "d"].iter().enumerate() {
+        let (serial, tx, rx) = UNITS[i];
+        let m = table(&out.read(&format!("st/slot-{name}/manifest.toml")));
+        assert_eq!(m["status"].as_str(), Some("completed"));
+        assert_eq!(m["unit_serial"].as_str(), Some(serial));
+        assert_eq!(m["slot"].as_str(), Some(*name));
+        assert_eq!(slots[i]["unit_serial"].as_str(), Some(serial));
+        let rows = csv_numbers(&out.read(&format!("st/slot-{name}/caltable.csv")));
+        assert_eq!(rows.len(), 3, "slot {name}: three cells");
+        for row in rows {
+            // delay_ps is column 3, ci95_ps column 4; the truth is TX + RX of the slot's unit.
+            let (gain, k, ci) = (row[2] as usize, row[3], row[4]);
+            let truth = tx + rx[gain];
+            // A 95 % interval misses its truth one time in twenty, so among twelve cells one
+            // may (this seed's slot a, gain 2, does, by 1.4 half-widths; other seeds put it
+            // within 30 ps). 1.5 half-widths is a miss with p ≈ 0.007 per cell (Student t,
+            // ~11 dof; common practice): a slot de-embedded wrongly, or with another slot's
+            // exchanges, misses by far more.
+            assert!(
+                (k - truth).abs() <= 1.5 * ci,
+                "slot {name} gain {gain}: {k:.1} ± {ci:.1} ps misses its truth {truth}"
+            );
+            for (j, other) in UNITS.iter().enumerate().filter(|(j, _)| *j != i) {
+                let theirs = other.1 + other.2[gain];
+                assert!(
+                    (k - truth).abs() < (k - theirs).abs(),
+                    "slot {name} gain {gain} looks like slot {j}'s unit"
+                );
+            }
+        }
+    }
+    // The station's bench time is its longest slot's.
+    let longest = slots
+        .iter()
+        .map(|s| s["bench_time_s"].as_float().expect("time"))
+        .fold(0.0, f64::max);
+    assert_eq!(top["bench_time_s"].as_float(), Some(longest));
+}
+
+#[test]
+fn a_slot_directory_is_a_standard_run_that_fit_and_report_read() {
+    let out = run_station("", &["--store", "none"]);
+    out.expect_code(0);
+    let refit = Taucal::in_dir(out.dir)
+        .args(["fit", "st/slot-b/exchanges.csv", "--out", "refit", "-q"])
+        .run();
+    refit.expect_code(0);
+    assert_tables_agree(
+        &refit.read("refit/caltable.csv"),
+        &refit.read("st/slot-b/caltable.csv"),
+    );
+    let report = Taucal::in_dir(refit.dir)
+        .args(["report", "st/slot-b", "-q"])
+        .run();
+    report.expect_code(0);
+}
+
+#[test]
+fn a_failing_slot_stops_alone_and_its_resume_goes_on_with_it() {
+    // Half of slot c's commands time out and the recipe allows one retry, so slot c soon
+    // stops; the other three complete.
+    let out = run_station("reply_timeout_rate = 0.5", &["--store", "sqlite:st.sqlite"]);
+    out.expect_code(3);
+    let top = table(&out.read("st/manifest.toml"));
+    let statuses: Vec<&str> = top["slot"]
+        .as_array()
+        .expect("slots")
+        .iter()
+        .map(|s| s["status"].as_str().expect("status"))
+        .collect();
+    assert_eq!(statuses[0], "completed");
+    assert_eq!(statuses[1], "completed");
+    assert_ne!(statuses[2], "completed");
+    assert_eq!(statuses[3], "completed");
+    assert_ne!(top["status"].as_str(), Some("completed"));
+    // Every slot ended with its attenuator channel at the safe state.
+    for name in ["a", "b", "c", "d"] {
+        let log = out.read(&format!("st/slot-{name}/run.log"));
+        assert!(log.contains("safe state"), "slot {name}: {log}");
+    }
+    // One run per slot in the store, each under its unit's serial.
+    let db = rusqlite::Connection::open(out.path("st.sqlite")).expect("open");
+    let mut q = db
+        .prepare("SELECT unit_serial, status FROM runs ORDER BY unit_serial")
+        .expect("prepare");
+    let runs: Vec<(String, String)> = q
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))
+        .expect("query")
+        .map(|r| r.expect("row"))
+        .collect();
+    let serials: Vec<&str> = runs.iter().map(|(s, _)| s.as_str()).collect();
+    assert_eq!(serials, ["QX-0001", "QX-0002", "QX-0003", "QX-0004"]);
+    drop(q);
+    drop(db);
+    // Resuming the station continues slot c alone; the completed slots are left as they are.
+    let before_a = out.read("st/slot-a/exchanges.csv");
+    let resumed = Taucal::in_dir(out.dir)
+        .args(["resume", "st", "--store", "sqlite:st.sqlite", "-q"])
+        .run();
+    let text = resumed.read("st/slot-c/manifest.toml");
+    assert_eq!(table(&text)["resumes"].as_integer(), Some(1), "{text}");
+    assert_eq!(resumed.read("st/slot-a/exchanges.csv"), before_a);
+    assert!(
+        resumed.stdout.contains("slot c:") && !resumed.stdout.contains("slot a:"),
+        "{}",
+        resumed.stdout
+    );
+}
