@@ -221,3 +221,118 @@ fn a_failing_slot_stops_alone_and_its_resume_goes_on_with_it() {
         resumed.stdout
     );
 }
+
+/// The shipped station with its attenuator role at `address`, driven by the shipped
+/// four-channel driver.
+fn station_with_attenuator(driver: &str, address: &str) -> String {
+    let text = std::fs::read_to_string(crate::support::repo("recipes/benches/sim-station4.toml"))
+        .expect("station bench");
+    text.replacen(
+        "atten = { driver = \"sim-attenuator\", address = \"sim:\" }",
+        &format!("atten = {{ driver = \"{driver}\", address = \"{address}\" }}"),
+        1,
+    )
+    .replacen(
+        "[bench]\n",
+        &format!(
+            "[bench]\ndrivers_dir = \"{}\"\n",
+            crate::support::repo("drivers")
+        ),
+        1,
+    )
+}
+
+#[test]
+fn the_served_four_channel_attenuator_sets_each_slots_channel_alone_with_the_shipped_driver() {
+    use std::sync::Arc;
+    use taucal::clock::{BenchClock, ClockMode};
+    let server = crate::instruments::Server::start_bench(
+        &crate::support::repo("recipes/benches/sim-station4.toml"),
+        &["attenuator=tcp:127.0.0.1:0"],
+    );
+    let text = station_with_attenuator("brindlecombe-fourfold90", &server.address("attenuator"));
+    let bench =
+        taucal::bench::Bench::parse(taucal::diagnostic::SourceFile::new("station.toml", text))
+            .expect("the station with its driven attenuator");
+    let attenuators: Vec<_> = (0..4)
+        .map(|i| {
+            let slot = bench.for_slot(i).expect("slot");
+            let clock = Arc::new(BenchClock::new(ClockMode::Wall));
+            taucal::wiring::connect(&slot, clock, 1)
+                .expect("connect")
+                .attenuator
+        })
+        .collect();
+    // Each slot sets its own channel; each channel then reads back its own setting.
+    for (i, a) in attenuators.iter().enumerate() {
+        a.set_atten_db(20.0 + 7.25 * i as f64).expect("set");
+    }
+    for (i, a) in attenuators.iter().enumerate() {
+        assert_eq!(a.atten_db().expect("read"), 20.0 + 7.25 * i as f64);
+    }
+    // Each slot keeps the bench's receiver protection: 14 dB would put -7 dBm into a DUT whose
+    // max_input_dbm is -10 dBm, and the slot's bench refuses it before anything is sent.
+    let bench_refusal = bench.for_slot(2).expect("slot").refuse_atten(14.0);
+    assert!(bench_refusal.is_some(), "14 dB must be refused");
+    // The safe state puts every channel at maximum attenuation.
+    for a in &attenuators {
+        a.safe_state().expect("safe");
+        assert_eq!(a.atten_db().expect("read"), 95.0);
+    }
+}
+
+#[test]
+fn slot_mistakes_are_refused_with_the_key_and_what_would_be_right() {
+    for (from, to, key) in [
+        ("channel = 4", "channel = 3", "slot.3.channel"),
+        // One channel feeding two slots' DUTs.
+        ("channel = 2", "channel = 1", "slot.1.channel"),
+        ("name = \"c\"", "name = \"a\"", "slot.2.name"),
+        ("name = \"d\"", "name = \"d/..\"", "slot.3.name"),
+        // dut-d, named by no slot now, is a role of no use: refused before the slot's typo.
+        ("dut = \"dut-d\"", "dut = \"dut-x\"", "roles.dut-d"),
+        (
+            "serial = \"WR6-24-0104\"",
+            "serial = \"WR6-24-0104\"\nfaults = { reply_timeout_rate = 0.9 }",
+            "sim.slot.3.faults.reply_timeout_rate",
+        ),
+    ] {
+        let text =
+            std::fs::read_to_string(crate::support::repo("recipes/benches/sim-station4.toml"))
+                .expect("station bench");
+        assert!(text.contains(from), "{from}");
+        let out = Taucal::new()
+            .file("b.toml", &text.replacen(from, to, 1))
+            .args([
+                "check",
+                &crate::support::repo("recipes/factory-quick.toml"),
+                "--bench",
+                "b.toml",
+            ])
+            .run();
+        out.expect_code(2);
+        assert!(out.stderr.contains(key), "{key}: {}", out.stderr);
+        assert!(out.stderr.contains("what would be right"), "{}", out.stderr);
+    }
+    // Four channels, not five; and the driver names its channel.
+    let five = station_with_attenuator("brindlecombe-fourfold90", "tcp:127.0.0.1:9").replacen(
+        "channel = 4",
+        "channel = 5",
+        1,
+    );
+    let out = Taucal::new()
+        .file("b.toml", &five)
+        .args([
+            "check",
+            &crate::support::repo("recipes/factory-quick.toml"),
+            "--bench",
+            "b.toml",
+        ])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains("slot.3.channel") && out.stderr.contains("has 4"),
+        "{}",
+        out.stderr
+    );
+}

@@ -698,11 +698,16 @@ impl Bench {
             return Err(KeyError::new(
                 format!("roles.{extra}"),
                 "is not a role taucal knows",
-                format!(
-                    "roles are {} (and optionally {})",
-                    ROLES.join(", "),
-                    OPTIONAL_ROLES.join(", ")
-                ),
+                if self.is_slotted() {
+                    "on a slotted bench a role is `reference`, or a DUT or attenuator a                      [[slot]] names (dut = …, attenuator = …)"
+                        .to_string()
+                } else {
+                    format!(
+                        "roles are {} (and optionally {})",
+                        ROLES.join(", "),
+                        OPTIONAL_ROLES.join(", ")
+                    )
+                },
             ));
         }
         if self

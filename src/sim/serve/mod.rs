@@ -159,6 +159,9 @@ impl ServedBench {
                 "serve a simulated bench, e.g. recipes/benches/sim-demo.toml",
             )));
         };
+        // A slotted bench serves its first slot's unit and one attenuator channel per slot.
+        let first = bench.for_slot(0);
+        let truth = first.as_ref().and_then(|b| b.sim.as_ref()).unwrap_or(truth);
         let model = SimBench::new(truth, &truth.true_path(&bench.path), seed)
             .map_err(|e| bench.source.key_error(e))?;
         let mode = if realtime {
@@ -173,12 +176,28 @@ impl ServedBench {
         };
         let shared = SimShared::new(world, Arc::new(BenchClock::new(mode)))
             .with_chamber_clock(Arc::new(BenchClock::new(ClockMode::Wall)));
+        let mut more = Vec::new();
+        for i in 1..bench.slots.len() {
+            let Some(slot) = bench.for_slot(i) else {
+                continue;
+            };
+            let Some(t) = slot.sim.as_ref() else { continue };
+            let model = SimBench::new(t, &t.true_path(&bench.path), seed.wrapping_add(i as u64))
+                .map_err(|e| bench.source.key_error(e))?;
+            let world = SimWorld {
+                bench: model,
+                chamber: None,
+                faults: FaultInjector::new(&t.faults, seed.wrapping_add(i as u64)),
+            };
+            more.push(SimShared::new(world, Arc::new(BenchClock::new(mode))));
+        }
         let attenuator = ScpiAttenuator::new(
             shared.clone(),
             bench.attenuator.range_db,
             bench.attenuator.step_db,
             truth.attenuator.switch_ms,
-        );
+        )
+        .with_channels(more);
         Ok(ServedBench {
             shared,
             attenuator: Arc::new(Mutex::new(attenuator)),

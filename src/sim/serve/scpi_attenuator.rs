@@ -1,7 +1,9 @@
 //! The simulated step attenuator as a SCPI instrument, built on the `scpi` crate's parser and
 //! command tree: the IEEE 488.2 mandatory common commands, the SCPI error queue with the
 //! standard codes, and the setting commands of both shipped attenuator driver files
-//! (`DAMPer:SETTing` and `LOSS[:LEVel]`), so either driver can be tried against it unchanged.
+//! (`DAMPer:SETTing` and `LOSS[:LEVel]`), so either driver can be tried against it unchanged,
+//! and on a slotted bench one channel per slot (`PATH:ATTenuation CHANNEL,DB`, the four-channel
+//! driver's form), each channel in front of its own slot's simulated unit.
 //!
 //! Pure with respect to I/O: a message goes in, a response comes out; the server moves bytes.
 
@@ -29,6 +31,8 @@ const STB_MSS: u8 = 0x40;
 /// The served attenuator's state: the shared model plus IEEE 488.2 status registers.
 pub struct ScpiAttenuator {
     shared: SimShared,
+    /// Channels 2, 3, …: the other slots' models, on a slotted bench.
+    more: Vec<SimShared>,
     identity: String,
     range_db: [f64; 2],
     step_db: f64,
@@ -60,6 +64,7 @@ impl ScpiAttenuator {
         shared.power_up_atten_db(range_db[1]);
         ScpiAttenuator {
             shared,
+            more: Vec::new(),
             identity: format!(
                 "TAUCAL,SIM-STEP-ATTENUATOR,SIM0001,{}",
                 env!("CARGO_PKG_VERSION")
@@ -90,7 +95,32 @@ impl ScpiAttenuator {
         (response, std::mem::take(&mut self.pause))
     }
 
+    /// The same attenuator with channels 2, 3, … in front of the models `more` (each powers up
+    /// at maximum attenuation, as channel 1 does).
+    pub fn with_channels(mut self, more: Vec<SimShared>) -> Self {
+        for m in &more {
+            m.power_up_atten_db(self.range_db[1]);
+        }
+        self.more = more;
+        self
+    }
+
+    /// The model behind channel `n` (from 1).
+    fn channel(&self, n: u32) -> Result<&SimShared, Error> {
+        match n {
+            1 => Ok(&self.shared),
+            n => self
+                .more
+                .get((n as usize).wrapping_sub(2))
+                .ok_or_else(|| ErrorCode::IllegalParameterValue.into()),
+        }
+    }
+
     fn set(&mut self, db: f64) -> Result<(), Error> {
+        self.set_on(1, db)
+    }
+
+    fn set_on(&mut self, channel: u32, db: f64) -> Result<(), Error> {
         let [lo, hi] = self.range_db;
         if !db.is_finite() || db < lo - 1e-9 || db > hi + 1e-9 {
             return Err(ErrorCode::DataOutOfRange.into());
@@ -99,7 +129,7 @@ impl ScpiAttenuator {
             return Err(ErrorCode::IllegalParameterValue.into());
         }
         let wall = self
-            .shared
+            .channel(channel)?
             .set_atten_db(db, self.switch_ps)
             .map_err(|_: InstrumentError| Error::new(ErrorCode::DeviceSpecificError))?;
         self.pause += wall;
@@ -137,8 +167,11 @@ impl Command<ScpiAttenuator> for Idn {
 struct Rst;
 impl Command<ScpiAttenuator> for Rst {
     fn event(&self, d: &mut ScpiAttenuator, _: &mut Context, _: Parameters) -> Result<(), Error> {
-        // The reset state is the safe state: maximum attenuation.
-        d.set(d.range_db[1])
+        // The reset state is the safe state: maximum attenuation, on every channel.
+        for n in 1..=1 + d.more.len() as u32 {
+            d.set_on(n, d.range_db[1])?;
+        }
+        Ok(())
     }
 }
 
@@ -326,6 +359,35 @@ impl Command<ScpiAttenuator> for Atten {
     }
 }
 
+/// `PATH:ATTenuation CHANNEL,DB` and `PATH:ATTenuation? CHANNEL`: one channel of several.
+struct ChannelAtten;
+impl Command<ScpiAttenuator> for ChannelAtten {
+    fn event(
+        &self,
+        d: &mut ScpiAttenuator,
+        _: &mut Context,
+        mut p: Parameters,
+    ) -> Result<(), Error> {
+        let channel = p.next_data::<u32>()?;
+        let db = p.next_data::<f64>()?;
+        d.set_on(channel, db)
+    }
+    fn query(
+        &self,
+        d: &mut ScpiAttenuator,
+        _: &mut Context,
+        mut p: Parameters,
+        mut r: ResponseUnit,
+    ) -> Result<(), Error> {
+        let channel = p.next_data::<u32>()?;
+        let db = d
+            .channel(channel)?
+            .atten_db()
+            .map_err(|_| Error::new(ErrorCode::DeviceSpecificError))?;
+        r.data(db).finish()
+    }
+}
+
 const ROOT: Node<ScpiAttenuator> = Branch {
     name: b"",
     default: false,
@@ -414,6 +476,15 @@ const ROOT: Node<ScpiAttenuator> = Branch {
                 name: b"SETTing",
                 default: true,
                 handler: &Atten,
+            }],
+        },
+        Branch {
+            name: b"PATH",
+            default: false,
+            sub: &[Leaf {
+                name: b"ATTenuation",
+                default: true,
+                handler: &ChannelAtten,
             }],
         },
         Branch {
