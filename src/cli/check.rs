@@ -61,6 +61,21 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
         println!("{}", stage_line(stage_est));
     }
     print!("{}", plan_summary(&est));
+    if let Some(st) = crate::runner::station_estimate::station_estimate(&est, &bench) {
+        println!(
+            "station: {} slots side by side, {:.3} s each; the shared reference is on the air {:.3} s for all of them (one exchange at a time); station bench time {:.3} s, {:.1} units per hour{}",
+            st.slots,
+            st.slot_s,
+            st.air_s,
+            st.station_s,
+            st.units_per_hour,
+            if est.bound == Bound::Estimate {
+                ""
+            } else {
+                " (from the lower bound above: at most this many)"
+            }
+        );
+    }
     if let Some(l) = plan.accept.max_ci95_ps {
         println!("accept: every cell's 95 % half-width ≤ {l} ps");
     }

@@ -20,6 +20,7 @@ pub mod resume;
 pub mod run;
 pub mod session;
 pub mod slots;
+pub mod station_estimate;
 pub mod stop;
 pub mod sweep;
 pub mod tabulate;
