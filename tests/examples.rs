@@ -163,6 +163,8 @@ struct Block {
 enum Kind {
     /// `cargo run --release -- …` and `cargo test --release`.
     QuickStart,
+    /// A bench's `[[slot]]` table, as the shipped station bench has it.
+    Slot,
     /// The command synopsis.
     Synopsis,
     /// `taucal sim serve` and a run through the served instruments.
@@ -272,6 +274,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "toml" if text.starts_with("[faults]") => Kind::Faults,
         "toml" if text.starts_with("[path]\ntouchstone") => Kind::MeasuredPath,
         "toml" if text.starts_with("[certificate]") => Kind::Certificate,
+        "toml" if text.starts_with("[[slot]]") => Kind::Slot,
         _ => return None,
     })
 }
@@ -579,6 +582,27 @@ fn readme_simulated_bench_is_valid() {
         .run();
     out.expect_code(0);
     assert!(out.stdout.contains("is SIMULATED"), "{}", out.stdout);
+}
+
+#[test]
+fn readme_slot_table_is_the_shipped_stations_and_its_run_lists_every_slot() {
+    let block = the_block(Kind::Slot);
+    let station = std::fs::read_to_string(root().join("recipes/benches/sim-station4.toml"))
+        .expect("station bench");
+    assert!(station.contains(&block.text), "{}", block.text);
+    // The commands block beside it runs as printed (readme_commands_…); its station run
+    // holds a standard run directory per slot.
+    let out = run_as_printed(
+        "taucal run recipes/factory-quick.toml --bench recipes/benches/sim-station4.toml --out runs/station",
+    );
+    out.expect_code(0);
+    let top: toml::Table = toml::from_str(&out.read("runs/station/manifest.toml")).expect("toml");
+    assert_eq!(top["kind"].as_str(), Some("station"));
+    for slot in ["a", "b", "c", "d"] {
+        assert!(out
+            .path(&format!("runs/station/slot-{slot}/caltable.csv"))
+            .is_file());
+    }
 }
 
 /// The README's simulated bench with the README's real roles (its `[sim]` stays, for the
