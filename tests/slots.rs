@@ -168,6 +168,10 @@ fn a_slot_directory_is_a_standard_run_that_fit_and_report_read() {
         .args(["report", "st/slot-b", "-q"])
         .run();
     report.expect_code(0);
+    // The station's own directory is not a run: the message points at its slots' runs.
+    let top = Taucal::in_dir(report.dir).args(["report", "st"]).run();
+    top.expect_code(2);
+    assert!(top.stderr.contains("slot-a"), "{}", top.stderr);
 }
 
 #[test]

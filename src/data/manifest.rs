@@ -306,7 +306,32 @@ impl Manifest {
     /// Reads a manifest.
     pub fn read(path: &Path) -> io::Result<Manifest> {
         let text = std::fs::read_to_string(path)?;
-        toml::from_str(&text).map_err(|e| io::Error::new(io::ErrorKind::InvalidData, e.to_string()))
+        toml::from_str(&text).map_err(|e| {
+            // A station's top manifest is not a run's: say where its runs are.
+            let station = toml::from_str::<toml::Table>(&text).ok().and_then(|t| {
+                let kind = t.get("kind")?.as_str()? == super::station_manifest::KIND_STATION;
+                let first = t
+                    .get("slot")?
+                    .as_array()?
+                    .first()?
+                    .get("dir")?
+                    .as_str()?
+                    .to_string();
+                kind.then_some(first)
+            });
+            let message = match station {
+                Some(first) => format!(
+                    "this is a station's run of several slots; each slot's run is in its own \
+                     directory, e.g. {}",
+                    path.parent()
+                        .unwrap_or(Path::new("."))
+                        .join(first)
+                        .display()
+                ),
+                None => e.to_string(),
+            };
+            io::Error::new(io::ErrorKind::InvalidData, message)
+        })
     }
 }
 
