@@ -6,6 +6,10 @@
 //! the simulated clock: slots overlap their settling and instrument time and contend only for
 //! the shared reference's air time.
 //!
+//! A second figure isolates the contention for the reference: the same recipe with its bursts
+//! fixed (`--set max_bursts=10`, the pilot alone), where every unit takes the same time alone,
+//! so whatever the station takes beyond one slot is waiting for the reference.
+//!
 //! `--smoke` (CI) runs 3 seeds; the default runs 20.
 
 use std::path::{Path, PathBuf};
@@ -35,14 +39,15 @@ fn main() -> Result<(), Error> {
         "slots bench: {} on a {slots}-slot station against one-slot stations, {seeds} seeds",
         recipe.display()
     );
+    let mut fixed_ratios = Vec::new();
     let (mut ratios, mut station_s, mut single_s, mut wall_station, mut wall_single) =
         (Vec::new(), 0.0, 0.0, 0.0, 0.0);
     for seed in 1..=seeds {
-        let (t4, w4) = run(&recipe, &station_file, seed, work.path())?;
+        let (t4, w4) = run(&recipe, &station_file, seed, work.path(), &[])?;
         // Slot i of the station draws from seed + i; its unit alone does too.
         let mut alone = Vec::new();
         for (i, bench) in singles.iter().enumerate() {
-            let (t, w) = run(&recipe, bench, seed + i as u64, work.path())?;
+            let (t, w) = run(&recipe, bench, seed + i as u64, work.path(), &[])?;
             alone.push(t);
             wall_single += w;
         }
@@ -51,6 +56,10 @@ fn main() -> Result<(), Error> {
         station_s += t4;
         single_s += mean_alone;
         wall_station += w4;
+        let fixed = ["--set", "max_bursts=10"];
+        let (f4, _) = run(&recipe, &station_file, seed, work.path(), &fixed)?;
+        let (f1, _) = run(&recipe, &singles[0], seed, work.path(), &fixed)?;
+        fixed_ratios.push(f4 / f1);
     }
     let n = seeds as f64;
     let ratio = ratios.iter().sum::<f64>() / n;
@@ -68,6 +77,11 @@ fn main() -> Result<(), Error> {
     );
     println!(
         "ratio of {slots}-slot to one-slot bench time: mean {ratio:.3}, worst {worst:.3} (target ≤ {TARGET_RATIO})"
+    );
+    println!(
+        "with bursts fixed (contention alone): ratio mean {:.4}, worst {:.4}",
+        fixed_ratios.iter().sum::<f64>() / n,
+        fixed_ratios.iter().copied().fold(0.0, f64::max)
     );
     println!(
         "wall time: {:.2} s for the stations, {:.2} s for the one-slot runs",
@@ -99,12 +113,19 @@ fn one_slot(station: &toml::Table, index: usize) -> toml::Table {
     t
 }
 
-/// Runs `recipe` on `bench` with `seed`; returns its bench time (the station's, from its top
+/// Runs `recipe` on `bench` with `seed` and `extra` arguments; returns its bench time (the station's, from its top
 /// manifest) and wall time, s.
-fn run(recipe: &Path, bench: &Path, seed: u64, work: &Path) -> Result<(f64, f64), Error> {
+fn run(
+    recipe: &Path,
+    bench: &Path,
+    seed: u64,
+    work: &Path,
+    extra: &[&str],
+) -> Result<(f64, f64), Error> {
     let out = work.join(format!(
-        "run-{}-{seed}",
-        bench.file_stem().and_then(|s| s.to_str()).unwrap_or("b")
+        "run-{}-{seed}-{}",
+        bench.file_stem().and_then(|s| s.to_str()).unwrap_or("b"),
+        extra.len()
     ));
     let status = Command::new(env!("CARGO_BIN_EXE_taucal"))
         .args(["run", "-q", "--store", "none", "--seed", &seed.to_string()])
@@ -113,6 +134,7 @@ fn run(recipe: &Path, bench: &Path, seed: u64, work: &Path) -> Result<(f64, f64)
         .arg(bench)
         .arg("--out")
         .arg(&out)
+        .args(extra)
         .stdout(std::process::Stdio::null())
         .status()?;
     if !matches!(status.code(), Some(0 | 1)) {
