@@ -1082,6 +1082,46 @@ mod tests {
         assert_eq!(&caps["db"], "17.25");
     }
 
+    #[test]
+    fn a_multi_channel_attenuator_names_its_channel_in_every_command() {
+        let text = include_str!("../../drivers/brindlecombe-fourfold90.toml");
+        let Ok(DriverFile {
+            kind: DriverKind::Attenuator(a),
+            ..
+        }) = parse(text)
+        else {
+            panic!("the four-channel driver loads");
+        };
+        assert_eq!(a.channels, 4);
+        assert!(a.set_atten.has_param("channel") && a.get_atten.has_param("channel"));
+        // Without its channel, a command would set whichever channel the instrument chose.
+        for (from, to, key) in [
+            ("{channel},{db:.2}", "{db:.2}", "command.set_atten"),
+            ("? {channel}", "?", "command.get_atten"),
+            ("channels = 4", "channels = 0", "limits.channels"),
+            ("channels = 4", "channels = 1", "command.set_atten"),
+        ] {
+            let e = match parse(&text.replacen(from, to, 1)) {
+                Ok(_) => panic!("`{to}` was accepted"),
+                Err(d) => d.to_string(),
+            };
+            assert!(e.contains(key), "{key}: {e}");
+        }
+        // A single-channel driver may not name a channel, and a channel takes no format (it is
+        // sent exactly, never rounded to another channel).
+        let e = broken(
+            0,
+            "DAMPer:SETTing {db:.2}",
+            "DAMPer:SETTing {channel},{db:.2}",
+        );
+        assert!(e.contains("limits.channels is 1"), "{e}");
+        let e = parse(&text.replacen("{channel},{db:.2}", "{channel:.0},{db:.2}", 1))
+            .err()
+            .map(|d| d.to_string())
+            .unwrap_or_default();
+        assert!(e.contains("takes no format"), "{e}");
+    }
+
     /// Replaces `from` by `to` in a shipped driver and parses it.
     fn broken(which: usize, from: &str, to: &str) -> String {
         let text = SHIPPED[which].1;
