@@ -48,17 +48,44 @@ pub fn connect(
     clock: Arc<BenchClock>,
     seed: u64,
 ) -> Result<Instruments, Diagnostic> {
-    connect_slot(bench, clock, seed, None)
+    connect_slot(bench, clock, seed, None, None)
+}
+
+/// The driven attenuator of `bench` (a slot's bench), started once for all the slots that
+/// share it: one connection, one owner, commands of the slots one at a time. Returns its
+/// address, which slots sharing it have in common, and a handle on the whole instrument
+/// ([`AttenuatorHandle::on_channel`] gives each slot its own); `None` for a simulated
+/// attenuator, which each slot's in-process bench has in its own world.
+pub fn shared_attenuator(bench: &Bench) -> Result<Option<(String, AttenuatorHandle)>, Diagnostic> {
+    let Some((DriverKind::Attenuator(d), link)) = driven(bench, "attenuator")? else {
+        return Ok(None);
+    };
+    let address = bench
+        .roles
+        .get("attenuator")
+        .map(|b| b.address.clone())
+        .unwrap_or_default();
+    let driven: Box<dyn Attenuator> = Box::new(DrivenAttenuator::new(
+        "attenuator",
+        d,
+        ScpiClient::new(link),
+    ));
+    Ok(Some((
+        address,
+        AttenuatorHandle::new(spawn("attenuator", driven)?),
+    )))
 }
 
 /// [`connect`] for one slot of a station: an in-process simulated bench takes its place at the
 /// shared reference through `seat` (a driven bench's reference is a real one, and the seat is
-/// let go).
+/// let go), and `attenuator`, when given, is the slot's channel of an attenuator the station's
+/// slots share ([`shared_attenuator`]) instead of one of its own.
 pub fn connect_slot(
     bench: &Bench,
     clock: Arc<BenchClock>,
     seed: u64,
     seat: Option<Seat>,
+    attenuator: Option<AttenuatorHandle>,
 ) -> Result<Instruments, Diagnostic> {
     let in_process = |role: &str| bench.roles.get(role).is_none_or(|b| b.address == "sim:");
     let shared = if in_process("attenuator") || in_process("dut") {
@@ -85,17 +112,9 @@ pub fn connect_slot(
     } else {
         None
     };
-    let attenuator: Box<dyn Attenuator> = match (&shared, driven(bench, "attenuator")?) {
-        (_, Some((DriverKind::Attenuator(d), link))) => Box::new(
-            DrivenAttenuator::new("attenuator", d, ScpiClient::new(link))
-                .on_channel(bench.slot.as_ref().map_or(1, |s| s.channel)),
-        ),
-        (Some((shared, switch_ms)), _) => Box::new(SimAttenuatorFront::new(
-            shared.clone(),
-            *switch_ms,
-            bench.attenuator.range_db[1],
-        )),
-        _ => return Err(unreachable_role(bench, "attenuator")),
+    let attenuator = match attenuator {
+        Some(handle) => handle,
+        None => AttenuatorHandle::new(spawn("attenuator", own_attenuator(bench, &shared)?)?),
     };
     let dut: Box<dyn RangingDevice> = match (&shared, driven(bench, "dut")?) {
         (_, Some((DriverKind::RangingConsole(d), link))) => {
@@ -123,9 +142,29 @@ pub fn connect_slot(
         (_, None, _) => None,
     };
     Ok(Instruments {
-        attenuator: AttenuatorHandle(spawn("attenuator", attenuator)?),
+        attenuator,
         dut: RangingHandle(spawn("dut", dut)?),
         chamber,
+    })
+}
+
+/// The bench's attenuator for this run alone: driven by its driver file on the slot's channel,
+/// or the simulated one in front of `shared`'s world.
+fn own_attenuator(
+    bench: &Bench,
+    shared: &Option<(SimShared, f64)>,
+) -> Result<Box<dyn Attenuator>, Diagnostic> {
+    Ok(match (shared, driven(bench, "attenuator")?) {
+        (_, Some((DriverKind::Attenuator(d), link))) => Box::new(
+            DrivenAttenuator::new("attenuator", d, ScpiClient::new(link))
+                .on_channel(bench.slot.as_ref().map_or(1, |s| s.channel)),
+        ),
+        (Some((shared, switch_ms)), _) => Box::new(SimAttenuatorFront::new(
+            shared.clone(),
+            *switch_ms,
+            bench.attenuator.range_db[1],
+        )),
+        _ => return Err(unreachable_role(bench, "attenuator")),
     })
 }
 

@@ -48,6 +48,7 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         unit: args.unit.filter(|u| !u.trim().is_empty()),
         station,
         seat: None,
+        attenuator: None,
     };
     let report = execute(
         request,

@@ -58,6 +58,7 @@ pub fn run(args: RunArgs, bench: Bench) -> Result<Exit, Diagnostic> {
                 unit: None,
                 station: station.clone(),
                 seat: None,
+                attenuator: None,
             },
         });
     }

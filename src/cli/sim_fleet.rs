@@ -250,6 +250,7 @@ fn run_one(
         unit: Some(unit.serial.clone()),
         station: unit.station.clone(),
         seat: None,
+        attenuator: None,
     };
     let report = execute(request, |_| {}, Box::new(crate::runner::Unobserved), ledger)?;
     let mut channels: Vec<(u32, u32)> = report

@@ -19,6 +19,14 @@ pub trait Attenuator: Send {
     async fn atten_db(&mut self) -> Result<f64, InstrumentError>;
     /// Goes to maximum attenuation, the state that protects both receivers.
     async fn safe_state(&mut self) -> Result<(), InstrumentError>;
+    /// How many channels the instrument has, each set on its own (most have one).
+    fn channels(&self) -> u32 {
+        1
+    }
+    /// Makes `channel` (from 1) the one the following commands set and read: slots sharing a
+    /// multi-channel attenuator take turns on one instrument, each naming its own channel
+    /// (a single-channel attenuator has only the one, and ignores this).
+    fn select_channel(&mut self, _channel: u32) {}
 }
 
 /// One burst of ranging exchanges to run.

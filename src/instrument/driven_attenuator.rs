@@ -152,4 +152,12 @@ impl Attenuator for DrivenAttenuator {
         let db = self.driver.safe_atten_db;
         self.set_atten_db(db).await
     }
+
+    fn channels(&self) -> u32 {
+        self.driver.channels
+    }
+
+    fn select_channel(&mut self, channel: u32) {
+        self.channel = channel;
+    }
 }

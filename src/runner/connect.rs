@@ -6,6 +6,7 @@ use crate::bench::Bench;
 use crate::clock::BenchClock;
 use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
+use crate::instrument::AttenuatorHandle;
 use crate::sim::shared_reference::Seat;
 use crate::wiring::{connect_slot as start_instruments, Instruments};
 use std::sync::Arc;
@@ -22,7 +23,8 @@ pub struct Connected {
 }
 
 /// Starts the bench's instruments (`seed` for a simulated bench; `seat` at a reference shared
-/// with other slots) and the signal listener.
+/// with other slots; `attenuator`, the run's channel of an attenuator shared with them) and
+/// the signal listener.
 /// Errors here are in the bench's configuration; an instrument that cannot be reached shows on
 /// its first command.
 pub fn connect(
@@ -30,13 +32,14 @@ pub fn connect(
     clock: Arc<BenchClock>,
     seed: u64,
     seat: Option<Seat>,
+    attenuator: Option<AttenuatorHandle>,
 ) -> Result<Connected, Diagnostic> {
     let signals = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(1)
         .enable_all()
         .build()
         .map_err(|e| Diagnostic::plain(format!("cannot start the signal runtime: {e}")))?;
-    let instruments = start_instruments(bench, clock, seed, seat)?;
+    let instruments = start_instruments(bench, clock, seed, seat, attenuator)?;
     let stop = StopFlag::default();
     stop.listen(signals.handle());
     Ok(Connected {

@@ -30,6 +30,9 @@ pub struct RunRequest {
     pub station: String,
     /// The run's place at a reference shared with other slots of a station, when it is one.
     pub seat: Option<crate::sim::shared_reference::Seat>,
+    /// The run's channel of an attenuator it shares with other slots of a station (one
+    /// connection for them all), when it is one; else the run starts its own.
+    pub attenuator: Option<crate::instrument::AttenuatorHandle>,
 }
 
 /// What a resumed run starts from.

@@ -105,6 +105,7 @@ pub fn prepare(dir: &Path) -> Result<RunRequest, Diagnostic> {
         unit: manifest.unit_serial.clone(),
         station: manifest.station.clone().unwrap_or_default(),
         seat: None,
+        attenuator: None,
         resume: Some(Resumption {
             dir: dir.to_path_buf(),
             manifest,

@@ -31,7 +31,14 @@ pub fn execute(
 ) -> Result<RunReport, Diagnostic> {
     let mut prepared = prepare(&req, on_dir)?;
     let seat = req.seat.take();
-    let connected = connect(&req.bench, prepared.clock.clone(), prepared.seed, seat)?;
+    let attenuator = req.attenuator.take();
+    let connected = connect(
+        &req.bench,
+        prepared.clock.clone(),
+        prepared.seed,
+        seat,
+        attenuator,
+    )?;
     let identified = identify(&connected.instruments, &mut prepared.manifest);
     let m = &mut prepared.manifest;
     if m.unit_serial.is_none() {

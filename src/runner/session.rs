@@ -658,7 +658,7 @@ mod tests {
         Session::new(
             Arc::new(Bench::built_in().expect("demo bench")),
             Arc::new(BenchClock::new(ClockMode::Virtual)),
-            AttenuatorHandle(
+            AttenuatorHandle::new(
                 Owned::<dyn Attenuator>::spawn("attenuator", attenuator).expect("runtime"),
             ),
             RangingHandle(

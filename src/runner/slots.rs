@@ -4,8 +4,15 @@
 //! simulated bench), the results store through this thread, which records every slot's run
 //! as the slot asks.
 //!
+//! A driven attenuator the slots share (one address) is opened once, here: a multi-channel
+//! instrument on a serial port, or one that takes a single socket, cannot be opened once per
+//! slot. Its one owner takes the slots' commands one at a time, each naming the slot's own
+//! channel; when every slot has ended, every channel goes to its safe state, whatever became of
+//! the slots.
+//!
 //! A slot that fails ends alone: its own run stops (per the recipe's `[faults]`), its
-//! instruments go to their safe state, and the other slots go on.
+//! instruments (its channel, on a shared attenuator) go to their safe state, and the other
+//! slots go on.
 
 use super::finalise::RunReport;
 use super::ledger::RunLedger;
@@ -13,6 +20,7 @@ use super::request::RunRequest;
 use super::run::execute;
 use super::Unobserved;
 use crate::diagnostic::Diagnostic;
+use crate::instrument::AttenuatorHandle;
 use crate::sim::shared_reference::SharedReference;
 use std::path::{Path, PathBuf};
 use std::sync::mpsc;
@@ -67,6 +75,8 @@ pub fn execute_slots(
     ledger: &mut dyn RunLedger,
 ) -> Vec<SlotOutcome> {
     let (_reference, seats) = SharedReference::new(runs.len());
+    let mut runs = runs;
+    let attenuators = share_attenuators(&mut runs);
     let (asks, asked) = mpsc::channel::<LedgerAsk>();
     let describe = ledger.describe();
     std::thread::scope(|scope| {
@@ -101,7 +111,7 @@ pub fn execute_slots(
         for (dir, reply) in asked {
             let _ = reply.send(ledger.record(&dir));
         }
-        threads
+        let outcomes: Vec<_> = threads
             .into_iter()
             .map(|(name, thread)| {
                 let report = match thread {
@@ -117,6 +127,44 @@ pub fn execute_slots(
                 };
                 SlotOutcome { name, report }
             })
-            .collect()
+            .collect();
+        for (address, attenuator) in &attenuators {
+            match attenuator.safe_state_every_channel() {
+                Ok(()) => tracing::info!(
+                    "attenuator at {address}: every channel in its safe state (the station's end)"
+                ),
+                Err(e) => tracing::error!("safe state: attenuator at {address}: {e}"),
+            }
+        }
+        outcomes
     })
+}
+
+/// Gives the runs whose driven attenuator has the same address one owner of it between them,
+/// each run its own channel; returns the shared attenuators by address. A run whose attenuator
+/// cannot be started here starts its own, which reports why.
+fn share_attenuators(runs: &mut [SlotRun]) -> Vec<(String, AttenuatorHandle)> {
+    let mut shared: Vec<(String, AttenuatorHandle)> = Vec::new();
+    for run in runs.iter_mut() {
+        let bench = &run.request.bench;
+        let Some(channel) = bench.slot.as_ref().map(|s| s.channel) else {
+            continue;
+        };
+        let Some(address) = bench.roles.get("attenuator").map(|b| b.address.as_str()) else {
+            continue;
+        };
+        let known = shared.iter().find(|(a, _)| a == address).map(|(_, h)| h);
+        let handle = match known {
+            Some(h) => h.clone(),
+            None => match crate::wiring::shared_attenuator(bench) {
+                Ok(Some((address, h))) => {
+                    shared.push((address, h.clone()));
+                    h
+                }
+                Ok(None) | Err(_) => continue,
+            },
+        };
+        run.request.attenuator = Some(handle.on_channel(channel));
+    }
+    shared
 }
