@@ -212,7 +212,8 @@ pub struct SimServeArgs {
     #[command(flatten)]
     pub bench: BenchArg,
     /// Serve ROLE (attenuator, dut) at tcp:HOST:PORT, tcp:PORT (loopback) or pty (dut only).
-    /// Default: attenuator=tcp:127.0.0.1:5025 and dut=tcp:127.0.0.1:5026.
+    /// On a slotted bench, ROLE may be a slot's DUT role (as its [[slot]] names it) to serve
+    /// that slot's unit. Default: attenuator=tcp:127.0.0.1:5025 and dut=tcp:127.0.0.1:5026.
     #[arg(long, value_name = "ROLE=WHERE")]
     pub listen: Vec<String>,
     /// Seed of the simulation (default: the bench's [sim] seed).
@@ -224,6 +225,11 @@ pub struct SimServeArgs {
     /// Allow listening on addresses other than loopback.
     #[arg(long)]
     pub allow_remote: bool,
+    /// Clients served at once on each socket; more are closed as they connect (1: an
+    /// instrument that takes a single connection, as many real ones do).
+    #[arg(long, value_name = "N", default_value_t = crate::sim::serve::MAX_CLIENTS as u16,
+          value_parser = clap::value_parser!(u16).range(1..=64))]
+    pub max_clients: u16,
     /// Serve ROLE (attenuator, dut) on stdin/stdout until stdin ends, for a run that reaches it
     /// at `exec:taucal sim serve --stdio ROLE …`; other roles are served only where `--listen`
     /// says, and every message goes to stderr.

@@ -4,22 +4,24 @@
 
 use super::args::SimServeArgs;
 use super::{bench_arg, Exit};
+use crate::bench::Bench;
 use crate::diagnostic::Diagnostic;
 use crate::sim::serve::{Listen, ListenAt, ServedBench, ServedRole};
 
 /// Where each role is served when no `--listen` is given.
 pub const DEFAULT_LISTEN: [&str; 2] = ["attenuator=tcp:127.0.0.1:5025", "dut=tcp:127.0.0.1:5026"];
 
-/// Parses the listeners, refusing non-loopback ones unless `--allow-remote`.
-fn listeners(args: &SimServeArgs) -> Result<Vec<Listen>, Diagnostic> {
+/// Parses the listeners, refusing non-loopback ones unless `--allow-remote`. Each comes with
+/// the role name it was asked by (a slot's DUT role on a slotted bench).
+fn listeners(args: &SimServeArgs, bench: &Bench) -> Result<Vec<(String, Listen)>, Diagnostic> {
     let texts: Vec<&str> = if args.listen.is_empty() && args.stdio.is_none() {
         DEFAULT_LISTEN.to_vec()
     } else {
         args.listen.iter().map(String::as_str).collect()
     };
-    let mut out: Vec<Listen> = Vec::new();
+    let mut out: Vec<(String, Listen)> = Vec::new();
     for text in texts {
-        let listen = Listen::parse(text).map_err(|m| {
+        let listen = parse_listen(text, bench).map_err(|m| {
             Diagnostic::plain(format!("--listen {text}: {m}"))
                 .with_hint("e.g. --listen attenuator=tcp:127.0.0.1:5025 --listen dut=pty")
         })?;
@@ -38,24 +40,70 @@ fn listeners(args: &SimServeArgs) -> Result<Vec<Listen>, Diagnostic> {
                 );
             }
         }
-        if out.iter().any(|l| l.role == listen.role) || stdio_role(args)? == Some(listen.role) {
+        if out.iter().any(|(_, l)| l.role == listen.role)
+            || stdio_role(args, bench)? == Some(listen.role)
+        {
             return Err(Diagnostic::plain(format!(
                 "--listen {text}: the {} is already served",
                 listen.role.name()
             ))
             .with_hint("serve each role once"));
         }
-        out.push(listen);
+        let name = text.split_once('=').map_or(text, |(role, _)| role);
+        out.push((name.to_string(), listen));
     }
     Ok(out)
 }
 
+/// What a slotted bench's own role name serves: a slot's DUT role its slot's unit, a slot's
+/// attenuator role the attenuator.
+fn slot_role(role: &str, bench: &Bench) -> Option<ServedRole> {
+    if let Some(i) = bench.slots.iter().position(|s| s.dut == role) {
+        return Some(ServedRole::SlotDut(i));
+    }
+    bench
+        .slots
+        .iter()
+        .any(|s| s.attenuator == role)
+        .then_some(ServedRole::Attenuator)
+}
+
+/// [`Listen::parse`], with a slotted bench's slot DUT roles served as their slots' units.
+fn parse_listen(text: &str, bench: &Bench) -> Result<Listen, String> {
+    let Some((role, at)) = text.split_once('=') else {
+        return Listen::parse(text);
+    };
+    match slot_role(role, bench) {
+        Some(served) => {
+            Listen::parse(&format!("{}={at}", served.name())).map(|l| Listen { role: served, ..l })
+        }
+        None => Listen::parse(text).map_err(|m| with_slot_roles(m, bench)),
+    }
+}
+
+/// A message about an unknown role, naming the slot DUT roles a slotted bench also serves.
+fn with_slot_roles(message: String, bench: &Bench) -> String {
+    if bench.is_slotted() {
+        let roles: Vec<&str> = bench.slots.iter().map(|s| s.dut.as_str()).collect();
+        format!(
+            "{message}; or a slot's DUT ({}) or attenuator role",
+            roles.join(", ")
+        )
+    } else {
+        message
+    }
+}
+
 /// The role `--stdio` names, if any.
-fn stdio_role(args: &SimServeArgs) -> Result<Option<ServedRole>, Diagnostic> {
+fn stdio_role(args: &SimServeArgs, bench: &Bench) -> Result<Option<ServedRole>, Diagnostic> {
     args.stdio
         .as_deref()
         .map(|role| {
-            ServedRole::from_name(role).map_err(|m| {
+            let by_name = match slot_role(role, bench) {
+                Some(served) => Ok(served),
+                None => ServedRole::from_name(role).map_err(|m| with_slot_roles(m, bench)),
+            };
+            by_name.map_err(|m| {
                 Diagnostic::plain(format!("--stdio {role}: {m}"))
                     .with_hint("e.g. --stdio dut, or --stdio attenuator")
             })
@@ -67,13 +115,14 @@ fn stdio_role(args: &SimServeArgs) -> Result<Option<ServedRole>, Diagnostic> {
 /// (on stderr with `--stdio`, whose stdout is the served instrument's).
 pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
     let bench = bench_arg::load(&args.bench)?;
-    let stdio = stdio_role(&args)?;
-    let listen = listeners(&args)?;
+    let stdio = stdio_role(&args, &bench)?;
+    let listen = listeners(&args, &bench)?;
     let seed = args
         .seed
         .or(bench.sim.as_ref().map(|s| s.seed))
         .unwrap_or(1);
-    let served = ServedBench::new(&bench, seed, args.realtime)?;
+    let served = ServedBench::new(&bench, seed, args.realtime)?
+        .with_max_clients(usize::from(args.max_clients));
     if let Some(role) = stdio {
         eprintln!(
             "taucal: serving the simulated {} of `{}` on stdin/stdout (seed {seed}); it ends with stdin",
@@ -94,12 +143,12 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
         .build()
         .map_err(|e| Diagnostic::plain(format!("cannot start the server runtime: {e}")))?;
     rt.block_on(async {
-        for l in &listen {
+        for (name, l) in &listen {
             let address = served.start(l).await.map_err(|e| {
-                Diagnostic::plain(format!("cannot serve the {}: {e}", l.role.name()))
+                Diagnostic::plain(format!("cannot serve the {name}: {e}"))
                     .with_hint("pick a free port (tcp:127.0.0.1:0 lets the system choose)")
             })?;
-            println!("{} {address}", l.role.name());
+            println!("{name} {address}");
         }
         eprintln!(
             "taucal: serving the simulated bench `{}` (seed {seed}, {} time); stop with Ctrl-C",
@@ -147,7 +196,7 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
 fn serve_stdio(
     served: &ServedBench,
     role: ServedRole,
-    listen: &[Listen],
+    listen: &[(String, Listen)],
 ) -> Result<Exit, Diagnostic> {
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
@@ -155,11 +204,12 @@ fn serve_stdio(
         .build()
         .map_err(|e| Diagnostic::plain(format!("cannot start the server runtime: {e}")))?;
     let outcome = rt.block_on(async {
-        for l in listen {
-            let address = served.start(l).await.map_err(|e| {
-                Diagnostic::plain(format!("cannot serve the {}: {e}", l.role.name()))
-            })?;
-            eprintln!("{} {address}", l.role.name());
+        for (name, l) in listen {
+            let address = served
+                .start(l)
+                .await
+                .map_err(|e| Diagnostic::plain(format!("cannot serve the {name}: {e}")))?;
+            eprintln!("{name} {address}");
         }
         served.serve_stdio(role).await.map_err(|e| {
             Diagnostic::plain(format!("serving the {} on stdin/stdout: {e}", role.name()))

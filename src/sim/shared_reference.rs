@@ -13,6 +13,12 @@
 //! other slot's clock has passed the burst's start (ties go to the lower slot): bookings happen
 //! in bench-time order whatever the threads do. A slot that has not connected yet counts as at
 //! time zero; one that has finished (its instruments dropped) no longer counts.
+//!
+//! Served (`taucal sim serve` on a slotted bench) there is no such order to keep: each slot's
+//! clock moves only with its own instruments' time, and a slot's client may stop, or never
+//! connect, while the server goes on, so waiting for it could wait for ever. A served
+//! reference ([`SharedReference::in_arrival_order`]) books bursts as they arrive, as a real
+//! reference takes exchanges as they come; contention is modelled all the same.
 
 use crate::clock::BenchClock;
 use std::collections::BTreeMap;
@@ -35,6 +41,8 @@ struct State {
     slots: Vec<Presence>,
     /// Booked air time: start → end, bench picoseconds.
     busy: BTreeMap<u64, u64>,
+    /// Book as requests arrive, without waiting for the other slots' clocks (served).
+    arrival_order: bool,
 }
 
 /// The shared reference unit's air time.
@@ -52,10 +60,20 @@ impl SharedReference {
     /// A reference shared by `slots` slots, none connected yet; returns it and one seat per
     /// slot.
     pub fn new(slots: usize) -> (Arc<SharedReference>, Vec<Seat>) {
+        SharedReference::with_order(slots, false)
+    }
+
+    /// A reference shared by `slots` served slots: bursts are booked in the order they arrive.
+    pub fn in_arrival_order(slots: usize) -> (Arc<SharedReference>, Vec<Seat>) {
+        SharedReference::with_order(slots, true)
+    }
+
+    fn with_order(slots: usize, arrival_order: bool) -> (Arc<SharedReference>, Vec<Seat>) {
         let reference = Arc::new(SharedReference {
             state: Mutex::new(State {
                 slots: vec![Presence::Pending; slots],
                 busy: BTreeMap::new(),
+                arrival_order,
             }),
             moved: Condvar::new(),
         });
@@ -138,14 +156,15 @@ impl Seat {
 
     /// True when every other slot is past `start_ps`, or at it with a higher index.
     fn my_turn(&self, s: &State, start_ps: u64) -> bool {
-        s.slots.iter().enumerate().all(|(j, p)| {
-            j == self.index
-                || match p {
-                    Presence::Gone => true,
-                    Presence::Pending => (0, j) > (start_ps, self.index),
-                    Presence::Present(c) => (c.now_ps(), j) > (start_ps, self.index),
-                }
-        })
+        s.arrival_order
+            || s.slots.iter().enumerate().all(|(j, p)| {
+                j == self.index
+                    || match p {
+                        Presence::Gone => true,
+                        Presence::Pending => (0, j) > (start_ps, self.index),
+                        Presence::Present(c) => (c.now_ps(), j) > (start_ps, self.index),
+                    }
+            })
     }
 }
 
@@ -233,6 +252,29 @@ mod tests {
         assert_eq!(early.book(0, &[450], 100, 1_000), vec![0]);
         c_early.spend(1_000);
         assert_eq!(waiting.join().expect("thread"), vec![50]);
+    }
+
+    #[test]
+    fn served_bursts_are_booked_as_they_arrive_and_still_contend() {
+        // The other slot's clock stays behind (its client idle): a served reference does not
+        // wait for it, and the air time it booked still delays a later exchange.
+        let (_r, mut seats) = SharedReference::in_arrival_order(2);
+        let b = seats.pop().expect("seat");
+        let a = seats.pop().expect("seat");
+        present(&a, 5_000);
+        present(&b, 0);
+        assert_eq!(b.book(0, &[1_000, 2_000], 100, 1_000), vec![0, 0]);
+        let (done, waited) = std::sync::mpsc::channel();
+        // On a thread of its own, so that a booking that waited for ever fails the test
+        // instead of hanging it.
+        std::thread::spawn(move || {
+            let _ = done.send(a.book(5_000, &[1_050], 100, 1_000));
+        });
+        assert_eq!(
+            waited.recv_timeout(Duration::from_secs(5)).ok(),
+            Some(vec![50]),
+            "booked at once, after b's exchange ends"
+        );
     }
 
     #[test]

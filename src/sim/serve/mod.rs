@@ -10,6 +10,10 @@
 //! and a restarted DUT prints its boot banner instead of the burst and forgets it was
 //! initialised until it is identified again.
 //!
+//! A slotted bench serves each slot's unit: one attenuator with a channel in front of each, each
+//! slot's DUT console on a listener of its own, and one reference the slots contend for (booked
+//! in the order bursts arrive: see [`crate::sim::shared_reference`]).
+//!
 //! The served instruments spend bench time on the server's own clock (virtual unless
 //! realtime): the model never sees wall time, which keeps a served run deterministic. A served
 //! chamber (`chamber`) is the exception: its temperatures follow the wall clock, as a soak does.
@@ -26,6 +30,7 @@ use crate::instrument::line::LineFramer;
 use crate::sim::chamber::SimChamber;
 use crate::sim::faults::{garble, CommandFault, FaultInjector};
 use crate::sim::front::{SimShared, SimWorld};
+use crate::sim::shared_reference::SharedReference;
 use crate::sim::SimBench;
 use console::ConsoleDevice;
 use scpi_attenuator::ScpiAttenuator;
@@ -34,8 +39,9 @@ use std::sync::{Arc, Mutex};
 use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
 use tokio::net::TcpListener;
 
-/// Clients served at once on one role's socket; more are closed as they connect. A bench has
-/// one client per instrument, so this leaves room for a stray connection or two.
+/// Clients served at once on one role's socket unless told otherwise; more are closed as they
+/// connect. A bench has one client per instrument, so this leaves room for a stray connection
+/// or two.
 pub const MAX_CLIENTS: usize = 8;
 
 /// The instruments a simulated bench can serve.
@@ -47,6 +53,9 @@ pub enum ServedRole {
     Dut,
     /// The climatic chamber (`[sim.chamber]`).
     Chamber,
+    /// The DUT console of a slotted bench's slot, by its index in `[[slot]]` (served under the
+    /// slot's DUT role name).
+    SlotDut(usize),
 }
 
 impl ServedRole {
@@ -66,7 +75,7 @@ impl ServedRole {
     pub fn name(self) -> &'static str {
         match self {
             ServedRole::Attenuator => "attenuator",
-            ServedRole::Dut => "dut",
+            ServedRole::Dut | ServedRole::SlotDut(_) => "dut",
             ServedRole::Chamber => "chamber",
         }
     }
@@ -146,6 +155,11 @@ pub struct ServedBench {
     console: ConsoleDevice,
     /// The chamber's controller, when the bench has a `[sim.chamber]`.
     chamber: Option<Arc<Mutex<chamber::Controller>>>,
+    /// A slotted bench's units in `[[slot]]` order: each one's model and console (the first is
+    /// `shared`'s).
+    slots: Vec<(SimShared, ConsoleDevice)>,
+    /// Clients served at once on each socket.
+    max_clients: usize,
 }
 
 impl ServedBench {
@@ -174,8 +188,18 @@ impl ServedBench {
             chamber: truth.chamber.as_ref().map(SimChamber::new),
             faults: FaultInjector::new(&truth.faults, seed),
         };
-        let shared = SimShared::new(world, Arc::new(BenchClock::new(mode)))
+        let (_reference, mut seats) = SharedReference::in_arrival_order(bench.slots.len());
+        let mut seats = seats.drain(..);
+        let mut shared = SimShared::new(world, Arc::new(BenchClock::new(mode)))
             .with_chamber_clock(Arc::new(BenchClock::new(ClockMode::Wall)));
+        if let Some(seat) = seats.next() {
+            shared = shared.with_seat(seat);
+        }
+        let console = ConsoleDevice::new(truth.dut.reports, truth.dut.serial.clone());
+        let mut slots = Vec::new();
+        if bench.is_slotted() {
+            slots.push((shared.clone(), console.clone()));
+        }
         let mut more = Vec::new();
         for i in 1..bench.slots.len() {
             let Some(slot) = bench.for_slot(i) else {
@@ -189,7 +213,15 @@ impl ServedBench {
                 chamber: None,
                 faults: FaultInjector::new(&t.faults, seed.wrapping_add(i as u64)),
             };
-            more.push(SimShared::new(world, Arc::new(BenchClock::new(mode))));
+            let mut unit = SimShared::new(world, Arc::new(BenchClock::new(mode)));
+            if let Some(seat) = seats.next() {
+                unit = unit.with_seat(seat);
+            }
+            slots.push((
+                unit.clone(),
+                ConsoleDevice::new(t.dut.reports, t.dut.serial.clone()),
+            ));
+            more.push(unit);
         }
         let attenuator = ScpiAttenuator::new(
             shared.clone(),
@@ -201,22 +233,41 @@ impl ServedBench {
         Ok(ServedBench {
             shared,
             attenuator: Arc::new(Mutex::new(attenuator)),
-            console: ConsoleDevice::new(truth.dut.reports, truth.dut.serial.clone()),
+            console,
             chamber: truth
                 .chamber
                 .as_ref()
                 .map(|c| Arc::new(Mutex::new(chamber::Controller::new(c.start_c)))),
+            slots,
+            max_clients: MAX_CLIENTS,
         })
+    }
+
+    /// The same bench serving at most `clients` clients at once on each socket (1: an
+    /// instrument that takes one connection, as many real ones do).
+    pub fn with_max_clients(mut self, clients: usize) -> Self {
+        self.max_clients = clients.max(1);
+        self
+    }
+
+    /// The model and console behind a DUT role: the bench's DUT (a slotted bench's first
+    /// slot) or a slot's.
+    fn console_of(&self, role: ServedRole) -> std::io::Result<(SimShared, ConsoleDevice)> {
+        match role {
+            ServedRole::SlotDut(i) => self.slots.get(i).cloned().ok_or_else(|| {
+                std::io::Error::other(format!("the bench has no slot number {}", i + 1))
+            }),
+            _ => Ok((self.shared.clone(), self.console.clone())),
+        }
     }
 
     /// Starts serving `listen`; returns the address clients use (`tcp:…` or `serial:…`).
     pub async fn start(&self, listen: &Listen) -> std::io::Result<String> {
         match (&listen.at, listen.role) {
-            (ListenAt::Pty, _) => {
+            (ListenAt::Pty, role) => {
+                let (shared, device) = self.console_of(role)?;
                 let pty = pty::Pty::open()?;
                 let address = format!("serial:{}", pty.path.display());
-                let shared = self.shared.clone();
-                let device = self.console.clone();
                 tokio::spawn(async move {
                     if let Err(e) = console::serve(pty, shared, device, Medium::Terminal).await {
                         tracing::warn!("dut console on the pty: {e}");
@@ -235,7 +286,8 @@ impl ServedBench {
                 let listener = TcpListener::bind(socket).await?;
                 let bound = listener.local_addr()?;
                 let me = self.clone();
-                let clients = Arc::new(tokio::sync::Semaphore::new(MAX_CLIENTS));
+                let most = self.max_clients;
+                let clients = Arc::new(tokio::sync::Semaphore::new(most));
                 tokio::spawn(async move {
                     loop {
                         let Ok((stream, peer)) = listener.accept().await else {
@@ -244,7 +296,7 @@ impl ServedBench {
                         // Each client costs a buffer and a task: past the cap, close at once.
                         let Ok(permit) = clients.clone().try_acquire_owned() else {
                             tracing::warn!(
-                                "{}: client {peer} refused: {MAX_CLIENTS} already connected",
+                                "{}: client {peer} refused: {most} already connected",
                                 role.name()
                             );
                             continue;
@@ -257,14 +309,14 @@ impl ServedBench {
                                 ServedRole::Attenuator => {
                                     me.serve_scpi(stream, Medium::Socket).await
                                 }
-                                ServedRole::Dut => {
-                                    console::serve(
-                                        stream,
-                                        me.shared.clone(),
-                                        me.console.clone(),
-                                        Medium::Socket,
-                                    )
-                                    .await
+                                ServedRole::Dut | ServedRole::SlotDut(_) => {
+                                    match me.console_of(role) {
+                                        Ok((shared, device)) => {
+                                            console::serve(stream, shared, device, Medium::Socket)
+                                                .await
+                                        }
+                                        Err(e) => Err(e),
+                                    }
                                 }
                                 ServedRole::Chamber => match me.chamber.clone() {
                                     Some(controller) => {
@@ -292,14 +344,9 @@ impl ServedBench {
         let stream = tokio::io::join(tokio::io::stdin(), tokio::io::stdout());
         match role {
             ServedRole::Attenuator => self.serve_scpi(stream, Medium::Terminal).await,
-            ServedRole::Dut => {
-                console::serve(
-                    stream,
-                    self.shared.clone(),
-                    self.console.clone(),
-                    Medium::Terminal,
-                )
-                .await
+            ServedRole::Dut | ServedRole::SlotDut(_) => {
+                let (shared, device) = self.console_of(role)?;
+                console::serve(stream, shared, device, Medium::Terminal).await
             }
             ServedRole::Chamber => match self.chamber.clone() {
                 Some(controller) => chamber::serve(stream, self.shared.clone(), controller).await,
