@@ -26,7 +26,7 @@ impl Server {
     }
 
     /// Serves `bench` with further arguments (`--realtime`).
-    fn start_with(bench: &str, listen: &[&str], extra: &[&str]) -> Server {
+    pub(crate) fn start_with(bench: &str, listen: &[&str], extra: &[&str]) -> Server {
         let mut cmd = Command::new(env!("CARGO_BIN_EXE_taucal"));
         cmd.args(["sim", "serve", "--bench", bench, "--seed", "1"]);
         cmd.args(extra);

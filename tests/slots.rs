@@ -104,15 +104,9 @@ fn table(text: &str) -> toml::Table {
     toml::from_str(text).expect("toml")
 }
 
-#[test]
-fn every_slot_recovers_its_own_unit_within_its_interval() {
-    let out = run_station("", &["--store", "none"]);
-    out.expect_code(0);
-    let top = table(&out.read("st/manifest.toml"));
-    assert_eq!(top["kind"].as_str(), Some("station"));
-    assert_eq!(top["status"].as_str(), Some("completed"));
-    let slots = top["slot"].as_array().expect("slots");
-    assert_eq!(slots.len(), 4);
+/// Each slot of the station run in `st/` is its own unit: its serial, and every cell's K within
+/// its interval of the unit's truth and nearer it than any other slot's.
+fn assert_each_slot_recovers_its_unit(out: &crate::support::Outcome, slots: &[toml::Value]) {
     for (i, name) in ["a", "b", "c", "d"].iter().enumerate() {
         let (serial, tx, rx) = UNITS[i];
         let m = table(&out.read(&format!("st/slot-{name}/manifest.toml")));
@@ -144,6 +138,18 @@ fn every_slot_recovers_its_own_unit_within_its_interval() {
             }
         }
     }
+}
+
+#[test]
+fn every_slot_recovers_its_own_unit_within_its_interval() {
+    let out = run_station("", &["--store", "none"]);
+    out.expect_code(0);
+    let top = table(&out.read("st/manifest.toml"));
+    assert_eq!(top["kind"].as_str(), Some("station"));
+    assert_eq!(top["status"].as_str(), Some("completed"));
+    let slots = top["slot"].as_array().expect("slots");
+    assert_eq!(slots.len(), 4);
+    assert_each_slot_recovers_its_unit(&out, slots);
     // The station's bench time is its longest slot's.
     let longest = slots
         .iter()
@@ -339,4 +345,109 @@ fn slot_mistakes_are_refused_with_the_key_and_what_would_be_right() {
         "{}",
         out.stderr
     );
+}
+
+/// What the served attenuator reads on each of its four channels, asked on a connection of its
+/// own once the run's is closed (the server takes one client at a time).
+fn served_channels(address: &str) -> Vec<f64> {
+    use std::io::{BufRead, BufReader, Read, Write};
+    let socket: std::net::SocketAddr = address
+        .trim_start_matches("tcp:")
+        .parse()
+        .expect("socket address");
+    let timeout = std::time::Duration::from_secs(2);
+    for _ in 0..50 {
+        let stream = std::net::TcpStream::connect(socket).expect("connect");
+        stream.set_read_timeout(Some(timeout)).expect("timeout");
+        let mut reader = BufReader::new(stream.try_clone().expect("clone"));
+        let mut writer = stream;
+        let mut readings = Vec::new();
+        for channel in 1..=4 {
+            let mut line = String::new();
+            let asked = writeln!(writer, "PATH:ATTenuation? {channel}").is_ok();
+            if !asked || reader.read_line(&mut line).unwrap_or(0) == 0 {
+                break;
+            }
+            readings.push(line.trim().parse::<f64>().expect("a setting"));
+        }
+        if readings.len() == 4 {
+            // While this client is connected a second one is turned away: the server did take
+            // one connection at a time.
+            let mut second = std::net::TcpStream::connect(socket).expect("connect");
+            second.set_read_timeout(Some(timeout)).expect("timeout");
+            let _ = writeln!(second, "PATH:ATTenuation? 1");
+            let mut byte = [0u8; 1];
+            assert_eq!(
+                second.read(&mut byte).unwrap_or(0),
+                0,
+                "a second client served"
+            );
+            return readings;
+        }
+        // The run's connection may not be closed on the server's side yet.
+        std::thread::sleep(std::time::Duration::from_millis(100));
+    }
+    panic!("the served attenuator never took a second client after the run");
+}
+
+#[test]
+fn a_served_station_shares_one_connection_to_its_attenuator_and_each_slot_its_own_console() {
+    // The test station (range to the driver's 95 dB safe state), served whole: one attenuator
+    // that takes a single connection, and each slot's DUT console under its role name.
+    let served = station("").replace("range_db = [0.0, 90.0]", "range_db = [0.0, 95.0]");
+    let dir = tempfile::tempdir().expect("temp dir");
+    let served_path = dir.path().join("served.toml");
+    std::fs::write(&served_path, &served).expect("write");
+    let listen = ["att4", "u1", "u2", "u3", "u4"].map(|r| format!("{r}=tcp:127.0.0.1:0"));
+    let listen: Vec<&str> = listen.iter().map(String::as_str).collect();
+    let server = crate::instruments::Server::start_with(
+        &served_path.display().to_string(),
+        &listen,
+        &["--max-clients", "1"],
+    );
+    // The same station driven: its roles at the served addresses, its truth left out.
+    let mut driven = served[..served.find("\n[sim]\n").expect("[sim]")].to_string();
+    driven = driven.replacen(
+        "[bench]\n",
+        &format!(
+            "[bench]\ndrivers_dir = \"{}\"\n",
+            crate::support::repo("drivers")
+        ),
+        1,
+    );
+    driven = driven.replacen(
+        "att4 = { driver = \"sim-attenuator\", address = \"sim:\" }",
+        &format!(
+            "att4 = {{ driver = \"brindlecombe-fourfold90\", address = \"{}\" }}",
+            server.address("att4")
+        ),
+        1,
+    );
+    for unit in ["u1", "u2", "u3", "u4"] {
+        driven = driven.replacen(
+            &format!("{unit} = {{ driver = \"sim-ranging\", address = \"sim:\" }}"),
+            &format!(
+                "{unit} = {{ driver = \"wren6-console\", address = \"{}\" }}",
+                server.address(unit)
+            ),
+            1,
+        );
+    }
+    assert_eq!(driven.matches("\"sim:\"").count(), 1, "the reference alone: {driven}");
+    let out = Taucal::new()
+        .file("b.toml", &driven)
+        .file("r.toml", RECIPE)
+        .args([
+            "run", "r.toml", "--bench", "b.toml", "--out", "st", "--store", "none", "-q",
+        ])
+        .run();
+    // Slots that each opened a connection of their own would find it closed at once, and stop.
+    out.expect_code(0);
+    let top = table(&out.read("st/manifest.toml"));
+    assert_eq!(top["status"].as_str(), Some("completed"));
+    assert_each_slot_recovers_its_unit(&out, top["slot"].as_array().expect("slots"));
+    // Every channel ends at the driver's safe state (95 dB), each slot's and the station's.
+    assert_eq!(served_channels(&server.address("att4")), [95.0; 4]);
+    let log = out.read("st/run.log");
+    assert!(log.contains("every channel in its safe state"), "{log}");
 }
