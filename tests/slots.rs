@@ -1,7 +1,9 @@
 //! DUT slots through the real binary: a four-slot station recovers each slot's own unit,
 //! each slot's directory is a standard run (`fit` gives its table again), one slot's failure
 //! leaves the others complete, the store holds one run per slot, and a stopped station
-//! resumes its unfinished slots. The station here is not the shipped one: its units differ.
+//! resumes its unfinished slots, and a station served whole (`sim serve`, each slot's console
+//! by its role name) runs over TCP with one connection to its attenuator. The station here is
+//! not the shipped one: its units differ.
 
 use crate::support::{assert_tables_agree, csv_numbers, Taucal};
 
@@ -433,7 +435,11 @@ fn a_served_station_shares_one_connection_to_its_attenuator_and_each_slot_its_ow
             1,
         );
     }
-    assert_eq!(driven.matches("\"sim:\"").count(), 1, "the reference alone: {driven}");
+    assert_eq!(
+        driven.matches("\"sim:\"").count(),
+        1,
+        "the reference alone: {driven}"
+    );
     let out = Taucal::new()
         .file("b.toml", &driven)
         .file("r.toml", RECIPE)
