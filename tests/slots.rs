@@ -392,11 +392,13 @@ fn served_channels(address: &str) -> Vec<f64> {
     panic!("the served attenuator never took a second client after the run");
 }
 
-#[test]
-fn a_served_station_shares_one_connection_to_its_attenuator_and_each_slot_its_own_console() {
+/// The test station served whole (`faults_in_c` for slot c's unit, as in [`station`]), its
+/// attenuator taking a single connection, and run through the served instruments into `st/`.
+/// The console timeout is short, so that a slot whose queries fall silent stops soon.
+fn served_station_run(faults_in_c: &str) -> (crate::instruments::Server, crate::support::Outcome) {
     // The test station (range to the driver's 95 dB safe state), served whole: one attenuator
     // that takes a single connection, and each slot's DUT console under its role name.
-    let served = station("").replace("range_db = [0.0, 90.0]", "range_db = [0.0, 95.0]");
+    let served = station(faults_in_c).replace("range_db = [0.0, 90.0]", "range_db = [0.0, 95.0]");
     let dir = tempfile::tempdir().expect("temp dir");
     let served_path = dir.path().join("served.toml");
     std::fs::write(&served_path, &served).expect("write");
@@ -429,7 +431,7 @@ fn a_served_station_shares_one_connection_to_its_attenuator_and_each_slot_its_ow
         driven = driven.replacen(
             &format!("{unit} = {{ driver = \"sim-ranging\", address = \"sim:\" }}"),
             &format!(
-                "{unit} = {{ driver = \"wren6-console\", address = \"{}\" }}",
+                "{unit} = {{ driver = \"wren6-console\", address = \"{}\", timeout_ms = 300.0 }}",
                 server.address(unit)
             ),
             1,
@@ -447,6 +449,12 @@ fn a_served_station_shares_one_connection_to_its_attenuator_and_each_slot_its_ow
             "run", "r.toml", "--bench", "b.toml", "--out", "st", "--store", "none", "-q",
         ])
         .run();
+    (server, out)
+}
+
+#[test]
+fn a_served_station_shares_one_connection_to_its_attenuator_and_each_slot_its_own_console() {
+    let (server, out) = served_station_run("");
     // Slots that each opened a connection of their own would find it closed at once, and stop.
     out.expect_code(0);
     let top = table(&out.read("st/manifest.toml"));
@@ -456,4 +464,24 @@ fn a_served_station_shares_one_connection_to_its_attenuator_and_each_slot_its_ow
     assert_eq!(served_channels(&server.address("att4")), [95.0; 4]);
     let log = out.read("st/run.log");
     assert!(log.contains("every channel in its safe state"), "{log}");
+}
+
+#[test]
+fn a_served_slot_that_fails_stops_alone_and_every_channel_still_ends_safe() {
+    // Half of slot c's console queries fall silent (one retry allowed): slot c stops, and the
+    // attenuator it shares with the others, on the same connection, goes on serving them.
+    let (server, out) = served_station_run("reply_timeout_rate = 0.5");
+    out.expect_code(3);
+    let top = table(&out.read("st/manifest.toml"));
+    let statuses: Vec<&str> = top["slot"]
+        .as_array()
+        .expect("slots")
+        .iter()
+        .map(|s| s["status"].as_str().expect("status"))
+        .collect();
+    assert_eq!(statuses[0], "completed");
+    assert_eq!(statuses[1], "completed");
+    assert_ne!(statuses[2], "completed");
+    assert_eq!(statuses[3], "completed");
+    assert_eq!(served_channels(&server.address("att4")), [95.0; 4]);
 }
