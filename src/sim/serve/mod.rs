@@ -12,7 +12,8 @@
 //!
 //! A slotted bench serves each slot's unit: one attenuator with a channel in front of each, each
 //! slot's DUT console on a listener of its own, and one reference the slots contend for (booked
-//! in the order bursts arrive: see [`crate::sim::shared_reference`]).
+//! in the order bursts arrive: see [`crate::sim::shared_reference`]), so that, unlike the rest of
+//! a served run, a served station's exchanges depend on when its clients' bursts arrive.
 //!
 //! The served instruments spend bench time on the server's own clock (virtual unless
 //! realtime): the model never sees wall time, which keeps a served run deterministic. A served
@@ -188,8 +189,8 @@ impl ServedBench {
             chamber: truth.chamber.as_ref().map(SimChamber::new),
             faults: FaultInjector::new(&truth.faults, seed),
         };
-        let (_reference, mut seats) = SharedReference::in_arrival_order(bench.slots.len());
-        let mut seats = seats.drain(..);
+        let (_reference, seats) = SharedReference::in_arrival_order(bench.slots.len());
+        let mut seats = seats.into_iter();
         let mut shared = SimShared::new(world, Arc::new(BenchClock::new(mode)))
             .with_chamber_clock(Arc::new(BenchClock::new(ClockMode::Wall)));
         if let Some(seat) = seats.next() {
