@@ -172,6 +172,12 @@ fn every_slot_recovers_its_own_unit_within_its_interval() {
         .map(|s| s["bench_time_s"].as_float().expect("time"))
         .fold(0.0, f64::max);
     assert_eq!(top["bench_time_s"].as_float(), Some(longest));
+    // The station's own run.log says how each slot ended.
+    let log = out.read("st/run.log");
+    for name in ["a", "b", "c", "d"] {
+        assert!(log.contains(&format!("slot {name}: completed")), "{log}");
+    }
+    assert!(log.contains("station: 4 of 4 units completed"), "{log}");
 }
 
 #[test]
@@ -194,6 +200,25 @@ fn a_slot_directory_is_a_standard_run_that_fit_and_report_read() {
     let top = Taucal::in_dir(report.dir).args(["report", "st"]).run();
     top.expect_code(2);
     assert!(top.stderr.contains("slot-a"), "{}", top.stderr);
+    // Imported whole, the station is its slots' runs, each under its unit's serial.
+    let imported = Taucal::in_dir(top.dir)
+        .args(["store", "import", "st", "--store", "sqlite:later.sqlite"])
+        .run();
+    imported.expect_code(0);
+    assert!(
+        imported.stdout.contains("imported 4 runs"),
+        "{}",
+        imported.stdout
+    );
+    let db = rusqlite::Connection::open(imported.path("later.sqlite")).expect("open");
+    let serials: Vec<String> = db
+        .prepare("SELECT unit_serial FROM runs ORDER BY unit_serial")
+        .expect("prepare")
+        .query_map([], |r| r.get(0))
+        .expect("query")
+        .map(|r| r.expect("row"))
+        .collect();
+    assert_eq!(serials, ["QX-0001", "QX-0002", "QX-0003", "QX-0004"]);
 }
 
 #[test]

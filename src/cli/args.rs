@@ -301,7 +301,7 @@ pub struct StoreArg {
 pub enum StoreCommand {
     /// Add run directories to a store (a run imported twice is one run).
     #[command(
-        after_help = "Without --store: $TAUCAL_STORE, else taucal.sqlite beside each run directory.\n\nExamples:\n  taucal store import runs/*/\n  taucal store import runs/20261202T101500Z-rx-gain-sweep --store postgres://line4@db.lab/cal"
+        after_help = "Without --store: $TAUCAL_STORE, else taucal.sqlite beside each run directory.\n\nExamples:\n  taucal store import runs/*/\n  taucal store import runs/20261202T101500Z-rx-gain-sweep --store postgres://line4@db.lab/cal\n  taucal store import runs/20261203T080000Z-factory-quick   (a station's run: each slot's run)"
     )]
     Import(StoreImportArgs),
     /// Copy to another store every run it lacks or holds in an older state.

@@ -107,6 +107,15 @@ pub fn run(args: RunArgs, bench: Bench) -> Result<Exit, Diagnostic> {
             .collect(),
     };
     write(&manifest, &dir)?;
+    // The station's own run.log says what ran where; each slot's lines go to its own run.log.
+    for run in &runs {
+        tracing::info!(
+            "slot {}: recipe `{}` into {}",
+            run.name,
+            manifest.recipe,
+            slot_dir_name(&run.name)
+        );
+    }
     let wall = Instant::now();
     let outcomes = execute_slots(
         runs,
@@ -164,6 +173,9 @@ pub fn resume(dir: &Path, store: &StoreArg) -> Result<Exit, Diagnostic> {
         runs.len(),
         dir.display()
     ));
+    for run in &runs {
+        tracing::info!("slot {}: resumed", run.name);
+    }
     let wall = Instant::now();
     let outcomes = execute_slots(
         runs,
@@ -239,6 +251,18 @@ fn finish(
                 exit = Exit::Stopped;
             }
         }
+        tracing::info!(
+            "slot {}: {} — unit {}, bench time {:.1} s{}",
+            entry.name,
+            format!("{:?}", entry.status).to_lowercase(),
+            entry.unit_serial.as_deref().unwrap_or("unidentified"),
+            entry.bench_time_s,
+            entry
+                .error
+                .as_deref()
+                .map(|e| format!(", {e}"))
+                .unwrap_or_default()
+        );
     }
     manifest.wall_time_s = wall_time_s;
     manifest.finished_utc = Some(run_dir::rfc3339(time::OffsetDateTime::now_utc()));
@@ -251,6 +275,12 @@ fn finish(
         .iter()
         .filter(|s| s.status == RunStatus::Completed)
         .count();
+    tracing::info!(
+        "station: {done} of {} units completed, bench time {:.1} s, {:.1} units per hour",
+        manifest.slot.len(),
+        manifest.bench_time_s,
+        manifest.units_per_hour
+    );
     println!("run directory: {}", dir.display());
     println!(
         "station: {done} of {} units completed; bench time {:.1} s (the longest slot's), {:.1} units per hour; wall time {:.2} s",

@@ -70,8 +70,9 @@ fn import(args: StoreImportArgs) -> Result<Exit, Diagnostic> {
     // Every directory is read before anything is written: one that is not a run stops the
     // import with nothing half-done.
     let mut records = Vec::new();
-    for dir in &args.run_dirs {
-        records.push((dir.clone(), RunRecord::from_dir(dir).map_err(fail)?));
+    for dir in args.run_dirs.iter().flat_map(|d| run_dirs_within(d)) {
+        let rec = RunRecord::from_dir(&dir).map_err(fail)?;
+        records.push((dir, rec));
     }
     let env = std::env::var(resolve::ENV).ok();
     let mut by_store: BTreeMap<String, (StoreUrl, Vec<RunRecord>)> = BTreeMap::new();
@@ -101,6 +102,17 @@ fn import(args: StoreImportArgs) -> Result<Exit, Diagnostic> {
         println!("imported {} runs into {shown}", recs.len());
     }
     Ok(Exit::Ok)
+}
+
+/// The run directories `dir` stands for: a station's run directory stands for its slots' (the
+/// station's own manifest holds no table), any other directory for itself.
+fn run_dirs_within(dir: &PathBuf) -> Vec<PathBuf> {
+    use crate::data::run_dir::files;
+    use crate::data::station_manifest::StationManifest;
+    match StationManifest::read_if_station(&dir.join(files::MANIFEST)) {
+        Ok(Some(station)) => station.slot.iter().map(|s| dir.join(&s.dir)).collect(),
+        _ => vec![dir.clone()],
+    }
 }
 
 /// Clears a run directory's `store_pending` mark once the store has the run.
