@@ -70,7 +70,12 @@ fn import(args: StoreImportArgs) -> Result<Exit, Diagnostic> {
     // Every directory is read before anything is written: one that is not a run stops the
     // import with nothing half-done.
     let mut records = Vec::new();
-    for dir in args.run_dirs.iter().flat_map(|d| run_dirs_within(d)) {
+    for dir in args
+        .run_dirs
+        .iter()
+        .map(PathBuf::as_path)
+        .flat_map(run_dirs_within)
+    {
         let rec = RunRecord::from_dir(&dir).map_err(fail)?;
         records.push((dir, rec));
     }
@@ -106,12 +111,12 @@ fn import(args: StoreImportArgs) -> Result<Exit, Diagnostic> {
 
 /// The run directories `dir` stands for: a station's run directory stands for its slots' (the
 /// station's own manifest holds no table), any other directory for itself.
-fn run_dirs_within(dir: &PathBuf) -> Vec<PathBuf> {
+fn run_dirs_within(dir: &std::path::Path) -> Vec<PathBuf> {
     use crate::data::run_dir::files;
     use crate::data::station_manifest::StationManifest;
     match StationManifest::read_if_station(&dir.join(files::MANIFEST)) {
         Ok(Some(station)) => station.slot.iter().map(|s| dir.join(&s.dir)).collect(),
-        _ => vec![dir.clone()],
+        _ => vec![dir.to_path_buf()],
     }
 }
 
