@@ -20,4 +20,5 @@ pub mod store;
 pub mod text_file;
 pub mod toml_input;
 pub mod touchstone;
+pub mod web;
 pub mod wiring;

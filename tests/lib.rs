@@ -3,6 +3,7 @@
 mod support;
 
 mod bad_input;
+mod browser;
 mod budget;
 mod calibration;
 mod chamber;

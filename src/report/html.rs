@@ -27,7 +27,8 @@ pub fn escape(text: &str) -> String {
     out
 }
 
-const STYLE: &str = r#"
+/// The report's stylesheet; served pages (`crate::web`) share it so they look like the report.
+pub const STYLE: &str = r#"
 :root { --ink:#272d36; --muted:#5d6672; --paper:#f6f5f1; --card:#ffffff; --rule:#dcdfe4;
   --accent:#1f5f8b; --good:#2e7a4f; --bad:#b83b3b; --halt:#9a6400; }
 * { box-sizing: border-box; }

@@ -1,5 +1,7 @@
 //! A small builder that runs the real `taucal` binary in a temporary directory.
 
+pub mod browser;
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
