@@ -125,10 +125,10 @@ pub fn page(kicker: &str, title: &str, sub: &str, style: &str, body: &str, scrip
 }
 
 /// What the browser may load for a served page: nothing but the page itself, its inline styles
-/// and scripts, and (for live updates) requests back to the same server.
+/// and scripts, and (for live updates and search forms) requests back to the same server.
 pub const CONTENT_SECURITY_POLICY: &str = "default-src 'none'; style-src 'unsafe-inline'; \
      script-src 'unsafe-inline'; connect-src 'self'; img-src data:; base-uri 'none'; \
-     form-action 'none'; frame-ancestors 'none'";
+     form-action 'self'; frame-ancestors 'none'";
 
 /// An HTML page as a response, with the headers every served page carries.
 pub fn html(page: String) -> Response {
