@@ -116,10 +116,6 @@ impl ScpiAttenuator {
         }
     }
 
-    fn set(&mut self, db: f64) -> Result<(), Error> {
-        self.set_on(1, db)
-    }
-
     fn set_on(&mut self, channel: u32, db: f64) -> Result<(), Error> {
         let [lo, hi] = self.range_db;
         if !db.is_finite() || db < lo - 1e-9 || db > hi + 1e-9 {
@@ -333,7 +329,33 @@ impl Command<ScpiAttenuator> for Version {
     }
 }
 
-struct Atten;
+/// The setting commands: `DAMPer:SETTing DB` and `LOSS[:LEVel] DB` set channel 1;
+/// `PATH:ATTenuation CHANNEL,DB` (and its query, `PATH:ATTenuation? CHANNEL`) names the channel
+/// first, one of several on a slotted bench. Both forms set and read a channel the same way.
+struct Atten {
+    /// Whether the channel comes as the first parameter; channel 1 when it does not.
+    channel_named: bool,
+}
+
+impl Atten {
+    /// The form that sets channel 1 alone.
+    const ONE: Atten = Atten {
+        channel_named: false,
+    };
+    /// The form that names its channel.
+    const NAMED: Atten = Atten {
+        channel_named: true,
+    };
+
+    fn channel(&self, p: &mut Parameters) -> Result<u32, Error> {
+        if self.channel_named {
+            p.next_data::<u32>()
+        } else {
+            Ok(1)
+        }
+    }
+}
+
 impl Command<ScpiAttenuator> for Atten {
     fn event(
         &self,
@@ -341,34 +363,7 @@ impl Command<ScpiAttenuator> for Atten {
         _: &mut Context,
         mut p: Parameters,
     ) -> Result<(), Error> {
-        let db = p.next_data::<f64>()?;
-        d.set(db)
-    }
-    fn query(
-        &self,
-        d: &mut ScpiAttenuator,
-        _: &mut Context,
-        _: Parameters,
-        mut r: ResponseUnit,
-    ) -> Result<(), Error> {
-        let db = d
-            .shared
-            .atten_db()
-            .map_err(|_| Error::new(ErrorCode::DeviceSpecificError))?;
-        r.data(db).finish()
-    }
-}
-
-/// `PATH:ATTenuation CHANNEL,DB` and `PATH:ATTenuation? CHANNEL`: one channel of several.
-struct ChannelAtten;
-impl Command<ScpiAttenuator> for ChannelAtten {
-    fn event(
-        &self,
-        d: &mut ScpiAttenuator,
-        _: &mut Context,
-        mut p: Parameters,
-    ) -> Result<(), Error> {
-        let channel = p.next_data::<u32>()?;
+        let channel = self.channel(&mut p)?;
         let db = p.next_data::<f64>()?;
         d.set_on(channel, db)
     }
@@ -379,7 +374,7 @@ impl Command<ScpiAttenuator> for ChannelAtten {
         mut p: Parameters,
         mut r: ResponseUnit,
     ) -> Result<(), Error> {
-        let channel = p.next_data::<u32>()?;
+        let channel = self.channel(&mut p)?;
         let db = d
             .channel(channel)?
             .atten_db()
@@ -475,7 +470,7 @@ const ROOT: Node<ScpiAttenuator> = Branch {
             sub: &[Leaf {
                 name: b"SETTing",
                 default: true,
-                handler: &Atten,
+                handler: &Atten::ONE,
             }],
         },
         Branch {
@@ -484,7 +479,7 @@ const ROOT: Node<ScpiAttenuator> = Branch {
             sub: &[Leaf {
                 name: b"ATTenuation",
                 default: true,
-                handler: &ChannelAtten,
+                handler: &Atten::NAMED,
             }],
         },
         Branch {
@@ -493,7 +488,7 @@ const ROOT: Node<ScpiAttenuator> = Branch {
             sub: &[Leaf {
                 name: b"LEVel",
                 default: true,
-                handler: &Atten,
+                handler: &Atten::ONE,
             }],
         },
     ],
@@ -507,15 +502,19 @@ mod tests {
     use crate::sim::SimBench;
     use std::sync::Arc;
 
-    fn device() -> ScpiAttenuator {
+    /// A simulated unit on the demo bench, seeded `seed`.
+    fn model(seed: u64) -> SimShared {
         let bench = Bench::built_in().expect("demo bench");
         let truth = bench.sim.as_ref().expect("sim");
-        let model = SimBench::new(truth, &bench.path, 1).expect("model");
-        let shared = SimShared::new(
+        let model = SimBench::new(truth, &bench.path, seed).expect("model");
+        SimShared::new(
             crate::sim::front::SimWorld::radios(model),
             Arc::new(BenchClock::new(ClockMode::Virtual)),
-        );
-        ScpiAttenuator::new(shared, [0.0, 95.0], 0.25, 1.0)
+        )
+    }
+
+    fn device() -> ScpiAttenuator {
+        ScpiAttenuator::new(model(1), [0.0, 95.0], 0.25, 1.0)
     }
 
     fn ask(d: &mut ScpiAttenuator, message: &str) -> String {
@@ -605,5 +604,47 @@ mod tests {
         // *RST puts the attenuator in its safe state, maximum attenuation.
         ask(&mut d, "*RST");
         assert_eq!(ask(&mut d, "DAMP?"), "95.0\n");
+    }
+
+    #[test]
+    fn each_channel_is_set_and_read_alone_and_channel_1_is_the_one_channel_commands() {
+        let mut d = device().with_channels(vec![model(2), model(3)]);
+        // Every channel powers up at maximum attenuation.
+        for n in 1..=3 {
+            assert_eq!(
+                ask(&mut d, &format!("PATH:ATT? {n}")),
+                "95.0\n",
+                "channel {n}"
+            );
+        }
+        assert_eq!(ask(&mut d, "PATH:ATTenuation 2,30.5"), "");
+        assert_eq!(ask(&mut d, "PATH:ATT 3,12.25;:PATH:ATT? 3"), "12.25\n");
+        assert_eq!(ask(&mut d, "PATH:ATT? 2"), "30.5\n");
+        // The one-channel forms set and read channel 1, and channel 1 alone.
+        assert_eq!(ask(&mut d, "LOSS 40"), "");
+        assert_eq!(ask(&mut d, "PATH:ATT? 1"), "40.0\n");
+        assert_eq!(ask(&mut d, "PATH:ATT 1,41;:DAMP?"), "41.0\n");
+        assert_eq!(ask(&mut d, "PATH:ATT? 2"), "30.5\n");
+        // A channel the attenuator does not have, and a setting off its grid: -224 Illegal
+        // parameter value (SCPI 1999 Vol 2 §21.8.10), nothing changed.
+        assert_eq!(ask(&mut d, "PATH:ATT 4,20"), "");
+        assert_eq!(ask(&mut d, "PATH:ATT? 0"), "");
+        assert_eq!(ask(&mut d, "PATH:ATT 2,20.1"), "");
+        for _ in 0..3 {
+            assert_eq!(
+                ask(&mut d, "SYST:ERR?"),
+                "-224,\"Illegal parameter value\"\n"
+            );
+        }
+        assert_eq!(ask(&mut d, "PATH:ATT? 2"), "30.5\n");
+        // *RST is the safe state on every channel.
+        ask(&mut d, "*RST");
+        for n in 1..=3 {
+            assert_eq!(
+                ask(&mut d, &format!("PATH:ATT? {n}")),
+                "95.0\n",
+                "channel {n}"
+            );
+        }
     }
 }
