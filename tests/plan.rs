@@ -237,6 +237,91 @@ fn a_reduced_recipe_predicts_the_other_states_within_their_intervals() {
     assert_eq!(t.stdout.matches(",predicted").count(), 2, "{}", t.stdout);
 }
 
+/// A population model's `[[cell]]`: (center, bw, gain), marked measured, mean, noise SD, its
+/// covariance row.
+fn model_cell(cell: (u32, u32, u32), measure: bool, mean_ps: f64, noise: f64, cov: &str) -> String {
+    format!(
+        "[[cell]]\ncenter_mhz = {}\nbw_mhz = {}\ngain_index = {}\nmeasure = {measure}\n\
+         mean_ps = {mean_ps:?}\nnoise_sd_ps = {noise:?}\ncov_ps2 = {cov}\n\n",
+        cell.0, cell.1, cell.2
+    )
+}
+
+#[test]
+fn check_describes_the_prediction_a_run_would_make() {
+    // factory-quick visits 5180 MHz / 80 MHz alone. The model measures gain 0 there and gain 0
+    // of 5240 MHz / 40 MHz, which the recipe never visits; gains 1 and 2 of 5180/80 and the
+    // unvisited cell are predicted. Expected SDs by the conditional normal (from memory: the
+    // true variance Σ_jj − noise_j², less Σ_j0² / Σ_00 for the one conditioning cell, whose
+    // own noise stands in its place at the population's level):
+    //   gain 1: 2000 − 20² − 1200²/2500 = 1024 ps², SD 32 ps, 1.959964 · 32 = 62.7 ps;
+    //   gain 2: uncorrelated, 1700 − 20² = 1300 ps², 1.959964 · 36.06 = 70.7 ps;
+    //   5240/40: uncorrelated, 1000 − 25² = 375 ps², 1.959964 · 19.36 = 38.0 ps.
+    let model = [
+        model_cell(
+            (5180, 80, 0),
+            true,
+            2400.0,
+            30.0,
+            "[2500.0, 1200.0, 0.0, 0.0]",
+        ),
+        model_cell(
+            (5180, 80, 1),
+            false,
+            2650.0,
+            20.0,
+            "[1200.0, 2000.0, 0.0, 0.0]",
+        ),
+        model_cell(
+            (5180, 80, 2),
+            false,
+            2900.0,
+            20.0,
+            "[0.0, 0.0, 1700.0, 0.0]",
+        ),
+        model_cell((5240, 40, 0), true, 2450.0, 25.0, "[0.0, 0.0, 0.0, 1000.0]"),
+    ]
+    .concat();
+    let full = std::fs::read_to_string(repo(RECIPE)).expect("recipe");
+    let recipe = full.replace("[accept]", "[fit]\npredict = \"model.toml\"\n\n[accept]");
+    let out = Taucal::new()
+        .file("r.toml", &recipe)
+        .file("model.toml", &model)
+        .args(["check", "r.toml", "--bench", &repo(BENCH)])
+        .run();
+    out.expect_code(0);
+    for line in [
+        "model.toml (4 cells); the cells it marks measured:",
+        "  measured 5180 MHz / 80 MHz gain 0\n",
+        "  measured 5240 MHz / 40 MHz gain 0: a channel the recipe does not visit",
+        "  predicted 5180 MHz / 80 MHz gain 1: expected 95 % half-width 62.7 ps\n",
+        "  predicted 5180 MHz / 80 MHz gain 2: expected 95 % half-width 70.7 ps\n",
+        "  predicted 5240 MHz / 40 MHz gain 0: expected 95 % half-width 38.0 ps\n",
+    ] {
+        assert!(out.stdout.contains(line), "{line:?} in\n{}", out.stdout);
+    }
+    // Two measured cells correlated beyond ±1 (|1200| > √(1000 · 1000)): a covariance no
+    // prediction can use, refused by check, naming the model file, before any run spends its
+    // bench time to fail at the fit.
+    let broken = [
+        model_cell((5180, 80, 0), true, 2400.0, 10.0, "[1000.0, 1200.0, 0.0]"),
+        model_cell((5180, 80, 1), true, 2650.0, 10.0, "[1200.0, 1000.0, 0.0]"),
+        model_cell((5180, 80, 2), false, 2900.0, 10.0, "[0.0, 0.0, 1000.0]"),
+    ]
+    .concat();
+    let out = Taucal::new()
+        .file("r.toml", &recipe)
+        .file("model.toml", &broken)
+        .args(["check", "r.toml", "--bench", &repo(BENCH)])
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains("model.toml") && out.stderr.contains("not positive definite"),
+        "{}",
+        out.stderr
+    );
+}
+
 #[test]
 fn a_missing_or_broken_model_is_named_where_it_is_given() {
     let full = std::fs::read_to_string(repo(RECIPE)).expect("recipe");

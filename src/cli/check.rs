@@ -22,6 +22,9 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
         }
     }
     describe_measured_path(&bench, &plan)?;
+    if let Some(p) = &plan.predict {
+        describe_prediction(p, &crate::recipe::channels(&plan))?;
+    }
     if let Some((lo, hi)) = bench.usable_atten_db() {
         println!(
             "usable attenuation {lo}..{hi} dB (DUT receive level {:.1} to {:.1} dBm)",
@@ -123,6 +126,60 @@ fn describe_measured_path(
                 a.ripple_u_ps
             );
         }
+    }
+    Ok(())
+}
+
+/// The recipe's `[fit] predict` model: which of its cells the run measures and which it
+/// predicts, each predicted cell's expected 95 % half-width when the measured ones come out
+/// with the population's own noise, and the model cells on channels the recipe never visits
+/// (no run measures those). A covariance the prediction cannot use stops the check here, not
+/// a run at its fit, after the bench time is spent.
+fn describe_prediction(
+    p: &crate::recipe::plan::Predictor,
+    channels: &[(u32, u32)],
+) -> Result<(), Diagnostic> {
+    use crate::fit::predict::Z95;
+    let m = &p.model;
+    let file = p.path.display();
+    let cell = |i: usize| {
+        let (center, bw, gain) = m.cells[i];
+        format!("{center} MHz / {bw} MHz gain {gain}")
+    };
+    let visited = |i: usize| {
+        let (center, bw, _) = m.cells[i];
+        channels.contains(&(center, bw))
+    };
+    let (measured, unvisited): (Vec<usize>, Vec<usize>) =
+        m.measured.iter().partition(|&&i| visited(i));
+    let predicted = m
+        .expected_sd(&measured)
+        .map_err(|e| Diagnostic::in_file(&p.path, format!("the population model: {e}")).with_hint(
+            "write the model again with `taucal fleet plan --out`; the measured cells' covariance must be positive definite",
+        ))?;
+    println!(
+        "fit: predicts from the population model {file} ({}); the cells it marks measured:",
+        plural(m.cells.len() as u64, "cell")
+    );
+    for &i in &measured {
+        println!("  measured {}", cell(i));
+    }
+    for &i in &unvisited {
+        println!(
+            "  measured {}: a channel the recipe does not visit, so nothing is predicted from it",
+            cell(i)
+        );
+    }
+    if measured.is_empty() {
+        println!("  the recipe visits none of their channels: a run predicts nothing");
+        return Ok(());
+    }
+    for q in &predicted {
+        println!(
+            "  predicted {}: expected 95 % half-width {:.1} ps",
+            cell(q.index),
+            Z95 * q.sd_ps
+        );
     }
     Ok(())
 }
