@@ -3,16 +3,18 @@
 //! standard uncertainties, the expanded interval (k·u_c) must cover the true K about 95 % of
 //! the time, where the statistical interval alone does not. And the bench file's forms.
 
+use crate::support::bench::{shipped_with, TestBench};
+use crate::support::sweep::Sweep;
 use crate::support::{repo, Taucal};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 use taucal::bench::uncertainty::{InputUncertainty, UncertaintyFrom};
 use taucal::bench::{BenchUncertainty, PathFacts, PerGain};
-use taucal::data::{Exchange, Taken};
+use taucal::data::Exchange;
 use taucal::fit::budget_cell::cell_budget;
 use taucal::fit::{Deembed, FitOptions, Fitter};
-use taucal::sim::{BurstRequest, SimBench, SimTruth};
+use taucal::sim::SimTruth;
 
 /// Declared one-way cable delay and its standard uncertainty.
 const CABLE_PS: f64 = 7_300.0;
@@ -21,60 +23,26 @@ const CABLE_U_PS: f64 = 30.0;
 const REF_K_PS: f64 = 2_650.0;
 const REF_U_PS: f64 = 20.0;
 
-/// A 40 MHz bench with two DUT gain states, −14 ppm, 350 ps jitter. No late locks: their
-/// one-sided bias is another matter than the bench's stated uncertainties.
+/// The base test bench (40 MHz here, two DUT gain states, −14 ppm, 350 ps jitter) with its
+/// reference's true K `ref_k_ps`. No late locks: their one-sided bias is another matter than
+/// the bench's stated uncertainties.
 fn truth(ref_k_ps: f64) -> SimTruth {
-    let text = format!(
-        r#"
-        tx_power_dbm = 14.0
-        [dut]
-        tx_delay_ps = 1450.0
-        rx_delay_ps = [780.0, 1120.0]
-        gain_thresholds_dbm = [-48.0]
-        clock_ppm = -14.0
-        jitter_ps = 350.0
-        outlier_rate = 0.0
-        [reference]
-        delay_ps = {ref_k_ps}
-        "#
-    );
-    toml::from_str(&text).expect("truth parses")
+    TestBench::base()
+        .sim_reference(&format!("delay_ps = {ref_k_ps}"))
+        .truth()
 }
 
 /// Exchanges of a 20..86 dB sweep in 6 dB steps, two bursts of 12 per point, on the true path.
 fn simulate(truth: &SimTruth, path: &PathFacts, seed: u64) -> Vec<Exchange> {
-    let mut bench = SimBench::new(truth, path, seed).expect("valid truth");
-    let mut rows = Vec::new();
-    let mut now_ps = 0u64;
-    for (point, atten) in (20..=86).step_by(6).enumerate() {
-        bench.set_atten_db(f64::from(atten));
-        for burst in 0..2 {
-            let request = BurstRequest {
-                frames: 12,
-                center_mhz: 5500,
-                bw_mhz: 40,
-            };
-            let out = bench.run_burst(now_ps, &request);
-            now_ps += out.duration_ps + 100_000_000_000;
-            let at = Taken {
-                stage: "sweep",
-                point: point as u32,
-                burst,
-                atten_db: f64::from(atten),
-                center_mhz: 5500,
-                bw_mhz: 40,
-                temp_c: None,
-                time_s: None,
-            };
-            rows.extend(
-                out.exchanges
-                    .into_iter()
-                    .enumerate()
-                    .map(|(seq, d)| Exchange::recorded(&at, seq as u32, d)),
-            );
-        }
-    }
-    rows
+    let sweep = Sweep {
+        stage: "sweep",
+        center_mhz: 5500,
+        bw_mhz: 40,
+        frames: 12,
+        bursts: 2,
+        gap_ps: 100_000_000_000,
+    };
+    sweep.run(truth, path, seed, (20..=86).step_by(6).map(f64::from))
 }
 
 fn stated(u_ps: f64) -> Option<InputUncertainty> {
@@ -153,14 +121,9 @@ fn the_expanded_interval_covers_the_truth_when_the_bench_is_off_by_its_stated_u(
     );
 }
 
-/// The demo bench with one text replaced.
+/// The demo bench with each `(from, to)` edit made.
 fn demo_bench_with(edits: &[(&str, &str)]) -> String {
-    let mut bench = std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("demo");
-    for (from, to) in edits {
-        assert!(bench.contains(from), "{from}");
-        bench = bench.replacen(from, to, 1);
-    }
-    bench
+    shipped_with("recipes/benches/sim-demo.toml", edits)
 }
 
 #[test]

@@ -2,18 +2,21 @@
 //! verification shows what per-gain calibration buys, and adaptive sampling spends little more
 //! than an oracle would. Benches here are not the demo's: their truths differ.
 
+use crate::support::bench::{truth_of, with_table};
+use crate::support::sweep::Sweep;
 use crate::support::{contract_columns, csv_numbers, repo, Taucal};
 use taucal::bench::PathFacts;
-use taucal::data::{Exchange, Taken};
 use taucal::fit::{fit, Deembed, FitOptions};
-use taucal::sim::{BurstRequest, SimBench, SimTruth};
+use taucal::sim::SimTruth;
+
+/// The demo bench's text.
+fn demo_bench() -> String {
+    std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("demo bench")
+}
 
 /// The demo bench with its DUT truth replaced.
 fn bench_with(dut: &str) -> String {
-    let demo = std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("demo bench");
-    let start = demo.find("[sim.dut]").expect("dut table");
-    let end = demo.find("[sim.reference]").expect("reference table");
-    format!("{}[sim.dut]\n{dut}\n\n{}", &demo[..start], &demo[end..])
+    with_table(&demo_bench(), "[sim.dut]", dut)
 }
 
 const FOUR_STATES: &str = "tx_delay_ps = 1700.0
@@ -161,36 +164,15 @@ fn oracle_exchanges(truth: &SimTruth, atten_db: f64, target_ps: f64) -> f64 {
         fixed_loss_db: 8.0,
         atten_delay_ps_per_db: 0.0,
     };
-    let mut bench = SimBench::new(truth, &path, 99).expect("truth");
-    bench.set_atten_db(atten_db);
-    let (mut rows, mut now_ps) = (Vec::new(), 0u64);
-    for burst in 0..400u32 {
-        let out = bench.run_burst(
-            now_ps,
-            &BurstRequest {
-                frames: 16,
-                center_mhz: 5180,
-                bw_mhz: 80,
-            },
-        );
-        now_ps += out.duration_ps + 20_000_000_000;
-        let at = Taken {
-            stage: "oracle",
-            point: 0,
-            burst,
-            atten_db,
-            center_mhz: 5180,
-            bw_mhz: 80,
-            temp_c: None,
-            time_s: None,
-        };
-        rows.extend(
-            out.exchanges
-                .into_iter()
-                .enumerate()
-                .map(|(seq, d)| Exchange::recorded(&at, seq as u32, d)),
-        );
-    }
+    let sweep = Sweep {
+        stage: "oracle",
+        center_mhz: 5180,
+        bw_mhz: 80,
+        frames: 16,
+        bursts: 400,
+        gap_ps: 20_000_000_000,
+    };
+    let rows = sweep.run(truth, &path, 99, [atten_db]);
     let deembed = Deembed::new(&path, taucal::bench::PerGain::Same(2800.0));
     let table = fit(deembed, FitOptions::default(), &rows);
     let cell = table.rows.iter().max_by_key(|r| r.n_used).expect("cell");
@@ -202,11 +184,7 @@ fn oracle_exchanges(truth: &SimTruth, atten_db: f64, target_ps: f64) -> f64 {
 
 #[test]
 fn adaptive_sampling_spends_at_most_1_3_times_the_oracle() {
-    let demo = std::fs::read_to_string(repo("recipes/benches/sim-demo.toml")).expect("bench");
-    let truth: SimTruth = toml::from_str::<toml::Table>(&demo).expect("toml")["sim"]
-        .clone()
-        .try_into()
-        .expect("sim truth");
+    let truth = truth_of(&demo_bench());
     let points = [27.0, 49.0, 75.0];
     let oracle: f64 = points
         .iter()

@@ -4,33 +4,31 @@
 //! model must give intervals that cover the truth about 95 % of the time there, and change
 //! nothing on clean benches. Benches here are not the demo's.
 
+use crate::support::bench::TestBench;
+use crate::support::sweep::Sweep;
 use taucal::bench::{PathFacts, PerGain};
-use taucal::data::{Exchange, Taken};
+use taucal::data::Exchange;
 use taucal::fit::stats::{mad_scaled, mean, median, t975};
 use taucal::fit::{burst_delays, Deembed, FitOptions, FitResult, Fitter};
-use taucal::sim::{BurstRequest, SimBench, SimTruth};
+use taucal::sim::SimTruth;
 
 /// Two DUT gain states, 1.5 ns jitter on both units, `outlier_rate` late detections at the DUT
 /// spread `late_spread` sample periods beyond the first.
 fn truth(outlier_rate: f64, late_spread: f64) -> SimTruth {
-    let text = format!(
-        r#"
-        tx_power_dbm = 15.0
-        [dut]
-        tx_delay_ps = 1400.0
-        rx_delay_ps = [820.0, 1240.0]
-        gain_thresholds_dbm = [-44.0]
-        clock_ppm = 13.0
-        jitter_ps = 1500.0
-        outlier_rate = {outlier_rate}
-        late_spread = {late_spread}
-        burst_offset_ps = 40.0
-        [reference]
-        delay_ps = 2700.0
-        jitter_ps = 1500.0
-        "#
-    );
-    toml::from_str(&text).expect("truth parses")
+    TestBench::base()
+        .tx_power_dbm(15.0)
+        .sim_dut(&format!(
+            "tx_delay_ps = 1400.0
+            rx_delay_ps = [820.0, 1240.0]
+            gain_thresholds_dbm = [-44.0]
+            clock_ppm = 13.0
+            jitter_ps = 1500.0
+            outlier_rate = {outlier_rate}
+            late_spread = {late_spread}
+            burst_offset_ps = 40.0"
+        ))
+        .sim_reference("delay_ps = 2700.0\njitter_ps = 1500.0")
+        .truth()
 }
 
 const PATH: PathFacts = PathFacts {
@@ -42,48 +40,19 @@ const PATH: PathFacts = PathFacts {
 /// Three attenuations per gain state (the threshold sits at 51 dB of attenuation: 15 dBm less
 /// 8 dB fixed loss less 51 dB is −44 dBm), `bursts` bursts of 16 exchanges each.
 fn simulate(truth: &SimTruth, bw_mhz: u32, seed: u64, bursts: u32) -> Vec<Exchange> {
-    let mut bench = SimBench::new(truth, &PATH, seed).expect("valid truth");
-    let mut rows = Vec::new();
-    let mut now_ps = 0u64;
-    for (point, atten_db) in [10.0, 16.0, 22.0, 58.0, 64.0, 70.0].into_iter().enumerate() {
-        bench.set_atten_db(atten_db);
-        for burst in 0..bursts {
-            let request = BurstRequest {
-                frames: 16,
-                center_mhz: 5500,
-                bw_mhz,
-            };
-            let out = bench.run_burst(now_ps, &request);
-            now_ps += out.duration_ps + 100_000_000_000;
-            let at = Taken {
-                stage: "sweep",
-                point: point as u32,
-                burst,
-                atten_db,
-                center_mhz: 5500,
-                bw_mhz,
-                temp_c: None,
-                time_s: None,
-            };
-            rows.extend(
-                out.exchanges
-                    .into_iter()
-                    .enumerate()
-                    .map(|(seq, d)| Exchange::recorded(&at, seq as u32, d)),
-            );
-        }
-    }
-    rows
+    let sweep = Sweep {
+        stage: "sweep",
+        center_mhz: 5500,
+        bw_mhz,
+        frames: 16,
+        bursts,
+        gap_ps: 100_000_000_000,
+    };
+    sweep.run(truth, &PATH, seed, [10.0, 16.0, 22.0, 58.0, 64.0, 70.0])
 }
 
 fn deembed() -> Deembed {
-    Deembed {
-        cable_delay_ps: PATH.cable_delay_ps,
-        atten_delay_ps_per_db: PATH.atten_delay_ps_per_db,
-        reference_delay: PerGain::Same(2700.0),
-        applied_k_ps: None,
-        measured: None,
-    }
+    Deembed::new(&PATH, PerGain::Same(2700.0))
 }
 
 fn fit(rows: &[Exchange]) -> FitResult {

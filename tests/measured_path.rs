@@ -3,6 +3,7 @@
 //! with the simulator's truth and one that does not, the budget's ripple and certificate
 //! components, the due date, and bad files refused at their bench key.
 
+use crate::support::bench::TestBench;
 use crate::support::{csv_numbers, Taucal};
 use std::f64::consts::PI;
 use std::process::Command;
@@ -30,57 +31,16 @@ fn line_s2p(tau21_ps: f64, tau12_ps: f64, from_ghz: f64, to_ghz: f64) -> String 
     text
 }
 
-/// A simulated bench unlike the demo's (two DUT gain states, 40 MHz, −14 ppm), its path the
-/// Touchstone file `line.s2p` and its simulated truth `truth_ps` one way.
+/// The base test bench (two DUT gain states, −14 ppm; 40 MHz here), its path the Touchstone
+/// file `line.s2p` with 6 dB of fixed loss, its reference's K declared by `reference`, and its
+/// simulated truth `truth_ps` one way.
 fn bench(truth_ps: f64, reference: &str) -> String {
-    format!(
-        r#"[bench]
-name = "line-bench"
-
-[roles]
-attenuator = {{ driver = "sim-attenuator", address = "sim:" }}
-dut = {{ driver = "sim-ranging", address = "sim:" }}
-reference = {{ driver = "sim-ranging", address = "sim:" }}
-
-[attenuator]
-range_db = [0.0, 90.0]
-step_db = 1.0
-
-[dut]
-tx_power_dbm = 14.0
-max_input_dbm = -12.0
-min_input_dbm = -80.0
-
-[path]
-touchstone = "line.s2p"
-touchstone_u_ps = 2.0
-fixed_loss_db = 6.0
-
-[reference]
-{reference}
-tx_power_dbm = 14.0
-max_input_dbm = -12.0
-min_input_dbm = -80.0
-
-[sim]
-seed = 3
-tx_power_dbm = 14.0
-
-[sim.dut]
-tx_delay_ps = 1450.0
-rx_delay_ps = [780.0, 1120.0]
-gain_thresholds_dbm = [-48.0]
-clock_ppm = -14.0
-jitter_ps = 350.0
-outlier_rate = 0.0
-
-[sim.reference]
-delay_ps = 2650.0
-
-[sim.path]
-cable_delay_ps = {truth_ps}
-"#
-    )
+    TestBench::base()
+        .name("line-bench")
+        .path("touchstone = \"line.s2p\"\ntouchstone_u_ps = 2.0\nfixed_loss_db = 6.0")
+        .reference_k(reference)
+        .sim_path(&format!("cable_delay_ps = {truth_ps}"))
+        .text()
 }
 
 /// Two gain states' worth of points on 5500 MHz / 40 MHz.
@@ -289,6 +249,7 @@ fn bad_touchstone_declarations_are_refused_at_their_key() {
     ] {
         let mut text = bench_text.clone();
         if let Some((from, to)) = bench_edit {
+            assert!(text.contains(from), "the bench no longer holds {from:?}");
             text = text.replacen(from, to, 1);
         }
         let out = Taucal::new()

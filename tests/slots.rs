@@ -5,7 +5,8 @@
 //! by its role name) runs over TCP with one connection to its attenuator. The station here is
 //! not the shipped one: its units differ.
 
-use crate::support::{assert_tables_agree, csv_numbers, Taucal};
+use crate::support::bench::{shipped_with, TestBench, SIM_ATTENUATOR, SIM_RANGING};
+use crate::support::{assert_tables_agree, csv_numbers, repo, Taucal};
 
 /// Four units, K per state far enough apart between slots (≥ 100 ps) that a slot fitted
 /// with another's exchanges could not pass as itself.
@@ -16,60 +17,47 @@ const UNITS: [(&str, f64, [f64; 3]); 4] = [
     ("QX-0004", 1700.0, [850.0, 1120.0, 1450.0]),
 ];
 
-/// A station of four slots on a simulated bench; `faults_in_c` is a `[sim.slot.faults]` body
-/// for slot c's unit (empty for none).
-fn station(faults_in_c: &str) -> String {
-    let mut text = String::from(
-        r#"[bench]
-name = "test station"
-[roles]
-att4 = { driver = "sim-attenuator", address = "sim:" }
-u1 = { driver = "sim-ranging", address = "sim:" }
-u2 = { driver = "sim-ranging", address = "sim:" }
-u3 = { driver = "sim-ranging", address = "sim:" }
-u4 = { driver = "sim-ranging", address = "sim:" }
-reference = { driver = "sim-ranging", address = "sim:" }
-[attenuator]
-range_db = [0.0, 90.0]
-step_db = 0.5
-[dut]
-tx_power_dbm = 14.0
-max_input_dbm = -12.0
-min_input_dbm = -80.0
-[path]
-cable_delay_ps = 5200.0
-fixed_loss_db = 7.0
-[reference]
-delay_ps = 3100.0
-tx_power_dbm = 14.0
-max_input_dbm = -12.0
-min_input_dbm = -80.0
-"#,
-    );
+/// A station of four slots on the base test bench (units `u1`…`u4` behind channels 1–4 of
+/// attenuator `att4`, 0.5 dB steps, K of the reference 3100 ps, seed 11), each slot's unit from
+/// [`UNITS`]; `faults_in_c` is a `[sim.slot.faults]` body for slot c's unit (empty for none).
+fn station(faults_in_c: &str) -> TestBench {
+    let mut bench = TestBench::base()
+        .name("test station")
+        .roles(&[
+            ("att4", SIM_ATTENUATOR),
+            ("u1", SIM_RANGING),
+            ("u2", SIM_RANGING),
+            ("u3", SIM_RANGING),
+            ("u4", SIM_RANGING),
+            ("reference", SIM_RANGING),
+        ])
+        .attenuator([0.0, 90.0], 0.5)
+        .reference_k("delay_ps = 3100.0")
+        .seed(11)
+        .sim_dut(
+            "tx_delay_ps = 1500.0\nrx_delay_ps = [800.0, 1000.0, 1300.0]\n\
+             gain_thresholds_dbm = [-28.0, -52.0]",
+        )
+        .sim_reference("delay_ps = 3100.0");
     for (i, name) in ["a", "b", "c", "d"].iter().enumerate() {
-        text += &format!(
-            "[[slot]]\nname = \"{name}\"\ndut = \"u{}\"\nattenuator = \"att4\"\nchannel = {}\n",
-            i + 1,
-            i + 1
-        );
+        let channel = i as u32 + 1;
+        bench = bench.slot(name, &format!("u{channel}"), "att4", channel);
     }
-    text += "[sim]\nseed = 11\ntx_power_dbm = 14.0\n[sim.dut]\ntx_delay_ps = 1500.0\n\
-             rx_delay_ps = [800.0, 1000.0, 1300.0]\ngain_thresholds_dbm = [-28.0, -52.0]\n\
-             [sim.reference]\ndelay_ps = 3100.0\n";
     for (i, (serial, tx, rx)) in UNITS.iter().enumerate() {
-        text += &format!(
-            "[[sim.slot]]\nserial = \"{serial}\"\ntx_delay_ps = {tx:.1}\nrx_delay_ps = [{:.1}, {:.1}, {:.1}]\n\
-             gain_thresholds_dbm = [-28.0, -52.0]\nclock_ppm = {}.0\njitter_ps = 280.0\noutlier_rate = 0.02\n",
+        let mut unit = format!(
+            "serial = \"{serial}\"\ntx_delay_ps = {tx:.1}\nrx_delay_ps = [{:.1}, {:.1}, {:.1}]\n\
+             gain_thresholds_dbm = [-28.0, -52.0]\nclock_ppm = {}.0\njitter_ps = 280.0\noutlier_rate = 0.02",
             rx[0],
             rx[1],
             rx[2],
             7 * i as i32 - 9
         );
         if i == 2 && !faults_in_c.is_empty() {
-            text += &format!("[sim.slot.faults]\n{faults_in_c}\n");
+            unit += &format!("\n[sim.slot.faults]\n{faults_in_c}");
         }
+        bench = bench.sim_slot(&unit);
     }
-    text
+    bench
 }
 
 /// Three points, one per gain state (received −16, −39 and −64 dBm).
@@ -96,7 +84,7 @@ fn run_station(faults_in_c: &str, extra: &[&str]) -> crate::support::Outcome {
     let mut args = vec!["run", "r.toml", "--bench", "b.toml", "--out", "st", "-q"];
     args.extend(extra);
     Taucal::new()
-        .file("b.toml", &station(faults_in_c))
+        .file("b.toml", &station(faults_in_c).text())
         .file("r.toml", RECIPE)
         .args(args)
         .run()
@@ -106,8 +94,6 @@ fn table(text: &str) -> toml::Table {
     toml::from_str(text).expect("toml")
 }
 
-/// Each slot of the station run in `st/` is its own unit: its serial, and every cell's K within
-/// its interval of the unit's truth and nearer it than any other slot's.
 /// The faulty slot c ended early while a, b and d completed, as the top manifest lists them.
 fn assert_only_slot_c_ended_early(top: &toml::Table) {
     let statuses: Vec<&str> = top["slot"]
@@ -122,6 +108,8 @@ fn assert_only_slot_c_ended_early(top: &toml::Table) {
     assert_eq!(statuses[3], "completed");
 }
 
+/// Each slot of the station run in `st/` is its own unit: its serial, and every cell's K within
+/// its interval of the unit's truth and nearer it than any other slot's.
 fn assert_each_slot_recovers_its_unit(out: &crate::support::Outcome, slots: &[toml::Value]) {
     for (i, name) in ["a", "b", "c", "d"].iter().enumerate() {
         let (serial, tx, rx) = UNITS[i];
@@ -264,23 +252,27 @@ fn a_failing_slot_stops_alone_and_its_resume_goes_on_with_it() {
     );
 }
 
-/// The shipped station with its attenuator role at `address`, driven by the shipped
-/// four-channel driver.
+/// The shipped station, its station bench path.
+const STATION: &str = "recipes/benches/sim-station4.toml";
+
+/// The shipped station with its attenuator role at `address`, driven by `driver` from the
+/// shipped driver files.
 fn station_with_attenuator(driver: &str, address: &str) -> String {
-    let text = std::fs::read_to_string(crate::support::repo("recipes/benches/sim-station4.toml"))
-        .expect("station bench");
-    text.replacen(
-        "atten = { driver = \"sim-attenuator\", address = \"sim:\" }",
-        &format!("atten = {{ driver = \"{driver}\", address = \"{address}\" }}"),
-        1,
-    )
-    .replacen(
-        "[bench]\n",
-        &format!(
-            "[bench]\ndrivers_dir = \"{}\"\n",
-            crate::support::repo("drivers")
-        ),
-        1,
+    shipped_with(
+        STATION,
+        &[
+            (
+                "atten = { driver = \"sim-attenuator\", address = \"sim:\" }",
+                &format!("atten = {{ driver = \"{driver}\", address = \"{address}\" }}"),
+            ),
+            (
+                "[bench]\n",
+                &format!(
+                    "[bench]\ndrivers_dir = {}\n",
+                    toml::Value::String(repo("drivers"))
+                ),
+            ),
+        ],
     )
 }
 
@@ -288,10 +280,8 @@ fn station_with_attenuator(driver: &str, address: &str) -> String {
 fn the_served_four_channel_attenuator_sets_each_slots_channel_alone_with_the_shipped_driver() {
     use std::sync::Arc;
     use taucal::clock::{BenchClock, ClockMode};
-    let server = crate::instruments::Server::start_bench(
-        &crate::support::repo("recipes/benches/sim-station4.toml"),
-        &["attenuator=tcp:127.0.0.1:0"],
-    );
+    let server =
+        crate::instruments::Server::start_bench(&repo(STATION), &["attenuator=tcp:127.0.0.1:0"]);
     let text = station_with_attenuator("brindlecombe-fourfold90", &server.address("attenuator"));
     let bench =
         taucal::bench::Bench::parse(taucal::diagnostic::SourceFile::new("station.toml", text))
@@ -323,6 +313,21 @@ fn the_served_four_channel_attenuator_sets_each_slots_channel_alone_with_the_shi
     }
 }
 
+/// `taucal check` of the shipped factory recipe on the station `bench`, refused (exit 2).
+fn refused_station(bench: &str) -> crate::support::Outcome {
+    let out = Taucal::new()
+        .file("b.toml", bench)
+        .args([
+            "check",
+            &repo("recipes/factory-quick.toml"),
+            "--bench",
+            "b.toml",
+        ])
+        .run();
+    out.expect_code(2);
+    out
+}
+
 #[test]
 fn slot_mistakes_are_refused_with_the_key_and_what_would_be_right() {
     for (from, to, key) in [
@@ -339,20 +344,7 @@ fn slot_mistakes_are_refused_with_the_key_and_what_would_be_right() {
             "sim.slot.3.faults.reply_timeout_rate",
         ),
     ] {
-        let text =
-            std::fs::read_to_string(crate::support::repo("recipes/benches/sim-station4.toml"))
-                .expect("station bench");
-        assert!(text.contains(from), "{from}");
-        let out = Taucal::new()
-            .file("b.toml", &text.replacen(from, to, 1))
-            .args([
-                "check",
-                &crate::support::repo("recipes/factory-quick.toml"),
-                "--bench",
-                "b.toml",
-            ])
-            .run();
-        out.expect_code(2);
+        let out = refused_station(&shipped_with(STATION, &[(from, to)]));
         assert!(out.stderr.contains(key), "{key}: {}", out.stderr);
         assert!(out.stderr.contains("what would be right"), "{}", out.stderr);
     }
@@ -362,16 +354,7 @@ fn slot_mistakes_are_refused_with_the_key_and_what_would_be_right() {
         "channel = 5",
         1,
     );
-    let out = Taucal::new()
-        .file("b.toml", &five)
-        .args([
-            "check",
-            &crate::support::repo("recipes/factory-quick.toml"),
-            "--bench",
-            "b.toml",
-        ])
-        .run();
-    out.expect_code(2);
+    let out = refused_station(&five);
     assert!(
         out.stderr.contains("slot.3.channel") && out.stderr.contains("has 4"),
         "{}",
@@ -428,10 +411,9 @@ fn served_channels(address: &str) -> Vec<f64> {
 fn served_station_run(faults_in_c: &str) -> (crate::instruments::Server, crate::support::Outcome) {
     // The test station (range to the driver's 95 dB safe state), served whole: one attenuator
     // that takes a single connection, and each slot's DUT console under its role name.
-    let served = station(faults_in_c).replace("range_db = [0.0, 90.0]", "range_db = [0.0, 95.0]");
+    let served = station(faults_in_c).attenuator([0.0, 95.0], 0.5);
     let dir = tempfile::tempdir().expect("temp dir");
-    let served_path = dir.path().join("served.toml");
-    std::fs::write(&served_path, &served).expect("write");
+    let served_path = served.write_to(dir.path(), "served.toml");
     let listen = ["att4", "u1", "u2", "u3", "u4"].map(|r| format!("{r}=tcp:127.0.0.1:0"));
     let listen: Vec<&str> = listen.iter().map(String::as_str).collect();
     let server = crate::instruments::Server::start_with(
@@ -440,33 +422,23 @@ fn served_station_run(faults_in_c: &str) -> (crate::instruments::Server, crate::
         &["--max-clients", "1"],
     );
     // The same station driven: its roles at the served addresses, its truth left out.
-    let mut driven = served[..served.find("\n[sim]\n").expect("[sim]")].to_string();
-    driven = driven.replacen(
-        "[bench]\n",
+    let mut driven = served.shipped_drivers().role(
+        "att4",
         &format!(
-            "[bench]\ndrivers_dir = \"{}\"\n",
-            crate::support::repo("drivers")
-        ),
-        1,
-    );
-    driven = driven.replacen(
-        "att4 = { driver = \"sim-attenuator\", address = \"sim:\" }",
-        &format!(
-            "att4 = {{ driver = \"brindlecombe-fourfold90\", address = \"{}\" }}",
+            "{{ driver = \"brindlecombe-fourfold90\", address = \"{}\" }}",
             server.address("att4")
         ),
-        1,
     );
     for unit in ["u1", "u2", "u3", "u4"] {
-        driven = driven.replacen(
-            &format!("{unit} = {{ driver = \"sim-ranging\", address = \"sim:\" }}"),
+        driven = driven.role(
+            unit,
             &format!(
-                "{unit} = {{ driver = \"wren6-console\", address = \"{}\", timeout_ms = 300.0 }}",
+                "{{ driver = \"wren6-console\", address = \"{}\", timeout_ms = 300.0 }}",
                 server.address(unit)
             ),
-            1,
         );
     }
+    let driven = driven.text_without_sim();
     assert_eq!(
         driven.matches("\"sim:\"").count(),
         1,

@@ -2,88 +2,88 @@
 //! table, on benches that are not the demo's (other gain tables, clock offsets up to ±25 ppm,
 //! up to 5 % outliers, wrapping counters, a reference with two gain states).
 
+use crate::support::bench::TestBench;
+use crate::support::sweep::Sweep;
 use taucal::bench::{PathFacts, PerGain};
-use taucal::data::{Exchange, Taken};
+use taucal::data::Exchange;
 use taucal::fit::{Deembed, FitOptions, FitResult, Fitter};
-use taucal::sim::{BurstRequest, SimBench, SimTruth};
+use taucal::sim::SimTruth;
 
 struct Case {
     name: &'static str,
-    truth: &'static str,
+    /// The simulated truth: the base test bench at 15 dBm with this DUT and reference.
+    dut: &'static str,
+    reference: &'static str,
     path: PathFacts,
-    reference: PerGain,
+    /// The reference K the fitter is told.
+    reference_k: PerGain,
     bw_mhz: u32,
+}
+
+impl Case {
+    fn truth(&self) -> SimTruth {
+        TestBench::base()
+            .tx_power_dbm(15.0)
+            .sim_dut(self.dut)
+            .sim_reference(self.reference)
+            .truth()
+    }
 }
 
 fn cases() -> Vec<Case> {
     vec![
         Case {
             name: "two states, +25 ppm, 5 % outliers",
-            truth: r#"
-                tx_power_dbm = 15.0
-                [dut]
-                tx_delay_ps = 1200.0
+            dut: "tx_delay_ps = 1200.0
                 rx_delay_ps = [700.0, 1300.0]
                 gain_thresholds_dbm = [-45.0]
                 clock_ppm = 25.0
                 jitter_ps = 250.0
-                outlier_rate = 0.05
-                [reference]
-                delay_ps = 3100.0
-            "#,
+                outlier_rate = 0.05",
+            reference: "delay_ps = 3100.0",
             path: PathFacts {
                 cable_delay_ps: 4000.0,
                 fixed_loss_db: 8.0,
                 atten_delay_ps_per_db: 0.0,
             },
-            reference: PerGain::Same(3100.0),
+            reference_k: PerGain::Same(3100.0),
             bw_mhz: 80,
         },
         Case {
             name: "four states with hysteresis, -25 ppm, attenuator delay",
-            truth: r#"
-                tx_power_dbm = 15.0
-                [dut]
-                tx_delay_ps = 1700.0
+            dut: "tx_delay_ps = 1700.0
                 rx_delay_ps = [850.0, 1000.0, 1250.0, 1600.0]
                 gain_thresholds_dbm = [-25.0, -42.0, -60.0]
                 gain_hysteresis_db = 3.0
                 clock_ppm = -25.0
                 jitter_ps = 400.0
-                outlier_rate = 0.02
-                [reference]
-                delay_ps = 2500.0
-            "#,
+                outlier_rate = 0.02",
+            reference: "delay_ps = 2500.0",
             path: PathFacts {
                 cable_delay_ps: 9000.0,
                 fixed_loss_db: 8.0,
                 atten_delay_ps_per_db: 0.8,
             },
-            reference: PerGain::Same(2500.0),
+            reference_k: PerGain::Same(2500.0),
             bw_mhz: 40,
         },
         Case {
             name: "reference with two gain states, 20 MHz, large burst offsets",
-            truth: r#"
-                tx_power_dbm = 15.0
-                [dut]
-                tx_delay_ps = 1500.0
+            dut: "tx_delay_ps = 1500.0
                 rx_delay_ps = [900.0, 1150.0, 1400.0]
                 gain_thresholds_dbm = [-30.0, -55.0]
                 clock_ppm = -11.0
                 jitter_ps = 300.0
                 outlier_rate = 0.01
-                burst_offset_ps = 60.0
-                [reference]
-                delay_ps = [2800.0, 2950.0]
-                gain_thresholds_dbm = [-40.0]
-            "#,
+                burst_offset_ps = 60.0",
+            reference: "delay_ps = [2800.0, 2950.0]
+                gain_thresholds_dbm = [-40.0]",
             path: PathFacts {
                 cable_delay_ps: 6100.0,
                 fixed_loss_db: 8.0,
                 atten_delay_ps_per_db: 0.0,
             },
-            reference: PerGain::Each(vec![2800.0, 2950.0]),
+            reference_k: PerGain::Each(vec![2800.0, 2950.0]),
             bw_mhz: 20,
         },
     ]
@@ -91,57 +91,26 @@ fn cases() -> Vec<Case> {
 
 /// Sweeps 17..89 dB in `step_db` steps with `bursts` bursts of 16 per point.
 fn simulate(case: &Case, seed: u64, step_db: f64, bursts: u32) -> (SimTruth, Vec<Exchange>) {
-    let truth: SimTruth = toml::from_str(case.truth).expect("truth parses");
-    let mut bench = SimBench::new(&truth, &case.path, seed).expect("valid truth");
-    let mut rows = Vec::new();
-    let mut now_ps = 0u64;
-    let mut atten = 17.0;
-    let mut point = 0;
-    while atten <= 89.0 {
-        bench.set_atten_db(atten);
-        for burst in 0..bursts {
-            let out = bench.run_burst(
-                now_ps,
-                &BurstRequest {
-                    frames: 16,
-                    center_mhz: 5180,
-                    bw_mhz: case.bw_mhz,
-                },
-            );
-            // Bursts spaced 200 ms apart, so an hour-long counter span is not needed for wraps:
-            // the counters start at random 48-bit values.
-            now_ps += out.duration_ps + 200_000_000_000;
-            let at = Taken {
-                stage: "sweep",
-                point,
-                burst,
-                atten_db: atten,
-                center_mhz: 5180,
-                bw_mhz: case.bw_mhz,
-                temp_c: None,
-                time_s: None,
-            };
-            rows.extend(
-                out.exchanges
-                    .into_iter()
-                    .enumerate()
-                    .map(|(seq, d)| Exchange::recorded(&at, seq as u32, d)),
-            );
-        }
-        atten += step_db;
-        point += 1;
-    }
+    let truth = case.truth();
+    // Bursts spaced 200 ms apart, so an hour-long counter span is not needed for wraps: the
+    // counters start at random 48-bit values.
+    let sweep = Sweep {
+        stage: "sweep",
+        center_mhz: 5180,
+        bw_mhz: case.bw_mhz,
+        frames: 16,
+        bursts,
+        gap_ps: 200_000_000_000,
+    };
+    let points = (0..)
+        .map(|i| 17.0 + step_db * f64::from(i))
+        .take_while(|atten| *atten <= 89.0);
+    let rows = sweep.run(&truth, &case.path, seed, points);
     (truth, rows)
 }
 
 fn fit(case: &Case, rows: &[Exchange]) -> FitResult {
-    let deembed = Deembed {
-        cable_delay_ps: case.path.cable_delay_ps,
-        atten_delay_ps_per_db: case.path.atten_delay_ps_per_db,
-        reference_delay: case.reference.clone(),
-        applied_k_ps: None,
-        measured: None,
-    };
+    let deembed = Deembed::new(&case.path, case.reference_k.clone());
     let mut f = Fitter::new(deembed, FitOptions::default());
     for r in rows {
         f.push(r);

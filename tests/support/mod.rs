@@ -5,6 +5,9 @@ pub mod browser;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
+pub mod bench;
+pub mod sweep;
+
 /// The repository root (recipes, benches).
 pub fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
