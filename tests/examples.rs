@@ -189,6 +189,8 @@ enum Kind {
     MeasuredPath,
     /// A reference unit's certificate file.
     Certificate,
+    /// A simulated fleet, then its pages served.
+    FleetServe,
     /// Lines of `taucal` commands on the repository's files.
     Commands,
     /// Runs into the results store and the store commands on them, in one directory.
@@ -260,6 +262,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "sh" if text.contains("taucal sim serve") => Kind::Served,
         "sh" if text.contains("taucal store ") => Kind::Store,
         "sh" if text.contains("taucal fleet plan") => Kind::Plan,
+        "sh" if text.contains("taucal fleet serve") => Kind::FleetServe,
         "sh" if text.contains("taucal sim fleet") => Kind::Fleet,
         "sh" if commands(block).iter().all(|c| c.starts_with("taucal ")) => Kind::Commands,
         "" if text.starts_with("taucal run RECIPE") => Kind::Synopsis,
@@ -830,6 +833,33 @@ fn readme_fleet_example_runs_as_printed() {
         .collect();
     assert_eq!(flagged.len(), 1, "{}", outputs[2]);
     assert!(flagged[0].starts_with("line-d"), "{}", outputs[2]);
+}
+
+#[test]
+fn readme_fleet_serve_example_serves_the_fleet() {
+    use crate::fleet_pages::{table, Server};
+    let lines = commands(&the_block(Kind::FleetServe));
+    assert_eq!(lines.len(), 2, "{lines:?}");
+    let out = run_as_printed(&lines[0]);
+    out.expect_code(0);
+    assert!(out.stdout.contains("calibrated 60 units"), "{}", out.stdout);
+    // The server as printed, but on a free port (tests run side by side, and a fixed port may
+    // be taken): everything after `serve` up to --listen is passed as written.
+    let args = taucal_args(&lines[1]);
+    assert_eq!(&args[..2], ["fleet", "serve"]);
+    let listen = args.iter().position(|a| a == "--listen").expect("--listen");
+    assert_eq!(args[listen + 1], "127.0.0.1:8090");
+    let rest: Vec<&str> = args[2..listen].iter().map(String::as_str).collect();
+    assert_eq!(rest, ["--store", "sqlite:line2.sqlite"]);
+    let server = Server::start(out.dir.path(), rest[1], &[]);
+    assert_eq!(table(&server.page("/"), "units").len(), 60);
+    let stations = table(&server.page("/stations"), "stations");
+    let flagged: Vec<&str> = stations
+        .iter()
+        .filter(|r| r[4] == "yes")
+        .map(|r| r[0].as_str())
+        .collect();
+    assert_eq!(flagged, ["line-d"], "{stations:?}");
 }
 
 #[test]

@@ -12,6 +12,7 @@ mod examples;
 mod exec;
 mod fit_offline;
 mod fleet;
+mod fleet_pages;
 mod forms;
 mod fuzz;
 mod gain_switch;

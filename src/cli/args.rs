@@ -106,6 +106,34 @@ pub enum FleetCommand {
         after_help = "From each unit's latest accepted table: the fleet's mean and Ledoit–Wolf covariance over\ncells, and the N cells (chosen greedily) that keep the worst prediction SD of the others\nsmallest. MODEL.toml is the predictor a recipe names in `[fit] predict`; --validate leaves\neach unit out in turn and reports how often the 95 % prediction intervals held its measured\nvalues, and the exchanges the plan spends against the full calibration.\n\nExamples:\n  taucal fleet plan --measure 1 --out model.toml --max-ci95-ps 50 --validate\n  taucal fleet plan --store postgres://line4@db.lab/cal --measure 4 --out line4-model.toml"
     )]
     Plan(FleetPlanArgs),
+    /// Serve the fleet as web pages: units, a unit's runs and table, a cell's population,
+    /// the stations' offsets.
+    #[command(
+        after_help = "Read-only pages computed as `fleet stats`, `fleet stations`, `store units` and `store table`\ncompute them, from the store at each request. Listens on loopback unless --allow-remote.\nPrints the address it serves, then runs until SIGINT or SIGTERM.\n\nExamples:\n  taucal fleet serve --store sqlite:runs/taucal.sqlite\n  taucal fleet serve --store postgres://line4@db.lab/cal --listen 0.0.0.0:8090 --allow-remote"
+    )]
+    Serve(FleetServeArgs),
+}
+
+/// `taucal fleet serve`.
+#[derive(Debug, Args)]
+pub struct FleetServeArgs {
+    #[command(flatten)]
+    pub store: StoreReadArg,
+    /// Address to listen on (port 0: any free port, printed at start).
+    #[arg(long, value_name = "ADDR", default_value = "127.0.0.1:8090")]
+    pub listen: String,
+    /// Allow an address other than loopback (the pages have no login: anyone who can reach
+    /// the port reads the store's units and tables).
+    #[arg(long)]
+    pub allow_remote: bool,
+    /// Smallest station offset worth flagging, ps (as `fleet stations`).
+    #[arg(
+        long,
+        value_name = "PS",
+        default_value_t = 20.0,
+        allow_negative_numbers = true
+    )]
+    pub threshold_ps: f64,
 }
 
 /// `taucal fleet plan`.

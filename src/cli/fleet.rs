@@ -13,6 +13,8 @@ use crate::fleet::outliers::{outliers, CUTOFF_Z};
 use crate::fleet::plan::{plan as make_plan, population};
 use crate::fleet::plan_recipe::reduce;
 use crate::fleet::plan_validate::leave_one_out;
+use crate::fleet::shown::{num, outlier_row, station_row, stats_row};
+use crate::fleet::shown::{OUTLIER_HEADER, STATIONS_HEADER, STATS_HEADER};
 use crate::fleet::stations::station_offsets;
 use crate::store::FleetCell;
 
@@ -22,6 +24,7 @@ pub fn run(command: FleetCommand) -> Result<Exit, Diagnostic> {
         FleetCommand::Stats(a) => stats(a),
         FleetCommand::Stations(a) => stations(a),
         FleetCommand::Plan(a) => plan(a),
+        FleetCommand::Serve(a) => super::fleet_serve::run(a),
     }
 }
 
@@ -37,15 +40,6 @@ fn fleet(store: &crate::cli::args::StoreReadArg) -> Result<Vec<FleetCell>, Diagn
         .with_hint("`taucal store units` lists the units and whether each has an accepted run"));
     }
     Ok(cells)
-}
-
-/// A number as printed: fixed decimals, empty when not known.
-fn num(v: f64, decimals: usize) -> String {
-    if v.is_finite() {
-        format!("{v:.decimals$}")
-    } else {
-        String::new()
-    }
 }
 
 /// Prints `rows` under `header`: CSV, or text with numbers right-aligned.
@@ -99,41 +93,8 @@ fn print_table(
 fn stats(args: FleetStatsArgs) -> Result<Exit, Diagnostic> {
     let cells = fleet(&args.store)?;
     let stats = cell_stats(&cells);
-    let header = [
-        "center_mhz",
-        "bw_mhz",
-        "gain_index",
-        "units",
-        "mean_ps",
-        "sd_ps",
-        "p05_ps",
-        "p50_ps",
-        "p95_ps",
-        "tol_lo_ps",
-        "tol_hi_ps",
-        "noise_sd_ps",
-        "unit_sd_ps",
-    ];
-    let rows: Vec<Vec<String>> = stats
-        .iter()
-        .map(|s| {
-            vec![
-                s.cell.0.to_string(),
-                s.cell.1.to_string(),
-                s.cell.2.to_string(),
-                s.units.to_string(),
-                num(s.mean_ps, 1),
-                num(s.sd_ps, 1),
-                num(s.p05_ps, 1),
-                num(s.p50_ps, 1),
-                num(s.p95_ps, 1),
-                num(s.tol_lo_ps, 1),
-                num(s.tol_hi_ps, 1),
-                num(s.noise_sd_ps, 1),
-                num(s.unit_sd_ps, 1),
-            ]
-        })
-        .collect();
+    let header = STATS_HEADER;
+    let rows: Vec<Vec<String>> = stats.iter().map(stats_row).collect();
     print_table(&header, &rows, args.format)?;
     if args.format == ListFormat::Text {
         println!(
@@ -155,62 +116,31 @@ fn stats(args: FleetStatsArgs) -> Result<Exit, Diagnostic> {
                 out.len(),
                 devs.len()
             );
-            let header = [
-                "serial",
-                "station",
-                "deviation_ps",
-                "score_z",
-                "worst_cell",
-                "worst_cell_z",
-            ];
-            let rows: Vec<Vec<String>> = out
-                .iter()
-                .map(|o| {
-                    let (c, b, g) = o.unit.worst_cell;
-                    vec![
-                        o.unit.serial.clone(),
-                        o.unit.station.clone(),
-                        num(o.unit.deviation_ps, 1),
-                        num(o.score, 1),
-                        format!("{c}/{b}/{g}"),
-                        num(o.unit.worst_z, 1),
-                    ]
-                })
-                .collect();
-            print_table(&header, &rows, ListFormat::Text)?;
+            let rows: Vec<Vec<String>> = out.iter().map(outlier_row).collect();
+            print_table(&OUTLIER_HEADER, &rows, ListFormat::Text)?;
         }
     }
     Ok(Exit::Ok)
 }
 
-fn stations(args: FleetStationsArgs) -> Result<Exit, Diagnostic> {
-    if !(args.threshold_ps.is_finite() && args.threshold_ps >= 0.0) {
+/// Refuses a `--threshold-ps` that is no size of offset.
+pub(super) fn check_threshold(threshold_ps: f64) -> Result<(), Diagnostic> {
+    if !(threshold_ps.is_finite() && threshold_ps >= 0.0) {
         return Err(Diagnostic::plain(format!(
-            "--threshold-ps {}: not a size of offset",
-            args.threshold_ps
+            "--threshold-ps {threshold_ps}: not a size of offset"
         ))
         .with_hint("give a number of ps ≥ 0, e.g. --threshold-ps 20"));
     }
+    Ok(())
+}
+
+fn stations(args: FleetStationsArgs) -> Result<Exit, Diagnostic> {
+    check_threshold(args.threshold_ps)?;
     let cells = fleet(&args.store)?;
     let offsets = station_offsets(&deviations(&cells), args.threshold_ps);
-    let header = ["station", "units", "offset_ps", "ci95_ps", "flagged"];
-    let rows: Vec<Vec<String>> = offsets
-        .iter()
-        .map(|o| {
-            let flag = match (o.flagged, o.reference, args.format) {
-                (true, _, _) => "yes",
-                (false, true, ListFormat::Text) => "no (reference)",
-                _ => "no",
-            };
-            vec![
-                o.station.clone(),
-                o.units.to_string(),
-                num(o.offset_ps, 1),
-                num(o.ci95_ps, 1),
-                flag.to_string(),
-            ]
-        })
-        .collect();
+    let header = STATIONS_HEADER;
+    let text = args.format == ListFormat::Text;
+    let rows: Vec<Vec<String>> = offsets.iter().map(|o| station_row(o, text)).collect();
     print_table(&header, &rows, args.format)?;
     if args.format == ListFormat::Text {
         let flagged = offsets.iter().filter(|o| o.flagged).count();

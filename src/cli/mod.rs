@@ -9,6 +9,7 @@ pub mod exit;
 pub mod export;
 pub mod fit;
 pub mod fleet;
+pub mod fleet_serve;
 pub mod log;
 pub mod ota;
 pub mod pairs;

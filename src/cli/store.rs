@@ -4,10 +4,9 @@ use super::args::{ListFormat, StoreCommand, StoreImportArgs, StoreReadArg, Store
 use super::args::{StoreTableArgs, StoreUnitsArgs};
 use super::{log, Exit};
 use crate::diagnostic::Diagnostic;
-use crate::export::{render, ExportTable, RunFacts};
-use crate::fit::cal_row::RowSource;
-use crate::fit::TableRow;
+use crate::export::render;
 use crate::store::resolve::{self, DEFAULT_FILE};
+use crate::store::table::export_table;
 use crate::store::url::URL_HINT;
 use crate::store::{self as results, RunRecord, Store, StoreError, StoreUrl};
 use std::collections::BTreeMap;
@@ -265,37 +264,9 @@ fn table(args: StoreTableArgs) -> Result<Exit, Diagnostic> {
         ))
         .with_hint("`taucal store units` lists the units and whether each has an accepted run"));
     };
-    let mut rows = Vec::new();
-    for c in &rec.cells {
-        let source = RowSource::parse(&c.source).ok_or_else(|| {
-            Diagnostic::plain(format!(
-                "run {}: cell source `{}` is one this taucal cannot export",
-                rec.run.run_id, c.source
-            ))
-            .with_hint("use the taucal that wrote the run, or a newer one")
-        })?;
-        rows.push(TableRow {
-            center_mhz: c.center_mhz as u32,
-            bw_mhz: c.bw_mhz as u32,
-            gain_index: c.gain_index as u32,
-            delay_ps: c.delay_ps,
-            ci95_ps: c.ci95_ps,
-            n_used: c.n_used as u64,
-            n_rejected: c.n_rejected as u64,
-            source,
-            // The store keeps the design §4 columns of a cell; its budget stays in the run.
-            budget: None,
-        });
-    }
-    let table = ExportTable {
-        run: RunFacts {
-            recipe_name: rec.run.recipe_name.clone(),
-            recipe_sha256: rec.run.recipe_sha256.clone(),
-            bench_name: rec.run.bench_name.clone(),
-            started_utc: rec.run.started_utc.clone(),
-        },
-        rows,
-    };
+    let table = export_table(&rec).map_err(|e| {
+        Diagnostic::plain(e.to_string()).with_hint("use the taucal that wrote the run, or a newer one")
+    })?;
     let text = render(&table, args.format.into())
         .map_err(|e| Diagnostic::plain(format!("run {}: {e}", rec.run.run_id)))?;
     log::notice(&format!(

@@ -8,6 +8,8 @@ pub mod outliers;
 pub mod plan;
 pub mod plan_recipe;
 pub mod plan_validate;
+pub mod shown;
 pub mod shrinkage;
+pub mod station_cells;
 pub mod stations;
 pub mod tolerance;

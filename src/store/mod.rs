@@ -14,10 +14,11 @@ pub mod resolve;
 pub mod schema;
 pub mod sqlite;
 pub mod sync;
+pub mod table;
 pub mod url;
 
 pub use error::StoreError;
-pub use record::RunRecord;
+pub use record::{RunRecord, RunRow};
 pub use url::StoreUrl;
 
 /// A run's state as a store holds it, for `sync` to see what a destination lacks.
@@ -85,6 +86,9 @@ pub trait Store {
     fn latest_accepted(&mut self, serial: &str) -> Result<Option<RunRecord>, StoreError>;
     /// The measured cells of every unit's latest accepted run, in no particular order.
     fn fleet_cells(&mut self) -> Result<Vec<FleetCell>, StoreError>;
+    /// The runs of unit `serial`, or of every unit, each unit's oldest first (without their
+    /// tables).
+    fn runs(&mut self, serial: Option<&str>) -> Result<Vec<RunRow>, StoreError>;
 }
 
 /// Opens (creating or migrating) the store at `url`; `None` for `none`.

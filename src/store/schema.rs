@@ -128,3 +128,15 @@ pub const FLEET_CELLS_QUERY: &str = "WITH latest AS (
     c.n_used + c.n_rejected
   FROM latest l JOIN cal_cells c ON c.run_id = l.run_id
   WHERE l.pick = 1 AND c.source IN ('measured', 'inferred')";
+
+/// The columns of a `runs` row, in [`crate::store::record::RunRow`]'s order.
+const RUN_COLUMNS: &str = "run_id, unit_serial, station, recipe_name, recipe_sha256, bench_sha256,
+    status, accepted, simulated, seed, started_utc, finished_utc, bench_time_s, wall_time_s,
+    taucal_version, dir, bench_name";
+
+/// Every run's row (`one_unit` false), or one unit's (`$1`), each unit's oldest first, in the
+/// order [`UNITS_QUERY`] takes a unit's latest from.
+pub fn runs_query(one_unit: bool) -> String {
+    let filter = if one_unit { " WHERE unit_serial = $1" } else { "" };
+    format!("SELECT {RUN_COLUMNS} FROM runs{filter} ORDER BY unit_serial, started_utc, run_id")
+}

@@ -428,4 +428,37 @@ impl Store for SqliteStore {
         drop(s);
         rows.map_err(|e| self.query_err(e))
     }
+
+    fn runs(&mut self, serial: Option<&str>) -> Result<Vec<RunRow>, StoreError> {
+        let sql = super::schema::runs_query(serial.is_some()).replace("$1", "?1");
+        let mut s = self.conn.prepare(&sql).map_err(|e| self.query_err(e))?;
+        let row = |r: &rusqlite::Row| {
+            Ok(RunRow {
+                run_id: r.get(0)?,
+                unit_serial: r.get(1)?,
+                station: r.get(2)?,
+                recipe_name: r.get(3)?,
+                recipe_sha256: r.get(4)?,
+                bench_sha256: r.get(5)?,
+                status: r.get(6)?,
+                accepted: r.get(7)?,
+                simulated: r.get(8)?,
+                seed: r.get(9)?,
+                started_utc: r.get(10)?,
+                finished_utc: r.get(11)?,
+                bench_time_s: r.get(12)?,
+                wall_time_s: r.get(13)?,
+                taucal_version: r.get(14)?,
+                dir: r.get(15)?,
+                bench_name: r.get(16)?,
+            })
+        };
+        let rows = match serial {
+            Some(serial) => s.query_map([serial], row),
+            None => s.query_map([], row),
+        }
+        .and_then(|rows| rows.collect::<Result<Vec<_>, _>>());
+        drop(s);
+        rows.map_err(|e| self.query_err(e))
+    }
 }

@@ -6,6 +6,8 @@
 //! and the Content-Security-Policy sent with every page makes the browser refuse anything else.
 //! Nothing here may block or slow the caller's thread: the server runs on its own runtime.
 
+pub mod fleet;
+
 use axum::http::header;
 use axum::response::{IntoResponse, Response};
 use axum::Router;

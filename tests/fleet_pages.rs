@@ -1,0 +1,258 @@
+//! The fleet pages (`taucal fleet serve`) through the real binary: a server on an ephemeral
+//! port over a store filled by `taucal sim fleet` on the Dunmere line bench, its pages fetched
+//! over HTTP and parsed, and every number they show compared with what `fleet stats`,
+//! `fleet stations`, `store units` and `store table` print as CSV — on SQLite, and on
+//! PostgreSQL where `TAUCAL_TEST_POSTGRES` names a server.
+
+use crate::store::PgDatabase;
+use crate::support::{repo, Taucal};
+use scraper::{Html, Selector};
+use std::io::{BufRead, BufReader, Read, Write};
+use std::net::TcpStream;
+use std::path::Path;
+use std::process::{Child, Command, Stdio};
+
+const BENCH: &str = "recipes/benches/sim-fleet-line.toml";
+const RECIPE: &str = "recipes/factory-quick.toml";
+
+/// A store of `units` simulated units over the bench's five stations, in a fresh directory.
+pub(crate) fn filled_store(units: u32, seed: u64) -> tempfile::TempDir {
+    let (recipe, bench) = (repo(RECIPE), repo(BENCH));
+    let out = Taucal::new()
+        .args([
+            "sim",
+            "fleet",
+            &recipe,
+            "--bench",
+            &bench,
+            "--units",
+            &units.to_string(),
+            "--seed",
+            &seed.to_string(),
+            "--store",
+            "sqlite:fleet.sqlite",
+            "--out",
+            "runs",
+        ])
+        .run();
+    out.expect_code(0);
+    out.dir
+}
+
+/// A running `taucal fleet serve`, stopped (SIGTERM, then waited for) when dropped.
+pub(crate) struct Server {
+    child: Child,
+    /// `http://127.0.0.1:PORT`, no trailing slash.
+    pub(crate) base: String,
+}
+
+impl Server {
+    /// Serves `store` from `dir` on a free loopback port, with `extra` arguments.
+    pub(crate) fn start(dir: &Path, store: &str, extra: &[&str]) -> Server {
+        let mut child = Command::new(env!("CARGO_BIN_EXE_taucal"))
+            .args(["fleet", "serve", "--store", store, "--listen", "127.0.0.1:0"])
+            .args(extra)
+            .current_dir(dir)
+            .stdout(Stdio::piped())
+            .stderr(Stdio::inherit())
+            .spawn()
+            .expect("start taucal fleet serve");
+        let mut line = String::new();
+        BufReader::new(child.stdout.take().expect("stdout"))
+            .read_line(&mut line)
+            .expect("the address line");
+        let base = line
+            .split_whitespace()
+            .find_map(|w| w.strip_prefix("http://"))
+            .unwrap_or_else(|| panic!("no address in `{line}`"))
+            .trim_end_matches('/')
+            .to_string();
+        Server {
+            child,
+            base: format!("http://{base}"),
+        }
+    }
+
+    /// GET `path`: the status code and the body.
+    pub(crate) fn get(&self, path: &str) -> (u16, String) {
+        let host = self.base.trim_start_matches("http://");
+        let mut s = TcpStream::connect(host).expect("connect");
+        write!(
+            s,
+            "GET {path} HTTP/1.1\r\nHost: {host}\r\nConnection: close\r\n\r\n"
+        )
+        .expect("request");
+        let mut raw = String::new();
+        s.read_to_string(&mut raw).expect("response");
+        let (head, body) = raw.split_once("\r\n\r\n").expect("a response");
+        let status = head
+            .split_whitespace()
+            .nth(1)
+            .and_then(|c| c.parse().ok())
+            .expect("status");
+        assert!(
+            !head.to_ascii_lowercase().contains("transfer-encoding: chunked"),
+            "a page has a known length"
+        );
+        (status, body.to_string())
+    }
+
+    /// GET `path`, which must answer 200, parsed.
+    pub(crate) fn page(&self, path: &str) -> Html {
+        let (status, body) = self.get(path);
+        assert_eq!(status, 200, "{path}:\n{body}");
+        Html::parse_document(&body)
+    }
+}
+
+impl Drop for Server {
+    fn drop(&mut self) {
+        let pid = nix::unistd::Pid::from_raw(self.child.id() as i32);
+        let _ = nix::sys::signal::kill(pid, nix::sys::signal::Signal::SIGTERM);
+        let _ = self.child.wait();
+    }
+}
+
+/// The text of each cell of each body row of table `#id`.
+pub(crate) fn table(page: &Html, id: &str) -> Vec<Vec<String>> {
+    let rows = Selector::parse(&format!("table#{id} tbody tr")).expect("selector");
+    let cells = Selector::parse("td").expect("selector");
+    page.select(&rows)
+        .map(|r| {
+            r.select(&cells)
+                .map(|c| c.text().collect::<String>().trim().to_string())
+                .collect()
+        })
+        .collect()
+}
+
+/// `taucal ARGS` in `dir` (which must succeed): its CSV output's data rows.
+pub(crate) fn csv_rows(dir: &Path, args: &[&str]) -> Vec<Vec<String>> {
+    let out = Command::new(env!("CARGO_BIN_EXE_taucal"))
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .expect("run taucal");
+    assert!(
+        out.status.success(),
+        "{args:?}: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let mut r = csv::Reader::from_reader(out.stdout.as_slice());
+    r.records()
+        .map(|rec| rec.expect("CSV row").iter().map(String::from).collect())
+        .collect()
+}
+
+fn first(rows: &[Vec<String>], n: usize) -> Vec<Vec<String>> {
+    rows.iter().map(|r| r[..n.min(r.len())].to_vec()).collect()
+}
+
+/// Every page of the server on `store` shows what the commands print from it.
+fn pages_equal_commands(dir: &Path, store: &str) {
+    let server = Server::start(dir, store, &[]);
+    // The cells' page: `fleet stats`, row for row.
+    let stats = csv_rows(dir, &["fleet", "stats", "--store", store, "--format", "csv"]);
+    assert_eq!(stats.len(), 3, "three gain states");
+    let cells = server.page("/cells");
+    assert_eq!(first(&table(&cells, "cells"), 13), stats);
+    // The stations' page: `fleet stations`, row for row.
+    let stations = csv_rows(dir, &["fleet", "stations", "--store", store, "--format", "csv"]);
+    assert_eq!(stations.len(), 5);
+    let page = server.page("/stations");
+    assert_eq!(first(&table(&page, "stations"), 5), stations);
+    // The units' list: `store units`, the page's station column aside, the time as stored.
+    let units = csv_rows(dir, &["store", "units", "--store", store, "--format", "csv"]);
+    let page = server.page("/");
+    let times = Selector::parse("table#units tbody time").expect("selector");
+    let shown_times: Vec<String> = page
+        .select(&times)
+        .map(|t| t.value().attr("datetime").expect("datetime").to_string())
+        .collect();
+    let shown: Vec<Vec<String>> = table(&page, "units")
+        .into_iter()
+        .zip(shown_times)
+        .map(|(r, t)| vec![r[0].clone(), r[1].clone(), r[3].clone(), t, r[5].clone(), r[6].clone()])
+        .collect();
+    assert_eq!(shown, units);
+    // A unit's page: its table is `store table`'s.
+    let serial = &units[7][0];
+    let want = csv_rows(dir, &["store", "table", serial, "--store", store, "--format", "csv"]);
+    let page = server.page(&format!("/unit/{serial}"));
+    let width = want[0].len();
+    assert_eq!(first(&table(&page, "caltable"), width), want);
+    assert_eq!(table(&page, "runs").len(), units[7][2].parse::<usize>().expect("runs"));
+    assert!(!table(&page, "verify").is_empty(), "factory-quick verifies");
+    // A cell's page: its line of `fleet stats`, and its stations' units add up to the cell's.
+    for row in &stats {
+        let page = server.page(&format!("/cell/{}/{}/{}", row[0], row[1], row[2]));
+        assert_eq!(table(&page, "stats"), [row.clone()]);
+        let by_station = table(&page, "by-station");
+        assert_eq!(by_station.len(), 5);
+        let n: usize = by_station.iter().map(|r| r[1].parse::<usize>().expect("units")).sum();
+        assert_eq!(n.to_string(), row[3]);
+        assert_eq!(page.select(&Selector::parse("svg").expect("s")).count(), 2);
+    }
+}
+
+#[test]
+fn the_pages_show_what_the_fleet_and_store_commands_print() {
+    let dir = filled_store(40, 31);
+    pages_equal_commands(dir.path(), "sqlite:fleet.sqlite");
+    let Some(db) = PgDatabase::new("fleet_pages") else {
+        return;
+    };
+    let synced = Taucal::in_dir(dir)
+        .args(["store", "sync", "--store", "sqlite:fleet.sqlite", "--to", &db.url])
+        .run();
+    synced.expect_code(0);
+    pages_equal_commands(synced.dir.path(), &db.url);
+}
+
+#[test]
+fn the_units_list_searches_and_filters_and_a_missing_unit_is_404() {
+    let dir = filled_store(10, 32);
+    let server = Server::start(dir.path(), "sqlite:fleet.sqlite", &[]);
+    let all = table(&server.page("/"), "units");
+    assert_eq!(all.len(), 10);
+    let serial = &all[3][0];
+    let one = table(&server.page(&format!("/?q={}", serial.to_lowercase())), "units");
+    assert_eq!(one.len(), 1);
+    assert_eq!(&one[0][0], serial);
+    let station = &all[3][2];
+    let at = table(&server.page(&format!("/?station={station}")), "units");
+    assert!(!at.is_empty() && at.len() < 10, "{at:?}");
+    assert!(at.iter().all(|r| &r[2] == station), "{at:?}");
+    assert_eq!(table(&server.page("/?status=not-accepted"), "units").len(), 0);
+    assert_eq!(table(&server.page("/?status=accepted"), "units").len(), 10);
+    assert_eq!(table(&server.page("/?to=2000-01-01"), "units").len(), 0);
+    assert_eq!(table(&server.page("/?from=2000-01-01"), "units").len(), 10);
+    let (status, body) = server.get("/?from=2000-13-01");
+    assert_eq!(status, 200);
+    assert!(body.contains("is not a day"), "{body}");
+    let (status, body) = server.get("/unit/NO-SUCH-UNIT");
+    assert_eq!(status, 404);
+    assert!(body.contains("NO-SUCH-UNIT"), "{body}");
+    assert_eq!(server.get("/cell/1/2/3").0, 404);
+    assert_eq!(server.get("/nowhere").0, 404);
+}
+
+#[test]
+fn the_server_keeps_to_loopback_unless_allowed_and_refuses_bad_input() {
+    let dir = filled_store(3, 33);
+    let out = Taucal::in_dir(dir)
+        .args(["fleet", "serve", "--store", "sqlite:fleet.sqlite", "--listen", "0.0.0.0:0"])
+        .run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("--allow-remote"), "{}", out.stderr);
+    let out = Taucal::in_dir(out.dir)
+        .args(["fleet", "serve", "--store", "sqlite:absent.sqlite"])
+        .run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("does not exist"), "{}", out.stderr);
+    let out = Taucal::in_dir(out.dir)
+        .args(["fleet", "serve", "--store", "sqlite:fleet.sqlite", "--threshold-ps", "-1"])
+        .run();
+    out.expect_code(2);
+    assert!(out.stderr.contains("--threshold-ps -1"), "{}", out.stderr);
+}
