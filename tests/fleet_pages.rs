@@ -182,7 +182,7 @@ fn pages_equal_commands(dir: &Path, store: &str) {
     let width = want[0].len();
     assert_eq!(first(&table(&page, "caltable"), width), want);
     assert_eq!(table(&page, "runs").len(), units[7][2].parse::<usize>().expect("runs"));
-    assert!(!table(&page, "verify").is_empty(), "factory-quick verifies");
+    assert!(page.html().contains("This run verified nothing"), "factory-quick verifies nothing");
     // A cell's page: its line of `fleet stats`, and its stations' units add up to the cell's.
     for row in &stats {
         let page = server.page(&format!("/cell/{}/{}/{}", row[0], row[1], row[2]));
@@ -212,9 +212,43 @@ fn the_pages_show_what_the_fleet_and_store_commands_print() {
 #[test]
 fn the_units_list_searches_and_filters_and_a_missing_unit_is_404() {
     let dir = filled_store(10, 32);
+    // One unit calibrated by the demo recipe, which verifies its table, into the same store.
+    let demo = Taucal::in_dir(dir)
+        .args([
+            "run",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--unit",
+            "SN-DEMO-1",
+            "--store",
+            "sqlite:fleet.sqlite",
+            "--out",
+            "runs/demo",
+            "-q",
+        ])
+        .run();
+    demo.expect_code(0);
+    let dir = demo.dir;
     let server = Server::start(dir.path(), "sqlite:fleet.sqlite", &[]);
     let all = table(&server.page("/"), "units");
-    assert_eq!(all.len(), 10);
+    assert_eq!(all.len(), 11);
+    // Its page's verification is the run's verify.csv, level for level.
+    let verify = std::fs::read_to_string(dir.path().join("runs/demo/verify.csv")).expect("verify");
+    let mut file = csv::Reader::from_reader(verify.as_bytes());
+    let names: Vec<String> = file.headers().expect("header").iter().map(String::from).collect();
+    let page = server.page("/unit/SN-DEMO-1");
+    let heads = Selector::parse("table#verify thead th").expect("selector");
+    let shown_names: Vec<String> = page.select(&heads).map(|h| h.text().collect()).collect();
+    let shown = table(&page, "verify");
+    let rows: Vec<csv::StringRecord> = file.records().map(|r| r.expect("row")).collect();
+    assert_eq!(shown.len(), rows.len());
+    assert!(!rows.is_empty());
+    for (row, page_row) in rows.iter().zip(&shown) {
+        for (i, name) in shown_names.iter().enumerate() {
+            let at = names.iter().position(|n| n == name).expect("a verify.csv column");
+            let (a, b): (f64, f64) = (row[at].parse().expect("n"), page_row[i].parse().expect("n"));
+            assert_eq!(a, b, "{name}");
+        }
+    }
     let serial = &all[3][0];
     let one = table(&server.page(&format!("/?q={}", serial.to_lowercase())), "units");
     assert_eq!(one.len(), 1);
@@ -224,9 +258,11 @@ fn the_units_list_searches_and_filters_and_a_missing_unit_is_404() {
     assert!(!at.is_empty() && at.len() < 10, "{at:?}");
     assert!(at.iter().all(|r| &r[2] == station), "{at:?}");
     assert_eq!(table(&server.page("/?status=not-accepted"), "units").len(), 0);
-    assert_eq!(table(&server.page("/?status=accepted"), "units").len(), 10);
+    assert_eq!(table(&server.page("/?status=accepted"), "units").len(), 11);
+    assert_eq!(table(&server.page("/?status=completed"), "units").len(), 11);
+    assert_eq!(table(&server.page("/?status=failed"), "units").len(), 0);
     assert_eq!(table(&server.page("/?to=2000-01-01"), "units").len(), 0);
-    assert_eq!(table(&server.page("/?from=2000-01-01"), "units").len(), 10);
+    assert_eq!(table(&server.page("/?from=2000-01-01"), "units").len(), 11);
     let (status, body) = server.get("/?from=2000-13-01");
     assert_eq!(status, 200);
     assert!(body.contains("is not a day"), "{body}");

@@ -122,6 +122,7 @@ pub fn body(units: &[UnitSummary], runs: &[RunRow], filter: &UnitFilter, store: 
     let mut names: Vec<&str> = stations.values().copied().collect();
     names.sort_unstable();
     names.dedup();
+    names.retain(|n| !n.is_empty());
     let mut s = tabs(Tab::Units);
     s += "<section><h2>Find units</h2><form class=\"filters\" method=\"get\" action=\"/\">";
     s += &format!(
