@@ -50,7 +50,14 @@ impl Server {
     /// Serves `store` from `dir` on a free loopback port, with `extra` arguments.
     pub(crate) fn start(dir: &Path, store: &str, extra: &[&str]) -> Server {
         let mut child = Command::new(env!("CARGO_BIN_EXE_taucal"))
-            .args(["fleet", "serve", "--store", store, "--listen", "127.0.0.1:0"])
+            .args([
+                "fleet",
+                "serve",
+                "--store",
+                store,
+                "--listen",
+                "127.0.0.1:0",
+            ])
             .args(extra)
             .current_dir(dir)
             .stdout(Stdio::piped())
@@ -91,7 +98,9 @@ impl Server {
             .and_then(|c| c.parse().ok())
             .expect("status");
         assert!(
-            !head.to_ascii_lowercase().contains("transfer-encoding: chunked"),
+            !head
+                .to_ascii_lowercase()
+                .contains("transfer-encoding: chunked"),
             "a page has a known length"
         );
         (status, body.to_string())
@@ -152,17 +161,26 @@ fn first(rows: &[Vec<String>], n: usize) -> Vec<Vec<String>> {
 fn pages_equal_commands(dir: &Path, store: &str) {
     let server = Server::start(dir, store, &[]);
     // The cells' page: `fleet stats`, row for row.
-    let stats = csv_rows(dir, &["fleet", "stats", "--store", store, "--format", "csv"]);
+    let stats = csv_rows(
+        dir,
+        &["fleet", "stats", "--store", store, "--format", "csv"],
+    );
     assert_eq!(stats.len(), 3, "three gain states");
     let cells = server.page("/cells");
     assert_eq!(first(&table(&cells, "cells"), 13), stats);
     // The stations' page: `fleet stations`, row for row.
-    let stations = csv_rows(dir, &["fleet", "stations", "--store", store, "--format", "csv"]);
+    let stations = csv_rows(
+        dir,
+        &["fleet", "stations", "--store", store, "--format", "csv"],
+    );
     assert_eq!(stations.len(), 5);
     let page = server.page("/stations");
     assert_eq!(first(&table(&page, "stations"), 5), stations);
     // The units' list: `store units`, the page's station column aside, the time as stored.
-    let units = csv_rows(dir, &["store", "units", "--store", store, "--format", "csv"]);
+    let units = csv_rows(
+        dir,
+        &["store", "units", "--store", store, "--format", "csv"],
+    );
     let page = server.page("/");
     let times = Selector::parse("table#units tbody time").expect("selector");
     let shown_times: Vec<String> = page
@@ -172,26 +190,58 @@ fn pages_equal_commands(dir: &Path, store: &str) {
     let shown: Vec<Vec<String>> = table(&page, "units")
         .into_iter()
         .zip(shown_times)
-        .map(|(r, t)| vec![r[0].clone(), r[1].clone(), r[3].clone(), t, r[5].clone(), r[6].clone()])
+        .map(|(r, t)| {
+            vec![
+                r[0].clone(),
+                r[1].clone(),
+                r[3].clone(),
+                t,
+                r[5].clone(),
+                r[6].clone(),
+            ]
+        })
         .collect();
     assert_eq!(shown, units);
     // A unit's page: its table is `store table`'s.
     let serial = &units[7][0];
-    let want = csv_rows(dir, &["store", "table", serial, "--store", store, "--format", "csv"]);
+    let want = csv_rows(
+        dir,
+        &[
+            "store", "table", serial, "--store", store, "--format", "csv",
+        ],
+    );
     let page = server.page(&format!("/unit/{serial}"));
     let width = want[0].len();
     assert_eq!(first(&table(&page, "caltable"), width), want);
-    assert_eq!(table(&page, "runs").len(), units[7][2].parse::<usize>().expect("runs"));
-    assert!(page.html().contains("This run verified nothing"), "factory-quick verifies nothing");
+    assert_eq!(
+        table(&page, "runs").len(),
+        units[7][2].parse::<usize>().expect("runs")
+    );
+    assert!(
+        page.html().contains("This run verified nothing"),
+        "factory-quick verifies nothing"
+    );
     // A cell's page: its line of `fleet stats`, and its stations' units add up to the cell's.
     for row in &stats {
         let page = server.page(&format!("/cell/{}/{}/{}", row[0], row[1], row[2]));
         assert_eq!(table(&page, "stats"), [row.clone()]);
         let by_station = table(&page, "by-station");
         assert_eq!(by_station.len(), 5);
-        let n: usize = by_station.iter().map(|r| r[1].parse::<usize>().expect("units")).sum();
+        let n: usize = by_station
+            .iter()
+            .map(|r| r[1].parse::<usize>().expect("units"))
+            .sum();
         assert_eq!(n.to_string(), row[3]);
         assert_eq!(page.select(&Selector::parse("svg").expect("s")).count(), 2);
+        // The stations drawn as flagged are those `fleet stations` flags.
+        let marked = Selector::parse("svg g.flagged text").expect("selector");
+        let drawn: Vec<String> = page.select(&marked).map(|t| t.text().collect()).collect();
+        let listed: Vec<String> = stations
+            .iter()
+            .filter(|s| s[4] == "yes")
+            .map(|s| s[0].clone())
+            .collect();
+        assert_eq!(drawn, listed);
     }
 }
 
@@ -203,7 +253,14 @@ fn the_pages_show_what_the_fleet_and_store_commands_print() {
         return;
     };
     let synced = Taucal::in_dir(dir)
-        .args(["store", "sync", "--store", "sqlite:fleet.sqlite", "--to", &db.url])
+        .args([
+            "store",
+            "sync",
+            "--store",
+            "sqlite:fleet.sqlite",
+            "--to",
+            &db.url,
+        ])
         .run();
     synced.expect_code(0);
     pages_equal_commands(synced.dir.path(), &db.url);
@@ -234,7 +291,12 @@ fn the_units_list_searches_and_filters_and_a_missing_unit_is_404() {
     // Its page's verification is the run's verify.csv, level for level.
     let verify = std::fs::read_to_string(dir.path().join("runs/demo/verify.csv")).expect("verify");
     let mut file = csv::Reader::from_reader(verify.as_bytes());
-    let names: Vec<String> = file.headers().expect("header").iter().map(String::from).collect();
+    let names: Vec<String> = file
+        .headers()
+        .expect("header")
+        .iter()
+        .map(String::from)
+        .collect();
     let page = server.page("/unit/SN-DEMO-1");
     let heads = Selector::parse("table#verify thead th").expect("selector");
     let shown_names: Vec<String> = page.select(&heads).map(|h| h.text().collect()).collect();
@@ -244,20 +306,29 @@ fn the_units_list_searches_and_filters_and_a_missing_unit_is_404() {
     assert!(!rows.is_empty());
     for (row, page_row) in rows.iter().zip(&shown) {
         for (i, name) in shown_names.iter().enumerate() {
-            let at = names.iter().position(|n| n == name).expect("a verify.csv column");
+            let at = names
+                .iter()
+                .position(|n| n == name)
+                .expect("a verify.csv column");
             let (a, b): (f64, f64) = (row[at].parse().expect("n"), page_row[i].parse().expect("n"));
             assert_eq!(a, b, "{name}");
         }
     }
     let serial = &all[3][0];
-    let one = table(&server.page(&format!("/?q={}", serial.to_lowercase())), "units");
+    let one = table(
+        &server.page(&format!("/?q={}", serial.to_lowercase())),
+        "units",
+    );
     assert_eq!(one.len(), 1);
     assert_eq!(&one[0][0], serial);
     let station = &all[3][2];
     let at = table(&server.page(&format!("/?station={station}")), "units");
     assert!(!at.is_empty() && at.len() < 10, "{at:?}");
     assert!(at.iter().all(|r| &r[2] == station), "{at:?}");
-    assert_eq!(table(&server.page("/?status=not-accepted"), "units").len(), 0);
+    assert_eq!(
+        table(&server.page("/?status=not-accepted"), "units").len(),
+        0
+    );
     assert_eq!(table(&server.page("/?status=accepted"), "units").len(), 11);
     assert_eq!(table(&server.page("/?status=completed"), "units").len(), 11);
     assert_eq!(table(&server.page("/?status=failed"), "units").len(), 0);
@@ -277,7 +348,14 @@ fn the_units_list_searches_and_filters_and_a_missing_unit_is_404() {
 fn the_server_keeps_to_loopback_unless_allowed_and_refuses_bad_input() {
     let dir = filled_store(3, 33);
     let out = Taucal::in_dir(dir)
-        .args(["fleet", "serve", "--store", "sqlite:fleet.sqlite", "--listen", "0.0.0.0:0"])
+        .args([
+            "fleet",
+            "serve",
+            "--store",
+            "sqlite:fleet.sqlite",
+            "--listen",
+            "0.0.0.0:0",
+        ])
         .run();
     out.expect_code(2);
     assert!(out.stderr.contains("--allow-remote"), "{}", out.stderr);
@@ -287,7 +365,14 @@ fn the_server_keeps_to_loopback_unless_allowed_and_refuses_bad_input() {
     out.expect_code(2);
     assert!(out.stderr.contains("does not exist"), "{}", out.stderr);
     let out = Taucal::in_dir(out.dir)
-        .args(["fleet", "serve", "--store", "sqlite:fleet.sqlite", "--threshold-ps", "-1"])
+        .args([
+            "fleet",
+            "serve",
+            "--store",
+            "sqlite:fleet.sqlite",
+            "--threshold-ps",
+            "-1",
+        ])
         .run();
     out.expect_code(2);
     assert!(out.stderr.contains("--threshold-ps -1"), "{}", out.stderr);

@@ -265,7 +265,8 @@ fn table(args: StoreTableArgs) -> Result<Exit, Diagnostic> {
         .with_hint("`taucal store units` lists the units and whether each has an accepted run"));
     };
     let table = export_table(&rec).map_err(|e| {
-        Diagnostic::plain(e.to_string()).with_hint("use the taucal that wrote the run, or a newer one")
+        Diagnostic::plain(e.to_string())
+            .with_hint("use the taucal that wrote the run, or a newer one")
     })?;
     let text = render(&table, args.format.into())
         .map_err(|e| Diagnostic::plain(format!("run {}: {e}", rec.run.run_id)))?;

@@ -24,7 +24,10 @@ pub struct StationCell {
 pub fn station_cells(cells: &[FleetCell], cell: CellKey) -> Vec<StationCell> {
     let mut by_station: BTreeMap<&str, Vec<FleetCell>> = BTreeMap::new();
     for c in cells.iter().filter(|c| key(c) == cell) {
-        by_station.entry(c.station.as_str()).or_default().push(c.clone());
+        by_station
+            .entry(c.station.as_str())
+            .or_default()
+            .push(c.clone());
     }
     by_station
         .into_iter()

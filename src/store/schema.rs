@@ -137,6 +137,10 @@ const RUN_COLUMNS: &str = "run_id, unit_serial, station, recipe_name, recipe_sha
 /// Every run's row (`one_unit` false), or one unit's (`$1`), each unit's oldest first, in the
 /// order [`UNITS_QUERY`] takes a unit's latest from.
 pub fn runs_query(one_unit: bool) -> String {
-    let filter = if one_unit { " WHERE unit_serial = $1" } else { "" };
+    let filter = if one_unit {
+        " WHERE unit_serial = $1"
+    } else {
+        ""
+    };
     format!("SELECT {RUN_COLUMNS} FROM runs{filter} ORDER BY unit_serial, started_utc, run_id")
 }

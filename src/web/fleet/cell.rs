@@ -11,8 +11,13 @@ use crate::fleet::station_cells::StationCell;
 use crate::store::FleetCell;
 
 /// The page's body: `stats` is the cell's line of `fleet stats`, `members` the units' cells in
-/// it, `stations` its share per station.
-pub fn body(stats: &CellStats, members: &[&FleetCell], stations: &[StationCell]) -> String {
+/// it, `stations` its share per station, `flagged` the stations `fleet stations` flags.
+pub fn body(
+    stats: &CellStats,
+    members: &[&FleetCell],
+    stations: &[StationCell],
+    flagged: &[&str],
+) -> String {
     let (c, b, g) = stats.cell;
     let mut s = tabs(Tab::None);
     s += &format!(
@@ -33,7 +38,12 @@ pub fn body(stats: &CellStats, members: &[&FleetCell], stations: &[StationCell])
     s += &format!(
         "<section><h2>Population</h2>{}</section>",
         figure(
-            &histogram(&values, (stats.tol_lo_ps, stats.tol_hi_ps), stats.mean_ps, &caption),
+            &histogram(
+                &values,
+                (stats.tol_lo_ps, stats.tol_hi_ps),
+                stats.mean_ps,
+                &caption
+            ),
             &caption
         )
     );
@@ -43,13 +53,12 @@ pub fn body(stats: &CellStats, members: &[&FleetCell], stations: &[StationCell])
             label: st.station.clone(),
             centre: st.stats.mean_ps,
             half_width: st.mean_ci95_ps,
-            flagged: st.stats.mean_ps - st.mean_ci95_ps > stats.mean_ps
-                || st.stats.mean_ps + st.mean_ci95_ps < stats.mean_ps,
+            flagged: flagged.contains(&st.station.as_str()),
         })
         .collect();
     let caption = "Each station's mean K in this cell with its 95 % interval (Student's t), \
-                   against the fleet's mean and tolerance interval; brick: the interval misses \
-                   the fleet's mean";
+                   against the fleet's mean and tolerance interval; brick: a station `fleet \
+                   stations` flags (over all cells)";
     let plot = intervals(
         &estimates,
         &[Marker {

@@ -53,7 +53,9 @@ pub fn bind(addr: &str, allow_remote: bool) -> Result<TcpListener, String> {
         .first()
         .ok_or_else(|| format!("`{addr}` resolves to no address"))?;
     if !allow_remote && resolved.iter().any(|a| !a.ip().is_loopback()) {
-        return Err(format!("{addr} is reachable from other machines (--allow-remote)"));
+        return Err(format!(
+            "{addr} is reachable from other machines (--allow-remote)"
+        ));
     }
     let l = TcpListener::bind(first).map_err(|e| format!("cannot listen on {addr}: {e}"))?;
     l.set_nonblocking(true).map_err(|e| e.to_string())?;

@@ -99,7 +99,11 @@ fn answer(page: Result<Page, PageError>) -> Response {
         Err(e) => {
             let (code, title, message) = match e {
                 PageError::NotFound(m) => (StatusCode::NOT_FOUND, "Not found", m),
-                PageError::Failed(m) => (StatusCode::INTERNAL_SERVER_ERROR, "Cannot read the store", m),
+                PageError::Failed(m) => (
+                    StatusCode::INTERNAL_SERVER_ERROR,
+                    "Cannot read the store",
+                    m,
+                ),
             };
             let body = format!(
                 "{}<section><h2>{title}</h2><p>{}</p></section>",
@@ -156,7 +160,9 @@ async fn unit_page(State(site): State<Arc<FleetSite>>, Path(serial): Path<String
     build(site, move |_, store| {
         let all = store.units().map_err(failed)?;
         let Some(summary) = all.iter().find(|u| u.serial == serial) else {
-            return Err(PageError::NotFound(format!("no unit `{serial}` in the store")));
+            return Err(PageError::NotFound(format!(
+                "no unit `{serial}` in the store"
+            )));
         };
         let runs = store.runs(Some(&serial)).map_err(failed)?;
         let latest = store.latest_accepted(&serial).map_err(failed)?;
@@ -188,7 +194,7 @@ async fn cell_page(
     State(site): State<Arc<FleetSite>>,
     Path((center, bw, gain)): Path<(i64, i64, i64)>,
 ) -> Response {
-    build(site, move |_, store| {
+    build(site, move |site, store| {
         let cells = store.fleet_cells().map_err(failed)?;
         let cell = (center, bw, gain);
         let stats = cell_stats(&cells);
@@ -198,9 +204,15 @@ async fn cell_page(
             )));
         };
         let members: Vec<_> = cells.iter().filter(|c| key(c) == cell).collect();
+        let offsets = station_offsets(&deviations(&cells), site.threshold_ps);
+        let flagged: Vec<&str> = offsets
+            .iter()
+            .filter(|o| o.flagged)
+            .map(|o| o.station.as_str())
+            .collect();
         Ok((
             format!("Cell {center}/{bw}/{gain}"),
-            cell::body(st, &members, &station_cells(&cells, cell)),
+            cell::body(st, &members, &station_cells(&cells, cell), &flagged),
         ))
     })
     .await

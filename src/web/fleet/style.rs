@@ -13,9 +13,10 @@ nav.fleet-tabs a[aria-current] { background:#1f3b4d; color:#fff; }
 .scroll th, .scroll td { white-space:nowrap; }
 .scroll table { width:100%; }
 td.text, th.text { text-align:left; }
-td a { color:#1d6b70; }
+main a { color:#1d6b70; }
 .plotbox { overflow-x:auto; }
-.plotbox svg { width:100%; min-width:400px; height:auto; display:block; }
+.plotbox svg { width:100%; min-width:400px; max-width:760px; height:auto; display:block;
+  margin:0 auto; border:0; }
 svg .band { fill:#f0cf8a; opacity:.55; }
 svg .bar { fill:#2c7377; }
 svg .mean { stroke:#6f2f86; stroke-width:2; }

@@ -1,8 +1,8 @@
 //! A cell's population drawn server-side as a self-contained SVG: the units' K in bins, with
 //! the fleet's tolerance interval as a band and the mean as a line.
 
-use super::svg_axis::{at, Axis};
 use super::local::escape;
+use super::svg_axis::{at, Axis};
 
 /// Drawing size (the SVG scales to its card; text is sized for this width).
 const W: f64 = 560.0;
@@ -92,7 +92,10 @@ pub fn histogram(values: &[f64], tol: (f64, f64), mean: f64, caption: &str) -> S
         );
     }
     let base = H - BOTTOM;
-    s += &format!("<line class=\"axis\" x1=\"{LEFT}\" x2=\"{}\" y1=\"{base}\" y2=\"{base}\"/>", W - RIGHT);
+    s += &format!(
+        "<line class=\"axis\" x1=\"{LEFT}\" x2=\"{}\" y1=\"{base}\" y2=\"{base}\"/>",
+        W - RIGHT
+    );
     for t in x.ticks() {
         s += &format!(
             "<line class=\"axis\" x1=\"{p}\" x2=\"{p}\" y1=\"{base}\" y2=\"{}\"/>\

@@ -2,8 +2,8 @@
 //! reference lines (a fleet mean, zero, a flagging threshold) and an optional band: the
 //! stations of a cell, or the stations' offsets.
 
-use super::svg_axis::{at, Axis};
 use super::local::escape;
+use super::svg_axis::{at, Axis};
 
 const W: f64 = 560.0;
 const LEFT: f64 = 96.0;
@@ -115,7 +115,10 @@ pub fn intervals(
             r.half_width
         );
     }
-    s += &format!("<line class=\"axis\" x1=\"{LEFT}\" x2=\"{}\" y1=\"{base}\" y2=\"{base}\"/>", W - RIGHT);
+    s += &format!(
+        "<line class=\"axis\" x1=\"{LEFT}\" x2=\"{}\" y1=\"{base}\" y2=\"{base}\"/>",
+        W - RIGHT
+    );
     for t in x.ticks() {
         s += &format!(
             "<line class=\"axis\" x1=\"{p}\" x2=\"{p}\" y1=\"{base}\" y2=\"{}\"/>\

@@ -38,7 +38,14 @@ pub fn body(v: &UnitView) -> String {
     fact("serial", escape(&u.serial));
     fact("model", escape(&u.model));
     fact("runs", u.runs.to_string());
-    fact("last run", format!("{} ({})", time_cell(&u.last_run_utc), escape(&u.last_status)));
+    fact(
+        "last run",
+        format!(
+            "{} ({})",
+            time_cell(&u.last_run_utc),
+            escape(&u.last_status)
+        ),
+    );
     fact("accepted", pill(u.accepted, "yes", "no"));
     if let Some(p) = v.place {
         fact(
@@ -117,7 +124,15 @@ fn latest_table(v: &UnitView) -> String {
     }
     let csv_cols = header.len();
     let source = at("source");
-    header.extend(["fleet cell", "fleet tol_lo_ps", "fleet tol_hi_ps", "K in interval"].map(String::from));
+    header.extend(
+        [
+            "fleet cell",
+            "fleet tol_lo_ps",
+            "fleet tol_hi_ps",
+            "K in interval",
+        ]
+        .map(String::from),
+    );
     let names: Vec<&str> = header.iter().map(String::as_str).collect();
     let mut text_cols: Vec<usize> = source.into_iter().collect();
     text_cols.extend([csv_cols, csv_cols + 3]);
@@ -127,7 +142,12 @@ fn latest_table(v: &UnitView) -> String {
          tolerance interval of each cell.</p>{}</section>",
         escape(&rec.run.run_id),
         escape(&rec.run.station),
-        time_cell(rec.run.finished_utc.as_deref().unwrap_or(&rec.run.started_utc)),
+        time_cell(
+            rec.run
+                .finished_utc
+                .as_deref()
+                .unwrap_or(&rec.run.started_utc)
+        ),
         escape(&rec.run.unit_serial),
         table("caltable", &names, &text_cols, &rows)
     )
@@ -185,16 +205,30 @@ fn acceptance(rec: &RunRecord) -> String {
         .map(|a| {
             vec![
                 escape(&a.name),
-                a.value.map_or(String::new(), |v| v.to_string()),
-                a.limit_value.to_string(),
+                a.value.map_or(String::new(), short),
+                short(a.limit_value),
                 pill(a.passed, "met", "missed"),
             ]
         })
         .collect();
     format!(
         "<section><h2>Acceptance</h2>{}</section>",
-        table("acceptance", &["limit", "value", "limit_value", "met"], &[0, 3], &rows)
+        table(
+            "acceptance",
+            &["limit", "value", "limit_value", "met"],
+            &[0, 3],
+            &rows
+        )
     )
+}
+
+/// A limit's number: whole numbers as such, others to two decimals.
+fn short(v: f64) -> String {
+    if v.fract() == 0.0 {
+        num(v, 0)
+    } else {
+        num(v, 2)
+    }
 }
 
 /// Every run of the unit, newest first.

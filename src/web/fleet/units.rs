@@ -57,7 +57,9 @@ impl UnitFilter {
         let mut out = Vec::new();
         for (name, v) in [("from", &self.from), ("to", &self.to)] {
             if !v.is_empty() && !is_day(v) {
-                out.push(format!("`{v}` ({name}) is not a day: write it as YYYY-MM-DD"));
+                out.push(format!(
+                    "`{v}` ({name}) is not a day: write it as YYYY-MM-DD"
+                ));
             }
         }
         if !STATUSES.iter().any(|(s, _)| *s == self.status) {
@@ -131,7 +133,11 @@ pub fn body(units: &[UnitSummary], runs: &[RunRow], filter: &UnitFilter, store: 
     );
     s += "<label>Station of the last run<select name=\"station\"><option value=\"\">any</option>";
     for n in &names {
-        let sel = if *n == filter.station { " selected" } else { "" };
+        let sel = if *n == filter.station {
+            " selected"
+        } else {
+            ""
+        };
         s += &format!("<option{sel}>{}</option>", escape(n));
     }
     s += "</select></label><label>Status<select name=\"status\">";
@@ -157,7 +163,11 @@ pub fn body(units: &[UnitSummary], runs: &[RunRow], filter: &UnitFilter, store: 
             let station = stations.get(u.serial.as_str()).copied().unwrap_or("");
             filter.keeps(u, station).then(|| {
                 let mut r = vec![unit_link(&u.serial)];
-                r.extend(escaped(&[u.model.clone(), station.to_string(), u.runs.to_string()]));
+                r.extend(escaped(&[
+                    u.model.clone(),
+                    station.to_string(),
+                    u.runs.to_string(),
+                ]));
                 r.push(time_cell(&u.last_run_utc));
                 r.push(escape(&u.last_status));
                 r.push(yes_no(u.accepted).to_string());
