@@ -377,3 +377,91 @@ fn the_server_keeps_to_loopback_unless_allowed_and_refuses_bad_input() {
     out.expect_code(2);
     assert!(out.stderr.contains("--threshold-ps -1"), "{}", out.stderr);
 }
+
+/// The fleet pages in headless Chromium at a desktop and a phone width: each shows the
+/// commands' numbers, loads nothing from outside, keeps its tables and plots inside their cards
+/// (no sideways scroll of the page), keeps plot text legible, and its search form works;
+/// screenshots of every page at both widths go to `target/test-artefacts/`.
+#[test]
+fn the_fleet_pages_in_a_browser_show_the_commands_numbers_at_desktop_and_phone_widths() {
+    use crate::support::browser::{Browser, DESKTOP_PX, PHONE_PX};
+    let test = "the_fleet_pages_in_a_browser_show_the_commands_numbers_at_desktop_and_phone_widths";
+    let dir = filled_store(40, 34);
+    let (d, store) = (dir.path(), "sqlite:fleet.sqlite");
+    let stats = csv_rows(d, &["fleet", "stats", "--store", store, "--format", "csv"]);
+    let stations = csv_rows(
+        d,
+        &["fleet", "stations", "--store", store, "--format", "csv"],
+    );
+    let units = csv_rows(d, &["store", "units", "--store", store, "--format", "csv"]);
+    let serial = units[5][0].clone();
+    let cal = csv_rows(
+        d,
+        &[
+            "store", "table", &serial, "--store", store, "--format", "csv",
+        ],
+    );
+    let server = Server::start(d, store, &[]);
+    let cell = format!("/cell/{}/{}/{}", stats[1][0], stats[1][1], stats[1][2]);
+    let units_shown: Vec<Vec<String>> = units.iter().map(|u| vec![u[0].clone()]).collect();
+    let pages = [
+        ("units", "/".to_string(), "units", units_shown),
+        ("cells", "/cells".to_string(), "cells", stats.clone()),
+        ("stations", "/stations".to_string(), "stations", stations),
+        ("unit", format!("/unit/{serial}"), "caltable", cal),
+        ("cell", cell, "stats", vec![stats[1].clone()]),
+    ];
+    for width in [DESKTOP_PX, PHONE_PX] {
+        let Some(browser) = Browser::open(test, width) else {
+            return;
+        };
+        for (name, path, id, want) in &pages {
+            browser.goto(&format!("{}{path}", server.base));
+            let n = want[0].len();
+            let shown = browser.js(&format!(
+                "return Array.from(document.querySelectorAll('table#{id} tbody tr')).map(r => \
+                 Array.from(r.cells).slice(0, {n}).map(c => c.textContent.trim()))"
+            ));
+            let shown: Vec<Vec<String>> = serde_json::from_value(shown).expect("rows of text");
+            assert_eq!(&shown, want, "{name} at {width} px");
+            browser.assert_nothing_external();
+            browser.assert_no_horizontal_overflow(name);
+            // A table or plot wider than its card scrolls inside it.
+            let outside = browser.js_u64(
+                "return Array.from(document.querySelectorAll('.scroll, .plotbox')).filter(e => \
+                 e.getBoundingClientRect().right > \
+                 e.closest('section').getBoundingClientRect().right + 0.5).length",
+            );
+            assert_eq!(
+                outside, 0,
+                "{name} at {width} px: a table or plot leaves its card"
+            );
+            // Plot text stays legible: no label drawn at under 10 CSS px (its font size in
+            // drawing units times the plot's scale on screen).
+            let smallest = browser.js(
+                "return Math.min(99, ...Array.from(document.querySelectorAll('svg text'))\
+                 .map(t => parseFloat(getComputedStyle(t).fontSize) * \
+                 t.ownerSVGElement.getScreenCTM().a))",
+            );
+            let smallest = smallest.as_f64().expect("a size");
+            assert!(
+                smallest >= 10.0,
+                "{name} at {width} px: plot text {smallest} px tall"
+            );
+            browser.screenshot(&format!("fleet-{name}-{width}"));
+        }
+        // The search form, as a person uses it: a serial typed, the form sent.
+        browser.goto(&format!("{}/", server.base));
+        browser.js(&format!(
+            "document.querySelector('input[name=q]').value = '{serial}'; \
+             document.querySelector('form.filters button').click();"
+        ));
+        browser.wait_until(
+            "location.search.includes('q=') && \
+             document.querySelectorAll('table#units tbody tr').length === 1",
+            std::time::Duration::from_secs(10),
+            "the search to narrow the list to one unit",
+        );
+        browser.screenshot(&format!("fleet-units-search-{width}"));
+    }
+}

@@ -106,7 +106,7 @@ pub fn body(
         .map(|m| {
             vec![
                 unit_link(&m.serial),
-                super::local::escape(&m.station),
+                crate::web::escape(&m.station),
                 num(m.delay_ps, 1),
                 num(m.ci95_ps, 1),
             ]

@@ -1,8 +1,8 @@
 //! Pieces every fleet page uses: the tabs, links to a unit and a cell, a table that scrolls
 //! inside its card, a figure.
 
-use super::local::escape;
 use crate::fleet::centred::CellKey;
+use crate::web::escape;
 
 /// The pages the tabs lead to.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

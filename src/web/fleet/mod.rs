@@ -8,7 +8,6 @@
 
 pub mod cell;
 pub mod cells;
-pub mod local;
 pub mod markup;
 pub mod stations;
 pub mod style;
@@ -26,12 +25,12 @@ use crate::fleet::station_cells::station_cells;
 use crate::fleet::stations::station_offsets;
 use crate::store::table::export_table;
 use crate::store::{Store, StoreUrl};
+use crate::web::{escape, html, page};
 use axum::extract::{Path, Query, State};
 use axum::http::StatusCode;
 use axum::response::Response;
 use axum::routing::get;
 use axum::Router;
-use local::escape;
 use std::sync::Arc;
 
 /// What the pages are served from.
@@ -63,7 +62,10 @@ pub fn router(site: FleetSite) -> Router {
         .route("/stations", get(stations_page))
         .route("/unit/{serial}", get(unit_page))
         .route("/cell/{center}/{bw}/{gain}", get(cell_page))
-        .fallback(|| async { answer(Err(PageError::NotFound("no such page".into()))) })
+        .fallback(|State(site): State<Arc<FleetSite>>| async move {
+            let sub = format!("from {}", site.url.redacted());
+            answer(Err(PageError::NotFound("no such page".into())), &sub)
+        })
         .with_state(Arc::new(site))
 }
 
@@ -83,19 +85,21 @@ async fn build<F>(site: Arc<FleetSite>, make: F) -> Response
 where
     F: FnOnce(&FleetSite, &mut dyn Store) -> Result<Page, PageError> + Send + 'static,
 {
+    let sub = format!("from {}", site.url.redacted());
     let done = tokio::task::spawn_blocking(move || {
         let mut store = open(&site)?;
         make(site.as_ref(), store.as_mut())
     })
     .await;
-    answer(done.unwrap_or_else(|e| Err(failed(format!("the page could not be built: {e}")))))
+    let built = done.unwrap_or_else(|e| Err(failed(format!("the page could not be built: {e}"))));
+    answer(built, &sub)
 }
 
-/// The response for a page or its error.
-fn answer(page: Result<Page, PageError>) -> Response {
+/// The response for a page or its error, under a masthead naming the store `sub`.
+fn answer(built: Result<Page, PageError>, sub: &str) -> Response {
     let style = style::STYLE;
-    match page {
-        Ok((title, body)) => local::html(local::page("taucal fleet", &title, style, &body, "")),
+    match built {
+        Ok((title, body)) => html(page("taucal fleet", &title, sub, style, &body, "")),
         Err(e) => {
             let (code, title, message) = match e {
                 PageError::NotFound(m) => (StatusCode::NOT_FOUND, "Not found", m),
@@ -110,7 +114,7 @@ fn answer(page: Result<Page, PageError>) -> Response {
                 markup::tabs(markup::Tab::None),
                 escape(&message)
             );
-            let mut r = local::html(local::page("taucal fleet", title, style, &body, ""));
+            let mut r = html(page("taucal fleet", title, sub, style, &body, ""));
             *r.status_mut() = code;
             r
         }

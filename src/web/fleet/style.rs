@@ -15,7 +15,7 @@ nav.fleet-tabs a[aria-current] { background:#1f3b4d; color:#fff; }
 td.text, th.text { text-align:left; }
 main a { color:#1d6b70; }
 .plotbox { overflow-x:auto; }
-.plotbox svg { width:100%; min-width:400px; max-width:760px; height:auto; display:block;
+.plotbox svg { width:100%; max-width:760px; height:auto; display:block;
   margin:0 auto; border:0; }
 svg .band { fill:#f0cf8a; opacity:.55; }
 svg .bar { fill:#2c7377; }
@@ -44,6 +44,8 @@ dl.facts { display:grid; grid-template-columns:minmax(90px, max-content) 1fr; ga
 dl.facts dt { color:#5d6672; } dl.facts dd { margin:0; overflow-wrap:anywhere; }
 p.note { color:#5d6672; font-size:13px; }
 @media (max-width:560px) {
+  /* A plot drawn 560 wide shrinks to a phone's card: its text grows to stay legible. */
+  svg .tick, svg .key, svg .label { font-size:19px; }
   main { padding:12px 10px 30px; }
   section { padding:12px 12px; }
   header.masthead { padding:16px 14px; }

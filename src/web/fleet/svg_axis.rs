@@ -75,6 +75,10 @@ fn round_step(raw: f64) -> f64 {
         .unwrap_or(10.0 * p)
 }
 
+/// The width a legend gives each character of its text, in drawing units: room for the
+/// largest text size the pages use (19 on a phone).
+pub const LEGEND_CHAR: f64 = 10.5;
+
 /// A number for an SVG attribute: two decimals are finer than any screen.
 pub fn at(v: f64) -> String {
     format!("{v:.2}")

@@ -1,16 +1,16 @@
 //! A cell's population drawn server-side as a self-contained SVG: the units' K in bins, with
 //! the fleet's tolerance interval as a band and the mean as a line.
 
-use super::local::escape;
-use super::svg_axis::{at, Axis};
+use super::svg_axis::{at, Axis, LEGEND_CHAR};
+use crate::web::escape;
 
 /// Drawing size (the SVG scales to its card; text is sized for this width).
 const W: f64 = 560.0;
 const H: f64 = 250.0;
 const LEFT: f64 = 44.0;
-const RIGHT: f64 = 16.0;
+const RIGHT: f64 = 28.0;
 const TOP: f64 = 34.0;
-const BOTTOM: f64 = 44.0;
+const BOTTOM: f64 = 50.0;
 
 /// The bins of `values`: Sturges' rule (1 + log₂ n bins, at least 5) over the values' range;
 /// (left edge, width, count).
@@ -41,7 +41,7 @@ pub fn histogram(values: &[f64], tol: (f64, f64), mean: f64, caption: &str) -> S
     let bins = bins(values);
     let mut span: Vec<f64> = values.to_vec();
     span.extend([tol.0, tol.1, mean]);
-    let x = Axis::covering(&span, 6, LEFT, W - RIGHT);
+    let x = Axis::covering(&span, 4, LEFT, W - RIGHT);
     let top = bins.iter().map(|b| b.2).max().unwrap_or(1).max(1) as f64;
     let y = Axis::covering(&[0.0, top], 4, H - BOTTOM, TOP);
     let mut s = format!(
@@ -101,7 +101,7 @@ pub fn histogram(values: &[f64], tol: (f64, f64), mean: f64, caption: &str) -> S
             "<line class=\"axis\" x1=\"{p}\" x2=\"{p}\" y1=\"{base}\" y2=\"{}\"/>\
              <text class=\"tick\" x=\"{p}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
             base + 5.0,
-            base + 19.0,
+            base + 22.0,
             x.label(t),
             p = at(x.px(t))
         );
@@ -113,16 +113,18 @@ pub fn histogram(values: &[f64], tol: (f64, f64), mean: f64, caption: &str) -> S
         H - 6.0
     );
     // The legend, top right: what the band and the line are.
-    let lx = W - RIGHT - 250.0;
+    let (band, line) = ("tolerance interval", "mean");
+    let line_x = W - RIGHT - 7.0 - LEGEND_CHAR * line.len() as f64;
+    let lx = line_x - 24.0 - 19.0 - LEGEND_CHAR * band.len() as f64;
     s += &format!(
-        "<rect class=\"band\" x=\"{lx}\" y=\"8\" width=\"14\" height=\"12\"/>\
-         <text class=\"key\" x=\"{}\" y=\"18\">tolerance interval</text>\
-         <line class=\"mean\" x1=\"{}\" x2=\"{}\" y1=\"8\" y2=\"20\"/>\
-         <text class=\"key\" x=\"{}\" y=\"18\">mean</text></svg>",
-        lx + 19.0,
-        lx + 150.0,
-        lx + 150.0,
-        lx + 157.0
+        "<rect class=\"band\" x=\"{}\" y=\"8\" width=\"14\" height=\"12\"/>\
+         <text class=\"key\" x=\"{}\" y=\"18\">{band}</text>\
+         <line class=\"mean\" x1=\"{l}\" x2=\"{l}\" y1=\"8\" y2=\"20\"/>\
+         <text class=\"key\" x=\"{}\" y=\"18\">{line}</text></svg>",
+        at(lx),
+        at(lx + 19.0),
+        at(line_x + 7.0),
+        l = at(line_x)
     );
     s
 }

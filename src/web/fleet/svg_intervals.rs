@@ -2,15 +2,15 @@
 //! reference lines (a fleet mean, zero, a flagging threshold) and an optional band: the
 //! stations of a cell, or the stations' offsets.
 
-use super::local::escape;
-use super::svg_axis::{at, Axis};
+use super::svg_axis::{at, Axis, LEGEND_CHAR};
+use crate::web::escape;
 
 const W: f64 = 560.0;
 const LEFT: f64 = 96.0;
-const RIGHT: f64 = 16.0;
+const RIGHT: f64 = 28.0;
 const TOP: f64 = 30.0;
-const ROW: f64 = 26.0;
-const BOTTOM: f64 = 44.0;
+const ROW: f64 = 30.0;
+const BOTTOM: f64 = 50.0;
 
 /// One row: an estimate and its interval.
 #[derive(Debug, Clone, PartialEq)]
@@ -57,7 +57,7 @@ pub fn intervals(
     if let Some((lo, hi, _)) = band {
         span.extend([lo, hi]);
     }
-    let x = Axis::covering(&span, 6, LEFT, W - RIGHT);
+    let x = Axis::covering(&span, 4, LEFT, W - RIGHT);
     let base = h - BOTTOM;
     let mut s = format!(
         "<svg class=\"plot\" viewBox=\"0 0 {W} {h}\" role=\"img\" aria-label=\"{c}\" \
@@ -124,7 +124,7 @@ pub fn intervals(
             "<line class=\"axis\" x1=\"{p}\" x2=\"{p}\" y1=\"{base}\" y2=\"{}\"/>\
              <text class=\"tick\" x=\"{p}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
             base + 5.0,
-            base + 19.0,
+            base + 22.0,
             x.label(t),
             p = at(x.px(t))
         );
@@ -145,7 +145,7 @@ pub fn intervals(
             at(lx + 19.0),
             escape(name)
         );
-        lx += 26.0 + 7.0 * name.chars().count() as f64;
+        lx += 30.0 + LEGEND_CHAR * name.chars().count() as f64;
     }
     for m in markers.iter().filter(|m| !m.name.is_empty()) {
         s += &format!(
@@ -156,7 +156,7 @@ pub fn intervals(
             escape(&m.name),
             p = at(lx)
         );
-        lx += 20.0 + 7.0 * m.name.chars().count() as f64;
+        lx += 24.0 + LEGEND_CHAR * m.name.chars().count() as f64;
     }
     s + "</svg>"
 }

@@ -1,7 +1,6 @@
 //! A unit's page: its runs, the table `store table` gives for it (its latest accepted run's),
 //! that run's verification and acceptance, and where the unit sits in the fleet.
 
-use super::local::escape;
 use super::markup::{cell_link, escaped, pill, table, tabs, Tab};
 use super::units::time_cell;
 use crate::fleet::cells::CellStats;
@@ -9,6 +8,7 @@ use crate::fleet::centred::UnitDeviation;
 use crate::fleet::outliers::{Outlier, CUTOFF_Z};
 use crate::fleet::shown::num;
 use crate::store::{RunRecord, RunRow, UnitSummary};
+use crate::web::escape;
 
 /// Everything the page shows of one unit.
 #[derive(Debug, Clone, Copy)]

@@ -1,9 +1,9 @@
 //! The units list: every unit as `store units` lists it, with the station of its latest run,
 //! searched by serial and filtered by station, status and the date of its latest run.
 
-use super::local::escape;
 use super::markup::{escaped, table, tabs, unit_link, Tab};
 use crate::store::{RunRow, UnitSummary};
+use crate::web::escape;
 use std::collections::BTreeMap;
 
 /// What the list is narrowed to (the query string; an empty field narrows nothing).
