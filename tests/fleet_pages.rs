@@ -224,7 +224,7 @@ fn pages_equal_commands(dir: &Path, store: &str) {
     // A cell's page: its line of `fleet stats`, and its stations' units add up to the cell's.
     for row in &stats {
         let page = server.page(&format!("/cell/{}/{}/{}", row[0], row[1], row[2]));
-        assert_eq!(table(&page, "stats"), [row.clone()]);
+        assert_eq!(table(&page, "stats"), std::slice::from_ref(row));
         let by_station = table(&page, "by-station");
         assert_eq!(by_station.len(), 5);
         let n: usize = by_station
