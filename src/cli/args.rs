@@ -42,6 +42,11 @@ pub enum Command {
         after_help = "Completed points are kept; a half-done point is redone from its start. On a simulated bench\nthe resumed run records exactly what an uninterrupted run with the same seed would.\n\nExample:\n  taucal resume runs/20261202T101500Z-overnight-soak"
     )]
     Resume(ResumeArgs),
+    /// Serve a live page of a run started elsewhere (or being resumed), following its files.
+    #[command(
+        after_help = "The page shows the run's stage, point, exchanges, bench time against the estimate, the table\nso far with intervals, the plots and the log, updated as bursts land; once the run has ended, its\nreport. Read-only. Runs until Ctrl-C.\n\nExamples:\n  taucal watch runs/20261202T101500Z-overnight-soak\n  taucal watch runs/20261202T101500Z-overnight-soak --listen 0.0.0.0:8080 --allow-remote"
+    )]
+    Watch(WatchArgs),
     /// Fit a calibration table from an exchanges file.
     #[command(
         after_help = "Examples:\n  taucal fit runs/20261202T101500Z-rx-gain-sweep/exchanges.csv --out /tmp/refit\n  taucal fit exchanges.csv --bench recipes/benches/sim-demo.toml --reject-mad 4"
@@ -304,6 +309,14 @@ pub struct RunArgs {
     pub station: Option<String>,
     #[command(flatten)]
     pub store: StoreArg,
+    /// Serve a live page of the run at HOST:PORT while it runs (e.g. 127.0.0.1:8080): its
+    /// progress, table so far and plots, updated as bursts land; at the end, its report.
+    #[arg(long, value_name = "HOST:PORT")]
+    pub watch: Option<String>,
+    /// Let --watch listen on an address other machines can reach (the page is read-only, but
+    /// anyone who reaches it sees the run).
+    #[arg(long, requires = "watch")]
+    pub allow_remote: bool,
 }
 
 /// `taucal resume`.
@@ -313,6 +326,14 @@ pub struct ResumeArgs {
     pub run_dir: PathBuf,
     #[command(flatten)]
     pub store: StoreArg,
+    /// Serve a live page of the run at HOST:PORT while it runs (e.g. 127.0.0.1:8080): its
+    /// progress, table so far and plots, updated as bursts land; at the end, its report.
+    #[arg(long, value_name = "HOST:PORT")]
+    pub watch: Option<String>,
+    /// Let --watch listen on an address other machines can reach (the page is read-only, but
+    /// anyone who reaches it sees the run).
+    #[arg(long, requires = "watch")]
+    pub allow_remote: bool,
 }
 
 /// The results store a command writes to or reads from.
@@ -523,6 +544,24 @@ pub struct ExportArgs {
     /// Write to this file instead of stdout.
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
+}
+
+/// `taucal watch`.
+#[derive(Debug, Args)]
+pub struct WatchArgs {
+    /// The run directory.
+    #[arg(value_name = "RUN_DIR")]
+    pub run_dir: PathBuf,
+    /// Where to serve the page.
+    #[arg(long, value_name = "HOST:PORT", default_value = "127.0.0.1:8080")]
+    pub listen: String,
+    /// Let --listen be an address other machines can reach (the page is read-only, but anyone
+    /// who reaches it sees the run).
+    #[arg(long)]
+    pub allow_remote: bool,
+    /// The bench the run uses (default: the bench file its manifest names, if unchanged).
+    #[arg(long, value_name = "FILE")]
+    pub bench: Option<PathBuf>,
 }
 
 /// `taucal report`.

@@ -25,6 +25,7 @@ pub mod sim_serve;
 pub mod store;
 pub mod store_ledger;
 pub mod table;
+pub mod watch;
 
 pub use exit::Exit;
 
@@ -62,6 +63,7 @@ pub fn main() -> Exit {
         Command::Ota(a) => ota::run(a),
         Command::Export(a) => export::run(a),
         Command::Report(a) => report::run(a),
+        Command::Watch(a) => watch::run(a),
         Command::Completions(a) => Ok(completions::run(a)),
         Command::Store(c) => store::run(c),
         Command::Fleet(c) => fleet::run(c),

@@ -6,12 +6,20 @@ use super::{bench_arg, run, Exit};
 use crate::data::run_dir::files;
 use crate::diagnostic::Diagnostic;
 use crate::runner::run::execute;
-use crate::runner::{RunObserver, Unobserved};
+use crate::web::live::ProgressFrom;
 
 /// Prepares the interrupted run, replays it to its last checkpoint and carries on.
 pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
     let top = args.run_dir.join(files::MANIFEST);
     if let Ok(Some(_)) = crate::data::station_manifest::StationManifest::read_if_station(&top) {
+        if args.watch.is_some() {
+            return Err(Diagnostic::plain(
+                "--watch serves one run's page, and this station's slots each run one",
+            )
+            .with_hint(
+                "resume the station without --watch and watch a slot: taucal watch RUN_DIR/slot-NAME",
+            ));
+        }
         return super::run_station::resume(&args.run_dir, &args.store);
     }
     let mut request = crate::runner::resume::prepare(&args.run_dir)?;
@@ -24,18 +32,31 @@ pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, 
         bench_arg::describe(&request.bench, request.seed)
     ));
     let estimate = crate::runner::estimate::estimate(&request.plan, &request.bench);
-    let observer: Box<dyn RunObserver> = match Progress::start(verbosity, &estimate) {
-        Some(p) => Box::new(p),
-        None => Box::new(Unobserved),
+    let live = match &args.watch {
+        Some(addr) => Some(super::watch::start(
+            addr,
+            args.allow_remote,
+            request.bench.clone(),
+            Some(&estimate),
+            ProgressFrom::Events,
+            None,
+        )?),
+        None => None,
     };
+    let observer = run::observers(Progress::start(verbosity, &estimate), live.as_ref());
     let report = execute(
         request,
         |dir| {
             log::open_run_logs(dir, files::LOG, files::JSON_LOG, true);
             log::notice(&format!("taucal: resuming {}", dir.display()));
+            if let Some(live) = &live {
+                log::notice(&format!("taucal: watch the run at {}", live.url()));
+                live.follow(dir);
+            }
         },
         observer,
         ledger.as_mut(),
-    )?;
-    Ok(run::outcome(&report))
+    );
+    super::watch::finish(live);
+    Ok(run::outcome(&report?))
 }

@@ -10,11 +10,13 @@ use crate::runner::finalise::RunReport;
 use crate::runner::request::RunRequest;
 use crate::runner::run::execute;
 use crate::runner::RunError;
+use crate::web::live::{Both, ProgressFrom};
 use std::sync::Arc;
 
 /// Validates, runs, fits, and reports.
 pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
     let bench = bench_arg::for_recipe(&args.bench, &args.recipe)?.reconnect(&args.connect)?;
+    super::watch::refuse_on_station(&args.watch, &bench)?;
     if bench.is_slotted() {
         return super::run_station::run(args, bench);
     }
@@ -32,14 +34,22 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
     let mut ledger = super::store_ledger::StoreLedger::for_run(&args.store, &bench)?;
     let station = super::store_ledger::station(args.station.as_deref(), &bench);
     let estimate = crate::runner::estimate::estimate(&plan, &bench);
-    let observer: Box<dyn crate::runner::RunObserver> = match Progress::start(verbosity, &estimate)
-    {
-        Some(p) => Box::new(p),
-        None => Box::new(crate::runner::Unobserved),
+    let bench = Arc::new(bench);
+    let live = match &args.watch {
+        Some(addr) => Some(super::watch::start(
+            addr,
+            args.allow_remote,
+            bench.clone(),
+            Some(&estimate),
+            ProgressFrom::Events,
+            None,
+        )?),
+        None => None,
     };
+    let observer = observers(Progress::start(verbosity, &estimate), live.as_ref());
     let request = RunRequest {
         plan,
-        bench: Arc::new(bench),
+        bench,
         overrides: args.set,
         out: args.out,
         seed: args.seed,
@@ -55,14 +65,35 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
         |dir| {
             log::open_run_logs(dir, files::LOG, files::JSON_LOG, false);
             log::notice(&format!("taucal: run directory {}", dir.display()));
+            if let Some(live) = &live {
+                log::notice(&format!("taucal: watch the run at {}", live.url()));
+                live.follow(dir);
+            }
             if let Some(line) = &overdue {
                 tracing::warn!("{line}");
             }
         },
         observer,
         ledger.as_mut(),
-    )?;
-    Ok(outcome(&report))
+    );
+    super::watch::finish(live);
+    Ok(outcome(&report?))
+}
+
+/// The run's observers: the terminal's progress display where one is drawn, and the live page
+/// where one is served (shared with `taucal resume`).
+pub fn observers(
+    progress: Option<Progress>,
+    live: Option<&crate::web::live::LiveServer>,
+) -> Box<dyn crate::runner::RunObserver> {
+    let terminal: Box<dyn crate::runner::RunObserver> = match progress {
+        Some(p) => Box::new(p),
+        None => Box::new(crate::runner::Unobserved),
+    };
+    match live {
+        Some(l) => Box::new(Both(terminal, Box::new(l.observer()))),
+        None => terminal,
+    }
 }
 
 /// A warning when the reference's certificate is past due on the run's start date; an error

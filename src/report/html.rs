@@ -27,6 +27,27 @@ pub fn escape(text: &str) -> String {
     out
 }
 
+/// An RFC 3339 UTC time as the page shows it: to the second, `2026-12-03 12:00:05 UTC`; text
+/// of another form is shown as it is.
+pub fn to_the_second(rfc3339: &str) -> String {
+    let t = time::OffsetDateTime::parse(rfc3339, &time::format_description::well_known::Rfc3339);
+    match t {
+        Ok(t) => {
+            let t = t.to_offset(time::UtcOffset::UTC);
+            format!(
+                "{:04}-{:02}-{:02} {:02}:{:02}:{:02} UTC",
+                t.year(),
+                u8::from(t.month()),
+                t.day(),
+                t.hour(),
+                t.minute(),
+                t.second()
+            )
+        }
+        Err(_) => rfc3339.to_string(),
+    }
+}
+
 /// The report's stylesheet; served pages (`crate::web`) share it so they look like the report.
 pub const STYLE: &str = r#"
 :root { --ink:#272d36; --muted:#5d6672; --paper:#f6f5f1; --card:#ffffff; --rule:#dcdfe4;
@@ -88,16 +109,7 @@ pub fn render(data: &ReportData) -> Result<String, ReportError> {
         escape(&m.started_utc),
         status_word(m.status),
     );
-    verdict(&mut page, data);
-    summary(&mut page, data);
-    super::budget_table::section(
-        &mut page,
-        &data.budget,
-        &data.table,
-        m.reference_certificate.as_ref(),
-    );
-    plots(&mut page, data)?;
-    provenance(&mut page, data);
+    page.push_str(&body(data)?);
     let _ = write!(
         page,
         "</main>\n<footer>Written by taucal {} from the files of this run directory; \
@@ -105,6 +117,39 @@ pub fn render(data: &ReportData) -> Result<String, ReportError> {
         escape(&m.taucal_version)
     );
     Ok(page)
+}
+
+/// The report's sections (what `<main>` holds): verdict, table, budget, plots, provenance.
+pub fn body(data: &ReportData) -> Result<String, ReportError> {
+    let mut page = String::new();
+    verdict(&mut page, data);
+    summary(&mut page, data, Table::Final);
+    super::budget_table::section(
+        &mut page,
+        &data.budget,
+        &data.table,
+        data.manifest.reference_certificate.as_ref(),
+    );
+    plots(&mut page, data)?;
+    provenance(&mut page, data);
+    Ok(page)
+}
+
+/// The sections of a run still under way: the table so far, the plots and the provenance
+/// (no verdict and no budget before the run has ended and written them).
+pub fn live_body(data: &ReportData) -> Result<String, ReportError> {
+    let mut page = String::new();
+    summary(&mut page, data, Table::SoFar);
+    plots(&mut page, data)?;
+    provenance(&mut page, data);
+    Ok(page)
+}
+
+/// Whether the table is the run's written one or fitted from the exchanges recorded so far.
+#[derive(Clone, Copy, PartialEq)]
+enum Table {
+    Final,
+    SoFar,
 }
 
 fn status_word(s: RunStatus) -> &'static str {
@@ -197,13 +242,23 @@ fn number(v: f64) -> String {
     format!("{v:.decimals$}")
 }
 
-fn summary(page: &mut String, data: &ReportData) {
+fn summary(page: &mut String, data: &ReportData, kind: Table) {
     let m = &data.manifest;
-    page.push_str("<section id=\"summary\">\n<h2>Calibration table</h2>\n");
+    page.push_str(match kind {
+        Table::Final => "<section id=\"summary\">\n<h2>Calibration table</h2>\n",
+        Table::SoFar => {
+            "<section id=\"summary\">\n<h2>Calibration table so far</h2>\n<p>Fitted from the \
+             exchanges recorded until now, measured cells only; the run's own fit at the end \
+             may add modelled rows.</p>\n"
+        }
+    });
     if data.table.is_empty() {
-        page.push_str(
-            "<p class=\"empty\">No table: the run wrote no <code>caltable.csv</code>.</p>\n",
-        );
+        page.push_str(match kind {
+            Table::Final => {
+                "<p class=\"empty\">No table: the run wrote no <code>caltable.csv</code>.</p>\n"
+            }
+            Table::SoFar => "<p class=\"empty\">No cell has two usable exchanges yet.</p>\n",
+        });
     } else {
         page.push_str(
             "<table>\n<thead><tr><th class=\"text\">channel</th><th>gain state</th>\
@@ -232,6 +287,11 @@ fn summary(page: &mut String, data: &ReportData) {
             );
         }
         page.push_str("</tbody>\n</table>\n");
+    }
+    if kind == Table::SoFar {
+        // The counts and the files are the live strip's and the end's to tell.
+        page.push_str("</section>\n");
+        return;
     }
     let c = &m.counts;
     let _ = writeln!(

@@ -12,7 +12,7 @@ use crate::data::{read_exchanges, Exchange, Manifest};
 use crate::fit::rtt::COUNTER_BITS;
 use crate::fit::state_labels::StateCollector;
 use crate::fit::stats::median;
-use crate::fit::{burst_delays, read_caltable, Deembed};
+use crate::fit::{burst_delays, read_caltable, Deembed, TableRow};
 use serde::Deserialize;
 use std::collections::BTreeMap;
 use std::path::Path;
@@ -50,7 +50,49 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
     let budget = optional_csv::<BudgetLine>(dir, files::BUDGET, &mut absent)?;
     let gainmap = optional_csv::<GainMapRow>(dir, files::GAINMAP, &mut absent)?;
     let verify = optional_csv::<VerifyPoint>(dir, files::VERIFY, &mut absent)?;
+    Ok(assemble(
+        Written {
+            manifest,
+            table,
+            budget,
+            gainmap,
+            verify,
+            absent,
+        },
+        rows,
+        bench,
+    ))
+}
 
+/// What a run directory holds besides its exchanges, read or (for a run under way) made so far.
+#[derive(Debug, Clone)]
+pub struct Written {
+    /// The run's manifest.
+    pub manifest: Manifest,
+    /// The calibration table.
+    pub table: Vec<TableRow>,
+    /// Each cell's uncertainty budget.
+    pub budget: Vec<BudgetLine>,
+    /// Gain-state plateaus.
+    pub gainmap: Vec<GainMapRow>,
+    /// Verification rows.
+    pub verify: Vec<VerifyPoint>,
+    /// Optional files not there.
+    pub absent: Vec<&'static str>,
+}
+
+/// The report's data from the run's files and its exchanges: everything drawn from the rows
+/// (spreads, burst medians, levels) is derived here. Pure, so a page of a run still under way
+/// is drawn as the finished report is.
+pub fn assemble(written: Written, mut rows: Vec<Exchange>, bench: &Bench) -> ReportData {
+    let Written {
+        manifest,
+        table,
+        budget,
+        gainmap,
+        verify,
+        absent,
+    } = written;
     let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone())
         .with_measured(bench.measured_path.clone())
         .with_applied_k(manifest.fit.applied_k_ps.or(bench.applied_k_ps()));
@@ -102,7 +144,7 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
             k_ps,
         })
         .collect();
-    Ok(ReportData {
+    ReportData {
         manifest,
         table,
         budget,
@@ -113,7 +155,7 @@ pub fn load(dir: &Path, bench: &Bench) -> Result<ReportData, ReportError> {
         bench_time,
         levels: level_gains(&rows, bench),
         absent,
-    })
+    }
 }
 
 /// Gives the rows of a DUT that reports no gain index their inferred states, as the table's

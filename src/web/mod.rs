@@ -17,6 +17,8 @@ use thiserror::Error;
 
 pub use crate::report::html::escape;
 
+pub mod live;
+
 /// Why a page cannot be served.
 #[derive(Debug, Error)]
 pub enum WebError {
