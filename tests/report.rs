@@ -84,6 +84,28 @@ fn the_demo_report_is_self_contained_with_plots_verdict_and_provenance() {
             "{id} text"
         );
     }
+    // The drift plot says which colour is which gain state, and what hollow markers are.
+    let drift_text: String = select(&doc, "figure#plot-drift svg text")
+        .iter()
+        .map(text)
+        .collect();
+    for g in 0..3 {
+        assert!(
+            drift_text.contains(&format!("gain state {g}")),
+            "{drift_text}"
+        );
+    }
+    assert!(drift_text.contains("verification"), "{drift_text}");
+    // The K plot's channel is not drawn in a gain state's colour (the table's swatches are).
+    let k_svg: String = select(&doc, "figure#plot-k svg")[0].html();
+    for swatch in select(&doc, "#summary .swatch") {
+        let style = swatch.value().attr("style").unwrap_or_default();
+        let colour = style.trim_start_matches("background:").to_uppercase();
+        assert!(
+            !k_svg.to_uppercase().contains(&colour),
+            "{colour} in the K plot"
+        );
+    }
     // The demo bench reports no temperature, and the page says so instead of plotting.
     assert_eq!(select(&doc, "figure#plot-temperature.empty").len(), 1);
     // The K plot has one marker per table row, with three gain states.

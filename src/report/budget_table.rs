@@ -50,7 +50,7 @@ pub fn section(
     page.push_str(
         "<p>Each component's contribution |c·u| in ps (GUM type and sensitivity c under its \
          name), combined by root-sum-square; ν<sub>eff</sub> by Welch–Satterthwaite and k from \
-         Student's t at 95 %. U = k·u<sub>c</sub>.</p>\n<table>\n<thead><tr>\
+         Student's t at 95 %. U = k·u<sub>c</sub>.</p>\n<div class=\"scroll\"><table>\n<thead><tr>\
          <th class=\"text\">channel</th><th>gain state</th>",
     );
     for (name, evaluation, sensitivity) in &components {
@@ -107,7 +107,7 @@ pub fn section(
         }
         page.push_str("</tr>\n");
     }
-    page.push_str("</tbody>\n</table>\n</section>\n");
+    page.push_str("</tbody>\n</table></div>\n</section>\n");
 }
 
 #[cfg(test)]

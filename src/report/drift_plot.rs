@@ -58,15 +58,35 @@ pub fn drift_svg(data: &ReportData) -> Result<Option<String>, ReportError> {
         svg::mesh(&mut chart, x_desc, "burst median K (ps)")
             .y_label_formatter(&|y| format!("{y:.0}"))
             .draw()?;
-        chart.draw_series(pts.iter().map(|p| {
-            let c = svg::state_colour(p.gain_index);
-            let style = if p.verify {
-                c.stroke_width(1)
-            } else {
-                c.filled()
-            };
-            Circle::new((p.time_s / scale, p.median_k_ps), 3, style)
-        }))?;
+        let states: std::collections::BTreeSet<u32> = pts.iter().map(|p| p.gain_index).collect();
+        for g in states {
+            let c = svg::state_colour(g);
+            chart
+                .draw_series(pts.iter().filter(|p| p.gain_index == g).map(|p| {
+                    let style = if p.verify {
+                        c.stroke_width(1)
+                    } else {
+                        c.filled()
+                    };
+                    Circle::new((p.time_s / scale, p.median_k_ps), 3, style)
+                }))?
+                .label(format!("gain state {g}"))
+                .legend(move |(x, y)| Circle::new((x + 8, y), 4, c.filled()));
+        }
+        if pts.iter().any(|p| p.verify) {
+            // An empty series, for the legend's entry on hollow markers.
+            chart
+                .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())?
+                .label("verification burst (hollow)")
+                .legend(|(x, y)| Circle::new((x + 8, y), 4, svg::INK.stroke_width(1)));
+        }
+        chart
+            .configure_series_labels()
+            .position(SeriesLabelPosition::UpperRight)
+            .background_style(WHITE.mix(0.9))
+            .border_style(svg::GRID)
+            .label_font((svg::FONT, svg::LABEL_PX, &svg::INK))
+            .draw()?;
         Ok::<(), DrawingAreaErrorKind<std::io::Error>>(())
     })
     .map(Some)

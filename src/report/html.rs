@@ -55,11 +55,13 @@ pub const STYLE: &str = r#"
 * { box-sizing: border-box; }
 body { margin:0; background:var(--paper); color:var(--ink);
   font:15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "Noto Sans", sans-serif; }
-header.masthead { background:var(--ink); color:#fff; padding:22px 32px 18px; }
+header.masthead { background:var(--ink); color:#fff; padding:22px 0 18px; }
+header.masthead .inner { max-width:1040px; margin:0 auto; padding:0 24px; }
 header .kicker { text-transform:uppercase; letter-spacing:.12em; font-size:12px; opacity:.75; }
 header h1 { margin:4px 0 2px; font-size:26px; font-weight:600; }
 header .sub { margin:0; opacity:.85; }
 main { max-width:1040px; margin:0 auto; padding:20px 24px 40px; }
+main p, main li, header h1, header .sub { overflow-wrap:break-word; }
 section { background:var(--card); border:1px solid var(--rule); border-radius:6px;
   padding:16px 22px; margin:18px 0; }
 h2 { font-size:18px; margin:0 0 10px; color:var(--accent); }
@@ -73,19 +75,28 @@ h3 { font-size:15px; margin:0 0 6px; }
 .checks li { padding:3px 0; }
 .mark { display:inline-block; min-width:64px; font-weight:600; }
 .met { color:var(--good); } .missed { color:var(--bad); }
+.scroll { overflow-x:auto; -webkit-overflow-scrolling:touch; }
 table { border-collapse:collapse; width:100%; font-variant-numeric:tabular-nums; }
-th, td { text-align:right; padding:5px 10px; border-bottom:1px solid var(--rule); }
+th, td { text-align:right; padding:5px 10px; border-bottom:1px solid var(--rule); white-space:nowrap; }
 th { font-weight:600; color:var(--muted); font-size:13px; }
 td.text, th.text { text-align:left; }
 .swatch { display:inline-block; width:10px; height:10px; border-radius:2px; margin-right:6px; }
 figure { margin:18px 0 6px; }
-figure svg { width:100%; height:auto; display:block; border:1px solid var(--rule); border-radius:4px; }
+figure .plot { overflow-x:auto; border:1px solid var(--rule); border-radius:4px; }
+figure svg { width:100%; min-width:640px; height:auto; display:block; }
 figcaption { color:var(--muted); font-size:13px; margin-top:6px; }
 .empty p { color:var(--muted); font-style:italic; }
-dl { display:grid; grid-template-columns:210px 1fr; gap:4px 16px; margin:0; }
+dl { display:grid; grid-template-columns:minmax(120px, 210px) minmax(0, 1fr); gap:4px 16px; margin:0; }
 dt { color:var(--muted); } dd { margin:0; overflow-wrap:anywhere; }
 code { font-family:ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace; font-size:13px; }
-footer { text-align:center; color:var(--muted); font-size:12px; padding:0 0 28px; }
+footer { text-align:center; color:var(--muted); font-size:12px; padding:0 24px 28px; }
+@media (max-width:640px) {
+  header.masthead .inner, main { padding-left:12px; padding-right:12px; }
+  section { padding:14px 14px; }
+  header h1 { font-size:22px; }
+  dl { grid-template-columns:minmax(0, 1fr); gap:0; }
+  dt { margin-top:8px; font-size:13px; }
+}
 "#;
 
 /// Range (mm) per picosecond of RTT: c/2.
@@ -101,12 +112,13 @@ pub fn render(data: &ReportData) -> Result<String, ReportError> {
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n\
          <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n\
          <title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n\
-         <header class=\"masthead\"><div class=\"kicker\">taucal run report</div>\
-         <h1>{}</h1><p class=\"sub\">{} · started {} · {}</p></header>\n<main>\n",
+         <header class=\"masthead\"><div class=\"inner\"><div class=\"kicker\">taucal run \
+         report</div><h1>{}</h1><p class=\"sub\">{} · started {} · {}</p></div></header>\n\
+         <main>\n",
         escape(&title),
         escape(&m.recipe.name),
         escape(&m.bench.name),
-        escape(&m.started_utc),
+        escape(&to_the_second(&m.started_utc)),
         status_word(m.status),
     );
     page.push_str(&body(data)?);
@@ -261,7 +273,7 @@ fn summary(page: &mut String, data: &ReportData, kind: Table) {
         });
     } else {
         page.push_str(
-            "<table>\n<thead><tr><th class=\"text\">channel</th><th>gain state</th>\
+            "<div class=\"scroll\"><table>\n<thead><tr><th class=\"text\">channel</th><th>gain state</th>\
              <th>K (ps)</th><th>± 95 % (ps)</th><th>± 95 % range (mm)</th><th>exchanges used</th>\
              <th>rejected</th><th class=\"text\">source</th></tr></thead>\n<tbody>\n",
         );
@@ -286,7 +298,7 @@ fn summary(page: &mut String, data: &ReportData, kind: Table) {
                 r.source.as_str()
             );
         }
-        page.push_str("</tbody>\n</table>\n");
+        page.push_str("</tbody>\n</table></div>\n");
     }
     if kind == Table::SoFar {
         // The counts and the files are the live strip's and the end's to tell.
@@ -350,7 +362,7 @@ fn figure(
         Some(svg) => {
             let _ = write!(
                 page,
-                "<figure id=\"{id}\">\n<h3>{title}</h3>\n{svg}\n<figcaption>{caption}</figcaption>\n</figure>\n"
+                "<figure id=\"{id}\">\n<h3>{title}</h3>\n<div class=\"plot\">{svg}</div>\n<figcaption>{caption}</figcaption>\n</figure>\n"
             );
         }
         None => {
@@ -463,10 +475,12 @@ fn provenance(page: &mut String, data: &ReportData) {
             m.seed.map_or("— (real bench)".into(), |s| s.to_string()),
         ),
         ("taucal version".into(), m.taucal_version.clone()),
-        ("started (UTC)".into(), m.started_utc.clone()),
+        ("started".into(), to_the_second(&m.started_utc)),
         (
-            "finished (UTC)".into(),
-            m.finished_utc.clone().unwrap_or_else(|| "—".into()),
+            "finished".into(),
+            m.finished_utc
+                .as_deref()
+                .map_or_else(|| "—".into(), to_the_second),
         ),
         ("bench time".into(), format!("{:.3} s", m.bench_time_s)),
         ("wall time".into(), format!("{:.3} s", m.wall_time_s)),

@@ -37,7 +37,9 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
         for (ci, ch) in channels.iter().enumerate() {
             // Channels side by side around each state, so their bars never hide each other.
             let offset = (ci as f64 - (width - 1.0) / 2.0) * 0.12;
-            let colour = svg::state_colour(ci as u32);
+            // A palette of the channels' own: the x axis is the gain state, so a state's
+            // colour on a channel would read as that state.
+            let colour = svg::channel_colour(ci);
             let mine: Vec<_> = rows
                 .iter()
                 .filter(|r| (r.center_mhz, r.bw_mhz) == *ch)
@@ -71,7 +73,7 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
             .position(SeriesLabelPosition::UpperLeft)
             .background_style(WHITE.mix(0.9))
             .border_style(GRID)
-            .label_font((FONT, 13, &INK))
+            .label_font((FONT, svg::LABEL_PX, &INK))
             .draw()?;
         Ok::<(), DrawingAreaErrorKind<std::io::Error>>(())
     })

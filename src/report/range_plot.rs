@@ -74,7 +74,7 @@ pub fn svg(data: &ReportData) -> Result<Option<String>, ReportError> {
             .position(SeriesLabelPosition::UpperRight)
             .background_style(WHITE.mix(0.9))
             .border_style(GRID)
-            .label_font((FONT, 13, &INK))
+            .label_font((FONT, svg::LABEL_PX, &INK))
             .draw()?;
         Ok::<(), DrawingAreaErrorKind<std::io::Error>>(())
     })

@@ -39,6 +39,29 @@ pub fn state_colour(g: u32) -> RGBColor {
     STATES[g as usize % STATES.len()]
 }
 
+/// Colours of channels, by their order in the table (repeating beyond five): none is a gain
+/// state's, so a plot whose x axis is the gain state never reads a channel as a state.
+const CHANNELS: [RGBColor; 5] = [
+    RGBColor(0x2a, 0x2f, 0x38),
+    RGBColor(0xe0, 0x40, 0x9a),
+    RGBColor(0x12, 0xb0, 0xb8),
+    RGBColor(0x7f, 0x8c, 0x1d),
+    RGBColor(0x5a, 0x3e, 0x1c),
+];
+
+/// The colour of the `i`-th channel.
+pub fn channel_colour(i: usize) -> RGBColor {
+    CHANNELS[i % CHANNELS.len()]
+}
+
+/// Label size as plotters takes it. Its SVG backend writes about 0.81 of it as the font size
+/// (17 → 13.7 px), and the page's stylesheet never shows a plot narrower than 640 px (a
+/// narrower card scrolls it), so on screen the text stays at least 13.7 × 640 / 760 ≈ 11.5 px
+/// (tests/browser.rs measures it at 390 px).
+pub const LABEL_PX: u32 = 17;
+/// Axis description size, as plotters takes it.
+pub const DESC_PX: u32 = 18;
+
 /// Draws a plot into SVG text. `plot` names it in errors.
 pub fn render<E: std::fmt::Display>(
     plot: &'static str,
@@ -70,7 +93,7 @@ pub fn chart<'a, 'b>(
 ) -> Result<Chart<'a, 'b>, DrawingAreaErrorKind<std::io::Error>> {
     ChartBuilder::on(root)
         .margin(16)
-        .x_label_area_size(44)
+        .x_label_area_size(50)
         .y_label_area_size(72)
         .build_cartesian_2d(x, y)
 }
@@ -88,8 +111,8 @@ pub fn mesh<'a, 'c, 'b>(
         .axis_style(INK)
         .x_desc(x_desc)
         .y_desc(y_desc)
-        .label_style((FONT, 13, &INK))
-        .axis_desc_style((FONT, 14, &INK));
+        .label_style((FONT, LABEL_PX, &INK))
+        .axis_desc_style((FONT, DESC_PX, &INK));
     mesh
 }
 
@@ -112,5 +135,25 @@ pub fn whole(x: &f64) -> String {
         format!("{}", x.round() as i64)
     } else {
         String::new()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn no_channel_is_drawn_in_a_gain_states_colour() {
+        // Squared distance in RGB: below 60² two colours read as one in a small marker
+        // (from memory; a coarse stand-in for a perceptual distance).
+        let far = |a: RGBColor, b: RGBColor| {
+            let d = |x: u8, y: u8| (i32::from(x) - i32::from(y)).pow(2);
+            d(a.0, b.0) + d(a.1, b.1) + d(a.2, b.2) >= 60 * 60
+        };
+        for c in CHANNELS {
+            for s in STATES {
+                assert!(far(c, s), "channel {c:?} against state {s:?}");
+            }
+        }
     }
 }

@@ -91,9 +91,6 @@ pub fn bind(addr: &str, allow_remote: bool) -> Result<TcpListener, WebError> {
 
 /// Styles served pages add to the report's: a navigation row and a status strip.
 const SHELL_STYLE: &str = r#"
-header.masthead { padding:22px 0 18px; }
-header.masthead .inner { max-width:1040px; margin:0 auto; padding:0 24px; }
-main p, main li, header h1, header .sub { overflow-wrap:break-word; }
 nav.pages { display:flex; flex-wrap:wrap; gap:6px 18px; margin-top:10px; font-size:14px; }
 nav.pages a { color:#fff; opacity:.85; text-decoration:none; border-bottom:1px solid transparent; }
 nav.pages a:hover, nav.pages a[aria-current] { opacity:1; border-bottom-color:#fff; }

@@ -43,7 +43,7 @@ fn find(candidates: &[&str]) -> Option<PathBuf> {
 }
 
 /// A free loopback port (the OS picks; it is released for chromedriver to take).
-fn free_port() -> u16 {
+pub fn free_port() -> u16 {
     TcpListener::bind("127.0.0.1:0")
         .and_then(|l| l.local_addr())
         .expect("a free port")
