@@ -1,0 +1,171 @@
+//! `cargo bench --bench watch`: many viewers of the live page do not slow the run. The demo
+//! recipe (`recipes/rx-gain-sweep.toml`) runs in virtual time with `--watch`, once with no
+//! viewer and once with 50 viewers holding the page's event stream open and reading all it
+//! sends, side by side (the two kinds alternate, so drift in the machine's load falls on both).
+//! The figure is the ratio of the median wall times (the manifest's `wall_time_s`), 50 viewers
+//! to none; target ≤ 1.25. A run without `--watch` is timed too, for what serving costs at all.
+//!
+//! Each viewer must receive the run's end (the report's sections), or the bench fails: a
+//! viewer that was never served would make the ratio meaningless.
+//!
+//! `--smoke` (CI) runs 2 rounds; the default runs 6.
+
+use std::io::{Read, Write};
+use std::net::{TcpListener, TcpStream};
+use std::path::Path;
+use std::process::{Command, Stdio};
+use std::time::{Duration, Instant};
+
+type Error = Box<dyn std::error::Error>;
+
+const VIEWERS: usize = 50;
+const TARGET_RATIO: f64 = 1.25;
+
+fn main() -> Result<(), Error> {
+    let smoke = std::env::args().any(|a| a == "--smoke");
+    let rounds = if smoke { 2 } else { 6 };
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let recipe = root.join("recipes/rx-gain-sweep.toml");
+    let work = tempfile::tempdir()?;
+    println!(
+        "watch bench: {} in virtual time, --watch with 0 and {VIEWERS} viewers, {rounds} rounds",
+        recipe.display()
+    );
+    let (mut plain, mut alone, mut watched) = (Vec::new(), Vec::new(), Vec::new());
+    let mut served_bytes = 0u64;
+    for round in 0..rounds {
+        plain.push(run(&recipe, work.path(), &format!("plain-{round}"), None)?.0);
+        alone.push(run(&recipe, work.path(), &format!("alone-{round}"), Some(0))?.0);
+        let (wall, bytes) = run(
+            &recipe,
+            work.path(),
+            &format!("watched-{round}"),
+            Some(VIEWERS),
+        )?;
+        watched.push(wall);
+        served_bytes += bytes;
+    }
+    let (plain, alone, watched) = (median(plain), median(alone), median(watched));
+    let ratio = watched / alone;
+    println!("without --watch:        median wall time {plain:.3} s");
+    println!("--watch, no viewer:     median wall time {alone:.3} s");
+    println!(
+        "--watch, {VIEWERS} viewers:    median wall time {watched:.3} s ({:.1} MB sent to each viewer on average)",
+        served_bytes as f64 / (rounds * VIEWERS) as f64 / 1e6
+    );
+    println!("ratio of {VIEWERS} viewers to none: {ratio:.3} (target ≤ {TARGET_RATIO})");
+    println!(
+        "ratio of --watch (no viewer) to no --watch: {:.3}",
+        alone / plain
+    );
+    if ratio > TARGET_RATIO {
+        return Err(format!("ratio {ratio:.3} is above the target {TARGET_RATIO}").into());
+    }
+    Ok(())
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        (v[n / 2 - 1] + v[n / 2]) / 2.0
+    }
+}
+
+/// Runs the recipe into `work/name`, served to `viewers` viewers when given; returns the run's
+/// wall time (its manifest's) and the bytes the viewers received in all.
+fn run(
+    recipe: &Path,
+    work: &Path,
+    name: &str,
+    viewers: Option<usize>,
+) -> Result<(f64, u64), Error> {
+    let out = work.join(name);
+    let mut cmd = Command::new(env!("CARGO_BIN_EXE_taucal"));
+    cmd.args(["run", "-q", "--store", "none"])
+        .arg(recipe)
+        .arg("--out")
+        .arg(&out)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null());
+    let port = free_port()?;
+    if viewers.is_some() {
+        cmd.args(["--watch", &format!("127.0.0.1:{port}")]);
+    }
+    let mut child = cmd.spawn()?;
+    let readers: Vec<_> = (0..viewers.unwrap_or(0))
+        .map(|_| std::thread::spawn(move || view(port)))
+        .collect();
+    let status = child.wait()?;
+    if !matches!(status.code(), Some(0 | 1)) {
+        return Err(format!("{name}: taucal ended {status}").into());
+    }
+    let mut bytes = 0;
+    for r in readers {
+        let seen = r.join().map_err(|_| "a viewer panicked")??;
+        if !seen.ended {
+            return Err(format!("{name}: a viewer never received the run's end").into());
+        }
+        bytes += seen.bytes;
+    }
+    let m: toml::Table = toml::from_str(&std::fs::read_to_string(out.join("manifest.toml"))?)?;
+    let wall = m
+        .get("wall_time_s")
+        .and_then(|v| v.as_float())
+        .ok_or("no wall_time_s")?;
+    Ok((wall, bytes))
+}
+
+fn free_port() -> Result<u16, Error> {
+    Ok(TcpListener::bind("127.0.0.1:0")?.local_addr()?.port())
+}
+
+/// What one viewer received.
+struct Seen {
+    bytes: u64,
+    ended: bool,
+}
+
+/// One viewer: connects as soon as the page listens, holds the event stream open and reads
+/// everything until the server closes it.
+fn view(port: u16) -> Result<Seen, String> {
+    let deadline = Instant::now() + Duration::from_secs(30);
+    let mut stream = loop {
+        match TcpStream::connect(("127.0.0.1", port)) {
+            Ok(s) => break s,
+            Err(e) if Instant::now() > deadline => return Err(format!("connect: {e}")),
+            Err(_) => std::thread::sleep(Duration::from_millis(2)),
+        }
+    };
+    stream
+        .write_all(b"GET /events HTTP/1.1\r\nHost: 127.0.0.1\r\nAccept: text/event-stream\r\n\r\n")
+        .map_err(|e| e.to_string())?;
+    let mut buf = vec![0u8; 64 * 1024];
+    let mut seen = Seen {
+        bytes: 0,
+        ended: false,
+    };
+    // The end marker may straddle two reads: keep the tail of the last one.
+    let mut tail: Vec<u8> = Vec::new();
+    loop {
+        let n = match stream.read(&mut buf) {
+            Ok(0) => break,
+            Ok(n) => n,
+            Err(e) => return Err(format!("read: {e}")),
+        };
+        seen.bytes += n as u64;
+        tail.extend_from_slice(&buf[..n]);
+        if find(&tail, b"\"ended\":true") {
+            seen.ended = true;
+        }
+        let keep = tail.len().saturating_sub(16);
+        tail.drain(..keep);
+    }
+    Ok(seen)
+}
+
+fn find(hay: &[u8], needle: &[u8]) -> bool {
+    hay.windows(needle.len()).any(|w| w == needle)
+}
