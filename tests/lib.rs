@@ -32,3 +32,4 @@ mod store;
 mod touchstone;
 mod truth;
 mod unattended;
+mod watch;
