@@ -6,7 +6,7 @@ use super::{bench_arg, run, Exit};
 use crate::data::run_dir::files;
 use crate::diagnostic::Diagnostic;
 use crate::runner::run::execute;
-use crate::web::live::ProgressFrom;
+use crate::web::live::{PlanFacts, ProgressFrom};
 
 /// Prepares the interrupted run, replays it to its last checkpoint and carries on.
 pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
@@ -37,7 +37,7 @@ pub fn run(args: super::args::ResumeArgs, verbosity: Verbosity) -> Result<Exit, 
             addr,
             args.allow_remote,
             request.bench.clone(),
-            Some(&estimate),
+            PlanFacts::of(&request.plan, &request.bench),
             ProgressFrom::Events,
             None,
         )?),

@@ -10,7 +10,7 @@ use crate::runner::finalise::RunReport;
 use crate::runner::request::RunRequest;
 use crate::runner::run::execute;
 use crate::runner::RunError;
-use crate::web::live::{Both, ProgressFrom};
+use crate::web::live::{Both, PlanFacts, ProgressFrom};
 use std::sync::Arc;
 
 /// Validates, runs, fits, and reports.
@@ -40,7 +40,7 @@ pub fn run(args: RunArgs, verbosity: Verbosity) -> Result<Exit, Diagnostic> {
             addr,
             args.allow_remote,
             bench.clone(),
-            Some(&estimate),
+            PlanFacts::of(&plan, &bench),
             ProgressFrom::Events,
             None,
         )?),

@@ -7,8 +7,7 @@ use crate::bench::Bench;
 use crate::data::run_dir::files;
 use crate::data::Manifest;
 use crate::diagnostic::Diagnostic;
-use crate::runner::estimate::Estimate;
-use crate::web::live::{LiveServer, ProgressFrom};
+use crate::web::live::{LiveServer, PlanFacts, ProgressFrom};
 use std::path::Path;
 use std::sync::Arc;
 
@@ -40,28 +39,24 @@ pub fn run(args: WatchArgs) -> Result<Exit, Diagnostic> {
         )
     })?;
     let bench = bench_arg::of_run(args.bench.as_deref(), &m)?;
-    // The plan gives the estimate and each stage's place; a run whose recipe moved is still
-    // shown, without them.
-    let (estimate, stages) =
-        match crate::recipe::load(Path::new(&m.recipe.file), &m.recipe.overrides, &bench) {
-            Ok(plan) => (
-                Some(crate::runner::estimate::estimate(&plan, &bench)),
-                plan.stages.iter().map(|s| s.name().to_string()).collect(),
-            ),
-            Err(_) => {
-                tracing::warn!(
-                    "the run's recipe {} cannot be read: the page shows no estimate",
-                    m.recipe.path
-                );
-                (None, Vec::new())
-            }
-        };
+    // The plan gives the estimate, each stage's place and the verification stages; a run
+    // whose recipe moved is still shown, without them.
+    let plan = match crate::recipe::load(Path::new(&m.recipe.file), &m.recipe.overrides, &bench) {
+        Ok(plan) => PlanFacts::of(&plan, &bench),
+        Err(_) => {
+            tracing::warn!(
+                "the run's recipe {} cannot be read: the page shows no estimate",
+                m.recipe.path
+            );
+            PlanFacts::default()
+        }
+    };
     let live = start(
         &args.listen,
         args.allow_remote,
         Arc::new(bench),
-        estimate.as_ref(),
-        ProgressFrom::Files { stages },
+        plan,
+        ProgressFrom::Files,
         Some(dir),
     )?;
     println!(
@@ -80,13 +75,13 @@ pub fn start(
     addr: &str,
     allow_remote: bool,
     bench: Arc<Bench>,
-    estimate: Option<&Estimate>,
+    plan: PlanFacts,
     from: ProgressFrom,
     dir: Option<&Path>,
 ) -> Result<LiveServer, Diagnostic> {
     let refused = |e: crate::web::WebError| Diagnostic::plain(e.to_string());
     let listener = crate::web::bind(addr, allow_remote).map_err(refused)?;
-    LiveServer::start(listener, bench, estimate, from, dir).map_err(refused)
+    LiveServer::start(listener, bench, plan, from, dir).map_err(refused)
 }
 
 /// Refuses `--watch` on a station's bench: each slot is a run of its own.

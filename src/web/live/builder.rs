@@ -8,7 +8,7 @@
 use super::content::{self, Content};
 use super::follow::RunFollower;
 use super::progress::{point_text, stage_text, Progress};
-use super::{Feed, LogTail};
+use super::{Feed, LogTail, PlanFacts};
 use crate::bench::Bench;
 use crate::data::RunStatus;
 use std::path::PathBuf;
@@ -32,22 +32,19 @@ pub enum Command {
 }
 
 /// Where the strip's progress comes from.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ProgressFrom {
     /// The runner's events, published by a [`super::LiveObserver`] in this process.
     Events,
-    /// The run's files (a run in another process); the plan's stage names give each stage
-    /// its place.
-    Files {
-        /// The plan's stage names, in order (empty when the plan could not be read).
-        stages: Vec<String>,
-    },
+    /// The run's files (a run in another process).
+    Files,
 }
 
 /// Runs the builder until [`Command::Finish`] or until every sender is gone.
 pub fn run(
     feed: Feed,
     bench: Arc<Bench>,
+    plan: PlanFacts,
     from: ProgressFrom,
     start: Option<PathBuf>,
     commands: Receiver<Command>,
@@ -64,7 +61,7 @@ pub fn run(
                 if let Some(f) = follower.as_mut() {
                     let _ = f.poll();
                     publish_log(&feed, f);
-                    publish_end(&feed, f, &bench, &from, true);
+                    publish_end(&feed, f, &bench, &plan, from, true);
                 }
                 let _ = done.send(());
                 return;
@@ -89,22 +86,20 @@ pub fn run(
         if ended {
             // Once per new manifest: a resumed run says `running` again and is followed again.
             if changes.manifest {
-                publish_end(&feed, f, &bench, &from, false);
+                publish_end(&feed, f, &bench, &plan, from, false);
             }
             dirty = false;
             continue;
         }
-        if let ProgressFrom::Files { stages } = &from {
-            if changes.rows || changes.manifest {
-                feed.progress
-                    .send_replace(Arc::new(progress_from_files(f, stages, &feed)));
-            }
+        if from == ProgressFrom::Files && (changes.rows || changes.manifest) {
+            feed.progress
+                .send_replace(Arc::new(progress_from_files(f, &plan.stages, &feed)));
         }
         dirty |= changes.rows || changes.manifest;
         if dirty && Instant::now() >= next_draw {
             let started = Instant::now();
             if let Some(m) = f.manifest() {
-                match content::live(m, f.rows(), &bench) {
+                match content::live(m, f.rows(), &bench, &plan.verify_stages) {
                     Ok(c) => {
                         feed.content.send_replace(Arc::new(c));
                     }
@@ -124,12 +119,15 @@ fn publish_log(feed: &Feed, f: &RunFollower) {
 }
 
 /// The finished (or stopped) run: its report's sections and its final figures.
-fn publish_end(feed: &Feed, f: &RunFollower, bench: &Bench, from: &ProgressFrom, last: bool) {
-    let stages = match from {
-        ProgressFrom::Files { stages } => stages.as_slice(),
-        ProgressFrom::Events => &[],
-    };
-    let mut p = progress_from_files(f, stages, feed);
+fn publish_end(
+    feed: &Feed,
+    f: &RunFollower,
+    bench: &Bench,
+    plan: &PlanFacts,
+    from: ProgressFrom,
+    last: bool,
+) {
+    let mut p = progress_from_files(f, &plan.stages, feed);
     if let (ProgressFrom::Events, Some(m)) = (from, f.manifest()) {
         // The runner's own counts: the events said them as they came.
         p.exchanges = m.counts.exchanges;

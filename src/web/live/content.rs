@@ -26,8 +26,18 @@ pub struct Content {
 }
 
 /// The sections of a run under way: the table fitted from the rows so far (measured cells;
-/// verification stages left out, as the run's fit does) and the report's plots.
-pub fn live(manifest: &Manifest, rows: &[Exchange], bench: &Bench) -> Result<Content, ReportError> {
+/// the plan's verification stages left out, as the run's fit does) and the report's plots.
+pub fn live(
+    manifest: &Manifest,
+    rows: &[Exchange],
+    bench: &Bench,
+    verify_stages: &[String],
+) -> Result<Content, ReportError> {
+    // A running run's manifest names its verification stages only at the end.
+    let mut manifest = manifest.clone();
+    if manifest.fit.verify_stages.is_empty() {
+        manifest.fit.verify_stages = verify_stages.to_vec();
+    }
     let verify = &manifest.fit.verify_stages;
     let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone())
         .with_measured(bench.measured_path.clone())
@@ -55,7 +65,7 @@ pub fn live(manifest: &Manifest, rows: &[Exchange], bench: &Bench) -> Result<Con
     );
     Ok(Content {
         title: manifest.recipe.name.clone(),
-        sub: sub_line(manifest),
+        sub: sub_line(&manifest),
         html: html::live_body(&data)?,
         ended: false,
         rows: rows.len() as u64,

@@ -33,6 +33,33 @@ use std::sync::mpsc;
 use std::sync::Arc;
 use tokio::sync::watch;
 
+/// What the plan tells the page: the estimate, the stages in order, which of them verify.
+#[derive(Debug, Clone, Default)]
+pub struct PlanFacts {
+    /// The plan's estimate of the bench time.
+    pub estimate: Option<Estimate>,
+    /// Stage names, in order.
+    pub stages: Vec<String>,
+    /// The verification stages' names (their exchanges check the table, not fit it).
+    pub verify_stages: Vec<String>,
+}
+
+impl PlanFacts {
+    /// The facts of `plan` on `bench`.
+    pub fn of(plan: &crate::recipe::Plan, bench: &Bench) -> PlanFacts {
+        PlanFacts {
+            estimate: Some(crate::runner::estimate::estimate(plan, bench)),
+            stages: plan.stages.iter().map(|s| s.name().to_string()).collect(),
+            verify_stages: plan
+                .stages
+                .iter()
+                .filter(|s| matches!(s, crate::recipe::Stage::Verify(_)))
+                .map(|s| s.name().to_string())
+                .collect(),
+        }
+    }
+}
+
 /// The log's last lines, as sent to viewers.
 #[derive(Debug, Clone, Default, PartialEq, Serialize)]
 pub struct LogTail {
@@ -111,11 +138,11 @@ impl LiveServer {
     pub fn start(
         listener: TcpListener,
         bench: Arc<Bench>,
-        estimate: Option<&Estimate>,
+        plan: PlanFacts,
         from: ProgressFrom,
         dir: Option<&Path>,
     ) -> Result<LiveServer, WebError> {
-        let feed = Feed::new(estimate);
+        let feed = Feed::new(plan.estimate.as_ref());
         let shutdown = Shutdown::new();
         let served = super::serve(listener, router(feed.clone(), shutdown.clone()), shutdown)?;
         let (commands, rx) = mpsc::channel();
@@ -123,7 +150,7 @@ impl LiveServer {
         let thread_feed = feed.clone();
         let builder = std::thread::Builder::new()
             .name("taucal-live".into())
-            .spawn(move || builder::run(thread_feed, bench, from, start, rx))
+            .spawn(move || builder::run(thread_feed, bench, plan, from, start, rx))
             .map_err(WebError::Start)?;
         Ok(LiveServer {
             served,
