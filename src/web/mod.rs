@@ -7,6 +7,7 @@
 //! Nothing here may block or slow the caller's thread: the server runs on its own runtime.
 
 pub mod fleet;
+pub mod live;
 
 use axum::http::header;
 use axum::response::{IntoResponse, Response};
@@ -16,8 +17,6 @@ use std::net::{SocketAddr, TcpListener, ToSocketAddrs};
 use thiserror::Error;
 
 pub use crate::report::html::escape;
-
-pub mod live;
 
 /// Why a page cannot be served.
 #[derive(Debug, Error)]
