@@ -657,7 +657,7 @@ impl Bench {
                 let address = Address::parse(&binding.address).map_err(|e| {
                     KeyError::new(
                         format!("roles.{role}.address"),
-                        format!("is not an address: {}", e.reason),
+                        format!("is not an address: {}", e.explained()),
                         format!("addresses are {ADDRESS_FORMS}"),
                     )
                 })?;

@@ -202,7 +202,7 @@ pub struct FleetStationsArgs {
 pub enum SimCommand {
     /// Serve the simulated bench's instruments as real ones (SCPI attenuator, DUT console).
     #[command(
-        after_help = "Examples:\n  taucal sim serve\n  taucal sim serve --bench recipes/benches/sim-demo.toml --listen attenuator=tcp:127.0.0.1:5025 --listen dut=pty\n\nPrints `ROLE ADDRESS` for each role served, then runs until SIGINT or SIGTERM."
+        after_help = "Examples:\n  taucal sim serve\n  taucal sim serve --bench recipes/benches/sim-demo.toml --listen attenuator=tcp:127.0.0.1:5025 --listen dut=pty\n  taucal sim serve --listen attenuator=hislip:127.0.0.1:4880\n  taucal sim serve --listen attenuator=vxi11:127.0.0.1 --portmapper-port 0\n\nPrints `ROLE ADDRESS` for each role served, then runs until SIGINT or SIGTERM."
     )]
     Serve(SimServeArgs),
     /// Calibrate a simulated fleet: N units drawn from the bench's [sim.population], each a real
@@ -244,8 +244,10 @@ pub struct SimFleetArgs {
 pub struct SimServeArgs {
     #[command(flatten)]
     pub bench: BenchArg,
-    /// Serve ROLE (attenuator, dut) at tcp:HOST:PORT, tcp:PORT (loopback) or pty (dut only).
-    /// On a slotted bench, ROLE may be a slot's DUT role (as its [[slot]] names it) to serve
+    /// Serve ROLE (attenuator, dut) at tcp:HOST:PORT, tcp:PORT (loopback) or pty (dut only);
+    /// the attenuator also over VXI-11 (vxi11:HOST[:PORTMAPPER_PORT]) or HiSLIP
+    /// (hislip:HOST[:PORT]), or at a VISA resource string (TCPIP::HOST::PORT::SOCKET,
+    /// TCPIP::HOST::inst0::INSTR, TCPIP::HOST::hislip0[,PORT]::INSTR). On a slotted bench, ROLE may be a slot's DUT role (as its [[slot]] names it) to serve
     /// that slot's unit. Default: attenuator=tcp:127.0.0.1:5025 and dut=tcp:127.0.0.1:5026.
     #[arg(long, value_name = "ROLE=WHERE")]
     pub listen: Vec<String>,
@@ -258,6 +260,10 @@ pub struct SimServeArgs {
     /// Allow listening on addresses other than loopback.
     #[arg(long)]
     pub allow_remote: bool,
+    /// The VXI-11 portmapper's port where a vxi11 listener names none (111, the standard
+    /// one, needs privileges; 0 lets the system choose).
+    #[arg(long, value_name = "PORT", default_value_t = 111)]
+    pub portmapper_port: u16,
     /// Clients served at once on each socket; more are closed as they connect (1: an
     /// instrument that takes a single connection, as many real ones do).
     #[arg(long, value_name = "N", default_value_t = crate::sim::serve::MAX_CLIENTS as u16,

@@ -6,7 +6,7 @@ use super::args::SimServeArgs;
 use super::{bench_arg, Exit};
 use crate::bench::Bench;
 use crate::diagnostic::Diagnostic;
-use crate::sim::serve::{Listen, ListenAt, ServedBench, ServedRole};
+use crate::sim::serve::{Listen, ServedBench, ServedRole};
 
 /// Where each role is served when no `--listen` is given.
 pub const DEFAULT_LISTEN: [&str; 2] = ["attenuator=tcp:127.0.0.1:5025", "dut=tcp:127.0.0.1:5026"];
@@ -25,17 +25,16 @@ fn listeners(args: &SimServeArgs, bench: &Bench) -> Result<Vec<(String, Listen)>
             Diagnostic::plain(format!("--listen {text}: {m}"))
                 .with_hint("e.g. --listen attenuator=tcp:127.0.0.1:5025 --listen dut=pty")
         })?;
-        if let ListenAt::Tcp(socket) = &listen.at {
-            if !socket.ip().is_loopback() {
+        if let Some(ip) = listen.at.ip() {
+            if !ip.is_loopback() {
                 if !args.allow_remote {
                     return Err(Diagnostic::plain(format!(
-                        "--listen {text}: {} is not a loopback address",
-                        socket.ip()
+                        "--listen {text}: {ip} is not a loopback address"
                     ))
                     .with_hint("simulated instruments are served on loopback only; add --allow-remote to expose them on the network"));
                 }
                 eprintln!(
-                    "taucal: WARNING: serving the simulated {} on {socket}, reachable from the network",
+                    "taucal: WARNING: serving the simulated {} on {ip}, reachable from the network",
                     listen.role.name()
                 );
             }
@@ -122,7 +121,8 @@ pub fn run(args: SimServeArgs) -> Result<Exit, Diagnostic> {
         .or(bench.sim.as_ref().map(|s| s.seed))
         .unwrap_or(1);
     let served = ServedBench::new(&bench, seed, args.realtime)?
-        .with_max_clients(usize::from(args.max_clients));
+        .with_max_clients(usize::from(args.max_clients))
+        .with_portmapper_port(args.portmapper_port);
     if let Some(role) = stdio {
         eprintln!(
             "taucal: serving the simulated {} of `{}` on stdin/stdout (seed {seed}); it ends with stdin",

@@ -1,5 +1,6 @@
 //! Instrument addresses as users write them: `sim:`, `tcp:HOST:PORT`, `serial:PATH?baud=N&…`,
-//! `exec:PROGRAM ARG…`.
+//! `exec:PROGRAM ARG…`, `vxi11:HOST[:PORTMAPPER_PORT][/DEVICE]`, `hislip:HOST[:PORT][/hislipN]`,
+//! and VISA resource strings ([`super::visa`]).
 //!
 //! Parsing is pure (no I/O) so a bench file's addresses are checked before anything connects.
 
@@ -24,6 +25,40 @@ pub enum Address {
     /// A local program whose stdin and stdout carry the lines; the words of its command line,
     /// program first (split like a shell would, but never run by one).
     Exec(Vec<String>),
+    /// A VXI-11 instrument (VXI-11 rev 1.0): its core channel is looked up on the host's
+    /// portmapper, and the link is made to `device` (`inst0` usually).
+    Vxi11 {
+        /// Host name or IP literal.
+        host: String,
+        /// The device name the link is created to.
+        device: String,
+        /// The portmapper's port (111 but for test servers).
+        portmapper_port: u16,
+    },
+    /// A HiSLIP 2.0 instrument (IVI-6.1).
+    Hislip {
+        /// Host name or IP literal.
+        host: String,
+        /// The sub-address sent in Initialize (`hislip0` …).
+        device: String,
+        /// TCP port (4880 by default).
+        port: u16,
+    },
+    /// A USBTMC instrument, through the Linux usbtmc driver's character device.
+    Usbtmc(UsbtmcId),
+}
+
+/// A USB instrument as VISA names it: vendor, product, serial and, optionally, interface.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct UsbtmcId {
+    /// idVendor.
+    pub vendor: u16,
+    /// idProduct.
+    pub product: u16,
+    /// The iSerialNumber string.
+    pub serial: String,
+    /// bInterfaceNumber, when the device has more than one USBTMC interface.
+    pub interface: Option<u8>,
 }
 
 /// Serial line settings; everything but the path has the usual defaults (8N1, no flow control).
@@ -73,11 +108,27 @@ pub struct AddressError {
     pub address: String,
     /// What is wrong with it.
     pub reason: String,
+    /// The faulty part's bytes in the address, where known (VISA resource strings).
+    pub span: Option<std::ops::Range<usize>>,
+}
+
+impl AddressError {
+    /// The reason, followed by the address with a caret under its faulty part where known.
+    pub fn explained(&self) -> String {
+        match &self.span {
+            Some(span) => format!(
+                "{}\n{}",
+                self.reason,
+                super::visa::caret(&self.address, span)
+            ),
+            None => self.reason.clone(),
+        }
+    }
 }
 
 /// The forms an address may take, for hints.
 pub const ADDRESS_FORMS: &str =
-    "`sim:`, `tcp:HOST:PORT` (e.g. tcp:127.0.0.1:5025), `serial:PATH?baud=N` (options: data_bits, parity=none|even|odd, stop_bits=1|2, flow=none|software|hardware) or `exec:PROGRAM ARG…` (a program speaking lines on stdin/stdout; quotes as in a shell, but no shell runs)";
+    "a VISA resource string (TCPIP0::HOST::inst0::INSTR for VXI-11, TCPIP0::HOST::hislip0::INSTR for HiSLIP, TCPIP0::HOST::PORT::SOCKET, ASRL/dev/PATH::INSTR, USB0::VENDOR::PRODUCT::SERIAL::INSTR), `vxi11:HOST[:PORTMAPPER_PORT][/DEVICE]`, `hislip:HOST[:PORT][/hislipN]`, `sim:`, `tcp:HOST:PORT` (e.g. tcp:127.0.0.1:5025), `serial:PATH?baud=N` (options: data_bits, parity=none|even|odd, stop_bits=1|2, flow=none|software|hardware) or `exec:PROGRAM ARG…` (a program speaking lines on stdin/stdout; quotes as in a shell, but no shell runs)";
 
 impl Address {
     /// Parses an address string.
@@ -85,7 +136,33 @@ impl Address {
         let err = |reason: &str| AddressError {
             address: text.to_string(),
             reason: reason.to_string(),
+            span: None,
         };
+        if super::visa::looks_like_visa(text) {
+            return super::visa::parse(text).map_err(|e| AddressError {
+                address: text.to_string(),
+                reason: e.reason,
+                span: Some(e.span),
+            });
+        }
+        if let Some(rest) = text.strip_prefix("vxi11:") {
+            let (host, port, device) =
+                host_port_device(rest, super::visa::PORTMAPPER_PORT).map_err(|r| err(&r))?;
+            return Ok(Address::Vxi11 {
+                host,
+                device: device.unwrap_or_else(|| "inst0".into()),
+                portmapper_port: port,
+            });
+        }
+        if let Some(rest) = text.strip_prefix("hislip:") {
+            let (host, port, device) =
+                host_port_device(rest, super::visa::HISLIP_PORT).map_err(|r| err(&r))?;
+            return Ok(Address::Hislip {
+                host,
+                device: device.unwrap_or_else(|| "hislip0".into()),
+                port,
+            });
+        }
         if text == "sim:" {
             return Ok(Address::Sim);
         }
@@ -115,6 +192,41 @@ impl Address {
         }
         Err(err("unknown kind of address"))
     }
+}
+
+/// `HOST[:PORT][/DEVICE]` (an IPv6 host in brackets).
+fn host_port_device(
+    rest: &str,
+    default_port: u16,
+) -> Result<(String, u16, Option<String>), String> {
+    let (hostport, device) = match rest.split_once('/') {
+        Some((h, d)) if d.is_empty() => return Err(format!("the device after `{h}/` is empty")),
+        Some((h, d)) => (h, Some(d.to_string())),
+        None => (rest, None),
+    };
+    let (host, port) = if let Some(v6) = hostport.strip_prefix('[') {
+        let (host, after) = v6
+            .split_once(']')
+            .ok_or("an IPv6 host needs its closing `]`")?;
+        (host, after.strip_prefix(':'))
+    } else {
+        match hostport.rsplit_once(':') {
+            Some((h, p)) => (h, Some(p)),
+            None => (hostport, None),
+        }
+    };
+    if host.is_empty() {
+        return Err("the host is empty".into());
+    }
+    let port = match port {
+        None => default_port,
+        Some(p) => p
+            .parse::<u16>()
+            .ok()
+            .filter(|p| *p > 0)
+            .ok_or("the port is not a number from 1 to 65535")?,
+    };
+    Ok((host.to_string(), port, device))
 }
 
 fn parse_serial(rest: &str) -> Result<SerialSettings, String> {
@@ -190,7 +302,46 @@ impl fmt::Display for Address {
             Address::Tcp { host, port } => write!(f, "tcp:{host}:{port}"),
             Address::Serial(s) => write!(f, "serial:{}?baud={}", s.path, s.baud),
             Address::Exec(words) => write!(f, "exec:{}", command_line::join(words)),
+            Address::Vxi11 {
+                host,
+                device,
+                portmapper_port,
+            } => {
+                let host = bracketed(host);
+                if *portmapper_port == super::visa::PORTMAPPER_PORT {
+                    write!(f, "TCPIP0::{host}::{device}::INSTR")
+                } else {
+                    write!(f, "vxi11:{host}:{portmapper_port}/{device}")
+                }
+            }
+            Address::Hislip { host, device, port } => {
+                let host = bracketed(host);
+                if *port == super::visa::HISLIP_PORT {
+                    write!(f, "TCPIP0::{host}::{device}::INSTR")
+                } else {
+                    write!(f, "TCPIP0::{host}::{device},{port}::INSTR")
+                }
+            }
+            Address::Usbtmc(id) => {
+                write!(
+                    f,
+                    "USB0::0x{:04X}::0x{:04X}::{}",
+                    id.vendor, id.product, id.serial
+                )?;
+                if let Some(i) = id.interface {
+                    write!(f, "::{i}")?;
+                }
+                write!(f, "::INSTR")
+            }
         }
+    }
+}
+
+fn bracketed(host: &str) -> String {
+    if host.contains(':') {
+        format!("[{host}]")
+    } else {
+        host.to_string()
     }
 }
 
@@ -246,6 +397,33 @@ mod tests {
             )
         );
         assert_eq!(Address::parse(&exec.to_string()), Ok(exec));
+        for text in [
+            "vxi11:127.0.0.1:40111/inst0",
+            "TCPIP0::127.0.0.1::inst0::INSTR",
+            "TCPIP0::127.0.0.1::hislip0,4999::INSTR",
+            "TCPIP0::[::1]::hislip0::INSTR",
+            "USB0::0x1234::0x5678::SN42::1::INSTR",
+        ] {
+            let a = Address::parse(text).expect(text);
+            assert_eq!(a.to_string(), text);
+        }
+        assert_eq!(
+            Address::parse("hislip:[::1]/hislip2"),
+            Ok(Address::Hislip {
+                host: "::1".into(),
+                device: "hislip2".into(),
+                port: 4880
+            })
+        );
+    }
+
+    #[test]
+    fn a_malformed_resource_string_is_explained_with_a_caret() {
+        let e = Address::parse("TCPIP0::host::5x::SOCKET").expect_err("bad port");
+        assert_eq!(
+            e.explained(),
+            "the port is not a number from 1 to 65535\n    TCPIP0::host::5x::SOCKET\n                  ^^"
+        );
     }
 
     #[test]
@@ -258,9 +436,13 @@ mod tests {
             ("serial:/dev/x?baud=fast", "baud"),
             ("serial:/dev/x?speed=9600", "unknown serial option"),
             ("serial:/dev/x?parity=mark", "parity"),
-            ("gpib:7", "unknown kind"),
+            ("gpib:7", "does not drive this interface"),
+            ("modbus:7", "unknown kind"),
             ("exec:", "names no program"),
             ("exec:tool 'half", "bad command line: a single quote"),
+            ("vxi11:", "host is empty"),
+            ("hislip:h:0", "port"),
+            ("TCPIP0::h::hislipX::INSTR", "hislipN"),
         ] {
             let e = Address::parse(text).expect_err(text);
             assert!(e.reason.contains(reason), "{text}: {}", e.reason);

@@ -2,7 +2,7 @@
 //! fails the command in flight, and the next command reconnects, so a cable pulled and
 //! replugged between steps costs one error, not the instrument.
 
-use super::{open, Address, Stream};
+use super::{open, Address, Connection};
 use crate::instrument::line::{read_line, LineError, LineFramer};
 use std::time::Duration;
 use thiserror::Error;
@@ -47,7 +47,7 @@ pub struct Link {
     address: Address,
     ending: String,
     timeout: Duration,
-    stream: Option<Box<dyn Stream>>,
+    stream: Option<Connection>,
     framer: LineFramer,
 }
 
@@ -86,7 +86,7 @@ impl Link {
         }
     }
 
-    async fn connected(&mut self) -> Result<&mut Box<dyn Stream>, LinkError> {
+    async fn connected(&mut self) -> Result<&mut Connection, LinkError> {
         if self.stream.is_none() {
             let stream =
                 open(&self.address, self.timeout)
@@ -114,10 +114,15 @@ impl Link {
     pub async fn send(&mut self, line: &str) -> Result<(), LinkError> {
         let bytes = format!("{line}{}", self.ending);
         let timeout = self.timeout;
-        let stream = self.connected().await?;
+        let connection = self.connected().await?;
         let write = async {
-            stream.write_all(bytes.as_bytes()).await?;
-            stream.flush().await
+            match connection {
+                Connection::Stream(stream) => {
+                    stream.write_all(bytes.as_bytes()).await?;
+                    stream.flush().await
+                }
+                Connection::Messages(session) => session.write_message(bytes.as_bytes()).await,
+            }
         };
         let outcome = match tokio::time::timeout(timeout, write).await {
             Ok(Ok(())) => return Ok(()),
@@ -130,7 +135,10 @@ impl Link {
     /// Reads the next line, waiting at most `timeout`.
     pub async fn read_line_within(&mut self, timeout: Duration) -> Result<String, LinkError> {
         let outcome = match self.stream.as_mut() {
-            Some(stream) => read_line(stream, &mut self.framer, timeout).await,
+            Some(Connection::Stream(stream)) => read_line(stream, &mut self.framer, timeout).await,
+            Some(Connection::Messages(session)) => {
+                read_message_line(session.as_mut(), &mut self.framer, timeout).await
+            }
             None => Err(LineError::Closed),
         };
         outcome.map_err(|e| self.line_error(e))
@@ -146,6 +154,37 @@ impl Link {
         self.send(line).await?;
         self.read_line().await
     }
+}
+
+/// The next line from a message session: a whole message is read when none is buffered, and a
+/// message that ends without a line terminator still ends its last line (END marks it).
+async fn read_message_line(
+    session: &mut dyn super::MessageSession,
+    framer: &mut LineFramer,
+    timeout: Duration,
+) -> Result<String, LineError> {
+    let work = async {
+        loop {
+            if let Some(line) = framer.next_line()? {
+                return Ok(line);
+            }
+            let mut message = session
+                .read_message(timeout)
+                .await
+                .map_err(|e| match e.kind() {
+                    std::io::ErrorKind::TimedOut => LineError::Timeout(timeout.as_millis() as u64),
+                    std::io::ErrorKind::UnexpectedEof => LineError::Closed,
+                    _ => LineError::Io(e.to_string()),
+                })?;
+            if message.last() != Some(&b'\n') {
+                message.push(b'\n');
+            }
+            framer.push(&message);
+        }
+    };
+    tokio::time::timeout(timeout, work)
+        .await
+        .unwrap_or(Err(LineError::Timeout(timeout.as_millis() as u64)))
 }
 
 #[cfg(test)]

@@ -21,8 +21,11 @@
 
 pub mod chamber;
 pub mod console;
+pub mod hislip;
+pub mod message_device;
 pub mod pty;
 pub mod scpi_attenuator;
+pub mod vxi11;
 
 use crate::bench::Bench;
 use crate::clock::{BenchClock, ClockMode};
@@ -89,6 +92,49 @@ pub enum ListenAt {
     Tcp(SocketAddr),
     /// A new pseudo-terminal (its path is announced).
     Pty,
+    /// VXI-11: a portmapper on this address (its port `None`: the server's configured
+    /// portmapper port, 111 unless told otherwise), the core channel on a port of the system's
+    /// choosing.
+    Vxi11 {
+        /// The address both listen on.
+        ip: IpAddr,
+        /// The portmapper's port, when the listen address names one.
+        portmapper_port: Option<u16>,
+    },
+    /// HiSLIP on this socket (4880 when not named).
+    Hislip(SocketAddr),
+}
+
+impl ListenAt {
+    /// The IP address listened on, if a socket.
+    pub fn ip(&self) -> Option<IpAddr> {
+        match self {
+            ListenAt::Tcp(s) | ListenAt::Hislip(s) => Some(s.ip()),
+            ListenAt::Vxi11 { ip, .. } => Some(*ip),
+            ListenAt::Pty => None,
+        }
+    }
+}
+
+/// `HOST[:PORT]` with an IP literal for a host (IPv6 in brackets); the port `None` when left
+/// out.
+fn ip_and_port(text: &str) -> Result<(IpAddr, Option<u16>), String> {
+    let (host, port) = if let Some(v6) = text.strip_prefix('[') {
+        let (host, after) = v6.split_once(']').ok_or("an IPv6 address needs its `]`")?;
+        (host, after.strip_prefix(':'))
+    } else {
+        match text.rsplit_once(':') {
+            Some((h, p)) => (h, Some(p)),
+            None => (text, None),
+        }
+    };
+    let ip: IpAddr = host
+        .parse()
+        .map_err(|_| format!("`{host}` is not an IP address"))?;
+    let port = port
+        .map(|p| p.parse::<u16>().map_err(|_| format!("`{p}` is not a port")))
+        .transpose()?;
+    Ok((ip, port))
 }
 
 /// One `--listen ROLE=WHERE`.
@@ -110,30 +156,67 @@ impl Listen {
         let at = match at {
             "pty" if role == ServedRole::Dut => ListenAt::Pty,
             "pty" => return Err("only the dut's console can be served on a pty".into()),
+            _ if crate::instrument::transport::visa::looks_like_visa(at) => {
+                use crate::instrument::transport::Address;
+                let ip = |host: &str| -> Result<IpAddr, String> {
+                    host.parse().map_err(|_| {
+                        format!("`{host}` is not an IP address (a server listens on one)")
+                    })
+                };
+                match Address::parse(at).map_err(|e| e.explained())? {
+                    Address::Tcp { host, port } => ListenAt::Tcp(SocketAddr::new(ip(&host)?, port)),
+                    Address::Vxi11 { host, device, .. } if device == "inst0" => ListenAt::Vxi11 {
+                        ip: ip(&host)?,
+                        portmapper_port: None,
+                    },
+                    Address::Hislip { host, port, .. } => {
+                        ListenAt::Hislip(SocketAddr::new(ip(&host)?, port))
+                    }
+                    _ => {
+                        return Err(format!(
+                            "`{at}` is not a resource sim serve offers (TCPIP::IP::PORT::SOCKET, TCPIP::IP::inst0::INSTR, TCPIP::IP::hislip0[,PORT]::INSTR)"
+                        ))
+                    }
+                }
+            }
+            _ if at.starts_with("vxi11:") || at.starts_with("hislip:") => {
+                let vxi11 = at.starts_with("vxi11:");
+                let rest = at.split_once(':').map_or("", |(_, r)| r);
+                let (ip, port) = ip_and_port(rest)?;
+                if vxi11 {
+                    ListenAt::Vxi11 {
+                        ip,
+                        portmapper_port: port,
+                    }
+                } else {
+                    ListenAt::Hislip(SocketAddr::new(
+                        ip,
+                        port.unwrap_or(crate::instrument::transport::visa::HISLIP_PORT),
+                    ))
+                }
+            }
             _ => {
-                let rest = at
-                    .strip_prefix("tcp:")
-                    .ok_or_else(|| format!("`{at}` is not tcp:HOST:PORT, tcp:PORT or pty"))?;
+                let rest = at.strip_prefix("tcp:").ok_or_else(|| {
+                    format!("`{at}` is not tcp:HOST:PORT, tcp:PORT, vxi11:HOST[:PORTMAPPER_PORT], hislip:HOST[:PORT], a VISA resource string or pty")
+                })?;
                 let socket = match rest.parse::<u16>() {
                     Ok(port) => SocketAddr::from(([127, 0, 0, 1], port)),
-                    Err(_) => {
-                        let (host, port) = rest
-                            .rsplit_once(':')
-                            .ok_or_else(|| format!("`{at}` has no port"))?;
-                        let ip: IpAddr = host
-                            .trim_start_matches('[')
-                            .trim_end_matches(']')
-                            .parse()
-                            .map_err(|_| format!("`{host}` is not an IP address"))?;
-                        let port = port
-                            .parse()
-                            .map_err(|_| format!("`{port}` is not a port"))?;
-                        SocketAddr::new(ip, port)
-                    }
+                    Err(_) => match ip_and_port(rest)? {
+                        (ip, Some(port)) => SocketAddr::new(ip, port),
+                        (_, None) => return Err(format!("`{at}` has no port")),
+                    },
                 };
                 ListenAt::Tcp(socket)
             }
         };
+        if matches!(at, ListenAt::Vxi11 { .. } | ListenAt::Hislip(_))
+            && role != ServedRole::Attenuator
+        {
+            return Err(format!(
+                "VXI-11 and HiSLIP carry the attenuator's SCPI messages; the {} speaks lines (serve it on tcp: or pty)",
+                role.name()
+            ));
+        }
         Ok(Listen { role, at })
     }
 }
@@ -161,6 +244,8 @@ pub struct ServedBench {
     slots: Vec<(SimShared, ConsoleDevice)>,
     /// Clients served at once on each socket.
     max_clients: usize,
+    /// The VXI-11 portmapper's port where a listen address does not name one.
+    portmapper_port: u16,
 }
 
 impl ServedBench {
@@ -241,6 +326,7 @@ impl ServedBench {
                 .map(|c| Arc::new(Mutex::new(chamber::Controller::new(c.start_c)))),
             slots,
             max_clients: MAX_CLIENTS,
+            portmapper_port: crate::instrument::transport::visa::PORTMAPPER_PORT,
         })
     }
 
@@ -248,6 +334,13 @@ impl ServedBench {
     /// instrument that takes one connection, as many real ones do).
     pub fn with_max_clients(mut self, clients: usize) -> Self {
         self.max_clients = clients.max(1);
+        self
+    }
+
+    /// The same bench with its VXI-11 portmapper on `port` where `--listen` names none (0:
+    /// the system chooses).
+    pub fn with_portmapper_port(mut self, port: u16) -> Self {
+        self.portmapper_port = port;
         self
     }
 
@@ -283,6 +376,24 @@ impl ServedBench {
                      recipes/benches/soak-served.toml",
                 ))
             }
+            (ListenAt::Vxi11 { .. } | ListenAt::Hislip(_), role)
+                if role != ServedRole::Attenuator =>
+            {
+                Err(std::io::Error::other(
+                    "only the attenuator is served over VXI-11 and HiSLIP",
+                ))
+            }
+            (
+                ListenAt::Vxi11 {
+                    ip,
+                    portmapper_port,
+                },
+                _,
+            ) => {
+                self.start_vxi11(*ip, portmapper_port.unwrap_or(self.portmapper_port))
+                    .await
+            }
+            (ListenAt::Hislip(socket), _) => self.start_hislip(*socket).await,
             (ListenAt::Tcp(socket), role) => {
                 let listener = TcpListener::bind(socket).await?;
                 let bound = listener.local_addr()?;
@@ -338,6 +449,115 @@ impl ServedBench {
         }
     }
 
+    /// Serves the attenuator over VXI-11: the core channel on a port of the system's choosing,
+    /// the portmapper on `portmapper_port` pointing at it. Returns the client's address.
+    async fn start_vxi11(&self, ip: IpAddr, portmapper_port: u16) -> std::io::Result<String> {
+        let core = TcpListener::bind(SocketAddr::new(ip, 0)).await?;
+        let core_port = core.local_addr()?.port();
+        let portmapper = TcpListener::bind(SocketAddr::new(ip, portmapper_port)).await.map_err(|e| {
+            std::io::Error::new(
+                e.kind(),
+                format!("the VXI-11 portmapper on port {portmapper_port}: {e} (port 111 needs privileges and a free port; --portmapper-port chooses another)"),
+            )
+        })?;
+        let bound = portmapper.local_addr()?.port();
+        tokio::spawn(async move {
+            loop {
+                let Ok((stream, _)) = portmapper.accept().await else {
+                    continue;
+                };
+                let _ = stream.set_nodelay(true);
+                tokio::spawn(async move {
+                    if let Err(e) = vxi11::serve_portmapper(stream, core_port).await {
+                        tracing::info!("portmapper client: {e}");
+                    }
+                });
+            }
+        });
+        let me = Arc::new(self.clone());
+        let links = Arc::new(vxi11::Links::default());
+        let clients = Arc::new(tokio::sync::Semaphore::new(self.max_clients));
+        tokio::spawn(async move {
+            loop {
+                let Ok((stream, peer)) = core.accept().await else {
+                    continue;
+                };
+                let Ok(permit) = clients.clone().try_acquire_owned() else {
+                    tracing::warn!(
+                        "attenuator (VXI-11): client {peer} refused: too many connected"
+                    );
+                    continue;
+                };
+                let _ = stream.set_nodelay(true);
+                let (me, links) = (me.clone(), links.clone());
+                tokio::spawn(async move {
+                    if let Err(e) = vxi11::serve_core(stream, me, links).await {
+                        tracing::info!("attenuator (VXI-11): client {peer}: {e}");
+                    }
+                    drop(permit);
+                });
+            }
+        });
+        Ok(crate::instrument::transport::Address::Vxi11 {
+            host: ip.to_string(),
+            device: "inst0".into(),
+            portmapper_port: bound,
+        }
+        .to_string())
+    }
+
+    /// Serves the attenuator over HiSLIP on `socket`. Returns the client's address.
+    async fn start_hislip(&self, socket: SocketAddr) -> std::io::Result<String> {
+        let listener = TcpListener::bind(socket).await?;
+        let bound = listener.local_addr()?;
+        let me = Arc::new(self.clone());
+        let sessions = Arc::new(hislip::Sessions::default());
+        let clients = Arc::new(tokio::sync::Semaphore::new(self.max_clients));
+        tokio::spawn(async move {
+            loop {
+                let Ok((stream, peer)) = listener.accept().await else {
+                    continue;
+                };
+                let _ = stream.set_nodelay(true);
+                let (me, sessions, clients) = (me.clone(), sessions.clone(), clients.clone());
+                tokio::spawn(async move {
+                    if let Err(e) = hislip::serve(stream, me, sessions, clients).await {
+                        tracing::info!("attenuator (HiSLIP): client {peer}: {e}");
+                    }
+                });
+            }
+        });
+        Ok(crate::instrument::transport::Address::Hislip {
+            host: bound.ip().to_string(),
+            device: "hislip0".into(),
+            port: bound.port(),
+        }
+        .to_string())
+    }
+
+    /// What the served attenuator does with one command line, `[sim.faults]` included.
+    async fn answer(&self, line: &str, medium: Medium) -> Answer {
+        // A query that falls silent is not carried out; a setting has no reply to withhold.
+        let fault = self.shared.command_fault("attenuator").ok().flatten();
+        match fault {
+            Some(CommandFault::Drop) if medium == Medium::Socket => return Answer::HangUp,
+            Some(CommandFault::Drop) => return Answer::Nothing,
+            Some(CommandFault::Silence) if line.contains('?') => return Answer::Nothing,
+            _ => {}
+        }
+        let (mut response, wall) = match self.attenuator.lock() {
+            Ok(mut device) => device.execute(line),
+            Err(_) => return Answer::HangUp,
+        };
+        if fault == Some(CommandFault::Garble) {
+            garble(&mut response);
+        }
+        if !wall.is_zero() {
+            tokio::time::sleep(wall).await;
+        }
+        Answer::Reply(response)
+    }
+
     /// Serves `role` on this process's stdin and stdout until stdin ends, for a client that
     /// runs `taucal sim serve --stdio ROLE` as its instrument (`exec:` addresses). A pipe, like
     /// a terminal, has no connection to drop: a dropped command is lost.
@@ -365,30 +585,57 @@ impl ServedBench {
     ) -> std::io::Result<()> {
         let mut commands = CommandReader::default();
         while let Some(message) = commands.next(&mut stream).await? {
-            // A query that falls silent is not carried out; a setting has no reply to withhold.
-            let fault = self.shared.command_fault("attenuator").ok().flatten();
-            match fault {
-                Some(CommandFault::Drop) if medium == Medium::Socket => return Ok(()),
-                Some(CommandFault::Drop) => continue,
-                Some(CommandFault::Silence) if message.contains('?') => continue,
-                _ => {}
-            }
-            let (mut response, wall) = match self.attenuator.lock() {
-                Ok(mut device) => device.execute(&message),
-                Err(_) => return Ok(()),
-            };
-            if fault == Some(CommandFault::Garble) {
-                garble(&mut response);
-            }
-            if !wall.is_zero() {
-                tokio::time::sleep(wall).await;
-            }
-            if !response.is_empty() {
-                stream.write_all(&response).await?;
-                stream.flush().await?;
+            match self.answer(&message, medium).await {
+                Answer::HangUp => return Ok(()),
+                Answer::Nothing => {}
+                Answer::Reply(response) if response.is_empty() => {}
+                Answer::Reply(response) => {
+                    stream.write_all(&response).await?;
+                    stream.flush().await?;
+                }
             }
         }
         Ok(())
+    }
+}
+
+/// What the served attenuator does with a command.
+enum Answer {
+    /// Close the connection (an injected drop).
+    HangUp,
+    /// Nothing: a lost command or a silent query.
+    Nothing,
+    /// These bytes (empty for a setting).
+    Reply(Vec<u8>),
+}
+
+#[async_trait::async_trait]
+impl message_device::MessageDevice for ServedBench {
+    /// Each line of the message is a command, as on the raw socket, so every transport
+    /// records the same exchanges; the faults strike per command here too.
+    async fn execute(&self, message: &[u8]) -> Option<Vec<u8>> {
+        let text = String::from_utf8_lossy(message);
+        let mut out = Vec::new();
+        for line in text.split('\n') {
+            let line = line.trim_end_matches('\r');
+            if line.is_empty() {
+                continue;
+            }
+            match self.answer(line, Medium::Socket).await {
+                Answer::HangUp => return None,
+                Answer::Nothing => {}
+                Answer::Reply(response) => out.extend_from_slice(&response),
+            }
+        }
+        Some(out)
+    }
+
+    fn status_byte(&self) -> u8 {
+        let reply = match self.attenuator.lock() {
+            Ok(mut device) => device.execute("*STB?").0,
+            Err(_) => return 0,
+        };
+        String::from_utf8_lossy(&reply).trim().parse().unwrap_or(0)
     }
 }
 

@@ -1,0 +1,333 @@
+//! The served instrument over HiSLIP 2.0 (IVI-6.1), synchronized mode: each connection opens
+//! with Initialize (a synchronous channel, given a new session id) or AsyncInitialize (the
+//! asynchronous channel of a session already opened); anything else first is a FatalError
+//! "invalid initialization sequence". On the synchronous channel Data/DataEND build a message,
+//! which is carried out at DataEND and answered with one DataEND bearing that message's id;
+//! DeviceClearComplete is acknowledged. On the asynchronous channel: maximum message size,
+//! device clear, the exclusive lock, lock info, remote/local and status queries. Other message
+//! types get an Error, a malformed header a FatalError and the end of that connection only.
+//! TLS (StartTLS, §6.16 ff.) and credentials are not offered.
+
+use super::message_device::MessageDevice;
+use crate::instrument::transport::hislip::message::{
+    self, error, fatal, Kind, Message, ReadError, MAX_PAYLOAD_BYTES, PROTOCOL_VERSION, VENDOR_ID,
+};
+use std::collections::HashSet;
+use std::sync::atomic::{AtomicU16, Ordering};
+use std::sync::{Arc, Mutex};
+use std::time::Duration;
+use tokio::io::{AsyncRead, AsyncWrite, AsyncWriteExt};
+use tokio::sync::{Notify, OwnedSemaphorePermit, Semaphore};
+
+/// The sessions of one served instrument: their ids, and who holds the exclusive lock.
+#[derive(Default)]
+pub struct Sessions {
+    open: Mutex<HashSet<u16>>,
+    next: AtomicU16,
+    holder: Mutex<Option<u16>>,
+    released: Notify,
+}
+
+impl Sessions {
+    fn start(&self) -> u16 {
+        let id = self.next.fetch_add(1, Ordering::Relaxed).wrapping_add(1);
+        if let Ok(mut open) = self.open.lock() {
+            open.insert(id);
+        }
+        id
+    }
+
+    fn is_open(&self, id: u16) -> bool {
+        self.open.lock().is_ok_and(|o| o.contains(&id))
+    }
+
+    fn end(&self, id: u16) {
+        if let Ok(mut open) = self.open.lock() {
+            open.remove(&id);
+        }
+        self.release(id);
+    }
+
+    async fn lock(&self, id: u16, wait: Duration) -> bool {
+        let deadline = tokio::time::Instant::now() + wait;
+        loop {
+            let notified = self.released.notified();
+            tokio::pin!(notified);
+            notified.as_mut().enable();
+            match self.holder.lock() {
+                Ok(mut h) if h.is_none_or(|h| h == id) => {
+                    *h = Some(id);
+                    return true;
+                }
+                Ok(_) => {}
+                Err(_) => return false,
+            }
+            if tokio::time::timeout_at(deadline, notified).await.is_err() {
+                return false;
+            }
+        }
+    }
+
+    fn release(&self, id: u16) -> bool {
+        match self.holder.lock() {
+            Ok(mut h) if *h == Some(id) => {
+                *h = None;
+                self.released.notify_waiters();
+                true
+            }
+            _ => false,
+        }
+    }
+
+    fn locked(&self) -> bool {
+        self.holder.lock().is_ok_and(|h| h.is_some())
+    }
+}
+
+async fn send<S: AsyncWrite + Unpin>(stream: &mut S, m: Message) -> std::io::Result<()> {
+    stream.write_all(&m.encode()).await
+}
+
+async fn fatal_error<S: AsyncWrite + Unpin>(
+    stream: &mut S,
+    code: u8,
+    text: &str,
+) -> std::io::Result<()> {
+    send(
+        stream,
+        Message::new(Kind::FatalError, code, 0, text.as_bytes().to_vec()),
+    )
+    .await
+}
+
+/// Serves one connection until it closes. `clients` caps the synchronous channels open at once
+/// (a client past it is told so with FatalError 4).
+pub async fn serve<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
+    mut stream: S,
+    device: Arc<D>,
+    sessions: Arc<Sessions>,
+    clients: Arc<Semaphore>,
+) -> std::io::Result<()> {
+    let first = match message::read(&mut stream).await {
+        Ok(Some(m)) => m,
+        Ok(None) => return Ok(()),
+        Err(ReadError::Header(e)) => {
+            return fatal_error(&mut stream, fatal::BAD_HEADER, &e.to_string()).await
+        }
+        Err(ReadError::Io(e)) => return Err(e),
+    };
+    match first.kind() {
+        Some(Kind::Initialize) => {
+            let Ok(permit) = clients.try_acquire_owned() else {
+                return fatal_error(
+                    &mut stream,
+                    fatal::TOO_MANY_CLIENTS,
+                    "the instrument serves no more clients",
+                )
+                .await;
+            };
+            let sub_address = String::from_utf8_lossy(&first.payload).into_owned();
+            let known = sub_address.is_empty()
+                || sub_address
+                    .strip_prefix("hislip")
+                    .is_some_and(|n| !n.is_empty() && n.chars().all(|c| c.is_ascii_digit()));
+            if !known {
+                return fatal_error(
+                    &mut stream,
+                    fatal::BAD_INITIALIZATION,
+                    &format!("no sub-address `{sub_address}` here (hislip0)"),
+                )
+                .await;
+            }
+            let id = sessions.start();
+            let outcome = synchronous(&mut stream, device, id, permit).await;
+            sessions.end(id);
+            outcome
+        }
+        Some(Kind::AsyncInitialize) => {
+            let id = first.parameter as u16;
+            if !sessions.is_open(id) {
+                return fatal_error(&mut stream, fatal::BAD_INITIALIZATION, "no such session")
+                    .await;
+            }
+            send(
+                &mut stream,
+                Message::new(
+                    Kind::AsyncInitializeResponse,
+                    0,
+                    u32::from(VENDOR_ID),
+                    Vec::new(),
+                ),
+            )
+            .await?;
+            let outcome = asynchronous(&mut stream, device, &sessions, id).await;
+            sessions.release(id);
+            outcome
+        }
+        _ => {
+            fatal_error(
+                &mut stream,
+                fatal::BAD_INITIALIZATION,
+                "a connection opens with Initialize or AsyncInitialize",
+            )
+            .await
+        }
+    }
+}
+
+async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
+    stream: &mut S,
+    device: Arc<D>,
+    id: u16,
+    _permit: OwnedSemaphorePermit,
+) -> std::io::Result<()> {
+    send(
+        stream,
+        Message::new(
+            Kind::InitializeResponse,
+            0,
+            (u32::from(PROTOCOL_VERSION) << 16) | u32::from(id),
+            Vec::new(),
+        ),
+    )
+    .await?;
+    let mut pending = Vec::new();
+    loop {
+        let m = match message::read(stream).await {
+            Ok(Some(m)) => m,
+            Ok(None) => return Ok(()),
+            Err(ReadError::Header(e)) => {
+                return fatal_error(stream, fatal::BAD_HEADER, &e.to_string()).await
+            }
+            Err(ReadError::Io(e)) => return Err(e),
+        };
+        match m.kind() {
+            Some(Kind::Data) | Some(Kind::DataEnd) => {
+                if pending.len() + m.payload.len() > MAX_PAYLOAD_BYTES as usize {
+                    pending.clear();
+                    send(
+                        stream,
+                        Message::new(
+                            Kind::Error,
+                            error::TOO_LARGE,
+                            0,
+                            b"message too large".to_vec(),
+                        ),
+                    )
+                    .await?;
+                    continue;
+                }
+                pending.extend_from_slice(&m.payload);
+                if m.kind() == Some(Kind::DataEnd) {
+                    let program = std::mem::take(&mut pending);
+                    let Some(response) = device.execute(&program).await else {
+                        return Ok(());
+                    };
+                    if !response.is_empty() {
+                        // Synchronized mode: the response bears the id of the DataEND it answers.
+                        send(
+                            stream,
+                            Message::new(Kind::DataEnd, 0, m.parameter, response),
+                        )
+                        .await?;
+                    }
+                }
+            }
+            Some(Kind::DeviceClearComplete) => {
+                pending.clear();
+                // Synchronized mode is all this server offers: no overlap feature granted.
+                send(
+                    stream,
+                    Message::new(Kind::DeviceClearAcknowledge, 0, 0, Vec::new()),
+                )
+                .await?;
+            }
+            Some(Kind::Trigger) => {}
+            _ => {
+                send(
+                    stream,
+                    Message::new(
+                        Kind::Error,
+                        error::UNRECOGNIZED_TYPE,
+                        0,
+                        format!(
+                            "message type {} is not taken on the synchronous channel",
+                            m.kind
+                        )
+                        .into_bytes(),
+                    ),
+                )
+                .await?
+            }
+        }
+    }
+}
+
+async fn asynchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
+    stream: &mut S,
+    device: Arc<D>,
+    sessions: &Sessions,
+    id: u16,
+) -> std::io::Result<()> {
+    loop {
+        let m = match message::read(stream).await {
+            Ok(Some(m)) => m,
+            Ok(None) => return Ok(()),
+            Err(ReadError::Header(e)) => {
+                return fatal_error(stream, fatal::BAD_HEADER, &e.to_string()).await
+            }
+            Err(ReadError::Io(e)) => return Err(e),
+        };
+        let answer = match m.kind() {
+            Some(Kind::AsyncMaximumMessageSize) => Message::new(
+                Kind::AsyncMaximumMessageSizeResponse,
+                0,
+                0,
+                MAX_PAYLOAD_BYTES.to_be_bytes().to_vec(),
+            ),
+            Some(Kind::AsyncDeviceClear) => {
+                Message::new(Kind::AsyncDeviceClearAcknowledge, 0, 0, Vec::new())
+            }
+            Some(Kind::AsyncLock) if m.control == 1 => {
+                let granted = sessions
+                    .lock(id, Duration::from_millis(u64::from(m.parameter)))
+                    .await;
+                Message::new(Kind::AsyncLockResponse, u8::from(granted), 0, Vec::new())
+            }
+            Some(Kind::AsyncLock) => {
+                // Releasing a lock not held is an error (control code 3).
+                let code = if sessions.release(id) { 1 } else { 3 };
+                Message::new(Kind::AsyncLockResponse, code, 0, Vec::new())
+            }
+            Some(Kind::AsyncLockInfo) => {
+                let locked = sessions.locked();
+                Message::new(
+                    Kind::AsyncLockInfoResponse,
+                    u8::from(locked),
+                    u32::from(locked),
+                    Vec::new(),
+                )
+            }
+            Some(Kind::AsyncRemoteLocalControl) => {
+                Message::new(Kind::AsyncRemoteLocalResponse, 0, 0, Vec::new())
+            }
+            Some(Kind::AsyncStatusQuery) => Message::new(
+                Kind::AsyncStatusResponse,
+                device.status_byte(),
+                0,
+                Vec::new(),
+            ),
+            _ => Message::new(
+                Kind::Error,
+                error::UNRECOGNIZED_TYPE,
+                0,
+                format!(
+                    "message type {} is not taken on the asynchronous channel",
+                    m.kind
+                )
+                .into_bytes(),
+            ),
+        };
+        send(stream, answer).await?;
+    }
+}
