@@ -17,7 +17,7 @@ pub(crate) struct Server {
 
 impl Server {
     /// Serves the demo bench.
-    fn start(listen: &[&str]) -> Server {
+    pub(crate) fn start(listen: &[&str]) -> Server {
         Server::start_bench(&repo("recipes/benches/sim-demo.toml"), listen)
     }
 
@@ -56,6 +56,11 @@ impl Server {
         Server { child, addresses }
     }
 
+    /// True while the server process runs (it has not exited, nor panicked).
+    pub(crate) fn is_running(&mut self) -> bool {
+        matches!(self.child.try_wait(), Ok(None))
+    }
+
     pub(crate) fn address(&self, role: &str) -> String {
         self.addresses
             .iter()
@@ -73,7 +78,12 @@ impl Drop for Server {
 }
 
 /// The demo bench's text with its roles bound to drivers and addresses.
-fn served_bench(attenuator_driver: &str, attenuator: &str, dut: &str, drivers_dir: &str) -> String {
+pub(crate) fn served_bench(
+    attenuator_driver: &str,
+    attenuator: &str,
+    dut: &str,
+    drivers_dir: &str,
+) -> String {
     let demo = std::fs::read_to_string(root().join("recipes/benches/sim-demo.toml")).expect("demo");
     demo.replace(
         "attenuator = { driver = \"sim-attenuator\", address = \"sim:\" }",

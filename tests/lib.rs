@@ -32,4 +32,5 @@ mod store;
 mod touchstone;
 mod truth;
 mod unattended;
+mod visa;
 mod watch;
