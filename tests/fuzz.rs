@@ -94,3 +94,146 @@ proptest! {
         let _ = taucal::fit::pairs::read_pairs(&text);
     }
 }
+
+/// The instrument-protocol decoders and servers (VXI-11's ONC RPC records, RFC 5531 §11 and
+/// RFC 4506; HiSLIP's messages, IVI-6.1 §3.1) take bytes from the network: valid messages with
+/// random fields and random byte edits must end in a reply, an error or a closed connection,
+/// never a panic. Servers run on a paused clock, so a wait a record asks for costs nothing.
+mod wire {
+    use super::CASES;
+    use proptest::prelude::*;
+    use std::sync::Arc;
+    use taucal::instrument::transport::hislip::message::{self, Kind, Message};
+    use taucal::instrument::transport::vxi11::core::{self as vxi, proc_num};
+    use taucal::instrument::transport::vxi11::rpc;
+    use taucal::instrument::transport::vxi11::xdr::Decoder;
+    use taucal::sim::serve::message_device::MessageDevice;
+    use taucal::sim::serve::{hislip, vxi11};
+    use tokio::io::AsyncWriteExt;
+
+    /// Echoes each message, as an instrument that answers everything.
+    struct Echo;
+
+    #[async_trait::async_trait]
+    impl MessageDevice for Echo {
+        async fn execute(&self, message: &[u8]) -> Option<Vec<u8>> {
+            Some(message.to_vec())
+        }
+        fn status_byte(&self) -> u8 {
+            0
+        }
+    }
+
+    fn edited(mut bytes: Vec<u8>, edits: &[(usize, u8, u8)]) -> Vec<u8> {
+        for &(at, value, kind) in edits {
+            if bytes.is_empty() {
+                break;
+            }
+            let at = at % bytes.len();
+            match kind % 3 {
+                0 => bytes[at] = value,
+                1 => {
+                    bytes.remove(at);
+                }
+                _ => bytes.truncate(at),
+            }
+        }
+        bytes
+    }
+
+    /// A core-channel call record of a random procedure with random argument words.
+    fn vxi11_record(xid: u32, procedure: u32, words: &[u32], data: &[u8]) -> Vec<u8> {
+        let mut e = rpc::call_header(xid, vxi::DEVICE_CORE, vxi::DEVICE_CORE_VERSION, procedure);
+        for w in words {
+            e.u32(*w);
+        }
+        e.opaque(data);
+        rpc::finish_record(e)
+    }
+
+    fn paused() -> tokio::runtime::Runtime {
+        tokio::runtime::Builder::new_current_thread()
+            .enable_time()
+            .start_paused(true)
+            .build()
+            .expect("runtime")
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: CASES, failure_persistence: None, ..ProptestConfig::default() })]
+
+        #[test]
+        fn rpc_and_vxi11_decoders_never_panic(bytes in proptest::collection::vec(any::<u8>(), 0..120)) {
+            let _ = rpc::decode_call(&bytes);
+            let _ = rpc::decode_reply(&bytes, 1);
+            let _ = vxi::CreateLink::decode(&mut Decoder::new(&bytes));
+            let _ = vxi::Write::decode(&mut Decoder::new(&bytes));
+            let _ = vxi::Read::decode(&mut Decoder::new(&bytes));
+            let _ = vxi::ReadResult::decode(&mut Decoder::new(&bytes));
+            let _ = vxi::Generic::decode(&mut Decoder::new(&bytes));
+            let _ = vxi::Lock::decode(&mut Decoder::new(&bytes));
+            let _ = vxi11::portmapper_reply(&bytes, 1);
+        }
+
+        #[test]
+        fn the_vxi11_server_survives_any_records(
+            calls in proptest::collection::vec((10u32..27, proptest::collection::vec(any::<u32>(), 0..6), proptest::collection::vec(any::<u8>(), 0..12)), 1..6),
+            edits in proptest::collection::vec((any::<usize>(), any::<u8>(), any::<u8>()), 0..4),
+            lid_hint in 0u32..3,
+        ) {
+            let mut wire = Vec::new();
+            for (i, (procedure, words, data)) in calls.iter().enumerate() {
+                let mut words = words.clone();
+                if let Some(first) = words.first_mut() {
+                    // Often a real link id, so calls get past the link check.
+                    if lid_hint > 0 { *first = lid_hint; }
+                }
+                let procedure = if i == 0 { proc_num::CREATE_LINK } else { *procedure };
+                wire.extend(vxi11_record(i as u32 + 1, procedure, &words, data));
+            }
+            let wire = edited(wire, &edits);
+            paused().block_on(async {
+                let (mut client, server) = tokio::io::duplex(1 << 16);
+                let serving = tokio::spawn(vxi11::serve_core(server, Arc::new(Echo), Arc::new(vxi11::Links::default())));
+                let _ = client.write_all(&wire).await;
+                drop(client);
+                assert!(serving.await.is_ok(), "the server task did not panic");
+            });
+        }
+
+        #[test]
+        fn hislip_messages_never_panic_the_reader_or_the_server(
+            messages in proptest::collection::vec((0u8..30, any::<u8>(), any::<u32>(), proptest::collection::vec(any::<u8>(), 0..10)), 0..6),
+            edits in proptest::collection::vec((any::<usize>(), any::<u8>(), any::<u8>()), 0..4),
+            asynchronous in any::<bool>(),
+        ) {
+            let mut wire = if asynchronous {
+                Message::new(Kind::AsyncInitialize, 0, 1, Vec::new()).encode()
+            } else {
+                Message::new(Kind::Initialize, 0, 0x0200_0000, b"hislip0".to_vec()).encode()
+            };
+            for (kind, control, parameter, payload) in &messages {
+                wire.extend(Message { kind: *kind, control: *control, parameter: *parameter, payload: payload.clone() }.encode());
+            }
+            let wire = edited(wire, &edits);
+            paused().block_on(async {
+                let mut reader = &wire[..];
+                while let Ok(Some(_)) = message::read(&mut reader).await {}
+                let sessions = Arc::new(hislip::Sessions::default());
+                let clients = Arc::new(tokio::sync::Semaphore::new(4));
+                // A session for the asynchronous channel to join.
+                let (mut opener, opened) = tokio::io::duplex(1 << 12);
+                let first = tokio::spawn(hislip::serve(opened, Arc::new(Echo), sessions.clone(), clients.clone()));
+                let _ = opener.write_all(&Message::new(Kind::Initialize, 0, 0x0200_0000, b"hislip0".to_vec()).encode()).await;
+                tokio::task::yield_now().await;
+                let (mut client, server) = tokio::io::duplex(1 << 16);
+                let serving = tokio::spawn(hislip::serve(server, Arc::new(Echo), sessions, clients));
+                let _ = client.write_all(&wire).await;
+                drop(client);
+                assert!(serving.await.is_ok(), "the server task did not panic");
+                drop(opener);
+                assert!(first.await.is_ok());
+            });
+        }
+    }
+}

@@ -62,6 +62,11 @@ impl LineFramer {
         }
     }
 
+    /// True when nothing is buffered.
+    pub fn is_empty(&self) -> bool {
+        self.pending.is_empty()
+    }
+
     /// Forgets everything buffered (after a reconnect, old bytes belong to nobody).
     pub fn clear(&mut self) {
         self.pending.clear();

@@ -149,10 +149,47 @@ impl Link {
         self.read_line_within(self.timeout).await
     }
 
-    /// Sends a line and reads one line back.
+    /// Sends a line and reads one line back. Over a message session with nothing left over
+    /// from earlier replies, the two go as one query (a round trip fewer on VXI-11).
     pub async fn query(&mut self, line: &str) -> Result<String, LinkError> {
-        self.send(line).await?;
-        self.read_line().await
+        self.connected().await?;
+        if !self.framer.is_empty() || !matches!(self.stream, Some(Connection::Messages(_))) {
+            self.send(line).await?;
+            return self.read_line().await;
+        }
+        let bytes = format!("{line}{}", self.ending);
+        let timeout = self.timeout;
+        let Some(Connection::Messages(session)) = self.stream.as_mut() else {
+            return Err(self.line_error(LineError::Closed));
+        };
+        let outcome =
+            match tokio::time::timeout(timeout, session.query_message(bytes.as_bytes(), timeout))
+                .await
+            {
+                Ok(Ok(mut message)) => {
+                    if message.last() != Some(&b'\n') {
+                        message.push(b'\n');
+                    }
+                    self.framer.push(&message);
+                    match self.framer.next_line() {
+                        Ok(Some(line)) => return Ok(line),
+                        Ok(None) => LineError::Closed,
+                        Err(e) => e,
+                    }
+                }
+                Ok(Err(e)) => message_error(e, timeout),
+                Err(_) => LineError::Timeout(timeout.as_millis() as u64),
+            };
+        Err(self.line_error(outcome))
+    }
+}
+
+/// A message session's failure as a line error.
+fn message_error(e: std::io::Error, timeout: Duration) -> LineError {
+    match e.kind() {
+        std::io::ErrorKind::TimedOut => LineError::Timeout(timeout.as_millis() as u64),
+        std::io::ErrorKind::UnexpectedEof => LineError::Closed,
+        _ => LineError::Io(e.to_string()),
     }
 }
 
@@ -171,11 +208,7 @@ async fn read_message_line(
             let mut message = session
                 .read_message(timeout)
                 .await
-                .map_err(|e| match e.kind() {
-                    std::io::ErrorKind::TimedOut => LineError::Timeout(timeout.as_millis() as u64),
-                    std::io::ErrorKind::UnexpectedEof => LineError::Closed,
-                    _ => LineError::Io(e.to_string()),
-                })?;
+                .map_err(|e| message_error(e, timeout))?;
             if message.last() != Some(&b'\n') {
                 message.push(b'\n');
             }

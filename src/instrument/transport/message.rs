@@ -14,6 +14,12 @@ pub trait MessageSession: Send {
     async fn write_message(&mut self, bytes: &[u8]) -> io::Result<()>;
     /// Reads one whole response message, waiting at most `timeout` for it.
     async fn read_message(&mut self, timeout: Duration) -> io::Result<Vec<u8>>;
+    /// Sends `bytes` and reads the response. A protocol that can ask for the response in the
+    /// same round trip (VXI-11: device_write and device_read pipelined) does so here.
+    async fn query_message(&mut self, bytes: &[u8], timeout: Duration) -> io::Result<Vec<u8>> {
+        self.write_message(bytes).await?;
+        self.read_message(timeout).await
+    }
 }
 
 /// An open connection: a byte stream, or a message session.

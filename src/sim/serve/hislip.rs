@@ -16,7 +16,7 @@ use std::collections::HashSet;
 use std::sync::atomic::{AtomicU16, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
-use tokio::io::{AsyncRead, AsyncWrite, AsyncWriteExt};
+use tokio::io::{AsyncRead, AsyncWrite, AsyncWriteExt, BufReader};
 use tokio::sync::{Notify, OwnedSemaphorePermit, Semaphore};
 
 /// The sessions of one served instrument: their ids, and who holds the exclusive lock.
@@ -103,11 +103,13 @@ async fn fatal_error<S: AsyncWrite + Unpin>(
 /// Serves one connection until it closes. `clients` caps the synchronous channels open at once
 /// (a client past it is told so with FatalError 4).
 pub async fn serve<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
-    mut stream: S,
+    stream: S,
     device: Arc<D>,
     sessions: Arc<Sessions>,
     clients: Arc<Semaphore>,
 ) -> std::io::Result<()> {
+    // Header and payload come through a buffer: one read for a message, not two.
+    let mut stream = BufReader::new(stream);
     let first = match message::read(&mut stream).await {
         Ok(Some(m)) => m,
         Ok(None) => return Ok(()),

@@ -18,7 +18,7 @@ use std::collections::HashMap;
 use std::sync::atomic::{AtomicI32, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
-use tokio::io::{AsyncRead, AsyncWrite, AsyncWriteExt};
+use tokio::io::{AsyncRead, AsyncWrite, AsyncWriteExt, BufReader};
 use tokio::sync::Notify;
 
 /// The largest device_write data taken in one call (create_link's maxRecvSize).
@@ -188,16 +188,24 @@ enum Outcome {
 /// Serves the core channel on one connection. Links made here end with it (and any lock they
 /// held is let go).
 pub async fn serve_core<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
-    mut stream: S,
+    stream: S,
     device: Arc<D>,
     links: Arc<Links>,
 ) -> std::io::Result<()> {
     let mut mine: HashMap<i32, LinkBuffers> = HashMap::new();
+    // Records are read through a buffer, and replies held while the next record is already
+    // there: a client's pipelined device_write and device_read cost one read and one write.
+    let mut reader = BufReader::new(stream);
+    let mut replies = Vec::new();
     let outcome = async {
-        while let Some(record) = rpc::read_record(&mut stream).await? {
+        while let Some(record) = rpc::read_record(&mut reader).await? {
             match core_call(&record, device.as_ref(), &links, &mut mine).await {
-                Outcome::Reply(reply) => stream.write_all(&reply).await?,
+                Outcome::Reply(reply) => replies.extend_from_slice(&reply),
                 Outcome::HangUp => break,
+            }
+            if !rpc::record_buffered(reader.buffer()) {
+                reader.get_mut().write_all(&replies).await?;
+                replies.clear();
             }
         }
         Ok(())

@@ -15,13 +15,17 @@ use async_trait::async_trait;
 use message::{Kind, Message, FIRST_MESSAGE_ID, MAX_PAYLOAD_BYTES, PROTOCOL_VERSION, VENDOR_ID};
 use std::io;
 use std::time::Duration;
-use tokio::io::AsyncWriteExt;
+use tokio::io::{AsyncWriteExt, BufReader};
 use tokio::net::TcpStream;
+
+/// A channel read through a buffer (a message's header and payload in one read); writes go
+/// straight through.
+type Channel = BufReader<TcpStream>;
 
 /// A session with one HiSLIP server.
 pub struct HislipClient {
-    sync: TcpStream,
-    asynchronous: TcpStream,
+    sync: Channel,
+    asynchronous: Channel,
     session_id: u16,
     server_version: u16,
     /// The id the next message sent carries.
@@ -58,17 +62,17 @@ async fn within<T>(
     })?
 }
 
-async fn connect_tcp(host: &str, port: u16, timeout: Duration) -> io::Result<TcpStream> {
+async fn connect_tcp(host: &str, port: u16, timeout: Duration) -> io::Result<Channel> {
     let stream = within(timeout, "connection", async {
         Ok(TcpStream::connect((host, port)).await?)
     })
     .await?;
     stream.set_nodelay(true)?;
-    Ok(stream)
+    Ok(BufReader::new(stream))
 }
 
 /// The next message on `stream`, a closed connection an error.
-async fn next(stream: &mut TcpStream) -> io::Result<Message> {
+async fn next(stream: &mut Channel) -> io::Result<Message> {
     message::read(stream)
         .await
         .map_err(read_error)?
@@ -92,7 +96,7 @@ fn server_error(m: &Message) -> io::Error {
 }
 
 /// Reads `stream` until a message of `kind`; Error and FatalError end the wait.
-async fn expect(stream: &mut TcpStream, kind: Kind) -> io::Result<Message> {
+async fn expect(stream: &mut Channel, kind: Kind) -> io::Result<Message> {
     loop {
         let m = next(stream).await?;
         match m.kind() {

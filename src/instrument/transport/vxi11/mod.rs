@@ -17,16 +17,20 @@ use super::message::MessageSession;
 use async_trait::async_trait;
 use std::io;
 use std::time::Duration;
-use tokio::io::AsyncWriteExt;
+use tokio::io::{AsyncWriteExt, BufReader};
 use tokio::net::TcpStream;
 use xdr::{Decoder, Encoder};
+
+/// A connection whose replies are read through a buffer: pipelined replies arriving together
+/// cost one read. Writes go straight through.
+type Channel = BufReader<TcpStream>;
 
 /// Most bytes asked for in one device_read.
 const READ_REQUEST_BYTES: u32 = 1 << 16;
 
 /// A link to one VXI-11 device.
 pub struct Vxi11Client {
-    stream: TcpStream,
+    stream: Channel,
     lid: i32,
     xid: u32,
     timeout: Duration,
@@ -60,27 +64,31 @@ fn device_error(code: i32, during: &str) -> io::Error {
     )
 }
 
-async fn connect_tcp(host: &str, port: u16, timeout: Duration) -> io::Result<TcpStream> {
+async fn connect_tcp(host: &str, port: u16, timeout: Duration) -> io::Result<Channel> {
     let stream = tokio::time::timeout(timeout, TcpStream::connect((host, port)))
         .await
         .map_err(|_| timed_out(timeout, "connection"))??;
     // Every call waits for its reply: Nagle would hold each one for a delayed ACK.
     stream.set_nodelay(true)?;
-    Ok(stream)
+    Ok(BufReader::new(stream))
 }
 
-/// One RPC call over `stream`: the record written in one piece, the reply's results returned.
-async fn call(
-    stream: &mut TcpStream,
+/// A call record, whole: mark, header and arguments in one buffer, so it leaves in one write.
+fn call_record(
     xid: u32,
     prog: u32,
     vers: u32,
     procedure: u32,
     args: impl FnOnce(&mut Encoder),
-) -> io::Result<Vec<u8>> {
+) -> Vec<u8> {
     let mut e = rpc::call_header(xid, prog, vers, procedure);
     args(&mut e);
-    stream.write_all(&rpc::finish_record(e)).await?;
+    rpc::finish_record(e)
+}
+
+/// The results of the reply to call `xid`; a late reply to an earlier call (one that timed out
+/// here) is skipped.
+async fn read_reply(stream: &mut Channel, xid: u32) -> io::Result<Vec<u8>> {
     loop {
         let record = rpc::read_record(stream).await?.ok_or_else(|| {
             io::Error::new(
@@ -90,11 +98,25 @@ async fn call(
         })?;
         match rpc::decode_reply(&record, xid) {
             Ok(results) => return Ok(results.to_vec()),
-            // A late reply to an earlier call that timed out here: not this call's.
             Err(rpc::RpcError::Xid { got, .. }) if got < xid => continue,
             Err(e) => return Err(invalid(e)),
         }
     }
+}
+
+/// One RPC call over `stream`: the record written in one piece, the reply's results returned.
+async fn call(
+    stream: &mut Channel,
+    xid: u32,
+    prog: u32,
+    vers: u32,
+    procedure: u32,
+    args: impl FnOnce(&mut Encoder),
+) -> io::Result<Vec<u8>> {
+    stream
+        .write_all(&call_record(xid, prog, vers, procedure, args))
+        .await?;
+    read_reply(stream, xid).await
 }
 
 /// Asks the portmapper at `host:port` for the VXI-11 core channel's TCP port.
@@ -272,8 +294,100 @@ impl Vxi11Client {
     }
 }
 
+/// Checks device_write's results: no error, every byte taken.
+fn check_written(results: &[u8], sent: usize) -> io::Result<()> {
+    let mut d = Decoder::new(results);
+    let code = d.i32().map_err(invalid)?;
+    if code != 0 {
+        return Err(device_error(code, "device_write"));
+    }
+    let taken = d.u32().map_err(invalid)? as usize;
+    if taken != sent {
+        return Err(io::Error::other(format!(
+            "VXI-11 device_write: the device took {taken} of {sent} bytes"
+        )));
+    }
+    Ok(())
+}
+
+/// Adds device_read's data to `message`; true once the message is whole.
+fn add_read(results: &[u8], message: &mut Vec<u8>) -> io::Result<bool> {
+    let got = ReadResult::decode(&mut Decoder::new(results)).map_err(invalid)?;
+    if got.error != 0 {
+        return Err(device_error(got.error, "device_read"));
+    }
+    message.extend_from_slice(got.data);
+    if message.len() > rpc::MAX_RECORD_BYTES {
+        return Err(invalid("a VXI-11 response longer than 1 MiB"));
+    }
+    Ok(got.reason & (reason::END | reason::CHR) != 0)
+}
+
+impl Vxi11Client {
+    fn read_args(&self, timeout: Duration) -> Read {
+        Read {
+            lid: self.lid,
+            request_size: READ_REQUEST_BYTES,
+            io_timeout_ms: u32::try_from(timeout.as_millis()).unwrap_or(u32::MAX),
+            lock_timeout_ms: 0,
+            flags: 0,
+            term_char: 0,
+        }
+    }
+}
+
 #[async_trait]
 impl MessageSession for Vxi11Client {
+    /// device_write and device_read leave together, one record after the other, and their
+    /// replies come back in order: ONC RPC calls on one TCP connection are served in turn
+    /// (RFC 5531 §11 frames them; the server reads the next record after answering one), so
+    /// the query costs one round trip rather than two. Should the write fail, the connection
+    /// is dropped with the error, the read's reply with it.
+    async fn query_message(&mut self, bytes: &[u8], timeout: Duration) -> io::Result<Vec<u8>> {
+        if bytes.len() > self.max_recv_size as usize {
+            self.write_message(bytes).await?;
+            return self.read_message(timeout).await;
+        }
+        let w = Write {
+            lid: self.lid,
+            io_timeout_ms: self.timeout_ms(),
+            lock_timeout_ms: 0,
+            flags: flags::END,
+            data: bytes,
+        };
+        let r = self.read_args(timeout);
+        let write_xid = self.xid.wrapping_add(1);
+        let read_xid = self.xid.wrapping_add(2);
+        self.xid = read_xid;
+        let (prog, vers) = (self::core::DEVICE_CORE, self::core::DEVICE_CORE_VERSION);
+        let mut wire = call_record(write_xid, prog, vers, proc_num::DEVICE_WRITE, |e| {
+            w.encode(e)
+        });
+        wire.extend_from_slice(&call_record(
+            read_xid,
+            prog,
+            vers,
+            proc_num::DEVICE_READ,
+            |e| r.encode(e),
+        ));
+        let wait = timeout + Duration::from_millis(500);
+        let stream = &mut self.stream;
+        let first = tokio::time::timeout(wait, async {
+            stream.write_all(&wire).await?;
+            check_written(&read_reply(stream, write_xid).await?, bytes.len())?;
+            let mut message = Vec::new();
+            let whole = add_read(&read_reply(stream, read_xid).await?, &mut message)?;
+            Ok::<_, io::Error>((message, whole))
+        })
+        .await
+        .map_err(|_| timed_out(timeout, "VXI-11 reply"))??;
+        let (mut message, whole) = first;
+        if !whole {
+            message.extend_from_slice(&self.read_message(timeout).await?);
+        }
+        Ok(message)
+    }
+
     async fn write_message(&mut self, bytes: &[u8]) -> io::Result<()> {
         let chunk = self.max_recv_size as usize;
         let pieces: Vec<&[u8]> = if bytes.is_empty() {
@@ -293,18 +407,7 @@ impl MessageSession for Vxi11Client {
             let results = self
                 .core_call(proc_num::DEVICE_WRITE, |e| w.encode(e))
                 .await?;
-            let mut d = Decoder::new(&results);
-            let code = d.i32().map_err(invalid)?;
-            if code != 0 {
-                return Err(device_error(code, "device_write"));
-            }
-            let taken = d.u32().map_err(invalid)? as usize;
-            if taken != piece.len() {
-                return Err(io::Error::other(format!(
-                    "VXI-11 device_write: the device took {taken} of {} bytes",
-                    piece.len()
-                )));
-            }
+            check_written(&results, piece.len())?;
         }
         Ok(())
     }
@@ -312,26 +415,11 @@ impl MessageSession for Vxi11Client {
     async fn read_message(&mut self, timeout: Duration) -> io::Result<Vec<u8>> {
         let mut message = Vec::new();
         loop {
-            let r = Read {
-                lid: self.lid,
-                request_size: READ_REQUEST_BYTES,
-                io_timeout_ms: u32::try_from(timeout.as_millis()).unwrap_or(u32::MAX),
-                lock_timeout_ms: 0,
-                flags: 0,
-                term_char: 0,
-            };
+            let r = self.read_args(timeout);
             let results = self
                 .core_call(proc_num::DEVICE_READ, |e| r.encode(e))
                 .await?;
-            let got = ReadResult::decode(&mut Decoder::new(&results)).map_err(invalid)?;
-            if got.error != 0 {
-                return Err(device_error(got.error, "device_read"));
-            }
-            message.extend_from_slice(got.data);
-            if message.len() > rpc::MAX_RECORD_BYTES {
-                return Err(invalid("a VXI-11 response longer than 1 MiB"));
-            }
-            if got.reason & (reason::END | reason::CHR) != 0 {
+            if add_read(&results, &mut message)? {
                 return Ok(message);
             }
         }

@@ -185,6 +185,24 @@ pub fn decode_reply(record: &[u8], xid: u32) -> Result<&[u8], RpcError> {
     }
 }
 
+/// True when `bytes` begin with a whole record (every fragment to the last one there).
+pub fn record_buffered(mut bytes: &[u8]) -> bool {
+    loop {
+        let Some(mark) = bytes.get(..4) else {
+            return false;
+        };
+        let mark = u32::from_be_bytes([mark[0], mark[1], mark[2], mark[3]]);
+        let end = 4 + (mark & !LAST_FRAGMENT) as usize;
+        if bytes.len() < end {
+            return false;
+        }
+        if mark & LAST_FRAGMENT != 0 {
+            return true;
+        }
+        bytes = &bytes[end..];
+    }
+}
+
 /// Reads one whole record (its fragments joined); `None` when the peer closed the connection
 /// between records.
 pub async fn read_record<R: AsyncRead + Unpin + ?Sized>(
@@ -269,6 +287,12 @@ mod tests {
             Some(b"abcde".to_vec())
         );
         assert_eq!(read_record(&mut r).await.expect("eof"), None);
+        assert!(
+            !record_buffered(&wire[..9]),
+            "the last fragment is not all there"
+        );
+        assert!(record_buffered(&wire));
+        assert!(!record_buffered(&wire[..3]));
         let mut huge = &(0x8000_0000u32 | 0x7fff_ffff).to_be_bytes()[..];
         assert!(read_record(&mut huge).await.is_err());
     }
