@@ -200,7 +200,7 @@ fn host_port_device(
     default_port: u16,
 ) -> Result<(String, u16, Option<String>), String> {
     let (hostport, device) = match rest.split_once('/') {
-        Some((h, d)) if d.is_empty() => return Err(format!("the device after `{h}/` is empty")),
+        Some((h, "")) => return Err(format!("the device after `{h}/` is empty")),
         Some((h, d)) => (h, Some(d.to_string())),
         None => (rest, None),
     };

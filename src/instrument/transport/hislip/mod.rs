@@ -64,7 +64,7 @@ async fn within<T>(
 
 async fn connect_tcp(host: &str, port: u16, timeout: Duration) -> io::Result<Channel> {
     let stream = within(timeout, "connection", async {
-        Ok(TcpStream::connect((host, port)).await?)
+        TcpStream::connect((host, port)).await
     })
     .await?;
     stream.set_nodelay(true)?;
