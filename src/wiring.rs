@@ -187,7 +187,7 @@ fn driven(bench: &Bench, role: &str) -> Result<Option<(DriverKind, Link)>, Diagn
     let address = Address::parse(&binding.address).map_err(|e| {
         bench.source.key_error(KeyError::new(
             format!("roles.{role}.address"),
-            e.reason,
+            e.explained(),
             "see the README's addresses",
         ))
     })?;

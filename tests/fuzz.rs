@@ -151,6 +151,100 @@ mod wire {
         rpc::finish_record(e)
     }
 
+    /// One call on `client` and its reply's results (`None`: no reply, or not accepted).
+    async fn vxi11_call(
+        client: &mut tokio::io::DuplexStream,
+        xid: u32,
+        procedure: u32,
+        args: impl FnOnce(&mut taucal::instrument::transport::vxi11::xdr::Encoder),
+    ) -> Option<Vec<u8>> {
+        let mut e = rpc::call_header(xid, vxi::DEVICE_CORE, vxi::DEVICE_CORE_VERSION, procedure);
+        args(&mut e);
+        client.write_all(&rpc::finish_record(e)).await.ok()?;
+        let record = rpc::read_record(client).await.ok()??;
+        rpc::decode_reply(&record, xid).ok().map(<[u8]>::to_vec)
+    }
+
+    /// A well-behaved client on a connection of its own, to a server sharing `links` with the
+    /// connections before it: create_link, `*IDN?` written with END, then read back whole
+    /// (VXI-11 §B.6.3, §B.6.11, §B.6.12). True when the echo came back.
+    async fn vxi11_still_serves(links: Arc<vxi11::Links>) -> bool {
+        let (mut client, server) = tokio::io::duplex(1 << 16);
+        let serving = tokio::spawn(vxi11::serve_core(server, Arc::new(Echo), links));
+        let create = vxi::CreateLink {
+            client_id: 7,
+            lock_device: false,
+            lock_timeout_ms: 0,
+            device: "inst0".into(),
+        };
+        let answered = async {
+            let results =
+                vxi11_call(&mut client, 1, proc_num::CREATE_LINK, |e| create.encode(e)).await?;
+            let created = vxi::LinkCreated::decode(&mut Decoder::new(&results)).ok()?;
+            if created.error != 0 {
+                return None;
+            }
+            let write = vxi::Write {
+                lid: created.lid,
+                io_timeout_ms: 1000,
+                lock_timeout_ms: 0,
+                flags: vxi::flags::END,
+                data: b"*IDN?\n",
+            };
+            let results =
+                vxi11_call(&mut client, 2, proc_num::DEVICE_WRITE, |e| write.encode(e)).await?;
+            if Decoder::new(&results).i32().ok()? != 0 {
+                return None;
+            }
+            let read = vxi::Read {
+                lid: created.lid,
+                request_size: 1024,
+                io_timeout_ms: 1000,
+                lock_timeout_ms: 0,
+                flags: 0,
+                term_char: 0,
+            };
+            let results =
+                vxi11_call(&mut client, 3, proc_num::DEVICE_READ, |e| read.encode(e)).await?;
+            let got = vxi::ReadResult::decode(&mut Decoder::new(&results)).ok()?;
+            Some(got.error == 0 && got.reason & vxi::reason::END != 0 && got.data == b"*IDN?\n")
+        }
+        .await
+        .unwrap_or(false);
+        drop(client);
+        answered && serving.await.is_ok()
+    }
+
+    /// A well-behaved HiSLIP client on a connection of its own: Initialize, then `*IDN?` in a
+    /// DataEND whose response must bear its message id (IVI-6.1 §6.1, §3.1.2).
+    async fn hislip_still_serves(
+        sessions: Arc<hislip::Sessions>,
+        clients: Arc<tokio::sync::Semaphore>,
+    ) -> bool {
+        let (mut client, server) = tokio::io::duplex(1 << 16);
+        let serving = tokio::spawn(hislip::serve(server, Arc::new(Echo), sessions, clients));
+        let answered = async {
+            let hello = Message::new(Kind::Initialize, 0, 0x0200_0000, b"hislip0".to_vec());
+            client.write_all(&hello.encode()).await.ok()?;
+            let response = message::read(&mut client).await.ok()??;
+            if response.kind() != Some(Kind::InitializeResponse) {
+                return None;
+            }
+            let query = Message::new(Kind::DataEnd, 0, 0xFFFF_FF00, b"*IDN?\n".to_vec());
+            client.write_all(&query.encode()).await.ok()?;
+            let back = message::read(&mut client).await.ok()??;
+            Some(
+                back.kind() == Some(Kind::DataEnd)
+                    && back.parameter == 0xFFFF_FF00
+                    && back.payload == b"*IDN?\n",
+            )
+        }
+        .await
+        .unwrap_or(false);
+        drop(client);
+        answered && serving.await.is_ok()
+    }
+
     fn paused() -> tokio::runtime::Runtime {
         tokio::runtime::Builder::new_current_thread()
             .enable_time()
@@ -180,24 +274,31 @@ mod wire {
             calls in proptest::collection::vec((10u32..27, proptest::collection::vec(any::<u32>(), 0..6), proptest::collection::vec(any::<u8>(), 0..12)), 1..6),
             edits in proptest::collection::vec((any::<usize>(), any::<u8>(), any::<u8>()), 0..4),
             lid_hint in 0u32..3,
+            lock_with_link in any::<bool>(),
         ) {
-            let mut wire = Vec::new();
+            // A link made properly first (taking the lock or not), so the calls after it reach
+            // past the link check: link ids here count from 1.
+            let mut e = rpc::call_header(1, vxi::DEVICE_CORE, vxi::DEVICE_CORE_VERSION, proc_num::CREATE_LINK);
+            vxi::CreateLink { client_id: 1, lock_device: lock_with_link, lock_timeout_ms: 0, device: "inst0".into() }.encode(&mut e);
+            let mut wire = rpc::finish_record(e);
             for (i, (procedure, words, data)) in calls.iter().enumerate() {
                 let mut words = words.clone();
                 if let Some(first) = words.first_mut() {
                     // Often a real link id, so calls get past the link check.
                     if lid_hint > 0 { *first = lid_hint; }
                 }
-                let procedure = if i == 0 { proc_num::CREATE_LINK } else { *procedure };
-                wire.extend(vxi11_record(i as u32 + 1, procedure, &words, data));
+                wire.extend(vxi11_record(i as u32 + 2, *procedure, &words, data));
             }
             let wire = edited(wire, &edits);
             paused().block_on(async {
+                let links = Arc::new(vxi11::Links::default());
                 let (mut client, server) = tokio::io::duplex(1 << 16);
-                let serving = tokio::spawn(vxi11::serve_core(server, Arc::new(Echo), Arc::new(vxi11::Links::default())));
+                let serving = tokio::spawn(vxi11::serve_core(server, Arc::new(Echo), links.clone()));
                 let _ = client.write_all(&wire).await;
                 drop(client);
                 assert!(serving.await.is_ok(), "the server task did not panic");
+                // Whatever that client locked or left half-written, the next one is served.
+                assert!(vxi11_still_serves(links).await, "a later client is served");
             });
         }
 
@@ -227,10 +328,11 @@ mod wire {
                 let _ = opener.write_all(&Message::new(Kind::Initialize, 0, 0x0200_0000, b"hislip0".to_vec()).encode()).await;
                 tokio::task::yield_now().await;
                 let (mut client, server) = tokio::io::duplex(1 << 16);
-                let serving = tokio::spawn(hislip::serve(server, Arc::new(Echo), sessions, clients));
+                let serving = tokio::spawn(hislip::serve(server, Arc::new(Echo), sessions.clone(), clients.clone()));
                 let _ = client.write_all(&wire).await;
                 drop(client);
                 assert!(serving.await.is_ok(), "the server task did not panic");
+                assert!(hislip_still_serves(sessions.clone(), clients.clone()).await, "a later client is served");
                 drop(opener);
                 assert!(first.await.is_ok());
             });

@@ -430,11 +430,27 @@ fn bad_roles_and_connect_overrides_are_refused_before_anything_runs() {
 
 #[test]
 fn sim_serve_binds_loopback_only_unless_asked() {
-    let out = Taucal::new()
-        .args(["sim", "serve", "--listen", "attenuator=tcp:0.0.0.0:0"])
-        .run();
-    out.expect_code(2);
-    assert!(out.stderr.contains("--allow-remote"), "{}", out.stderr);
+    // Every listener that takes an address: raw TCP, VXI-11 (its portmapper and core channel),
+    // HiSLIP, and the VISA resource string forms of each.
+    for at in [
+        "tcp:0.0.0.0:0",
+        "vxi11:0.0.0.0",
+        "hislip:0.0.0.0:0",
+        "hislip:[::]:0",
+        "TCPIP0::0.0.0.0::5025::SOCKET",
+        "TCPIP0::0.0.0.0::inst0::INSTR",
+        "TCPIP0::0.0.0.0::hislip0::INSTR",
+    ] {
+        let out = Taucal::new()
+            .args(["sim", "serve", "--listen", &format!("attenuator={at}")])
+            .run();
+        out.expect_code(2);
+        assert!(
+            out.stderr.contains("not a loopback address") && out.stderr.contains("--allow-remote"),
+            "{at}: {}",
+            out.stderr
+        );
+    }
     let out = Taucal::new()
         .args(["sim", "serve", "--listen", "attenuator=pty"])
         .run();

@@ -123,7 +123,7 @@ mod tests {
         std::fs::create_dir_all(sysfs.join("class/usbmisc")).expect("class");
         std::fs::create_dir_all(&dev).expect("dev");
         for (n, vendor, product, serial, interface) in [
-            (0, "0957", "1a07", "OTHER1", "00"),
+            (0, "4b1d", "0203", "OTHER1", "00"),
             (1, "1234", "5678", "SN42", "00"),
             (2, "1234", "5678", "SN42", "01"),
         ] {
