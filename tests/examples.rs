@@ -177,6 +177,10 @@ enum Kind {
     SimBench,
     /// Roles on real instruments.
     RealRoles,
+    /// The attenuator served over HiSLIP and VXI-11 and runs through its VISA resource strings.
+    Visa,
+    /// A malformed resource string refused, as printed (a `$ ` command, then its stderr).
+    VisaRefused,
     /// Roles reached through a program (`exec:`).
     ExecRoles,
     /// A real bench's `[timing]`.
@@ -259,6 +263,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
     Some(match block.lang.as_str() {
         "sh" if text.contains("cargo run --release --") => Kind::QuickStart,
         "sh" if text.contains("cargo bench --bench scale") => Kind::Performance,
+        "sh" if text.contains("::INSTR") => Kind::Visa,
         "sh" if text.contains("taucal sim serve") => Kind::Served,
         "sh" if text.contains("taucal store ") => Kind::Store,
         "sh" if text.contains("taucal fleet plan") => Kind::Plan,
@@ -267,6 +272,7 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "sh" if commands(block).iter().all(|c| c.starts_with("taucal ")) => Kind::Commands,
         "" if text.starts_with("taucal run RECIPE") => Kind::Synopsis,
         "" if text.starts_with("taucal: my-recipe.toml") => Kind::ErrorScreen,
+        "" if text.starts_with("$ taucal ") && text.contains("::INSTR") => Kind::VisaRefused,
         "" if previous.is_some_and(single_command) => Kind::Output,
         "toml" if text.starts_with("[recipe]") => Kind::Recipe,
         "toml" if text.starts_with("[bench]\nname") => Kind::SimBench,
@@ -461,6 +467,110 @@ fn readme_served_run_records_the_in_process_exchanges() {
         without_bench_time(&out.read("run/exchanges.csv")) == in_process_exchanges(),
         "served and in-process exchanges differ"
     );
+}
+
+/// The address with its port set to 0 (a VXI-11 address's portmapper port), to compare an
+/// address as written with the one a server on a free port announces.
+fn on_any_port(address: &str) -> taucal::instrument::transport::Address {
+    use taucal::instrument::transport::Address;
+    match Address::parse(address).unwrap_or_else(|e| panic!("{address}: {e}")) {
+        Address::Vxi11 { host, device, .. } => Address::Vxi11 {
+            host,
+            device,
+            portmapper_port: 0,
+        },
+        Address::Hislip { host, device, .. } => Address::Hislip {
+            host,
+            device,
+            port: 0,
+        },
+        Address::Tcp { host, .. } => Address::Tcp { host, port: 0 },
+        other => other,
+    }
+}
+
+#[test]
+fn readme_visa_runs_record_the_in_process_exchanges() {
+    // Whole lines: the server's comment says what it prints.
+    let block = the_block(Kind::Visa);
+    let lines: Vec<&str> = block
+        .text
+        .lines()
+        .filter(|l| !l.trim().is_empty())
+        .collect();
+    assert_eq!(lines.len(), 4, "{lines:?}");
+    let want = in_process_exchanges();
+    for pair in lines.chunks(2) {
+        let (serve, written) = pair[0]
+            .split_once("   # prints attenuator ")
+            .map(|(c, p)| (c.to_string(), p.to_string()))
+            .unwrap_or_else(|| panic!("{}: says what it prints", pair[0]));
+        let serve = taucal_args(serve.trim());
+        // Fixed ports may be taken on a shared machine, and 111 needs privileges: the same
+        // listeners on ports of the system's choosing.
+        let listen: Vec<String> = serve
+            .windows(2)
+            .filter(|w| w[0] == "--listen")
+            .map(|w| match w[1].rsplit_once(':') {
+                Some((rest, port)) if port.parse::<u16>().is_ok() => format!("{rest}:0"),
+                _ => w[1].clone(),
+            })
+            .collect();
+        assert_eq!(listen.len(), 2, "{listen:?}");
+        let listen: Vec<&str> = listen.iter().map(String::as_str).collect();
+        let server = Server::start_with(
+            &repo("recipes/benches/sim-demo.toml"),
+            &listen,
+            &["--portmapper-port", "0"],
+        );
+        let announced = server.address("attenuator");
+        assert_eq!(
+            on_any_port(&announced),
+            on_any_port(&written),
+            "announced {announced}, the README says {written}"
+        );
+        let mut run = taucal_args(pair[1].trim());
+        let at = run
+            .iter()
+            .position(|a| a == &format!("attenuator={written}"))
+            .unwrap_or_else(|| panic!("{}: connects to what the server printed", pair[1]));
+        run[at] = format!("attenuator={announced}");
+        run.extend([
+            "--connect".into(),
+            format!("dut={}", server.address("dut")),
+            "--out".into(),
+            "run".into(),
+        ]);
+        let out = Taucal::new()
+            .with_repo(&["recipes", "drivers"])
+            .args(run)
+            .run();
+        out.expect_code(0);
+        assert!(
+            without_bench_time(&out.read("run/exchanges.csv")) == want,
+            "{written}: served and in-process exchanges differ"
+        );
+    }
+}
+
+#[test]
+fn readme_refused_resource_string_is_what_run_prints() {
+    let block = the_block(Kind::VisaRefused);
+    let (command, printed) = block
+        .text
+        .split_once('\n')
+        .expect("a command, then its output");
+    let out = Taucal::new()
+        .with_repo(&["recipes", "drivers"])
+        .args(taucal_args(command.trim_start_matches("$ ")))
+        .run();
+    out.expect_code(2);
+    assert!(
+        out.stderr.contains(printed),
+        "README:\n{printed}\nstderr:\n{}",
+        out.stderr
+    );
+    assert!(!out.has_dir("runs"), "nothing ran");
 }
 
 #[test]
