@@ -9,7 +9,7 @@
 //! sent together (one round trip), and, for comparison, the two one after the other (two round
 //! trips).
 //!
-//! `--smoke` (CI) runs 20 rounds of 50 queries; the default 200 rounds of 200 (short rounds, so
+//! `--smoke` (CI) runs 60 rounds of 50 queries; the default 200 rounds of 200 (short rounds, so
 //! the transports of one round see the same load).
 
 use std::net::{IpAddr, Ipv4Addr, SocketAddr};
@@ -25,7 +25,7 @@ const QUERY: &str = "DAMP:SETT?";
 
 fn main() -> Result<(), Error> {
     let smoke = std::env::args().any(|a| a == "--smoke");
-    let (rounds, batch) = if smoke { (20, 50) } else { (200, 200) };
+    let (rounds, batch) = if smoke { (60, 50) } else { (200, 200) };
     let server = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
