@@ -461,9 +461,15 @@ impl ServedBench {
             )
         })?;
         let bound = portmapper.local_addr()?.port();
+        // Lookups are capped like the instrument's clients: past the cap, closed at once.
+        let lookups = Arc::new(tokio::sync::Semaphore::new(self.max_clients));
         tokio::spawn(async move {
             loop {
-                let Ok((stream, _)) = portmapper.accept().await else {
+                let Ok((stream, peer)) = portmapper.accept().await else {
+                    continue;
+                };
+                let Ok(permit) = lookups.clone().try_acquire_owned() else {
+                    tracing::warn!("portmapper: client {peer} refused: too many connected");
                     continue;
                 };
                 let _ = stream.set_nodelay(true);
@@ -471,6 +477,7 @@ impl ServedBench {
                     if let Err(e) = vxi11::serve_portmapper(stream, core_port).await {
                         tracing::info!("portmapper client: {e}");
                     }
+                    drop(permit);
                 });
             }
         });
