@@ -419,6 +419,31 @@ fn a_malformed_resource_string_is_refused_before_anything_runs_with_a_caret() {
         out.stderr
     );
     assert!(!out.has_dir("run"), "nothing ran");
+    // The same in a bench file's role: refused as the bench loads, at the role's address.
+    let drivers = root().join("drivers").display().to_string();
+    let bench = served_bench(
+        "brackwater-tidegate95",
+        "TCPIP0::127.0.0.1::50x25::SOCKET",
+        "tcp:127.0.0.1:5026",
+        &drivers,
+    );
+    let out = Taucal::new()
+        .file("bad.toml", &bench)
+        .args([
+            "check",
+            &repo("recipes/rx-gain-sweep.toml"),
+            "--bench",
+            "bad.toml",
+        ])
+        .run();
+    out.expect_code(2);
+    for said in [
+        "bad.toml line ",
+        "`roles.attenuator.address` is not an address: the port is not a number from 1 to 65535",
+        "    TCPIP0::127.0.0.1::50x25::SOCKET\n                       ^^^^^",
+    ] {
+        assert!(out.stderr.contains(said), "{said}: {}", out.stderr);
+    }
     let remote = Taucal::new()
         .args([
             "sim",
