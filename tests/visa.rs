@@ -104,7 +104,9 @@ fn python_with_pyvisa() -> Option<String> {
 }
 
 /// Opens `resource` with PyVISA's pure-Python backend and sends the identification, a setting,
-/// its read-back and the error query. The portmapper's port is set where the test server is
+/// its read-back and the error query; over VXI-11 and HiSLIP also the status byte read both
+/// ways (device_readstb or AsyncStatusQuery, and `*STB?`) and device clear, and over VXI-11 a
+/// query under the exclusive lock. The portmapper's port is set where the test server is
 /// not on 111 (binding 111 needs privileges): pyvisa-py reads it from `rpc.PMAP_PORT`.
 const PYVISA_SCRIPT: &str = r#"
 import sys, pyvisa
@@ -120,6 +122,16 @@ print(inst.query("DAMP:SETT?"))
 inst.write("DAMP:SETT 500")
 print(inst.query("SYST:ERR?"))
 print(inst.query("SYST:ERR?"))
+if resource.endswith("::INSTR"):
+    inst.write("*ESE 16")
+    inst.write("DAMP:SETT 500")
+    print(inst.read_stb(), inst.query("*STB?"))
+    inst.clear()
+    print(inst.query("SYST:ERR?"))
+if "::inst0::" in resource:
+    inst.lock_excl(1000)
+    print(inst.query("DAMP:SETT?"))
+    inst.unlock()
 inst.close()
 rm.close()
 "#;
@@ -161,12 +173,26 @@ fn pyvisa_queries_the_served_attenuator_over_each_transport() {
         let lines: Vec<&str> = stdout.lines().collect();
         // IEEE 488.2 §10.14: four comma-separated fields; SCPI 1999 §21.8: -222 "Data out of
         // range" for a value past the instrument's limits, then 0 "No error" once drained.
-        assert_eq!(lines.len(), 4, "{resource}: {stdout}");
+        let instr = resource.ends_with("::INSTR");
+        let vxi11 = resource.contains("::inst0::");
+        let want_lines = 4 + if instr { 2 } else { 0 } + usize::from(vxi11);
+        assert_eq!(lines.len(), want_lines, "{resource}: {stdout}");
         assert_eq!(lines[0].split(',').count(), 4, "{resource}: {stdout}");
         assert!(lines[0].contains("SIM-STEP-ATTENUATOR"), "{stdout}");
         assert_eq!(lines[1], "37.5", "{resource}");
         assert!(lines[2].starts_with("-222,"), "{resource}: {stdout}");
         assert_eq!(lines[3], "0,\"No error\"", "{resource}");
+        if instr {
+            // IEEE 488.2 §11.2: with *ESE 16, an execution error sets ESB (bit 5, 32); SCPI
+            // 1999 §9: a non-empty error queue sets bit 2 (4); from memory. The protocol's
+            // status read and `*STB?` agree. Device clear leaves the error queue be (IEEE
+            // 488.2 §5.8, from memory): -222 is still there to read.
+            assert_eq!(lines[4], "36 36", "{resource}: {stdout}");
+            assert!(lines[5].starts_with("-222,"), "{resource}: {stdout}");
+        }
+        if vxi11 {
+            assert_eq!(lines[6], "37.5", "{resource}: under the lock");
+        }
     }
 }
 
