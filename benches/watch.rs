@@ -4,6 +4,9 @@
 //! sends, side by side (the two kinds alternate, so drift in the machine's load falls on both).
 //! The figure is the ratio of the median wall times (the manifest's `wall_time_s`), 50 viewers
 //! to none; target ≤ 1.25. A run without `--watch` is timed too, for what serving costs at all.
+//! The taucal process's CPU time (user + system, all its threads) is reported beside the wall
+//! time: the run's wall time is mostly waits for its synced writes, which vary with the disk's
+//! load, while the CPU time says what the serving itself cost.
 //!
 //! Each viewer must receive the run's end (the report's sections), or the bench fails: a
 //! viewer that was never served would make the ratio meaningless.
@@ -34,29 +37,44 @@ fn main() -> Result<(), Error> {
     let (mut plain, mut alone, mut watched) = (Vec::new(), Vec::new(), Vec::new());
     let mut served_bytes = 0u64;
     for round in 0..rounds {
-        plain.push(run(&recipe, work.path(), &format!("plain-{round}"), None)?.0);
-        alone.push(run(&recipe, work.path(), &format!("alone-{round}"), Some(0))?.0);
-        let (wall, bytes) = run(
+        plain.push(run(&recipe, work.path(), &format!("plain-{round}"), None)?);
+        alone.push(run(
+            &recipe,
+            work.path(),
+            &format!("alone-{round}"),
+            Some(0),
+        )?);
+        let ran = run(
             &recipe,
             work.path(),
             &format!("watched-{round}"),
             Some(VIEWERS),
         )?;
-        watched.push(wall);
-        served_bytes += bytes;
+        served_bytes += ran.bytes;
+        watched.push(ran);
     }
-    let (plain, alone, watched) = (median(plain), median(alone), median(watched));
-    let ratio = watched / alone;
-    println!("without --watch:        median wall time {plain:.3} s");
-    println!("--watch, no viewer:     median wall time {alone:.3} s");
+    let wall = |v: &[Ran]| median(v.iter().map(|r| r.wall_s).collect());
+    let cpu = |v: &[Ran]| median(v.iter().map(|r| r.cpu_s).collect());
+    let ratio = wall(&watched) / wall(&alone);
+    for (kind, runs) in [
+        ("without --watch:    ", &plain),
+        ("--watch, no viewer: ", &alone),
+        ("--watch, 50 viewers:", &watched),
+    ] {
+        println!(
+            "{kind} median wall time {:.3} s, median CPU time {:.3} s",
+            wall(runs),
+            cpu(runs)
+        );
+    }
     println!(
-        "--watch, {VIEWERS} viewers:    median wall time {watched:.3} s ({:.1} MB sent to each viewer on average)",
+        "{:.2} MB sent to each viewer on average",
         served_bytes as f64 / (rounds * VIEWERS) as f64 / 1e6
     );
     println!("ratio of {VIEWERS} viewers to none: {ratio:.3} (target ≤ {TARGET_RATIO})");
     println!(
         "ratio of --watch (no viewer) to no --watch: {:.3}",
-        alone / plain
+        wall(&alone) / wall(&plain)
     );
     if ratio > TARGET_RATIO {
         return Err(format!("ratio {ratio:.3} is above the target {TARGET_RATIO}").into());
@@ -74,14 +92,27 @@ fn median(mut v: Vec<f64>) -> f64 {
     }
 }
 
-/// Runs the recipe into `work/name`, served to `viewers` viewers when given; returns the run's
-/// wall time (its manifest's) and the bytes the viewers received in all.
-fn run(
-    recipe: &Path,
-    work: &Path,
-    name: &str,
-    viewers: Option<usize>,
-) -> Result<(f64, u64), Error> {
+/// One run's figures.
+struct Ran {
+    /// The run's wall time, its manifest's.
+    wall_s: f64,
+    /// The taucal process's CPU time, user and system, all threads.
+    cpu_s: f64,
+    /// What its viewers received, in all.
+    bytes: u64,
+}
+
+/// CPU time of this process's ended and waited-for children so far (the bench runs one at a
+/// time, so the difference across a wait is that child's).
+fn children_cpu_s() -> Result<f64, Error> {
+    use nix::sys::resource::{getrusage, UsageWho};
+    let u = getrusage(UsageWho::RUSAGE_CHILDREN)?;
+    let s = |t: nix::sys::time::TimeVal| t.tv_sec() as f64 + t.tv_usec() as f64 * 1e-6;
+    Ok(s(u.user_time()) + s(u.system_time()))
+}
+
+/// Runs the recipe into `work/name`, served to `viewers` viewers when given.
+fn run(recipe: &Path, work: &Path, name: &str, viewers: Option<usize>) -> Result<Ran, Error> {
     let out = work.join(name);
     let mut cmd = Command::new(env!("CARGO_BIN_EXE_taucal"));
     cmd.args(["run", "-q", "--store", "none"])
@@ -94,11 +125,13 @@ fn run(
     if viewers.is_some() {
         cmd.args(["--watch", &format!("127.0.0.1:{port}")]);
     }
+    let cpu_before = children_cpu_s()?;
     let mut child = cmd.spawn()?;
     let readers: Vec<_> = (0..viewers.unwrap_or(0))
         .map(|_| std::thread::spawn(move || view(port)))
         .collect();
     let status = child.wait()?;
+    let cpu_s = children_cpu_s()? - cpu_before;
     if !matches!(status.code(), Some(0 | 1)) {
         return Err(format!("{name}: taucal ended {status}").into());
     }
@@ -115,7 +148,11 @@ fn run(
         .get("wall_time_s")
         .and_then(|v| v.as_float())
         .ok_or("no wall_time_s")?;
-    Ok((wall, bytes))
+    Ok(Ran {
+        wall_s: wall,
+        cpu_s,
+        bytes,
+    })
 }
 
 fn free_port() -> Result<u16, Error> {
