@@ -57,12 +57,12 @@ fn main() -> Result<(), Error> {
     let cpu = |v: &[Ran]| median(v.iter().map(|r| r.cpu_s).collect());
     let ratio = wall(&watched) / wall(&alone);
     for (kind, runs) in [
-        ("without --watch:    ", &plain),
-        ("--watch, no viewer: ", &alone),
-        ("--watch, 50 viewers:", &watched),
+        ("without --watch:".to_string(), &plain),
+        ("--watch, no viewer:".to_string(), &alone),
+        (format!("--watch, {VIEWERS} viewers:"), &watched),
     ] {
         println!(
-            "{kind} median wall time {:.3} s, median CPU time {:.3} s",
+            "{kind:<20} median wall time {:.3} s, median CPU time {:.3} s",
             wall(runs),
             cpu(runs)
         );
