@@ -5,19 +5,49 @@
 //! whenever it gets to read, so a slow viewer skips snapshots instead of holding anything up,
 //! and the publisher never waits for a viewer.
 
-use super::Feed;
+use super::{Content, Feed};
 use crate::web::Shutdown;
 use axum::response::sse::{Event, KeepAlive, Sse};
 use futures_util::stream::Stream;
 use std::convert::Infallible;
+use std::sync::{Arc, Mutex, MutexGuard, PoisonError};
 use tokio::sync::watch;
 
 /// What one viewer's stream holds between events.
 struct Viewer {
-    progress: watch::Receiver<std::sync::Arc<super::Progress>>,
-    content: watch::Receiver<std::sync::Arc<super::Content>>,
-    log: watch::Receiver<std::sync::Arc<super::LogTail>>,
+    progress: watch::Receiver<Arc<super::Progress>>,
+    content: watch::Receiver<Arc<Content>>,
+    log: watch::Receiver<Arc<super::LogTail>>,
+    content_json: SharedJson,
     shutdown: Shutdown,
+}
+
+/// The latest sections' JSON, made once and shared by every viewer: the sections (table and
+/// plots) are the bulk of what is sent, so a viewer costs a copy of them, not a serialisation.
+#[derive(Clone, Default)]
+pub(super) struct SharedJson(Arc<Mutex<Made>>);
+
+/// The last snapshot made JSON, held so that its address cannot be taken by a new one.
+type Made = Option<(Arc<Content>, Arc<str>)>;
+
+impl SharedJson {
+    /// The JSON of snapshot `c`: the one made already when it is the same snapshot.
+    fn of(&self, c: &Arc<Content>) -> Arc<str> {
+        if let Some((held, json)) = &*self.lock() {
+            if Arc::ptr_eq(held, c) {
+                return json.clone();
+            }
+        }
+        // Made outside the lock: two viewers may both make a new snapshot's, never a stale one.
+        let json: Arc<str> = to_json(&**c).into();
+        *self.lock() = Some((c.clone(), json.clone()));
+        json
+    }
+
+    fn lock(&self) -> MutexGuard<'_, Made> {
+        // What it guards is replaced whole: a panic elsewhere cannot leave it half written.
+        self.0.lock().unwrap_or_else(PoisonError::into_inner)
+    }
 }
 
 /// A viewer's event stream: everything current at once, then each change, until the server
@@ -30,6 +60,7 @@ pub fn stream(
         progress: feed.progress.subscribe(),
         content: feed.content.subscribe(),
         log: feed.log.subscribe(),
+        content_json: feed.content_json.clone(),
         shutdown,
     };
     viewer.progress.mark_changed();
@@ -50,7 +81,7 @@ impl Viewer {
             biased;
             Ok(()) = self.content.changed() => {
                 let c = self.content.borrow_and_update().clone();
-                Some(json("content", &*c))
+                Some(Event::default().event("content").data(&*self.content_json.of(&c)))
             }
             Ok(()) = self.progress.changed() => {
                 let p = self.progress.borrow_and_update().clone();
@@ -66,7 +97,42 @@ impl Viewer {
 }
 
 fn json<T: serde::Serialize>(name: &str, value: &T) -> Event {
+    Event::default().event(name).data(to_json(value))
+}
+
+fn to_json<T: serde::Serialize>(value: &T) -> String {
     // The types sent serialise infallibly (strings, numbers, flags).
-    let data = serde_json::to_string(value).unwrap_or_else(|_| "null".into());
-    Event::default().event(name).data(data)
+    serde_json::to_string(value).unwrap_or_else(|_| "null".into())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn snapshot(rows: u64) -> Arc<Content> {
+        Arc::new(Content {
+            title: "t".into(),
+            html: format!("<p>{rows} rows</p>"),
+            rows,
+            ..Content::default()
+        })
+    }
+
+    #[test]
+    fn a_snapshot_is_made_json_once_and_a_new_one_again() {
+        let shared = SharedJson::default();
+        let viewer = shared.clone();
+        let (first, second) = (snapshot(1), snapshot(2));
+        let a = shared.of(&first);
+        // Another viewer of the same snapshot gets the very string made for the first.
+        assert!(Arc::ptr_eq(&a, &viewer.of(&first)));
+        assert_eq!(&*a, to_json(&*first));
+        // A new snapshot, even one equal in value, is made afresh and is its own.
+        let b = viewer.of(&second);
+        assert_eq!(&*b, to_json(&*second));
+        let again = snapshot(1);
+        let c = shared.of(&again);
+        assert!(!Arc::ptr_eq(&a, &c));
+        assert_eq!(&*c, &*a);
+    }
 }
