@@ -11,6 +11,7 @@ use axum::response::sse::{Event, KeepAlive, Sse};
 use futures_util::stream::Stream;
 use std::convert::Infallible;
 use std::sync::{Arc, Mutex, MutexGuard, PoisonError};
+use std::time::{Duration, Instant};
 use tokio::sync::watch;
 
 /// What one viewer's stream holds between events.
@@ -20,6 +21,10 @@ struct Viewer {
     log: watch::Receiver<Arc<super::LogTail>>,
     content_json: SharedJson,
     shutdown: Shutdown,
+    /// When the next progress event may be sent.
+    progress_at: Instant,
+    /// When the next log event may be sent.
+    log_at: Instant,
 }
 
 /// The latest sections' JSON, made once and shared by every viewer: the sections (table and
@@ -62,6 +67,8 @@ pub fn stream(
         log: feed.log.subscribe(),
         content_json: feed.content_json.clone(),
         shutdown,
+        progress_at: Instant::now(),
+        log_at: Instant::now(),
     };
     viewer.progress.mark_changed();
     viewer.content.mark_changed();
@@ -73,26 +80,60 @@ pub fn stream(
     Sse::new(events).keep_alive(KeepAlive::default())
 }
 
+/// The least time between two events of a kind to one viewer. Ten a second is as fast as a
+/// page can be read; a faster run's progress and log lines are coalesced (each viewer still
+/// gets the latest), so a viewer costs the server per tenth of a second, not per exchange.
+/// The sections are paced by the builder already.
+const PACE: Duration = Duration::from_millis(100);
+
 impl Viewer {
     /// The next event, or `None` once the server stops. What changed is sent before the stop
-    /// is heard, so the last sections reach every viewer before its stream ends.
+    /// is heard (paced or not), so the last sections and figures reach every viewer before
+    /// its stream ends.
     async fn next(&mut self) -> Option<Event> {
-        tokio::select! {
-            biased;
-            Ok(()) = self.content.changed() => {
-                let c = self.content.borrow_and_update().clone();
-                Some(Event::default().event("content").data(&*self.content_json.of(&c)))
+        loop {
+            let now = Instant::now();
+            let (progress_due, log_due) = (self.progress_at <= now, self.log_at <= now);
+            // The earliest a kind held back by its pace becomes due.
+            let wake = [(progress_due, self.progress_at), (log_due, self.log_at)]
+                .into_iter()
+                .filter(|&(due, _)| !due)
+                .map(|(_, at)| at)
+                .min()
+                .unwrap_or(now);
+            tokio::select! {
+                biased;
+                Ok(()) = self.content.changed() => {
+                    let c = self.content.borrow_and_update().clone();
+                    return Some(Event::default().event("content").data(&*self.content_json.of(&c)));
+                }
+                Ok(()) = self.progress.changed(), if progress_due => return Some(self.progress_event()),
+                Ok(()) = self.log.changed(), if log_due => return Some(self.log_event()),
+                _ = self.shutdown.wait() => {
+                    return if self.progress.has_changed().unwrap_or(false) {
+                        Some(self.progress_event())
+                    } else if self.log.has_changed().unwrap_or(false) {
+                        Some(self.log_event())
+                    } else {
+                        None
+                    };
+                }
+                // A kind held back becomes due: look again.
+                () = tokio::time::sleep_until(wake.into()), if !(progress_due && log_due) => {}
             }
-            Ok(()) = self.progress.changed() => {
-                let p = self.progress.borrow_and_update().clone();
-                Some(json("progress", &*p))
-            }
-            Ok(()) = self.log.changed() => {
-                let l = self.log.borrow_and_update().clone();
-                Some(json("log", &*l))
-            }
-            _ = self.shutdown.wait() => None,
         }
+    }
+
+    fn progress_event(&mut self) -> Event {
+        self.progress_at = Instant::now() + PACE;
+        let p = self.progress.borrow_and_update().clone();
+        json("progress", &*p)
+    }
+
+    fn log_event(&mut self) -> Event {
+        self.log_at = Instant::now() + PACE;
+        let l = self.log.borrow_and_update().clone();
+        json("log", &*l)
     }
 }
 
