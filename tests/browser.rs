@@ -120,6 +120,10 @@ fn the_live_page_follows_a_realtime_run_without_reloading() {
         "running"
     );
     assert!(wide.js_u64("return Number(document.body.dataset.updates)") > 2);
+    // The demo recipe verifies last: until then its range plot waits for verification rather
+    // than saying the recipe has none.
+    let range = wide.js_string("return document.getElementById('plot-range').textContent");
+    assert!(range.contains("measured yet"), "{range}");
     assert_eq!(
         wide.js("return performance.timeOrigin"),
         origin,

@@ -6,7 +6,7 @@
 //! unwrapped; it runs only while exchanges do in a simulated bench, and a span longer than the
 //! counter's 281 s wrap between two exchanges folds, so pauses look shorter than they were.
 
-use super::svg;
+use super::{legend, svg};
 use super::{BurstPoint, ReportData, ReportError};
 use plotters::prelude::*;
 
@@ -54,39 +54,35 @@ pub fn drift_svg(data: &ReportData) -> Result<Option<String>, ReportError> {
         return Ok(None);
     };
     svg::render("drift", |root| {
-        let mut chart = svg::chart(root, x0..x1, y0..y1)?;
+        let states: std::collections::BTreeSet<u32> = pts.iter().map(|p| p.gain_index).collect();
+        let mut entries: Vec<legend::Entry> = states
+            .iter()
+            .map(|&g| legend::Entry {
+                marker: svg::state_colour(g).filled(),
+                label: format!("gain state {g}"),
+            })
+            .collect();
+        if pts.iter().any(|p| p.verify) {
+            entries.push(legend::Entry {
+                marker: svg::INK.stroke_width(1),
+                label: "verification burst (hollow)".into(),
+            });
+        }
+        // Points fill the whole plot: the legend goes above it, not over them.
+        let area = legend::above(root, &entries)?;
+        let mut chart = svg::chart(&area, x0..x1, y0..y1)?;
         svg::mesh(&mut chart, x_desc, "burst median K (ps)")
             .y_label_formatter(&|y| format!("{y:.0}"))
             .draw()?;
-        let states: std::collections::BTreeSet<u32> = pts.iter().map(|p| p.gain_index).collect();
-        for g in states {
-            let c = svg::state_colour(g);
-            chart
-                .draw_series(pts.iter().filter(|p| p.gain_index == g).map(|p| {
-                    let style = if p.verify {
-                        c.stroke_width(1)
-                    } else {
-                        c.filled()
-                    };
-                    Circle::new((p.time_s / scale, p.median_k_ps), 3, style)
-                }))?
-                .label(format!("gain state {g}"))
-                .legend(move |(x, y)| Circle::new((x + 8, y), 4, c.filled()));
-        }
-        if pts.iter().any(|p| p.verify) {
-            // An empty series, for the legend's entry on hollow markers.
-            chart
-                .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())?
-                .label("verification burst (hollow)")
-                .legend(|(x, y)| Circle::new((x + 8, y), 4, svg::INK.stroke_width(1)));
-        }
-        chart
-            .configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.9))
-            .border_style(svg::GRID)
-            .label_font((svg::FONT, svg::LABEL_PX, &svg::INK))
-            .draw()?;
+        chart.draw_series(pts.iter().map(|p| {
+            let c = svg::state_colour(p.gain_index);
+            let style = if p.verify {
+                c.stroke_width(1)
+            } else {
+                c.filled()
+            };
+            Circle::new((p.time_s / scale, p.median_k_ps), 3, style)
+        }))?;
         Ok::<(), DrawingAreaErrorKind<std::io::Error>>(())
     })
     .map(Some)

@@ -142,7 +142,7 @@ pub fn body(data: &ReportData) -> Result<String, ReportError> {
         &data.table,
         data.manifest.reference_certificate.as_ref(),
     );
-    plots(&mut page, data)?;
+    plots(&mut page, data, Table::Final)?;
     provenance(&mut page, data);
     Ok(page)
 }
@@ -152,7 +152,7 @@ pub fn body(data: &ReportData) -> Result<String, ReportError> {
 pub fn live_body(data: &ReportData) -> Result<String, ReportError> {
     let mut page = String::new();
     summary(&mut page, data, Table::SoFar);
-    plots(&mut page, data)?;
+    plots(&mut page, data, Table::SoFar)?;
     provenance(&mut page, data);
     Ok(page)
 }
@@ -374,8 +374,14 @@ fn figure(
     }
 }
 
-fn plots(page: &mut String, data: &ReportData) -> Result<(), ReportError> {
+fn plots(page: &mut String, data: &ReportData, table: Table) -> Result<(), ReportError> {
     page.push_str("<section id=\"plots\">\n<h2>Plots</h2>\n");
+    // A run under way reaches its verification stages last: none measured is not none planned.
+    let no_verification = match (data.manifest.fit.verify_stages.is_empty(), table) {
+        (true, _) => "The recipe has no verification stage.",
+        (false, Table::SoFar) => "No verification level measured yet.",
+        (false, Table::Final) => "No verification level was measured in this run.",
+    };
     figure(
         page,
         "plot-k",
@@ -396,7 +402,7 @@ fn plots(page: &mut String, data: &ReportData) -> Result<(), ReportError> {
         "Median range error of fresh exchanges at each verified level, corrected with one K (the \
          gain state at the single-state level) and with the per-gain table. verify.csv gives each \
          level's equivalent free-space distance (ITU-R P.525).",
-        "The recipe has no verification stage.",
+        no_verification,
     );
     figure(
         page,

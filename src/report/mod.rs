@@ -15,6 +15,7 @@ mod budget_table;
 mod drift_plot;
 mod gainmap_plot;
 mod k_plot;
+mod legend;
 mod range_plot;
 mod spread_plot;
 mod svg;

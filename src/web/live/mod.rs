@@ -5,8 +5,9 @@
 //!
 //! Data flows one way: the runner (through [`LiveObserver`]) and the builder thread (following
 //! the run's files) publish snapshots into the [`Feed`]'s watch channels; viewers read the
-//! latest snapshot when they can. Publishing is a swap that never waits, so any number of
-//! viewers cannot slow the run (`benches/watch.rs` measures it). Read-only: GET only, and
+//! latest snapshot when they can. Publishing is a swap that never waits, so no viewer holds the
+//! run up; the sections, the bulk of what is sent, are made JSON once for all viewers
+//! (`benches/watch.rs` measures what viewers cost). Read-only: GET only, and
 //! nothing here writes to the run directory.
 
 mod builder;
@@ -76,6 +77,8 @@ pub struct Feed {
     pub content: Arc<watch::Sender<Arc<Content>>>,
     /// The log's last lines.
     pub log: Arc<watch::Sender<Arc<LogTail>>>,
+    /// The latest sections as JSON, shared by the viewers.
+    content_json: events::SharedJson,
 }
 
 impl Feed {
@@ -94,6 +97,7 @@ impl Feed {
             progress: Arc::new(watch::channel(Arc::new(Progress::waiting(estimate))).0),
             content: Arc::new(watch::channel(Arc::new(waiting)).0),
             log: Arc::new(watch::channel(Arc::new(LogTail::default())).0),
+            content_json: events::SharedJson::default(),
         }
     }
 }
