@@ -59,7 +59,7 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
                 c.map_db[0],
                 c.map_db[c.map_db.len() - 1],
                 plural(u64::from(c.map_bursts), "burst"),
-                plural(u64::from(c.map_frames), "exchange"),
+                plural(u64::from(c.frames), "exchange"),
                 c.margin_db,
                 plural(u64::from(c.bursts), "burst"),
                 plural(u64::from(c.frames), "exchange"),

@@ -33,10 +33,10 @@ pub struct Cells {
     pub channel: Channel,
     /// The coarse map's attenuations, ascending; swept rising, then falling.
     pub map_db: Vec<f64>,
-    /// Bursts per map point and direction.
+    /// Bursts per map point and direction, of `frames` exchanges each (as the points' bursts:
+    /// the map's exchanges count in the cells, and bursts of mixed sizes would make the
+    /// burst-clustered interval cover less than it says).
     pub map_bursts: u32,
-    /// Exchanges per map burst.
-    pub map_frames: u32,
     /// Distance kept from each switch point, both directions; also how far a point whose
     /// exchanges fall into two states moves away from the switch.
     pub margin_db: f64,
@@ -66,7 +66,6 @@ pub(super) fn cells(
             "bw_mhz",
             "map_db",
             "map_bursts",
-            "map_frames",
             "margin_db",
             "bursts",
             "frames",
@@ -99,13 +98,6 @@ pub(super) fn cells(
         None => Ok(default),
     };
     let map_bursts = count("map_bursts", &st.map_bursts, 1, 100, 1)?;
-    let map_frames = count(
-        "map_frames",
-        &st.map_frames,
-        2,
-        super::plan::MAX_FRAMES,
-        common.frames,
-    )?;
     // One burst has no between-burst spread, so an interval needs two.
     let bursts = count("bursts", &st.bursts, 2, 100_000, DEFAULT_PILOT_BURSTS)?;
     let margin_db = match &st.margin_db {
@@ -148,7 +140,6 @@ pub(super) fn cells(
         channel: common.channel,
         map_db,
         map_bursts,
-        map_frames,
         margin_db,
         bursts,
         frames: common.frames,

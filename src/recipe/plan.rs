@@ -499,7 +499,6 @@ pub(super) fn allow_only(
         ("compute_limit_s", st.compute_limit_s.is_some()),
         ("map_db", st.map_db.is_some()),
         ("map_bursts", st.map_bursts.is_some()),
-        ("map_frames", st.map_frames.is_some()),
         ("margin_db", st.margin_db.is_some()),
     ];
     match present

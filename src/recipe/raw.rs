@@ -129,8 +129,6 @@ pub struct RawStage {
     pub map_db: Option<toml::Value>,
     /// Cells: bursts per map point and direction.
     pub map_bursts: Option<toml::Value>,
-    /// Cells: exchanges per map burst.
-    pub map_frames: Option<toml::Value>,
     /// Cells: distance kept from each switch point, dB.
     pub margin_db: Option<toml::Value>,
 }

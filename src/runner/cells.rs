@@ -4,8 +4,8 @@
 //! this stage maps each unit first and measures where that unit's states hold:
 //!
 //! 1. A short coarse map over the recipe's `map_db`, attenuation rising then falling (to see
-//!    the hysteresis), `map_bursts` bursts of `map_frames` exchanges per step; the plateaus come
-//!    from the gain index the DUT reports, or from K's plateaus when it reports none.
+//!    the hysteresis), `map_bursts` bursts per step; the plateaus come from the gain index the
+//!    DUT reports, or from K's plateaus when it reports none.
 //! 2. One point per gain state in the middle of its plateau, `margin_db` inside the switch
 //!    points seen both ways.
 //! 3. At each point a pilot of `bursts` bursts. When more than [`MIXED_SHARE`] of its exchanges
@@ -55,18 +55,23 @@ struct Spot {
     bursts: u32,
     /// Bursts taken where it stands now.
     bursts_here: u32,
-    /// Usable exchanges per reported gain state, where it stands now.
+    /// Usable exchanges per gain state where it stands now: as reported, or all in its own
+    /// state for a DUT that reports none.
     here_by_gain: BTreeMap<u32, u64>,
     /// Every gain state its exchanges fell into, wherever it stood.
     seen: BTreeSet<u32>,
     /// Its exchanges, wherever it stood (for a DUT without a gain index).
     rows: Vec<Exchange>,
+    /// The cells judged when it ended.
+    judged: BTreeSet<u32>,
     /// Measured to the end (target reached, or its bursts spent).
     done: bool,
+    /// False for a DUT that reports no gain index.
+    by_gain: bool,
 }
 
 impl Spot {
-    fn new(state: u32, atten_db: f64) -> Spot {
+    fn new(state: u32, atten_db: f64, by_gain: bool) -> Spot {
         Spot {
             state,
             atten_db,
@@ -76,7 +81,9 @@ impl Spot {
             here_by_gain: BTreeMap::new(),
             seen: BTreeSet::new(),
             rows: Vec::new(),
+            judged: BTreeSet::new(),
             done: false,
+            by_gain,
         }
     }
 
@@ -84,7 +91,12 @@ impl Spot {
         self.bursts += 1;
         self.bursts_here += 1;
         for x in burst.iter().filter(|x| usable(x)) {
-            if let Some(g) = x.dut_gain {
+            let gain = if self.by_gain {
+                x.dut_gain
+            } else {
+                Some(self.state)
+            };
+            if let Some(g) = gain {
                 *self.here_by_gain.entry(g).or_insert(0) += 1;
                 self.seen.insert(g);
             }
@@ -109,7 +121,7 @@ pub fn run_cells(session: &mut Session, stage: &Cells) -> Result<(), RunError> {
             s.wait_ms(stage.settle_ms)?;
             let mut got = Vec::new();
             for _ in 0..stage.map_bursts {
-                got.extend(s.burst(stage.map_frames)?);
+                got.extend(s.burst(stage.frames)?);
             }
             Ok(got)
         })?;
@@ -139,8 +151,11 @@ pub fn run_cells(session: &mut Session, stage: &Cells) -> Result<(), RunError> {
         placed.iter().map(|p| p.1).collect::<Vec<_>>(),
         placed.iter().map(|p| p.0).collect::<Vec<_>>()
     );
-    let mut spots: Vec<Spot> = placed.iter().map(|&(g, db)| Spot::new(g, db)).collect();
     let by_gain = !gainless(&rows);
+    let mut spots: Vec<Spot> = placed
+        .iter()
+        .map(|&(g, db)| Spot::new(g, db, by_gain))
+        .collect();
     for i in 0..spots.len() {
         let db = spots[i].atten_db;
         let measured = skip_failed(session, stage, db, |s| {
@@ -277,7 +292,7 @@ fn adapt(
     let max_bursts = stage.adaptive.max_bursts;
     let mut looks = 1;
     let mut planned = {
-        let judged = judged_cells(spots, i, by_gain);
+        let judged = judged_cells(spots, i);
         let cells = fit_cells(session, rows, &spots[i], by_gain);
         plan(&spots[i], &judged, &cells, target, max_bursts)
     };
@@ -287,7 +302,7 @@ fn adapt(
             break;
         }
         if spot.bursts >= planned {
-            let judged = judged_cells(spots, i, by_gain);
+            let judged = judged_cells(spots, i);
             let cells = fit_cells(session, rows, spot, by_gain);
             if judged
                 .iter()
@@ -302,6 +317,7 @@ fn adapt(
         spots[i].take(&got);
         rows.extend(got);
     }
+    spots[i].judged = judged_cells(spots, i);
     let spot = &spots[i];
     tracing::info!(
         "stage `{}` point for gain state {} at {} dB: {} bursts after {looks} plans, cells {:?}",
@@ -314,23 +330,20 @@ fn adapt(
     Ok(())
 }
 
-/// The cells judged at spot `i`: every state its exchanges fell into, and its own, but not one
-/// whose own point is still to come (judged there, this point's exchanges included).
-fn judged_cells(spots: &[Spot], i: usize, by_gain: bool) -> BTreeSet<u32> {
+/// The cells judged at spot `i`: every state its exchanges fall into where it stands, but not
+/// one whose own point is still to come (judged there, this point's exchanges included). A
+/// state it saw only before it moved is judged where it is fed.
+fn judged_cells(spots: &[Spot], i: usize) -> BTreeSet<u32> {
     let spot = &spots[i];
-    if !by_gain {
-        return BTreeSet::from([spot.state]);
-    }
     let later = |g: u32| {
         spots
             .iter()
             .enumerate()
             .any(|(j, s)| j != i && s.state == g && !s.done)
     };
-    spot.seen
-        .iter()
+    spot.here_by_gain
+        .keys()
         .copied()
-        .chain([spot.state])
         .filter(|g| *g == spot.state || !later(*g))
         .collect()
 }
@@ -396,9 +409,10 @@ fn plan(
     planned.min(f64::from(max_bursts)) as u32
 }
 
-/// After every point: a cell still wider than the target that no point fed (seen only in the
-/// map, in a state the map found no plateau for) gets a point of its own where the map saw it
-/// hold the largest share, if it held the majority there.
+/// After every point: a cell still wider than the target that no point judged (seen only in
+/// the map, in a state the map found no plateau for, or only where a point stood before it
+/// moved) gets a point of its own where it held the largest share of a visit, if it held the
+/// majority there.
 fn revisit(
     session: &mut Session,
     stage: &Cells,
@@ -416,7 +430,7 @@ fn revisit(
         .iter()
         .filter(|r| r.ci95_ps > target)
         .map(|r| r.gain_index)
-        .filter(|g| !spots.iter().any(|s| s.seen.contains(g) || s.state == *g))
+        .filter(|g| !spots.iter().any(|s| s.judged.contains(g)))
         .collect();
     for g in wide {
         let best = session.points[first..]
@@ -437,7 +451,7 @@ fn revisit(
             );
             continue;
         };
-        spots.push(Spot::new(g, db));
+        spots.push(Spot::new(g, db, true));
         let i = spots.len() - 1;
         let measured = skip_failed(session, stage, db, |s| {
             measure(s, stage, spots, i, rows, true)
@@ -491,12 +505,13 @@ mod tests {
             switches: Vec::new(),
             inferred: false,
         };
-        // Margins of 2 dB leave 30..36.5 and 43.5..44 dB; their middles, on a 0.5 dB grid.
-        assert_eq!(place(&map, 2.0, 0.5), vec![(0, 33.0), (1, 44.0)]);
+        // Margins of 2 dB leave 30..36.5 and 43.5..44 dB; their middles, 33.25 and 43.75 dB,
+        // on the 0.5 dB grid (halves round away from zero).
+        assert_eq!(place(&map, 2.0, 0.5), vec![(0, 33.5), (1, 44.0)]);
     }
 
     fn spot(state: u32, bursts: u32, here: &[(u32, u64)]) -> Spot {
-        let mut s = Spot::new(state, 40.0);
+        let mut s = Spot::new(state, 40.0, true);
         s.bursts = bursts;
         s.bursts_here = bursts;
         s.here_by_gain = counts(here);
@@ -554,12 +569,15 @@ mod tests {
     #[test]
     fn a_cell_whose_own_point_is_still_to_come_is_judged_there() {
         let mut spots = vec![spot(0, 10, &[(0, 150), (1, 10)]), spot(1, 0, &[])];
-        assert_eq!(judged_cells(&spots, 0, true), BTreeSet::from([0]));
+        assert_eq!(judged_cells(&spots, 0), BTreeSet::from([0]));
         spots[1].done = true;
-        assert_eq!(judged_cells(&spots, 0, true), BTreeSet::from([0, 1]));
+        assert_eq!(judged_cells(&spots, 0), BTreeSet::from([0, 1]));
         // A state with no point of its own is judged wherever it shows.
         let spots = vec![spot(0, 10, &[(0, 150), (3, 10)])];
-        assert_eq!(judged_cells(&spots, 0, true), BTreeSet::from([0, 3]));
-        assert_eq!(judged_cells(&spots, 0, false), BTreeSet::from([0]));
+        assert_eq!(judged_cells(&spots, 0), BTreeSet::from([0, 3]));
+        // One seen only before the point moved is judged where it is fed.
+        let mut moved = spot(1, 20, &[(1, 160)]);
+        moved.seen.insert(0);
+        assert_eq!(judged_cells(&[moved], 0), BTreeSet::from([1]));
     }
 }

@@ -158,7 +158,7 @@ impl Walk {
             .collect();
         let map_ms: f64 = map
             .iter()
-            .map(|db| self.visit_ms(*db, c.settle_ms, c.map_bursts, c.map_frames))
+            .map(|db| self.visit_ms(*db, c.settle_ms, c.map_bursts, c.frames))
             .sum();
         self.atten_db = None;
         let pilot_ms = c.settle_ms
@@ -170,7 +170,7 @@ impl Walk {
             name: c.name.clone(),
             points: map.len() as u64 + states,
             bursts: map_bursts + pilot_bursts,
-            exchanges: map_bursts * u64::from(c.map_frames) + pilot_bursts * u64::from(c.frames),
+            exchanges: (map_bursts + pilot_bursts) * u64::from(c.frames),
             bench_s: (map_ms + states as f64 * pilot_ms) / 1000.0,
             bound: Bound::AtLeast,
             note: Some(format!(
