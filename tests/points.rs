@@ -6,11 +6,11 @@
 //! golden sample's fixed points (`tests/data/points-study/golden.toml`) leave cells wide on the
 //! same units.
 
+use crate::support::sweep::Sweep;
 use crate::support::{repo, root, Taucal};
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex};
 use taucal::bench::Bench;
-use taucal::data::{Exchange, Taken};
 use taucal::fit::stats::t975;
 use taucal::fit::{fit, Deembed, FitOptions};
 use taucal::recipe::Plan;
@@ -18,7 +18,7 @@ use taucal::runner::ledger::NoLedger;
 use taucal::runner::request::RunRequest;
 use taucal::runner::run::execute;
 use taucal::runner::Unobserved;
-use taucal::sim::{BurstRequest, SimBench, SimTruth};
+use taucal::sim::SimTruth;
 
 const STUDY_BENCH: &str = "tests/data/points-study/bench.toml";
 const STUDY_GOLDEN: &str = "tests/data/points-study/golden.toml";
@@ -157,38 +157,16 @@ fn c4(n: u32) -> f64 {
 /// estimator) and takes the fewest bursts whose expected half-width, t(n−1)·c4(n)·σ/√n, is
 /// within the target.
 fn oracle_exchanges(bench: &Bench, truth: &SimTruth, g: usize, seed: u64) -> f64 {
-    let bursts_known = 400u32;
     let db = true_mid_plateau_db(bench, truth, g);
-    let mut sim = SimBench::new(truth, &bench.path, seed).expect("truth");
-    sim.set_atten_db(db);
-    let request = BurstRequest {
-        frames: FRAMES,
+    let sweep = Sweep {
+        stage: "oracle",
         center_mhz: 5180,
         bw_mhz: 80,
+        frames: FRAMES,
+        bursts: 400,
+        gap_ps: 20_000_000_000,
     };
-    let (mut rows, mut now_ps) = (Vec::new(), 0u64);
-    for burst in 0..bursts_known {
-        let out = sim.run_burst(now_ps, &request);
-        now_ps += out.duration_ps + 20_000_000_000;
-        let at = Taken {
-            stage: "oracle",
-            point: 0,
-            burst,
-            atten_db: db,
-            center_mhz: 5180,
-            bw_mhz: 80,
-            temp_c: None,
-            time_s: None,
-        };
-        let report = sim.report(out.exchanges, &request);
-        rows.extend(
-            report
-                .rows
-                .into_iter()
-                .enumerate()
-                .map(|(seq, x)| Exchange::recorded(&at, seq as u32, x)),
-        );
-    }
+    let rows = sweep.run(truth, &bench.path, seed, [db]);
     let deembed = Deembed::new(&bench.path, bench.reference.delay_ps.clone());
     let table = fit(deembed, FitOptions::default(), &rows);
     let cell = table
