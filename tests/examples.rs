@@ -596,20 +596,29 @@ fn readme_cells_stage_checks_and_runs_as_printed_and_is_factory_quicks() {
     assert!(out.path("run/gainmap.csv").is_file());
     // The same values as the shipped recipe's, variables resolved: the README shows what runs.
     let quick = std::fs::read_to_string(root().join("recipes/factory-quick.toml")).expect("recipe");
-    for (key, value) in [
-        ("map_from_db", "26.0"),
-        ("map_to_db", "71.0"),
-        ("map_step_db", "3.0"),
-        ("margin_db", "2.0"),
-        ("min_bursts", "10"),
-        ("max_bursts", "200"),
-        ("frames_per_burst", "16"),
-        ("settle_ms", "20.0"),
+    for (vars, printed) in [
+        (
+            &[
+                "map_from_db = 26.0",
+                "map_to_db = 71.0",
+                "map_step_db = 3.0",
+            ][..],
+            "map_db = { from = 26.0, to = 71.0, step = 3.0 }",
+        ),
+        (&["margin_db = 2.0"], "margin_db = 2.0"),
+        (&["min_bursts = 10"], "\nbursts = 10"),
+        (&["max_bursts = 200"], "max_bursts = 200"),
+        (&["frames_per_burst = 16"], "frames = 16"),
+        (&["settle_ms = 20.0"], "settle_ms = 20.0"),
+        (&["target_ci95_ps = 50.0"], "target_ci95_ps = 50.0"),
     ] {
         assert!(
-            quick.contains(&format!("{key} = {value}")),
-            "factory-quick's {key} is not {value}"
+            stage.text.contains(printed),
+            "the README's stage lacks {printed:?}"
         );
+        for var in vars {
+            assert!(quick.contains(var), "factory-quick lacks {var:?}");
+        }
     }
 }
 
