@@ -1,9 +1,9 @@
 //! `cargo bench --bench fleet`: population science's speed claims (README, Performance).
 //!
-//! 1. `taucal sim fleet`: 1000 units of `recipes/factory-quick.toml` on the Dunmere line bench
+//! 1. `taucal sim fleet`: 1000 units of `recipes/factory-golden.toml` on the Dunmere line bench
 //!    into a fresh SQLite store, each a real run in virtual time; target under a minute.
 //! 2. `taucal fleet stats` and `taucal fleet stations` on a store of 100 000 units (a synthetic
-//!    3-cell table each, as factory-quick records), through the binary, process start included;
+//!    3-cell table each, as factory-golden records), through the binary, process start included;
 //!    target under 2 s each, on SQLite and on PostgreSQL (`--pg URL` or `TAUCAL_TEST_POSTGRES`,
 //!    an admin URL: the bench makes and drops a database of its own; skipped, and said so,
 //!    without one).
@@ -39,7 +39,7 @@ fn main() -> Result<(), Error> {
     let status = Command::new(env!("CARGO_BIN_EXE_taucal"))
         .arg("sim")
         .arg("fleet")
-        .arg(root.join("recipes/factory-quick.toml"))
+        .arg(root.join("recipes/factory-golden.toml"))
         .arg("--bench")
         .arg(root.join("recipes/benches/sim-fleet-line.toml"))
         .args(["--units", &units.to_string(), "--store"])
@@ -97,7 +97,7 @@ fn record(i: usize) -> RunRecord {
             run_id: format!("00000000-0000-4000-8000-{i:012}"),
             unit_serial: format!("BENCH-{i:06}"),
             station: format!("st-{}", i % 5),
-            recipe_name: "factory-quick".into(),
+            recipe_name: "factory-golden".into(),
             recipe_sha256: "00".into(),
             bench_sha256: "00".into(),
             status: "completed".into(),

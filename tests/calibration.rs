@@ -196,7 +196,7 @@ fn adaptive_sampling_spends_at_most_1_3_times_the_oracle() {
         let out = Taucal::new()
             .args([
                 "run",
-                &repo("recipes/factory-quick.toml"),
+                &repo("recipes/factory-golden.toml"),
                 "--seed",
                 &seed.to_string(),
                 "--out",
@@ -228,7 +228,7 @@ fn adaptive_intervals_still_cover_about_95_percent() {
         let out = Taucal::new()
             .args([
                 "run",
-                &repo("recipes/factory-quick.toml"),
+                &repo("recipes/factory-golden.toml"),
                 "--seed",
                 &seed.to_string(),
                 "--out",

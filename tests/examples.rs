@@ -173,6 +173,8 @@ enum Kind {
     ErrorScreen,
     /// The annotated recipe.
     Recipe,
+    /// The annotated `cells` stage.
+    CellsStage,
     /// The annotated simulated bench.
     SimBench,
     /// Roles on real instruments.
@@ -275,6 +277,9 @@ fn kind_of(block: &Block, previous: Option<&Block>) -> Option<Kind> {
         "" if text.starts_with("$ taucal ") && text.contains("::INSTR") => Kind::VisaRefused,
         "" if previous.is_some_and(single_command) => Kind::Output,
         "toml" if text.starts_with("[recipe]") => Kind::Recipe,
+        "toml" if text.starts_with("[[stage]]") && text.contains("kind = \"cells\"") => {
+            Kind::CellsStage
+        }
         "toml" if text.starts_with("[bench]\nname") => Kind::SimBench,
         "toml" if text.starts_with("[bench]\ndrivers_dir") => Kind::RealRoles,
         "toml" if text.starts_with("[roles]") && text.contains("exec:") => Kind::ExecRoles,
@@ -683,6 +688,51 @@ fn readme_recipe_checks_and_runs_as_printed() {
         .args(["check", "f.toml"])
         .run();
     out.expect_code(0);
+}
+
+#[test]
+fn readme_cells_stage_checks_and_runs_as_printed_and_is_factory_quicks() {
+    let stage = the_block(Kind::CellsStage);
+    let recipe = format!(
+        "[recipe]\nname = \"cells\"\n\n[accept]\nmax_ci95_ps = 50.0\nmin_gain_states = 3\n\n{}",
+        stage.text
+    );
+    let out = Taucal::new()
+        .file("r.toml", &recipe)
+        .args(["check", "r.toml"])
+        .run();
+    out.expect_code(0);
+    let out = Taucal::in_dir(out.dir)
+        .args(["run", "r.toml", "--out", "run"])
+        .run();
+    out.expect_code(0);
+    assert!(out.path("run/gainmap.csv").is_file());
+    // The same values as the shipped recipe's, variables resolved: the README shows what runs.
+    let quick = std::fs::read_to_string(root().join("recipes/factory-quick.toml")).expect("recipe");
+    for (vars, printed) in [
+        (
+            &[
+                "map_from_db = 26.0",
+                "map_to_db = 71.0",
+                "map_step_db = 3.0",
+            ][..],
+            "map_db = { from = 26.0, to = 71.0, step = 3.0 }",
+        ),
+        (&["margin_db = 2.0"], "margin_db = 2.0"),
+        (&["min_bursts = 10"], "\nbursts = 10"),
+        (&["max_bursts = 200"], "max_bursts = 200"),
+        (&["frames_per_burst = 16"], "frames = 16"),
+        (&["settle_ms = 20.0"], "settle_ms = 20.0"),
+        (&["target_ci95_ps = 50.0"], "target_ci95_ps = 50.0"),
+    ] {
+        assert!(
+            stage.text.contains(printed),
+            "the README's stage lacks {printed:?}"
+        );
+        for var in vars {
+            assert!(quick.contains(var), "factory-quick lacks {var:?}");
+        }
+    }
 }
 
 #[test]

@@ -9,7 +9,7 @@ use crate::support::{repo, root, Taucal};
 use taucal::fleet::tolerance::exact_factor;
 
 const BENCH: &str = "recipes/benches/sim-fleet-line.toml";
-const RECIPE: &str = "recipes/factory-quick.toml";
+const RECIPE: &str = "recipes/factory-golden.toml";
 
 /// The bench's truth: TX delay, RX delay per gain state, the population's spreads (unit-wide,
 /// TX, RX per state) and station `line-d`'s path error, one of five stations.
@@ -123,7 +123,7 @@ fn a_station_with_a_40_ps_path_error_is_flagged_and_no_other_and_the_fleet_is_re
             );
             assert!(
                 noise > 10.0 && noise < 30.0,
-                "factory-quick measures each cell to ±50 ps (u ≈ 25 ps): {noise}"
+                "factory-golden measures each cell to ±50 ps (u ≈ 25 ps): {noise}"
             );
         }
     }

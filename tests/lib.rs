@@ -22,6 +22,7 @@ mod late_paths;
 mod measured_path;
 mod plan;
 mod plan_preview;
+mod points;
 mod record_version;
 mod report;
 mod run_forms;

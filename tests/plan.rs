@@ -7,8 +7,8 @@
 use crate::support::{repo, Taucal};
 
 const BENCH: &str = "recipes/benches/sim-fleet-line.toml";
-const RECIPE: &str = "recipes/factory-quick.toml";
-/// factory-quick's mid-plateau attenuation of each gain state.
+const RECIPE: &str = "recipes/factory-golden.toml";
+/// factory-golden's mid-plateau attenuation of each gain state.
 const MID_PLATEAU_DB: [f64; 3] = [27.0, 49.0, 75.0];
 /// Three unbiased stations: the truth file holds the DUT's K, which a biased station's
 /// measurements would miss by its path error.

@@ -84,7 +84,7 @@ fn the_demo_recipe_estimate_is_within_ten_percent_of_its_dry_run() {
 
 #[test]
 fn an_adaptive_recipe_is_estimated_as_a_lower_bound() {
-    let recipe = repo("recipes/factory-quick.toml");
+    let recipe = repo("recipes/factory-golden.toml");
     let stdout = check(&recipe, &[]);
     assert!(
         stdout.contains("adaptive: counted at 10 bursts"),

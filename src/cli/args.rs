@@ -208,7 +208,7 @@ pub enum SimCommand {
     /// Calibrate a simulated fleet: N units drawn from the bench's [sim.population], each a real
     /// run in virtual time, recorded into the store.
     #[command(
-        after_help = "Units get serials of their own and go to the stations in turn; a station named in the bench's\n[sim.stations] has that true path error. The same --seed gives the same fleet.\n\nExamples:\n  taucal sim fleet recipes/factory-quick.toml --bench recipes/benches/sim-fleet-line.toml --units 200\n  taucal sim fleet recipes/factory-quick.toml --bench recipes/benches/sim-fleet-line.toml --units 1000 --stations a,b,c --store sqlite:/tmp/fleet.sqlite --truth-out truth.csv"
+        after_help = "Units get serials of their own and go to the stations in turn; a station named in the bench's\n[sim.stations] has that true path error. The same --seed gives the same fleet.\n\nExamples:\n  taucal sim fleet recipes/factory-golden.toml --bench recipes/benches/sim-fleet-line.toml --units 200\n  taucal sim fleet recipes/factory-golden.toml --bench recipes/benches/sim-fleet-line.toml --units 1000 --stations a,b,c --store sqlite:/tmp/fleet.sqlite --truth-out truth.csv"
     )]
     Fleet(SimFleetArgs),
 }

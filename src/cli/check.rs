@@ -50,6 +50,23 @@ pub fn run(args: CheckArgs) -> Result<Exit, Diagnostic> {
                 "stage {i} `{}` soak at {} °C: until the DUT stays within ±{} °C for {} s (reading every {} s, at most {} s)",
                 s.name, s.setpoint_c, s.within_c, s.stable_s, s.poll_s, s.timeout_s
             ),
+            Stage::Cells(c) => println!(
+                "stage {i} `{}` cells on {} MHz / {} MHz: a map of {} {}..{} dB each way, {} × {} per step; then a point mid-plateau per gain state (≥ {} dB from switch points seen either way, moved away from one its exchanges straddle), a pilot of {} × {} each, adaptive until every cell it feeds reaches a 95 % half-width of {} ps (at most {}), settle {} ms",
+                c.name,
+                c.channel.center_mhz,
+                c.channel.bw_mhz,
+                plural(c.map_db.len() as u64, "point"),
+                c.map_db[0],
+                c.map_db[c.map_db.len() - 1],
+                plural(u64::from(c.map_bursts), "burst"),
+                plural(u64::from(c.frames), "exchange"),
+                c.margin_db,
+                plural(u64::from(c.bursts), "burst"),
+                plural(u64::from(c.frames), "exchange"),
+                c.adaptive.target_ci95_ps,
+                plural(u64::from(c.adaptive.max_bursts), "burst"),
+                c.settle_ms
+            ),
             Stage::Script(s) => {
                 crate::script::check(&s.source)?;
                 println!(

@@ -3,7 +3,7 @@
 //!
 //! A sweep point's gain state is decided by the DUT at run time, not written in the recipe, so
 //! this relies on the factory recipe's layout: one mid-plateau point per gain state of the
-//! stage's channel, in gain order (as `recipes/factory-quick.toml` has). A stage whose point
+//! stage's channel, in gain order (as `recipes/factory-golden.toml` has). A stage whose point
 //! count differs from the fleet's gain states on its channel is refused, not guessed at, and so
 //! is a stage of another kind that measures cells (script, gainmap).
 

@@ -2,11 +2,13 @@
 //! pass checks every value against the bench and builds a typed [`Plan`]; `taucal check` is that
 //! pass alone.
 
+pub mod cells;
 pub mod plan;
 pub mod raw;
 pub mod script_source;
 pub mod vars;
 
+pub use cells::Cells;
 pub use plan::{
     Acceptance, Adaptive, Channel, FaultPolicy, Plan, Points, Script, Soak, Stage, Sweep, Verify,
 };
@@ -40,6 +42,7 @@ pub fn channels(plan: &Plan) -> Vec<(u32, u32)> {
             Stage::Sweep(s) | Stage::GainMap(s) => s.channel,
             Stage::Verify(v) => v.sweep.channel,
             Stage::Script(s) => s.channel,
+            Stage::Cells(c) => c.channel,
             Stage::Soak(_) => continue,
         };
         let key = (channel.center_mhz, channel.bw_mhz);

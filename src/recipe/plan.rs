@@ -1,6 +1,7 @@
 //! The analysis pass: a raw recipe, its variables and the bench become a typed [`Plan`], or a
 //! [`KeyError`] naming the key at fault. Nothing here touches an instrument.
 
+use super::cells::{cells, Cells};
 use super::raw::{RawRecipe, RawStage};
 use super::script_source::ScriptSource;
 use super::vars::Vars;
@@ -136,6 +137,8 @@ pub enum Stage {
     Soak(Soak),
     /// Script.
     Script(Script),
+    /// Points that follow the unit: a coarse map, then one adaptive point per gain state.
+    Cells(Cells),
 }
 
 impl Stage {
@@ -146,6 +149,7 @@ impl Stage {
             Stage::Verify(v) => &v.sweep.name,
             Stage::Soak(s) => &s.name,
             Stage::Script(s) => &s.name,
+            Stage::Cells(c) => &c.name,
         }
     }
 }
@@ -279,10 +283,11 @@ pub(super) fn build(
                 "verify" => Stage::Verify(verify(&key, st, &vars, bench).map_err(located)?),
                 "soak" => Stage::Soak(soak(&key, st, &vars, bench).map_err(located)?),
                 "script" => Stage::Script(script(&key, i, st, &vars, source, base_dir)?),
+                "cells" => Stage::Cells(cells(&key, st, &vars, bench).map_err(located)?),
                 other => return Err(located(KeyError::new(
                     format!("{key}.kind"),
                     format!("\"{other}\" is not a stage kind"),
-                    "stage kinds are \"sweep\", \"gainmap\", \"verify\", \"soak\" and \"script\"",
+                    "stage kinds are \"sweep\", \"cells\", \"gainmap\", \"verify\", \"soak\" and \"script\"",
                 ))),
             };
         stages.push(stage);
@@ -406,7 +411,7 @@ pub(super) fn build(
     })
 }
 
-fn positive(vars: &Vars, key: &str, v: &toml::Value) -> Result<f64, KeyError> {
+pub(super) fn positive(vars: &Vars, key: &str, v: &toml::Value) -> Result<f64, KeyError> {
     let x = vars.number(key, v)?;
     if x > 0.0 {
         Ok(x)
@@ -419,7 +424,7 @@ fn positive(vars: &Vars, key: &str, v: &toml::Value) -> Result<f64, KeyError> {
     }
 }
 
-fn require<'a>(
+pub(super) fn require<'a>(
     key: &str,
     name: &str,
     v: &'a Option<toml::Value>,
@@ -429,7 +434,7 @@ fn require<'a>(
         .ok_or_else(|| KeyError::new(key, format!("needs `{name}`"), hint.to_string()))
 }
 
-fn channel(key: &str, st: &RawStage, vars: &Vars) -> Result<Channel, KeyError> {
+pub(super) fn channel(key: &str, st: &RawStage, vars: &Vars) -> Result<Channel, KeyError> {
     let center_key = format!("{key}.center_mhz");
     let center = require(
         key,
@@ -467,7 +472,12 @@ fn channel(key: &str, st: &RawStage, vars: &Vars) -> Result<Channel, KeyError> {
 }
 
 /// Refuses any optional stage key that `kind` does not take.
-fn allow_only(key: &str, kind: &str, st: &RawStage, allowed: &[&str]) -> Result<(), KeyError> {
+pub(super) fn allow_only(
+    key: &str,
+    kind: &str,
+    st: &RawStage,
+    allowed: &[&str],
+) -> Result<(), KeyError> {
     let present = [
         ("center_mhz", st.center_mhz.is_some()),
         ("bw_mhz", st.bw_mhz.is_some()),
@@ -487,6 +497,9 @@ fn allow_only(key: &str, kind: &str, st: &RawStage, allowed: &[&str]) -> Result<
         ("file", st.file.is_some()),
         ("time_limit_s", st.time_limit_s.is_some()),
         ("compute_limit_s", st.compute_limit_s.is_some()),
+        ("map_db", st.map_db.is_some()),
+        ("map_bursts", st.map_bursts.is_some()),
+        ("margin_db", st.margin_db.is_some()),
     ];
     match present
         .iter()
@@ -502,7 +515,12 @@ fn allow_only(key: &str, kind: &str, st: &RawStage, allowed: &[&str]) -> Result<
 }
 
 /// Keys shared by sweeps, gain maps and verifications.
-fn measurement(key: &str, st: &RawStage, vars: &Vars, points: Points) -> Result<Sweep, KeyError> {
+pub(super) fn measurement(
+    key: &str,
+    st: &RawStage,
+    vars: &Vars,
+    points: Points,
+) -> Result<Sweep, KeyError> {
     let channel = channel(key, st, vars)?;
     let bursts = match &st.bursts {
         Some(v) => vars.count(&format!("{key}.bursts"), v, 1, 100_000)?,
@@ -540,7 +558,7 @@ fn measurement(key: &str, st: &RawStage, vars: &Vars, points: Points) -> Result<
     })
 }
 
-const ATTEN_HINT: &str =
+pub(super) const ATTEN_HINT: &str =
     "add atten_db = { from = 20.0, to = 80.0, step = 2.0 }, a list, or { over = \"usable\", step = 2.0 }";
 
 fn sweep(
@@ -812,7 +830,12 @@ fn verify(key: &str, st: &RawStage, vars: &Vars, bench: &Bench) -> Result<Verify
     })
 }
 
-fn points(key: &str, v: &toml::Value, vars: &Vars, bench: &Bench) -> Result<Vec<f64>, KeyError> {
+pub(super) fn points(
+    key: &str,
+    v: &toml::Value,
+    vars: &Vars,
+    bench: &Bench,
+) -> Result<Vec<f64>, KeyError> {
     let v = vars.deref(key, v)?;
     let pts = match v {
         toml::Value::Array(items) => items

@@ -87,7 +87,7 @@ pub struct RawAccept {
 pub struct RawStage {
     /// Stage name, unique in the recipe.
     pub name: String,
-    /// `sweep`, `gainmap`, `verify`, `soak` or `script`.
+    /// `sweep`, `cells`, `gainmap`, `verify`, `soak` or `script`.
     pub kind: String,
     /// Channel center frequency, MHz.
     pub center_mhz: Option<toml::Value>,
@@ -125,4 +125,10 @@ pub struct RawStage {
     pub time_limit_s: Option<toml::Value>,
     /// Script: wall time the script may compute outside bench calls, s.
     pub compute_limit_s: Option<toml::Value>,
+    /// Cells: the coarse map's attenuations (swept rising, then falling).
+    pub map_db: Option<toml::Value>,
+    /// Cells: bursts per map point and direction.
+    pub map_bursts: Option<toml::Value>,
+    /// Cells: distance kept from each switch point, dB.
+    pub margin_db: Option<toml::Value>,
 }

@@ -6,11 +6,12 @@
 //! settle time, a burst costs its setup plus one frame interval per exchange, a gain map sweeps
 //! its points up and then down, and the run ends by putting the attenuator at its safe (highest)
 //! setting. What is decided only at run time is counted at its declared minimum and marked:
-//! adaptive stages at their pilot bursts, mid-plateau stages at the gain states the recipe
-//! requires (or the simulation's AGC reaches), scripts not at all.
+//! adaptive stages at their pilot bursts, mid-plateau stages (and the points of a `cells` stage,
+//! after its map) at the gain states the recipe requires (or the simulation's AGC reaches),
+//! scripts not at all.
 
 use crate::bench::Bench;
-use crate::recipe::{Plan, Points, Stage, Sweep};
+use crate::recipe::{Cells, Plan, Points, Stage, Sweep};
 
 /// Durations of the bench's actions and where they come from.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -132,13 +133,54 @@ struct Walk {
 impl Walk {
     /// Bench time of one point with `bursts` bursts, in ms.
     fn point_ms(&mut self, sweep: &Sweep, db: f64, bursts: u32) -> f64 {
+        self.visit_ms(db, sweep.settle_ms, bursts, sweep.frames)
+    }
+
+    /// Bench time of a visit to `db`: switching (when the setting changes), settling, bursts.
+    fn visit_ms(&mut self, db: f64, settle_ms: f64, bursts: u32, frames: u32) -> f64 {
         let switch = if self.atten_db == Some(db) {
             0.0
         } else {
             self.timing.atten_switch_ms
         };
         self.atten_db = Some(db);
-        switch + sweep.settle_ms + f64::from(bursts) * self.timing.burst_ms(sweep.frames)
+        switch + settle_ms + f64::from(bursts) * self.timing.burst_ms(frames)
+    }
+
+    /// A `cells` stage: its map both ways (known), then one pilot per gain state it will find
+    /// (each at a setting known only after the map).
+    fn cells(&mut self, c: &Cells, states: u64, why: &str) -> StageEstimate {
+        let map: Vec<f64> = c
+            .map_db
+            .iter()
+            .chain(c.map_db.iter().rev())
+            .copied()
+            .collect();
+        let map_ms: f64 = map
+            .iter()
+            .map(|db| self.visit_ms(*db, c.settle_ms, c.map_bursts, c.frames))
+            .sum();
+        self.atten_db = None;
+        let pilot_ms = c.settle_ms
+            + self.timing.atten_switch_ms
+            + f64::from(c.bursts) * self.timing.burst_ms(c.frames);
+        let map_bursts = map.len() as u64 * u64::from(c.map_bursts);
+        let pilot_bursts = states * u64::from(c.bursts);
+        StageEstimate {
+            name: c.name.clone(),
+            points: map.len() as u64 + states,
+            bursts: map_bursts + pilot_bursts,
+            exchanges: (map_bursts + pilot_bursts) * u64::from(c.frames),
+            bench_s: (map_ms + states as f64 * pilot_ms) / 1000.0,
+            bound: Bound::AtLeast,
+            note: Some(format!(
+                "cells: a map of {} points each way, then a point for each of {states} gain \
+                 states ({why}), counted at {} pilot bursts, at most {} each",
+                c.map_db.len(),
+                c.bursts,
+                c.adaptive.max_bursts
+            )),
+        }
     }
 
     fn points(&mut self, name: &str, sweep: &Sweep, points: &[f64]) -> StageEstimate {
@@ -191,7 +233,7 @@ pub fn estimate(plan: &Plan, bench: &Bench) -> Estimate {
                     per_state,
                     ..
                 } => {
-                    let (states, why) = states_for(plan, bench, map_stage);
+                    let (states, why) = states_for(plan, bench, mapped_by(plan, map_stage));
                     // Where the plateau points fall is known only after the map; any of them
                     // differs from the setting before, so each point switches.
                     walk.atten_db = None;
@@ -236,6 +278,10 @@ pub fn estimate(plan: &Plan, bench: &Bench) -> Estimate {
                     s.stable_s, s.setpoint_c
                 )),
             },
+            Stage::Cells(c) => {
+                let (states, why) = states_for(plan, bench, Some(c.map_db.clone()));
+                walk.cells(c, states, &why)
+            }
             Stage::Script(s) => {
                 walk.atten_db = None;
                 StageEstimate {
@@ -272,18 +318,22 @@ pub fn estimate(plan: &Plan, bench: &Bench) -> Estimate {
     }
 }
 
-/// How many gain states a mid-plateau stage will find on the map `map_stage`: the states the
-/// simulation's AGC reaches over the mapped levels on a simulated bench, and at least the
-/// recipe's `min_gain_states`; one when nothing is declared.
-fn states_for(plan: &Plan, bench: &Bench, map_stage: &str) -> (u64, String) {
-    let declared = plan.accept.min_gain_states.map(u64::from);
-    let mapped = plan.stages.iter().find_map(|s| match s {
+/// The points the gain-map stage `map_stage` sweeps.
+fn mapped_by(plan: &Plan, map_stage: &str) -> Option<Vec<f64>> {
+    plan.stages.iter().find_map(|s| match s {
         Stage::GainMap(m) if m.name == map_stage => match &m.points {
             Points::Fixed(p) => Some(p.clone()),
             Points::MidPlateau { .. } => None,
         },
         _ => None,
-    });
+    })
+}
+
+/// How many gain states a map over the attenuations `mapped` will find: the states the
+/// simulation's AGC reaches over the mapped levels on a simulated bench, and at least the
+/// recipe's `min_gain_states`; one when nothing is declared.
+fn states_for(plan: &Plan, bench: &Bench, mapped: Option<Vec<f64>>) -> (u64, String) {
+    let declared = plan.accept.min_gain_states.map(u64::from);
     let simulated = bench
         .sim
         .as_ref()

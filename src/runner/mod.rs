@@ -2,6 +2,7 @@
 //! record sink.
 
 pub mod accept;
+pub mod cells;
 pub mod claim;
 pub mod connect;
 pub mod error;
@@ -25,6 +26,7 @@ pub mod stop;
 pub mod sweep;
 pub mod tabulate;
 
+pub use cells::run_cells;
 pub use error::RunError;
 pub use events::{RunEvent, RunObserver, Unobserved};
 pub use session::{PointSummary, Session};

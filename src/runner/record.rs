@@ -7,7 +7,8 @@ use super::prepare::Prepared;
 use super::report_watch::ReportWatch;
 use super::request::RunRequest;
 use super::{
-    run_gain_map, run_soak, run_sweep, run_verify, RunError, RunEvent, RunObserver, Session,
+    run_cells, run_gain_map, run_soak, run_sweep, run_verify, RunError, RunEvent, RunObserver,
+    Session,
 };
 use crate::data::manifest::{Counts, FaultTally};
 use crate::data::run_dir::files;
@@ -144,6 +145,7 @@ fn run_stages(plan: &Plan, session: &Rc<RefCell<Session>>) -> Result<(), RunErro
             Stage::GainMap(map) => run_gain_map(&mut session.borrow_mut(), map)?,
             Stage::Verify(v) => run_verify(&mut session.borrow_mut(), v)?,
             Stage::Soak(soak) => run_soak(&mut session.borrow_mut(), soak)?,
+            Stage::Cells(cells) => run_cells(&mut session.borrow_mut(), cells)?,
             Stage::Script(script) => {
                 crate::script::run_script(session.clone(), script, &plan.vars)?
             }

@@ -25,7 +25,7 @@ pub fn run_sweep(session: &mut Session, sweep: &Sweep) -> Result<(), RunError> {
 
 /// The de-embedding the run's own estimates use: the bench's path and reference, and the K a
 /// range-reporting DUT removed (as it reported it, else as the bench says).
-fn session_deembed(session: &Session) -> Deembed {
+pub(super) fn session_deembed(session: &Session) -> Deembed {
     let bench = session.bench();
     Deembed::new(&bench.path, bench.reference.delay_ps.clone())
         .with_measured(bench.measured_path.clone())
@@ -33,7 +33,7 @@ fn session_deembed(session: &Session) -> Deembed {
 }
 
 /// True when no usable row reports a DUT gain index (the device reports none).
-fn gainless(rows: &[Exchange]) -> bool {
+pub(super) fn gainless(rows: &[Exchange]) -> bool {
     !rows
         .iter()
         .any(|x| x.status == STATUS_OK && x.dut_gain.is_some() && x.is_timed())
@@ -135,8 +135,9 @@ fn plan(session: &Session, rows: &[Exchange], done: u32, adaptive: Adaptive) -> 
     })
 }
 
-/// Two-sided 95 % normal quantile.
-const Z975: f64 = 1.959_964;
+/// Two-sided 95 % normal quantile: plans forecast with it from the spread seen so far; the
+/// Student-t interval itself is what is judged when a plan is reached.
+pub(super) const Z975: f64 = 1.959_964;
 
 /// The 95 % half-width of the point's main gain state and the spread of its burst means,
 /// computed exactly as the final table computes them (same de-embedding, rejection and
@@ -184,11 +185,24 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
     for db in points.iter().copied().chain(falling) {
         rows.extend(measure_or_skip(session, map, db)?);
     }
+    let result = map_of(session, first, points.len(), &rows);
+    log_map(session, &map.name, &result);
+    session
+        .gain_maps
+        .insert(map.name.clone(), (map.channel, result));
+    Ok(())
+}
+
+/// The gain map of the points a stage visited from `session.points[first]` on, the first
+/// `rising` of them with attenuation rising and the rest falling; `rows` are their exchanges.
+/// From the reported gain steps, or inferred from K's plateaus when the DUT reports no gain
+/// index.
+pub(super) fn map_of(session: &Session, first: usize, rising: usize, rows: &[Exchange]) -> GainMap {
     let seen: Vec<MapPoint> = session.points[first..]
         .iter()
         .enumerate()
         .map(|(i, p)| MapPoint {
-            pass: if i < points.len() {
+            pass: if i < rising {
                 Pass::Rising
             } else {
                 Pass::Falling
@@ -199,31 +213,29 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
             rssi: p.rssi,
         })
         .collect();
-    let result = if gainless(&rows) && !rows.is_empty() {
-        inferred_map(session, &rows)
+    if gainless(rows) && !rows.is_empty() {
+        inferred_map(session, rows)
     } else {
         gainmap::analyse(&seen)
-    };
-    if result.inferred {
+    }
+}
+
+/// Logs what a map found: inferred states, and each switch in words.
+pub(super) fn log_map(session: &Session, stage: &str, map: &GainMap) {
+    if map.inferred {
         tracing::info!(
-            "gain map `{}`: the DUT reports no gain index; {} states inferred from K's plateaus",
-            map.name,
-            result.plateaus.len()
+            "gain map `{stage}`: the DUT reports no gain index; {} states inferred from K's plateaus",
+            map.plateaus.len()
         );
     }
-    for s in &result.switches {
+    for s in &map.switches {
         tracing::info!(
-            "gain map `{}`: state {} → {}: {}",
-            map.name,
+            "gain map `{stage}`: state {} → {}: {}",
             s.below,
             s.above,
             describe_switch(s, |a| session.bench().dut_rx_dbm(a))
         );
     }
-    session
-        .gain_maps
-        .insert(map.name.clone(), (map.channel, result));
-    Ok(())
 }
 
 /// The gain map inferred from the map stage's rows, for a DUT that reports no gain index.
