@@ -453,25 +453,28 @@ fn readme_served_run_records_the_in_process_exchanges() {
     let server = Server::start_bench(&repo("recipes/benches/sim-demo.toml"), &listen);
     let dut = server.address("dut");
     assert!(dut.starts_with("serial:/dev/pts/"), "{dut}");
-    let mut args: Vec<String> = taucal_args(&lines[1])
+    let args: Vec<String> = taucal_args(&lines[1])
         .into_iter()
         .map(|a| a.replace("serial:/dev/pts/N", &dut))
         .collect();
-    args.extend([
-        "--connect".into(),
-        format!("attenuator={}", server.address("attenuator")),
-        "--out".into(),
-        "run".into(),
-    ]);
+    let got = readme_run_exchanges(args, format!("attenuator={}", server.address("attenuator")));
+    assert!(
+        got == in_process_exchanges(),
+        "served and in-process exchanges differ"
+    );
+}
+
+/// Runs `args` (a README `taucal run` line with its addresses filled in) with `connect` added,
+/// in a copy of the repository's recipes and drivers, recording into `run`: the exchanges it
+/// recorded, bench time left out.
+fn readme_run_exchanges(mut args: Vec<String>, connect: String) -> String {
+    args.extend(["--connect".into(), connect, "--out".into(), "run".into()]);
     let out = Taucal::new()
         .with_repo(&["recipes", "drivers"])
         .args(args)
         .run();
     out.expect_code(0);
-    assert!(
-        without_bench_time(&out.read("run/exchanges.csv")) == in_process_exchanges(),
-        "served and in-process exchanges differ"
-    );
+    without_bench_time(&out.read("run/exchanges.csv"))
 }
 
 /// The address with its port set to 0 (a VXI-11 address's portmapper port), to compare an
@@ -540,19 +543,9 @@ fn readme_visa_runs_record_the_in_process_exchanges() {
             .position(|a| a == &format!("attenuator={written}"))
             .unwrap_or_else(|| panic!("{}: connects to what the server printed", pair[1]));
         run[at] = format!("attenuator={announced}");
-        run.extend([
-            "--connect".into(),
-            format!("dut={}", server.address("dut")),
-            "--out".into(),
-            "run".into(),
-        ]);
-        let out = Taucal::new()
-            .with_repo(&["recipes", "drivers"])
-            .args(run)
-            .run();
-        out.expect_code(0);
+        let got = readme_run_exchanges(run, format!("dut={}", server.address("dut")));
         assert!(
-            without_bench_time(&out.read("run/exchanges.csv")) == want,
+            got == want,
             "{written}: served and in-process exchanges differ"
         );
     }

@@ -232,18 +232,7 @@ fn fleet_statistics_are_the_same_on_sqlite_and_postgresql() {
         return;
     };
     let out = fleet(8, 30, &[]);
-    let synced = Taucal::in_dir(out.dir)
-        .args([
-            "store",
-            "sync",
-            "--store",
-            "sqlite:fleet.sqlite",
-            "--to",
-            &db.url,
-        ])
-        .run();
-    synced.expect_code(0);
-    let dir = synced.dir;
+    let dir = db.synced_from(out.dir, "sqlite:fleet.sqlite");
     let (lite, dir) = fleet_csv(dir, "stats", "sqlite:fleet.sqlite");
     let (pg, dir) = fleet_csv(dir, "stats", &db.url);
     assert_eq!(lite, pg);

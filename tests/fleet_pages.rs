@@ -252,18 +252,8 @@ fn the_pages_show_what_the_fleet_and_store_commands_print() {
     let Some(db) = PgDatabase::new("fleet_pages") else {
         return;
     };
-    let synced = Taucal::in_dir(dir)
-        .args([
-            "store",
-            "sync",
-            "--store",
-            "sqlite:fleet.sqlite",
-            "--to",
-            &db.url,
-        ])
-        .run();
-    synced.expect_code(0);
-    pages_equal_commands(synced.dir.path(), &db.url);
+    let dir = db.synced_from(dir, "sqlite:fleet.sqlite");
+    pages_equal_commands(dir.path(), &db.url);
 }
 
 #[test]

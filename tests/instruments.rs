@@ -1,6 +1,7 @@
 //! Real transports against served simulated instruments: the served-versus-in-process identity,
 //! both attenuator drivers, instrument-side errors, a pty pair, and address handling.
 
+use crate::support::served::run_demo_on;
 use crate::support::{
     assert_recorded_once, assert_tables_agree, repo, root, without_bench_time, Taucal,
 };
@@ -126,17 +127,7 @@ fn served_instruments_over_tcp_and_a_pty_record_the_in_process_exchanges() {
         &server.address("dut"),
         &drivers,
     );
-    let out = Taucal::new()
-        .file("served.toml", &bench)
-        .args([
-            "run",
-            &repo("recipes/rx-gain-sweep.toml"),
-            "--bench",
-            "served.toml",
-            "--out",
-            "run",
-        ])
-        .run();
+    let out = run_demo_on(Taucal::new(), &bench, &[]);
     out.expect_code(0);
     assert!(
         out.stderr.contains("drives real instruments"),
@@ -248,19 +239,8 @@ fn the_second_attenuator_driver_needs_no_code_change() {
         &server.address("dut"),
         &drivers,
     );
-    let out = Taucal::new()
-        .file("served.toml", &bench)
-        .args([
-            "run",
-            &repo("recipes/rx-gain-sweep.toml"),
-            "--bench",
-            "served.toml",
-            "--out",
-            "run",
-            "--connect",
-            &format!("attenuator={}", server.address("attenuator")),
-        ])
-        .run();
+    let connect = format!("attenuator={}", server.address("attenuator"));
+    let out = run_demo_on(Taucal::new(), &bench, &["--connect", &connect]);
     out.expect_code(0);
     assert!(without_bench_time(&out.read("run/exchanges.csv")) == in_process_exchanges());
 }
@@ -284,19 +264,13 @@ fn an_instrument_side_error_stops_the_run_with_its_code_and_text() {
         &server.address("dut"),
         "drivers",
     );
-    let out = Taucal::new()
-        .file("drivers/wrong-att.toml", &wrong)
-        .file("drivers/wren6-console.toml", &console)
-        .file("served.toml", &bench)
-        .args([
-            "run",
-            &repo("recipes/rx-gain-sweep.toml"),
-            "--bench",
-            "served.toml",
-            "--out",
-            "run",
-        ])
-        .run();
+    let out = run_demo_on(
+        Taucal::new()
+            .file("drivers/wrong-att.toml", &wrong)
+            .file("drivers/wren6-console.toml", &console),
+        &bench,
+        &[],
+    );
     out.expect_code(3);
     assert!(
         out.stderr.contains("-113,\"Undefined header\""),
@@ -321,17 +295,7 @@ fn an_unreachable_instrument_stops_the_run_and_says_where() {
         &format!("tcp:127.0.0.1:{port}"),
         &drivers,
     );
-    let out = Taucal::new()
-        .file("served.toml", &bench)
-        .args([
-            "run",
-            &repo("recipes/rx-gain-sweep.toml"),
-            "--bench",
-            "served.toml",
-            "--out",
-            "run",
-        ])
-        .run();
+    let out = run_demo_on(Taucal::new(), &bench, &[]);
     out.expect_code(3);
     assert!(
         out.stderr
@@ -721,18 +685,7 @@ fn a_served_bench_uses_its_true_path_where_it_differs_from_the_declared_one() {
         &drivers,
     );
     let recipe = repo("recipes/rx-gain-sweep.toml");
-    let served = Taucal::new()
-        .file("served.toml", &bench)
-        .args([
-            "run",
-            &recipe,
-            "--bench",
-            "served.toml",
-            "--out",
-            "run",
-            "-q",
-        ])
-        .run();
+    let served = run_demo_on(Taucal::new(), &bench, &["-q"]);
     served.expect_code(0);
     let in_process = Taucal::new()
         .file("long.toml", &truth)

@@ -393,6 +393,16 @@ impl PgDatabase {
         let url = format!("{base}/{name}");
         Some(PgDatabase { admin, name, url })
     }
+
+    /// Copies the runs of the store `from` in `dir` into this database with `taucal store
+    /// sync`, which must succeed; `dir` back.
+    pub(crate) fn synced_from(&self, dir: tempfile::TempDir, from: &str) -> tempfile::TempDir {
+        let synced = Taucal::in_dir(dir)
+            .args(["store", "sync", "--store", from, "--to", &self.url])
+            .run();
+        synced.expect_code(0);
+        synced.dir
+    }
 }
 
 impl Drop for PgDatabase {

@@ -2,31 +2,14 @@
 //! PyPI, nobody here wrote it) computing it from the same file: a dispersive line with an echo,
 //! written in each of the format's number forms and frequency units.
 
+use crate::support::python::python_with;
 use std::f64::consts::PI;
 use std::process::Command;
 use taucal::touchstone::{parse, point_delays_s};
 
-/// The Python that has scikit-rf: `TAUCAL_TEST_PYTHON` (`.ci/run` makes a virtual environment
-/// and sets it), else `python3`; `None`, said, where it is missing (CI requires it).
+/// The Python with scikit-rf (`None`, said, where it is missing; CI requires it).
 fn python_with_skrf() -> Option<String> {
-    use std::io::Write;
-    let python = std::env::var("TAUCAL_TEST_PYTHON").unwrap_or_else(|_| "python3".into());
-    let ok = Command::new(&python)
-        .args(["-c", "import skrf"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if ok {
-        return Some(python);
-    }
-    assert!(
-        std::env::var_os("CI").is_none(),
-        "scikit-rf is missing for {python}; .ci/run installs it and sets TAUCAL_TEST_PYTHON"
-    );
-    let _ = writeln!(
-        std::io::stderr(),
-        "SKIPPED touchstone vs scikit-rf: {python} has no scikit-rf (pip install scikit-rf)"
-    );
-    None
+    python_with(&["skrf"], "touchstone vs scikit-rf", "scikit-rf")
 }
 
 /// A two-port line of delay `tau_s` with a 4 % echo 6 ns late and a little loss rising with

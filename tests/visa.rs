@@ -6,6 +6,8 @@
 //! ids and clients that vanish mid-message.
 
 use crate::instruments::{in_process_exchanges, served_bench, Server};
+use crate::support::python::python_with;
+use crate::support::served::run_demo_on;
 use crate::support::{repo, root, without_bench_time, Taucal};
 use std::io::{Read, Write};
 use std::net::TcpStream;
@@ -17,17 +19,7 @@ use std::time::Duration;
 fn served_run(attenuator: &str, dut: &str) -> String {
     let drivers = root().join("drivers").display().to_string();
     let bench = served_bench("brackwater-tidegate95", attenuator, dut, &drivers);
-    let out = Taucal::new()
-        .file("served.toml", &bench)
-        .args([
-            "run",
-            &repo("recipes/rx-gain-sweep.toml"),
-            "--bench",
-            "served.toml",
-            "--out",
-            "run",
-        ])
-        .run();
+    let out = run_demo_on(Taucal::new(), &bench, &[]);
     out.expect_code(0);
     without_bench_time(&out.read("run/exchanges.csv"))
 }
@@ -81,26 +73,13 @@ fn each_transport_records_exactly_the_in_process_exchanges() {
     }
 }
 
-/// The Python with PyVISA and pyvisa-py: `TAUCAL_TEST_PYTHON` (`.ci/run` installs both into its
-/// virtual environment), else `python3`; `None`, said, where they are missing (CI requires them).
+/// The Python with PyVISA and pyvisa-py (`None`, said, where they are missing; CI requires them).
 fn python_with_pyvisa() -> Option<String> {
-    let python = std::env::var("TAUCAL_TEST_PYTHON").unwrap_or_else(|_| "python3".into());
-    let ok = Command::new(&python)
-        .args(["-c", "import pyvisa, pyvisa_py"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if ok {
-        return Some(python);
-    }
-    assert!(
-        std::env::var_os("CI").is_none(),
-        "PyVISA or pyvisa-py is missing for {python}; .ci/run installs them and sets TAUCAL_TEST_PYTHON"
-    );
-    let _ = writeln!(
-        std::io::stderr(),
-        "SKIPPED PyVISA against sim serve: {python} lacks pyvisa/pyvisa-py (pip install pyvisa pyvisa-py)"
-    );
-    None
+    python_with(
+        &["pyvisa", "pyvisa_py"],
+        "PyVISA against sim serve",
+        "pyvisa pyvisa-py",
+    )
 }
 
 /// Opens `resource` with PyVISA's pure-Python backend and sends the identification, a setting,

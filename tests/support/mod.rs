@@ -6,6 +6,8 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 
 pub mod bench;
+pub mod python;
+pub mod served;
 pub mod sweep;
 
 /// The repository root (recipes, benches).
