@@ -3,7 +3,8 @@
 //! values are validated, each error naming its key.
 
 use super::plan::{
-    allow_only, measurement, points, positive, require, Adaptive, Channel, Points, ATTEN_HINT,
+    allow_only, margin, measurement, points, positive, require, Adaptive, Channel, Points,
+    ATTEN_HINT,
 };
 use super::raw::RawStage;
 use super::vars::Vars;
@@ -101,17 +102,7 @@ pub(super) fn cells(
     // One burst has no between-burst spread, so an interval needs two.
     let bursts = count("bursts", &st.bursts, 2, 100_000, DEFAULT_PILOT_BURSTS)?;
     let margin_db = match &st.margin_db {
-        Some(v) => {
-            let m = vars.number(&format!("{key}.margin_db"), v)?;
-            if !(0.0..=30.0).contains(&m) {
-                return Err(KeyError::new(
-                    format!("{key}.margin_db"),
-                    format!("is {m}"),
-                    "give 0 to 30 dB",
-                ));
-            }
-            m
-        }
+        Some(v) => margin(vars, &format!("{key}.margin_db"), v)?,
         None => DEFAULT_MARGIN_DB,
     };
     let target = require(

@@ -424,6 +424,16 @@ pub(super) fn positive(vars: &Vars, key: &str, v: &toml::Value) -> Result<f64, K
     }
 }
 
+/// A distance kept from a switch point, dB: 0 to 30.
+pub(super) fn margin(vars: &Vars, key: &str, v: &toml::Value) -> Result<f64, KeyError> {
+    let m = vars.number(key, v)?;
+    if (0.0..=30.0).contains(&m) {
+        Ok(m)
+    } else {
+        Err(KeyError::new(key, format!("is {m}"), "give 0 to 30 dB"))
+    }
+}
+
 pub(super) fn require<'a>(
     key: &str,
     name: &str,
@@ -673,17 +683,7 @@ fn mid_plateau(
         None => 1,
     };
     let margin_db = match t.get("margin_db") {
-        Some(v) => {
-            let m = vars.number(&format!("{key}.margin_db"), v)?;
-            if !(0.0..=30.0).contains(&m) {
-                return Err(KeyError::new(
-                    format!("{key}.margin_db"),
-                    format!("is {m}"),
-                    "give 0 to 30 dB",
-                ));
-            }
-            m
-        }
+        Some(v) => margin(vars, &format!("{key}.margin_db"), v)?,
         None => 2.0,
     };
     let channel_key = format!(

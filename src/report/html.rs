@@ -32,20 +32,23 @@ pub fn escape(text: &str) -> String {
 pub fn to_the_second(rfc3339: &str) -> String {
     let t = time::OffsetDateTime::parse(rfc3339, &time::format_description::well_known::Rfc3339);
     match t {
-        Ok(t) => {
-            let t = t.to_offset(time::UtcOffset::UTC);
-            format!(
-                "{:04}-{:02}-{:02} {:02}:{:02}:{:02} UTC",
-                t.year(),
-                u8::from(t.month()),
-                t.day(),
-                t.hour(),
-                t.minute(),
-                t.second()
-            )
-        }
+        Ok(t) => format!("{} UTC", utc_seconds(t)),
         Err(_) => rfc3339.to_string(),
     }
+}
+
+/// The time `t` in UTC to the second, `YYYY-MM-DD HH:MM:SS`.
+pub fn utc_seconds(t: time::OffsetDateTime) -> String {
+    let t = t.to_offset(time::UtcOffset::UTC);
+    format!(
+        "{:04}-{:02}-{:02} {:02}:{:02}:{:02}",
+        t.year(),
+        u8::from(t.month()),
+        t.day(),
+        t.hour(),
+        t.minute(),
+        t.second()
+    )
 }
 
 /// The report's stylesheet; served pages (`crate::web`) share it so they look like the report.

@@ -114,6 +114,29 @@ fn describe(e: &postgres::Error) -> String {
     }
 }
 
+/// A run's row from a query whose first columns are those of [`super::schema::runs_query`].
+fn run_from(r: &postgres::Row) -> RunRow {
+    RunRow {
+        run_id: r.get(0),
+        unit_serial: r.get(1),
+        station: r.get(2),
+        recipe_name: r.get(3),
+        recipe_sha256: r.get(4),
+        bench_sha256: r.get(5),
+        status: r.get(6),
+        accepted: r.get(7),
+        simulated: r.get(8),
+        seed: r.get(9),
+        started_utc: r.get(10),
+        finished_utc: r.get(11),
+        bench_time_s: r.get(12),
+        wall_time_s: r.get(13),
+        taucal_version: r.get(14),
+        dir: r.get(15),
+        bench_name: r.get(16),
+    }
+}
+
 /// `INSERT INTO table (cols) VALUES ($1, …), ($k, …)` for `rows` rows.
 fn multi_insert(table: &str, cols: &[&str], rows: usize) -> String {
     let mut sql = format!("INSERT INTO {table} ({}) VALUES ", cols.join(", "));
@@ -327,33 +350,15 @@ impl Store for PgStore {
                 "SELECT r.run_id, r.unit_serial, r.station, r.recipe_name, r.recipe_sha256,
                         r.bench_sha256, r.status, r.accepted, r.simulated, r.seed,
                         r.started_utc, r.finished_utc, r.bench_time_s, r.wall_time_s,
-                        r.taucal_version, r.dir, u.model, r.bench_name
+                        r.taucal_version, r.dir, r.bench_name, u.model
                  FROM runs r JOIN units u ON u.serial = r.unit_serial WHERE r.run_id = $1",
                 &[&run_id],
             )?
             else {
                 return Ok(None);
             };
-            let run = RunRow {
-                run_id: r.get(0),
-                unit_serial: r.get(1),
-                station: r.get(2),
-                recipe_name: r.get(3),
-                recipe_sha256: r.get(4),
-                bench_sha256: r.get(5),
-                status: r.get(6),
-                accepted: r.get(7),
-                simulated: r.get(8),
-                seed: r.get(9),
-                started_utc: r.get(10),
-                finished_utc: r.get(11),
-                bench_time_s: r.get(12),
-                wall_time_s: r.get(13),
-                taucal_version: r.get(14),
-                dir: r.get(15),
-                bench_name: r.get(17),
-            };
-            let model: String = r.get(16);
+            let run = run_from(&r);
+            let model: String = r.get(17);
             let cells = self
                 .client
                 .query(
@@ -478,27 +483,6 @@ impl Store for PgStore {
             None => self.client.query(sql.as_str(), &[]),
         }
         .map_err(|e| self.err(e))?;
-        Ok(rows
-            .iter()
-            .map(|r| RunRow {
-                run_id: r.get(0),
-                unit_serial: r.get(1),
-                station: r.get(2),
-                recipe_name: r.get(3),
-                recipe_sha256: r.get(4),
-                bench_sha256: r.get(5),
-                status: r.get(6),
-                accepted: r.get(7),
-                simulated: r.get(8),
-                seed: r.get(9),
-                started_utc: r.get(10),
-                finished_utc: r.get(11),
-                bench_time_s: r.get(12),
-                wall_time_s: r.get(13),
-                taucal_version: r.get(14),
-                dir: r.get(15),
-                bench_name: r.get(16),
-            })
-            .collect())
+        Ok(rows.iter().map(run_from).collect())
     }
 }

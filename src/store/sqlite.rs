@@ -69,37 +69,37 @@ impl SqliteStore {
                 "SELECT r.run_id, r.unit_serial, r.station, r.recipe_name, r.recipe_sha256,
                         r.bench_sha256, r.status, r.accepted, r.simulated, r.seed, r.started_utc,
                         r.finished_utc, r.bench_time_s, r.wall_time_s, r.taucal_version, r.dir,
-                        u.model, r.bench_name
+                        r.bench_name, u.model
                  FROM runs r JOIN units u ON u.serial = r.unit_serial WHERE r.run_id = ?1",
                 [run_id],
-                |r| {
-                    Ok((
-                        RunRow {
-                            run_id: r.get(0)?,
-                            unit_serial: r.get(1)?,
-                            station: r.get(2)?,
-                            recipe_name: r.get(3)?,
-                            recipe_sha256: r.get(4)?,
-                            bench_sha256: r.get(5)?,
-                            status: r.get(6)?,
-                            accepted: r.get(7)?,
-                            simulated: r.get(8)?,
-                            seed: r.get(9)?,
-                            started_utc: r.get(10)?,
-                            finished_utc: r.get(11)?,
-                            bench_time_s: r.get(12)?,
-                            wall_time_s: r.get(13)?,
-                            taucal_version: r.get(14)?,
-                            dir: r.get(15)?,
-                            bench_name: r.get(17)?,
-                        },
-                        r.get(16)?,
-                    ))
-                },
+                |r| Ok((run_from(r)?, r.get(17)?)),
             )
             .optional()
             .map_err(|e| self.query_err(e))
     }
+}
+
+/// A run's row from a query whose first columns are those of [`super::schema::runs_query`].
+fn run_from(r: &rusqlite::Row) -> rusqlite::Result<RunRow> {
+    Ok(RunRow {
+        run_id: r.get(0)?,
+        unit_serial: r.get(1)?,
+        station: r.get(2)?,
+        recipe_name: r.get(3)?,
+        recipe_sha256: r.get(4)?,
+        bench_sha256: r.get(5)?,
+        status: r.get(6)?,
+        accepted: r.get(7)?,
+        simulated: r.get(8)?,
+        seed: r.get(9)?,
+        started_utc: r.get(10)?,
+        finished_utc: r.get(11)?,
+        bench_time_s: r.get(12)?,
+        wall_time_s: r.get(13)?,
+        taucal_version: r.get(14)?,
+        dir: r.get(15)?,
+        bench_name: r.get(16)?,
+    })
 }
 
 /// Whether `e` is another connection holding the lock.
@@ -432,30 +432,9 @@ impl Store for SqliteStore {
     fn runs(&mut self, serial: Option<&str>) -> Result<Vec<RunRow>, StoreError> {
         let sql = super::schema::runs_query(serial.is_some()).replace("$1", "?1");
         let mut s = self.conn.prepare(&sql).map_err(|e| self.query_err(e))?;
-        let row = |r: &rusqlite::Row| {
-            Ok(RunRow {
-                run_id: r.get(0)?,
-                unit_serial: r.get(1)?,
-                station: r.get(2)?,
-                recipe_name: r.get(3)?,
-                recipe_sha256: r.get(4)?,
-                bench_sha256: r.get(5)?,
-                status: r.get(6)?,
-                accepted: r.get(7)?,
-                simulated: r.get(8)?,
-                seed: r.get(9)?,
-                started_utc: r.get(10)?,
-                finished_utc: r.get(11)?,
-                bench_time_s: r.get(12)?,
-                wall_time_s: r.get(13)?,
-                taucal_version: r.get(14)?,
-                dir: r.get(15)?,
-                bench_name: r.get(16)?,
-            })
-        };
         let rows = match serial {
-            Some(serial) => s.query_map([serial], row),
-            None => s.query_map([], row),
+            Some(serial) => s.query_map([serial], run_from),
+            None => s.query_map([], run_from),
         }
         .and_then(|rows| rows.collect::<Result<Vec<_>, _>>());
         drop(s);

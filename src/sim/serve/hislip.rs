@@ -100,6 +100,20 @@ async fn fatal_error<S: AsyncWrite + Unpin>(
     .await
 }
 
+/// The next message from the client; `None` where the client has closed the connection, or
+/// sent a header not to be read, which is answered with a fatal error first.
+async fn next_message<S: AsyncRead + AsyncWrite + Unpin>(
+    stream: &mut S,
+) -> std::io::Result<Option<Message>> {
+    match message::read(stream).await {
+        Ok(m) => Ok(m),
+        Err(ReadError::Header(e)) => fatal_error(stream, fatal::BAD_HEADER, &e.to_string())
+            .await
+            .map(|()| None),
+        Err(ReadError::Io(e)) => Err(e),
+    }
+}
+
 /// Serves one connection until it closes. `clients` caps the synchronous channels open at once
 /// (a client past it is told so with FatalError 4).
 pub async fn serve<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
@@ -195,13 +209,8 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
     .await?;
     let mut pending = Vec::new();
     loop {
-        let m = match message::read(stream).await {
-            Ok(Some(m)) => m,
-            Ok(None) => return Ok(()),
-            Err(ReadError::Header(e)) => {
-                return fatal_error(stream, fatal::BAD_HEADER, &e.to_string()).await
-            }
-            Err(ReadError::Io(e)) => return Err(e),
+        let Some(m) = next_message(stream).await? else {
+            return Ok(());
         };
         match m.kind() {
             Some(Kind::Data) | Some(Kind::DataEnd) => {
@@ -272,13 +281,8 @@ async fn asynchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
     id: u16,
 ) -> std::io::Result<()> {
     loop {
-        let m = match message::read(stream).await {
-            Ok(Some(m)) => m,
-            Ok(None) => return Ok(()),
-            Err(ReadError::Header(e)) => {
-                return fatal_error(stream, fatal::BAD_HEADER, &e.to_string()).await
-            }
-            Err(ReadError::Io(e)) => return Err(e),
+        let Some(m) = next_message(stream).await? else {
+            return Ok(());
         };
         let answer = match m.kind() {
             Some(Kind::AsyncMaximumMessageSize) => Message::new(

@@ -52,6 +52,26 @@ impl Axis {
         (0..=n).map(|i| self.lo + i as f64 * self.step).collect()
     }
 
+    /// The axis drawn level at height `base`, below a plot: its line from `px_lo` to `px_hi`,
+    /// and each tick's mark and label.
+    pub fn drawn_below(&self, base: f64) -> String {
+        let mut s = format!(
+            "<line class=\"axis\" x1=\"{}\" x2=\"{}\" y1=\"{base}\" y2=\"{base}\"/>",
+            self.px_lo, self.px_hi
+        );
+        for t in self.ticks() {
+            s += &format!(
+                "<line class=\"axis\" x1=\"{p}\" x2=\"{p}\" y1=\"{base}\" y2=\"{}\"/>\
+                 <text class=\"tick\" x=\"{p}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
+                base + 5.0,
+                base + 22.0,
+                self.label(t),
+                p = at(self.px(t))
+            );
+        }
+        s
+    }
+
     /// A tick's label, with as many decimals as the step needs.
     pub fn label(&self, v: f64) -> String {
         let decimals = if self.step >= 1.0 {

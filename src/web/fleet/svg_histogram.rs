@@ -92,20 +92,7 @@ pub fn histogram(values: &[f64], tol: (f64, f64), mean: f64, caption: &str) -> S
         );
     }
     let base = H - BOTTOM;
-    s += &format!(
-        "<line class=\"axis\" x1=\"{LEFT}\" x2=\"{}\" y1=\"{base}\" y2=\"{base}\"/>",
-        W - RIGHT
-    );
-    for t in x.ticks() {
-        s += &format!(
-            "<line class=\"axis\" x1=\"{p}\" x2=\"{p}\" y1=\"{base}\" y2=\"{}\"/>\
-             <text class=\"tick\" x=\"{p}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
-            base + 5.0,
-            base + 22.0,
-            x.label(t),
-            p = at(x.px(t))
-        );
-    }
+    s += &x.drawn_below(base);
     s += &format!(
         "<text class=\"label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\">K, ps</text>\
          <text class=\"label\" x=\"{LEFT}\" y=\"14\">units</text>",

@@ -115,20 +115,7 @@ pub fn intervals(
             r.half_width
         );
     }
-    s += &format!(
-        "<line class=\"axis\" x1=\"{LEFT}\" x2=\"{}\" y1=\"{base}\" y2=\"{base}\"/>",
-        W - RIGHT
-    );
-    for t in x.ticks() {
-        s += &format!(
-            "<line class=\"axis\" x1=\"{p}\" x2=\"{p}\" y1=\"{base}\" y2=\"{}\"/>\
-             <text class=\"tick\" x=\"{p}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
-            base + 5.0,
-            base + 22.0,
-            x.label(t),
-            p = at(x.px(t))
-        );
-    }
+    s += &x.drawn_below(base);
     s += &format!(
         "<text class=\"label\" x=\"{}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
         at((LEFT + W - RIGHT) / 2.0),

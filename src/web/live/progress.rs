@@ -81,16 +81,7 @@ impl Progress {
 
 /// The wall clock now, UTC, `YYYY-MM-DD HH:MM:SS`.
 pub fn now_utc() -> String {
-    let t = time::OffsetDateTime::now_utc();
-    format!(
-        "{:04}-{:02}-{:02} {:02}:{:02}:{:02}",
-        t.year(),
-        u8::from(t.month()),
-        t.day(),
-        t.hour(),
-        t.minute(),
-        t.second()
-    )
+    crate::report::html::utc_seconds(time::OffsetDateTime::now_utc())
 }
 
 /// The stage's text: its place in the plan when the count is known.
