@@ -659,11 +659,11 @@ fn readme_error_screen_is_what_check_prints() {
     }
 }
 
-#[test]
-fn readme_recipe_checks_and_runs_as_printed() {
-    let recipe = the_block(Kind::Recipe);
+/// `taucal check`, then `taucal run` into `run`, of the recipe text `recipe`, each of which
+/// must succeed: the run's outcome.
+fn checked_and_run(recipe: &str) -> Outcome {
     let out = Taucal::new()
-        .file("r.toml", &recipe.text)
+        .file("r.toml", recipe)
         .args(["check", "r.toml"])
         .run();
     out.expect_code(0);
@@ -671,6 +671,13 @@ fn readme_recipe_checks_and_runs_as_printed() {
         .args(["run", "r.toml", "--out", "run"])
         .run();
     out.expect_code(0);
+    out
+}
+
+#[test]
+fn readme_recipe_checks_and_runs_as_printed() {
+    let recipe = the_block(Kind::Recipe);
+    let out = checked_and_run(&recipe.text);
     for file in ["caltable.csv", "verify.csv", "manifest.toml"] {
         assert!(out.path(&format!("run/{file}")).is_file(), "{file}");
     }
@@ -690,15 +697,7 @@ fn readme_cells_stage_checks_and_runs_as_printed_and_is_factory_quicks() {
         "[recipe]\nname = \"cells\"\n\n[accept]\nmax_ci95_ps = 50.0\nmin_gain_states = 3\n\n{}",
         stage.text
     );
-    let out = Taucal::new()
-        .file("r.toml", &recipe)
-        .args(["check", "r.toml"])
-        .run();
-    out.expect_code(0);
-    let out = Taucal::in_dir(out.dir)
-        .args(["run", "r.toml", "--out", "run"])
-        .run();
-    out.expect_code(0);
+    let out = checked_and_run(&recipe);
     assert!(out.path("run/gainmap.csv").is_file());
     // The same values as the shipped recipe's, variables resolved: the README shows what runs.
     let quick = std::fs::read_to_string(root().join("recipes/factory-quick.toml")).expect("recipe");
