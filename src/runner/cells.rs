@@ -272,7 +272,10 @@ fn snap(db: f64, step_db: f64) -> f64 {
 fn away(by_gain: &BTreeMap<u32, u64>, state: u32) -> Option<bool> {
     let total: u64 = by_gain.values().sum();
     let below: u64 = by_gain.range(..state).map(|(_, n)| n).sum();
-    let above: u64 = by_gain.range(state + 1..).map(|(_, n)| n).sum();
+    // `state` is DUT-reported: the top index has nothing above it, and must not overflow.
+    let above: u64 = state
+        .checked_add(1)
+        .map_or(0, |next| by_gain.range(next..).map(|(_, n)| n).sum());
     if total == 0 || ((below + above) as f64) <= MIXED_SHARE * total as f64 {
         return None;
     }
@@ -485,6 +488,12 @@ mod tests {
         // A point that saw none of its state at all moves too.
         assert_eq!(away(&counts(&[(2, 160)]), 1), Some(false));
         assert_eq!(away(&BTreeMap::new(), 1), None);
+        // A DUT may report any u32: at the top index nothing is above, and nothing overflows.
+        assert_eq!(
+            away(&counts(&[(0, 30), (u32::MAX, 130)]), u32::MAX),
+            Some(true)
+        );
+        assert_eq!(away(&counts(&[(u32::MAX, 160)]), u32::MAX), None);
     }
 
     #[test]
