@@ -114,9 +114,8 @@ pub fn run_cells(session: &mut Session, stage: &Cells) -> Result<(), RunError> {
     session.begin_stage(&stage.name, stage.channel)?;
     let first = session.points.len();
     let mut rows: Vec<Exchange> = Vec::new();
-    let falling = stage.map_db.iter().rev().copied();
-    for db in stage.map_db.iter().copied().chain(falling) {
-        let visited = skip_failed(session, stage, db, |s| {
+    let visit = |session: &mut Session, db: f64| {
+        skip_failed(session, stage, db, |s| {
             s.set_atten(db)?;
             s.wait_ms(stage.settle_ms)?;
             let mut got = Vec::new();
@@ -124,10 +123,18 @@ pub fn run_cells(session: &mut Session, stage: &Cells) -> Result<(), RunError> {
                 got.extend(s.burst(stage.frames)?);
             }
             Ok(got)
-        })?;
-        rows.extend(visited.unwrap_or_default());
+        })
+        .map(Option::unwrap_or_default)
+    };
+    for &db in &stage.map_db {
+        rows.extend(visit(session, db)?);
     }
-    let map = map_of(session, first, stage.map_db.len(), &rows);
+    // A skipped step records no point: count the rising ones that did.
+    let rising = session.points.len() - first;
+    for &db in stage.map_db.iter().rev() {
+        rows.extend(visit(session, db)?);
+    }
+    let map = map_of(session, first, rising, &rows);
     log_map(session, &stage.name, &map);
     let step_db = session.bench().attenuator.step_db;
     let placed = place(&map, stage.margin_db, step_db);

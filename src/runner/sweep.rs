@@ -182,10 +182,15 @@ pub fn run_gain_map(session: &mut Session, map: &Sweep) -> Result<(), RunError> 
     let first = session.points.len();
     let falling = points.iter().rev().copied();
     let mut rows = Vec::new();
-    for db in points.iter().copied().chain(falling) {
+    for db in points.iter().copied() {
         rows.extend(measure_or_skip(session, map, db)?);
     }
-    let result = map_of(session, first, points.len(), &rows);
+    // A skipped step records no point: count the rising ones that did.
+    let rising = session.points.len() - first;
+    for db in falling {
+        rows.extend(measure_or_skip(session, map, db)?);
+    }
+    let result = map_of(session, first, rising, &rows);
     log_map(session, &map.name, &result);
     session
         .gain_maps
