@@ -402,7 +402,7 @@ mod tests {
             "TCPIP0::127.0.0.1::inst0::INSTR",
             "TCPIP0::127.0.0.1::hislip0,4999::INSTR",
             "TCPIP0::[::1]::hislip0::INSTR",
-            "USB0::0x1234::0x5678::SN42::1::INSTR",
+            "USB0::0x7E57::0x5678::SN42::1::INSTR",
         ] {
             let a = Address::parse(text).expect(text);
             assert_eq!(a.to_string(), text);

@@ -124,8 +124,8 @@ mod tests {
         std::fs::create_dir_all(&dev).expect("dev");
         for (n, vendor, product, serial, interface) in [
             (0, "4b1d", "0203", "OTHER1", "00"),
-            (1, "1234", "5678", "SN42", "00"),
-            (2, "1234", "5678", "SN42", "01"),
+            (1, "7e57", "5678", "SN42", "00"),
+            (2, "7e57", "5678", "SN42", "01"),
         ] {
             let device = sysfs.join(format!("devices/usb1/1-{n}"));
             let iface = device.join(format!("1-{n}:1.{interface}"));
@@ -147,7 +147,7 @@ mod tests {
         let dir = tempfile::tempdir().expect("tempdir");
         let roots = fake_tree(dir.path());
         let mut id = UsbtmcId {
-            vendor: 0x1234,
+            vendor: 0x7e57,
             product: 0x5678,
             serial: "SN42".into(),
             interface: None,
@@ -159,7 +159,7 @@ mod tests {
         let e = find(&roots, &id).expect_err("no such serial");
         assert!(e.to_string().contains("serial `SN43`"), "{e}");
         assert!(
-            e.to_string().contains("usbtmc1: 0x1234::0x5678::SN42"),
+            e.to_string().contains("usbtmc1: 0x7E57::0x5678::SN42"),
             "{e}"
         );
         let none = SysfsRoots {
@@ -178,7 +178,7 @@ mod tests {
         let dir = tempfile::tempdir().expect("tempdir");
         let roots = fake_tree(dir.path());
         let id = UsbtmcId {
-            vendor: 0x1234,
+            vendor: 0x7e57,
             product: 0x5678,
             serial: "SN42".into(),
             interface: Some(0),

@@ -302,7 +302,7 @@ fn usb(parts: &[Part<'_>], class: Option<&str>, text: &str) -> Result<Address, V
         };
         value.ok_or_else(|| {
             part.err(format!(
-                "the {what} is not a 16-bit number (0x1234 or decimal)"
+                "the {what} is not a 16-bit number (0x7E57 or decimal)"
             ))
         })
     };
@@ -406,19 +406,20 @@ mod tests {
             panic!("serial by number");
         };
         assert_eq!(s.path, "/dev/ttyS0");
+        // 0x7E57 is an invented vendor id, unassigned in Debian's usb.ids 2025.07.26.
         assert_eq!(
-            parse("USB0::0x1234::0x5678::SN42::INSTR"),
+            parse("USB0::0x7E57::0x5678::SN42::INSTR"),
             Ok(Address::Usbtmc(UsbtmcId {
-                vendor: 0x1234,
+                vendor: 0x7e57,
                 product: 0x5678,
                 serial: "SN42".into(),
                 interface: None
             }))
         );
         assert_eq!(
-            parse("USB::4660::22136::SN42::1::INSTR"),
+            parse("USB::32343::22136::SN42::1::INSTR"),
             Ok(Address::Usbtmc(UsbtmcId {
-                vendor: 0x1234,
+                vendor: 0x7e57,
                 product: 0x5678,
                 serial: "SN42".into(),
                 interface: Some(1)
@@ -435,7 +436,7 @@ mod tests {
             ("TCPIP0::host::5025::INSTR", "5025", "SOCKET"),
             ("TCPIPx::host::INSTR", "TCPIPx", "board number"),
             ("USB0::0x12G4::0x5678::SN42::INSTR", "0x12G4", "vendor id"),
-            ("USB0::0x1234::0x5678::SN42::256::INSTR", "256", "interface"),
+            ("USB0::0x7E57::0x5678::SN42::256::INSTR", "256", "interface"),
             ("GPIB0::7::INSTR", "GPIB0", "does not drive"),
             ("FOO0::bar::INSTR", "FOO0", "not a VISA interface"),
             ("TCPIP0::::INSTR", "", "host is empty"),
