@@ -349,7 +349,6 @@ fn vxi11_locks_keep_other_links_out_and_device_clear_drops_a_pending_response() 
         assert_eq!(e.kind(), std::io::ErrorKind::TimedOut, "{e}");
         b.write_message(b"DAMP:SETT?\n").await.expect("write");
         assert_eq!(b.read_message(t).await.expect("read"), b"95.0\n".to_vec());
-        a.close().await.expect("destroy_link");
         let bad = Vxi11Client::connect("127.0.0.1", pmap, "gpib0,7", t)
             .await
             .err()
@@ -393,7 +392,13 @@ fn hislip_device_clear_locks_and_status_follow_the_specification() {
             .expect("write after clear");
         // The *IDN? answer, if it came, bears an id from before the clear; only this one counts.
         assert_eq!(a.read_message(t).await.expect("read"), b"95.0\n".to_vec());
-        let _ = a.status().await.expect("status byte");
+        // The protocol's status read and `*STB?` report the same byte (IEEE 488.2 §11.2, from
+        // memory); as the PyVISA check compares them.
+        let stb = a.status().await.expect("status byte");
+        a.write_message(b"*STB?\n").await.expect("write *STB?");
+        let answer = a.read_message(t).await.expect("read *STB?");
+        let text = String::from_utf8(answer).expect("ascii");
+        assert_eq!(text.trim().parse::<u8>().expect("a number"), stb, "{text}");
     });
 }
 

@@ -264,34 +264,6 @@ impl Vxi11Client {
         })
         .await
     }
-
-    /// device_readstb: the status byte.
-    pub async fn read_stb(&mut self) -> io::Result<u8> {
-        let g = Generic {
-            lid: self.lid,
-            flags: 0,
-            lock_timeout_ms: 0,
-            io_timeout_ms: self.timeout_ms(),
-        };
-        let results = self
-            .core_call(proc_num::DEVICE_READSTB, |e| g.encode(e))
-            .await?;
-        let mut d = Decoder::new(&results);
-        let code = d.i32().map_err(invalid)?;
-        if code != 0 {
-            return Err(device_error(code, "device_readstb"));
-        }
-        Ok(d.u32().map_err(invalid)? as u8)
-    }
-
-    /// destroy_link, then the connection closes.
-    pub async fn close(mut self) -> io::Result<()> {
-        let lid = self.lid;
-        self.error_call(proc_num::DESTROY_LINK, "destroy_link", |e| {
-            e.i32(lid);
-        })
-        .await
-    }
 }
 
 /// Checks device_write's results: no error, every byte taken.
