@@ -208,14 +208,23 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
     )
     .await?;
     let mut pending = Vec::new();
+    // Set when a message outgrew the limit, until its DataEND: none of it may run, not even
+    // its tail, which could be a setting cut short.
+    let mut discarding = false;
     loop {
         let Some(m) = next_message(stream).await? else {
             return Ok(());
         };
         match m.kind() {
             Some(Kind::Data) | Some(Kind::DataEnd) => {
+                let end = m.kind() == Some(Kind::DataEnd);
+                if discarding {
+                    discarding = !end;
+                    continue;
+                }
                 if pending.len() + m.payload.len() > MAX_PAYLOAD_BYTES as usize {
                     pending.clear();
+                    discarding = !end;
                     send(
                         stream,
                         Message::new(
@@ -246,6 +255,7 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
             }
             Some(Kind::DeviceClearComplete) => {
                 pending.clear();
+                discarding = false;
                 // Synchronized mode is all this server offers: no overlap feature granted.
                 send(
                     stream,
@@ -335,5 +345,66 @@ async fn asynchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
             ),
         };
         send(stream, answer).await?;
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use async_trait::async_trait;
+
+    /// Records every program it is given; answers each with `ok`.
+    #[derive(Default)]
+    struct Recorder(Mutex<Vec<Vec<u8>>>);
+
+    #[async_trait]
+    impl MessageDevice for Recorder {
+        async fn execute(&self, message: &[u8]) -> Option<Vec<u8>> {
+            self.0.lock().expect("recorder").push(message.to_vec());
+            Some(b"ok\n".to_vec())
+        }
+        fn status_byte(&self) -> u8 {
+            0
+        }
+    }
+
+    async fn next<S: AsyncRead + Unpin>(s: &mut S) -> Message {
+        message::read(s).await.expect("read").expect("a message")
+    }
+
+    #[tokio::test]
+    async fn no_part_of_an_oversize_message_is_carried_out() {
+        let device = Arc::new(Recorder::default());
+        let (mut client, server) = tokio::io::duplex(1 << 16);
+        let serving = tokio::spawn(serve(
+            server,
+            device.clone(),
+            Arc::new(Sessions::default()),
+            Arc::new(Semaphore::new(1)),
+        ));
+        let hello = Message::new(Kind::Initialize, 0, 0, b"hislip0".to_vec());
+        client.write_all(&hello.encode()).await.expect("init");
+        assert_eq!(
+            next(&mut client).await.kind(),
+            Some(Kind::InitializeResponse)
+        );
+        // Three chunks past MAX_PAYLOAD_BYTES in all; the last alone is a valid setting.
+        let big = vec![b' '; MAX_PAYLOAD_BYTES as usize - 8];
+        for m in [
+            Message::new(Kind::Data, 0, 1, big),
+            Message::new(Kind::Data, 0, 1, vec![b' '; 64]),
+            Message::new(Kind::DataEnd, 0, 1, b"ATT 10\n".to_vec()),
+            Message::new(Kind::DataEnd, 0, 3, b"*IDN?\n".to_vec()),
+        ] {
+            client.write_all(&m.encode()).await.expect("send");
+        }
+        let refused = next(&mut client).await;
+        assert_eq!(refused.kind(), Some(Kind::Error));
+        assert_eq!(refused.control, error::TOO_LARGE);
+        let answer = next(&mut client).await;
+        assert_eq!((answer.kind(), answer.parameter), (Some(Kind::DataEnd), 3));
+        assert_eq!(*device.0.lock().expect("recorder"), [b"*IDN?\n".to_vec()]);
+        drop(client);
+        serving.await.expect("join").expect("served");
     }
 }
