@@ -368,6 +368,29 @@ fn the_server_keeps_to_loopback_unless_allowed_and_refuses_bad_input() {
     assert!(out.stderr.contains("--threshold-ps -1"), "{}", out.stderr);
 }
 
+#[test]
+fn a_page_view_never_creates_a_store_that_went_missing() {
+    let dir = filled_store(2, 35);
+    let server = Server::start(dir.path(), "sqlite:fleet.sqlite", &[]);
+    assert_eq!(server.page("/").root_element().value().name(), "html");
+    for file in ["fleet.sqlite", "fleet.sqlite-wal", "fleet.sqlite-shm"] {
+        let path = dir.path().join(file);
+        if path.exists() {
+            std::fs::remove_file(&path).expect("remove");
+        }
+    }
+    // Reading must not leave an empty store behind where the real one was (common practice:
+    // a read-only view writes nothing).
+    let (status, body) = server.get("/");
+    assert_eq!(status, 500, "{body}");
+    assert!(body.contains("does not exist"), "{body}");
+    assert!(body.contains("fleet.sqlite"), "the URL is named: {body}");
+    assert!(
+        !dir.path().join("fleet.sqlite").exists(),
+        "a page view created the store"
+    );
+}
+
 /// The fleet pages in headless Chromium at a desktop and a phone width: each shows the
 /// commands' numbers, loads nothing from outside, keeps its tables and plots inside their cards
 /// (no sideways scroll of the page), keeps plot text legible, and its search form works;

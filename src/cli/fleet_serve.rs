@@ -2,9 +2,10 @@
 
 use super::args::FleetServeArgs;
 use super::fleet::check_threshold;
-use super::store::{open_existing, read_url};
+use super::store::{fail, read_url};
 use super::Exit;
 use crate::diagnostic::Diagnostic;
+use crate::store::url::URL_HINT;
 use crate::web::fleet::{router, FleetSite};
 use crate::web::{bind, serve, Shutdown};
 
@@ -12,8 +13,14 @@ use crate::web::{bind, serve, Shutdown};
 pub fn run(args: FleetServeArgs) -> Result<Exit, Diagnostic> {
     check_threshold(args.threshold_ps)?;
     let url = read_url(&args.store)?;
-    // Opened once now, so a wrong URL is an input error at start rather than a broken page.
-    let shown = open_existing(&url)?.url();
+    // Opened once now, so a wrong URL is an input error at start rather than a broken page;
+    // as every page, without creating or migrating anything.
+    let shown = crate::store::open_existing(&url)
+        .map_err(fail)?
+        .ok_or_else(|| {
+            Diagnostic::plain("--store none names no store to serve").with_hint(URL_HINT)
+        })?
+        .url();
     let listener = bind(&args.listen, args.allow_remote)
         .map_err(|e| Diagnostic::plain(format!("--listen: {e}")))?;
     let site = FleetSite {

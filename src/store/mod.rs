@@ -91,6 +91,20 @@ pub trait Store {
     fn runs(&mut self, serial: Option<&str>) -> Result<Vec<RunRow>, StoreError>;
 }
 
+/// Opens the store at `url` as it is, for reading: a missing SQLite file is an error, not an
+/// empty store, and a schema other than this taucal's is refused, not migrated. `None` for
+/// `none`.
+pub fn open_existing(url: &StoreUrl) -> Result<Option<Box<dyn Store>>, StoreError> {
+    Ok(match url {
+        StoreUrl::Off => None,
+        StoreUrl::Sqlite(path) => Some(Box::new(sqlite::SqliteStore::open_existing(path)?)),
+        StoreUrl::Postgres(u) => Some(Box::new(postgres::PgStore::open_existing(
+            u,
+            &url.redacted(),
+        )?)),
+    })
+}
+
 /// Opens (creating or migrating) the store at `url`; `None` for `none`.
 pub fn open(url: &StoreUrl) -> Result<Option<Box<dyn Store>>, StoreError> {
     Ok(match url {

@@ -4,7 +4,8 @@
 
 use super::record::{AcceptRow, CellRow, RunRow, VerifyLevel};
 use super::schema::{
-    create_v1, Dialect, FLEET_CELLS_QUERY, LATEST_ACCEPTED_QUERY, SCHEMA_VERSION, UNITS_QUERY,
+    check_existing, create_v1, Dialect, FLEET_CELLS_QUERY, LATEST_ACCEPTED_QUERY, SCHEMA_VERSION,
+    UNITS_QUERY,
 };
 use super::{FleetCell, RunRecord, RunVersion, Store, StoreError, UnitSummary};
 use postgres::types::ToSql;
@@ -51,6 +52,26 @@ impl PgStore {
         };
         store.migrate()?;
         Ok(store)
+    }
+
+    /// Connects to `url` (`shown` is it with the password hidden), whose schema must be this
+    /// taucal's already; nothing is created or migrated.
+    pub fn open_existing(url: &str, shown: &str) -> Result<PgStore, StoreError> {
+        let connect = |message: String| StoreError::Connect {
+            url: shown.to_string(),
+            message,
+        };
+        let mut client = Client::connect(url, NoTls).map_err(|e| connect(describe(&e)))?;
+        let found: Option<i64> = client
+            .query_one("SELECT MAX(version) FROM taucal_schema", &[])
+            .map_err(|e| connect(format!("not a taucal store: {}", describe(&e))))?
+            .get(0);
+        check_existing(shown, found)?;
+        Ok(PgStore {
+            client,
+            url: shown.to_string(),
+            prepared: HashMap::new(),
+        })
     }
 
     fn err(&self, e: postgres::Error) -> StoreError {

@@ -144,3 +144,26 @@ pub fn runs_query(one_unit: bool) -> String {
     };
     format!("SELECT {RUN_COLUMNS} FROM runs{filter} ORDER BY unit_serial, started_utc, run_id")
 }
+
+/// Checks the schema version `found` of an existing store at `url` (shown with the password
+/// hidden) without changing it: only this taucal's own is read.
+pub fn check_existing(url: &str, found: Option<i64>) -> Result<(), super::StoreError> {
+    match found {
+        Some(SCHEMA_VERSION) => Ok(()),
+        Some(v) if v > SCHEMA_VERSION => Err(super::StoreError::NewerSchema {
+            url: url.to_string(),
+            found: v,
+            known: SCHEMA_VERSION,
+        }),
+        other => Err(super::StoreError::Connect {
+            url: url.to_string(),
+            message: match other {
+                Some(v) => format!(
+                    "schema version {v} is older than this taucal's {SCHEMA_VERSION}; a writing \
+                     command (store import) brings it up to date"
+                ),
+                None => "no taucal schema version in it".into(),
+            },
+        }),
+    }
+}

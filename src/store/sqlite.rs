@@ -2,9 +2,9 @@
 //! station can write to it at once.
 
 use super::record::{AcceptRow, CellRow, RunRow, VerifyLevel};
-use super::schema::{create_v1, Dialect, SCHEMA_VERSION};
+use super::schema::{check_existing, create_v1, Dialect, SCHEMA_VERSION};
 use super::{FleetCell, RunRecord, RunVersion, Store, StoreError, UnitSummary};
-use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
+use rusqlite::{params, Connection, OpenFlags, OptionalExtension, TransactionBehavior};
 use std::path::Path;
 use std::time::Duration;
 
@@ -54,6 +54,31 @@ impl SqliteStore {
                 }
             }
         }
+    }
+
+    /// Opens the file at `path`, which must exist and hold this taucal's schema, changing
+    /// nothing in it.
+    pub fn open_existing(path: &Path) -> Result<SqliteStore, StoreError> {
+        let url = format!("sqlite:{}", path.display());
+        let connect = |message: String| StoreError::Connect {
+            url: url.clone(),
+            message,
+        };
+        if !path.is_file() {
+            return Err(connect("the file does not exist".into()));
+        }
+        // Read-write so WAL works, but without CREATE: the file is never made here.
+        let flags = OpenFlags::SQLITE_OPEN_READ_WRITE
+            | OpenFlags::SQLITE_OPEN_URI
+            | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let conn = Connection::open_with_flags(path, flags).map_err(|e| connect(e.to_string()))?;
+        conn.busy_timeout(BUSY_TIMEOUT)
+            .map_err(|e| connect(e.to_string()))?;
+        let found: Option<i64> = conn
+            .query_row("SELECT MAX(version) FROM taucal_schema", [], |r| r.get(0))
+            .map_err(|e| connect(format!("not a taucal store: {e}")))?;
+        check_existing(&url, found)?;
+        Ok(SqliteStore { conn, url })
     }
 
     fn query_err(&self, e: rusqlite::Error) -> StoreError {

@@ -69,9 +69,10 @@ pub fn router(site: FleetSite) -> Router {
         .with_state(Arc::new(site))
 }
 
-/// Opens the store for one request: each page sees what the store holds now.
+/// Opens the store for one request: each page sees what the store holds now. A page view
+/// only reads: it never creates a missing store nor migrates one.
 fn open(site: &FleetSite) -> Result<Box<dyn Store>, PageError> {
-    crate::store::open(&site.url)
+    crate::store::open_existing(&site.url)
         .map_err(|e| PageError::Failed(e.to_string()))?
         .ok_or_else(|| PageError::Failed("--store none names no store".into()))
 }
