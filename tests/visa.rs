@@ -383,7 +383,32 @@ fn hislip_device_clear_locks_and_status_follow_the_specification() {
             .lock(Duration::from_millis(50))
             .await
             .expect("b waits, then fails"));
+        // IVI-6.1 §6.5 (from memory): the exclusive lock keeps other sessions from the device.
+        // b's setting waits while a holds it, and lands once a lets go.
+        b.write_message(b"DAMP:SETT 12.5\n")
+            .await
+            .expect("b writes");
+        a.write_message(b"DAMP:SETT?\n").await.expect("a asks");
+        assert_eq!(
+            a.read_message(t).await.expect("a reads"),
+            b"95.0\n".to_vec()
+        );
         assert!(a.unlock().await.expect("unlock"));
+        b.write_message(b"DAMP:SETT?\n").await.expect("b asks");
+        assert_eq!(
+            b.read_message(t).await.expect("b reads"),
+            b"12.5\n".to_vec()
+        );
+        b.write_message(b"DAMP:SETT 95\n")
+            .await
+            .expect("b restores");
+        b.write_message(b"DAMP:SETT?\n")
+            .await
+            .expect("b asks again");
+        assert_eq!(
+            b.read_message(t).await.expect("b reads"),
+            b"95.0\n".to_vec()
+        );
         assert!(!a.unlock().await.expect("nothing held"));
         a.write_message(b"*IDN?\n").await.expect("write");
         a.clear().await.expect("device clear");

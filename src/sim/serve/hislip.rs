@@ -4,7 +4,8 @@
 //! "invalid initialization sequence". On the synchronous channel Data/DataEND build a message,
 //! which is carried out at DataEND and answered with one DataEND bearing that message's id;
 //! DeviceClearComplete is acknowledged. On the asynchronous channel: maximum message size,
-//! device clear, the exclusive lock, lock info, remote/local and status queries. Other message
+//! device clear, the exclusive lock (a message from another session waits for its release, up
+//! to [`LOCKED_OUT_WAIT`], else is refused unrun), lock info, remote/local and status queries. Other message
 //! types get an Error, a malformed header a FatalError and the end of that connection only.
 //! TLS (StartTLS, §6.16 ff.) and credentials are not offered.
 
@@ -18,6 +19,10 @@ use std::sync::{Arc, Mutex};
 use std::time::Duration;
 use tokio::io::{AsyncRead, AsyncWrite, AsyncWriteExt, BufReader};
 use tokio::sync::{Notify, OwnedSemaphorePermit, Semaphore};
+
+/// How long a message from a session without the exclusive lock waits for another session to
+/// release it.
+const LOCKED_OUT_WAIT: Duration = Duration::from_secs(10);
 
 /// The sessions of one served instrument: their ids, and who holds the exclusive lock.
 #[derive(Default)]
@@ -59,6 +64,24 @@ impl Sessions {
                     *h = Some(id);
                     return true;
                 }
+                Ok(_) => {}
+                Err(_) => return false,
+            }
+            if tokio::time::timeout_at(deadline, notified).await.is_err() {
+                return false;
+            }
+        }
+    }
+
+    /// Waits up to `wait` until no other session holds the exclusive lock; whether none does.
+    async fn free_for(&self, id: u16, wait: Duration) -> bool {
+        let deadline = tokio::time::Instant::now() + wait;
+        loop {
+            let notified = self.released.notified();
+            tokio::pin!(notified);
+            notified.as_mut().enable();
+            match self.holder.lock() {
+                Ok(h) if h.is_none_or(|h| h == id) => return true,
                 Ok(_) => {}
                 Err(_) => return false,
             }
@@ -156,7 +179,7 @@ pub async fn serve<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
                 .await;
             }
             let id = sessions.start();
-            let outcome = synchronous(&mut stream, device, id, permit).await;
+            let outcome = synchronous(&mut stream, device, &sessions, id, permit).await;
             sessions.end(id);
             outcome
         }
@@ -194,6 +217,7 @@ pub async fn serve<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
 async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
     stream: &mut S,
     device: Arc<D>,
+    sessions: &Sessions,
     id: u16,
     _permit: OwnedSemaphorePermit,
 ) -> std::io::Result<()> {
@@ -240,6 +264,22 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
                 pending.extend_from_slice(&m.payload);
                 if m.kind() == Some(Kind::DataEnd) {
                     let program = std::mem::take(&mut pending);
+                    // The exclusive lock keeps other sessions out: their message waits for its
+                    // release, and is refused unrun if that does not come in time.
+                    if !sessions.free_for(id, LOCKED_OUT_WAIT).await {
+                        send(
+                            stream,
+                            Message::new(
+                                Kind::Error,
+                                error::UNIDENTIFIED,
+                                0,
+                                b"locked by another session: the message was not carried out"
+                                    .to_vec(),
+                            ),
+                        )
+                        .await?;
+                        continue;
+                    }
                     let Some(response) = device.execute(&program).await else {
                         return Ok(());
                     };
