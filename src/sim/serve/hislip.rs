@@ -4,8 +4,8 @@
 //! "invalid initialization sequence". On the synchronous channel Data/DataEND build a message,
 //! which is carried out at DataEND and answered with one DataEND bearing that message's id;
 //! DeviceClearComplete is acknowledged. On the asynchronous channel: maximum message size,
-//! device clear, the exclusive lock (a message from another session waits for its release, up
-//! to [`LOCKED_OUT_WAIT`], else is refused unrun), lock info, remote/local and status queries. Other message
+//! device clear, the exclusive lock (a message from another session waits up to 10 s for its
+//! release, else is refused unrun), lock info, remote/local and status queries. Other message
 //! types get an Error, a malformed header a FatalError and the end of that connection only.
 //! TLS (StartTLS, §6.16 ff.) and credentials are not offered.
 
