@@ -5,15 +5,17 @@
 //! which is carried out at DataEND and answered with one DataEND bearing that message's id;
 //! DeviceClearComplete is acknowledged. On the asynchronous channel: maximum message size,
 //! device clear, the exclusive lock (a message from another session waits up to 10 s for its
-//! release, else is refused unrun), lock info, remote/local and status queries. Other message
+//! release, else is refused unrun), lock info, remote/local and status queries (answered once
+//! the synchronous channel has dealt with the messages sent before the query, up to 2 s). Other message
 //! types get an Error, a malformed header a FatalError and the end of that connection only.
 //! TLS (StartTLS, §6.16 ff.) and credentials are not offered.
 
 use super::message_device::MessageDevice;
 use crate::instrument::transport::hislip::message::{
-    self, error, fatal, Kind, Message, ReadError, MAX_PAYLOAD_BYTES, PROTOCOL_VERSION, VENDOR_ID,
+    self, error, fatal, Kind, Message, ReadError, FIRST_MESSAGE_ID, MAX_PAYLOAD_BYTES,
+    PROTOCOL_VERSION, VENDOR_ID,
 };
-use std::collections::HashSet;
+use std::collections::{HashMap, HashSet};
 use std::sync::atomic::{AtomicU16, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
@@ -24,6 +26,10 @@ use tokio::sync::{Notify, OwnedSemaphorePermit, Semaphore};
 /// release it.
 const LOCKED_OUT_WAIT: Duration = Duration::from_secs(10);
 
+/// How long a status query waits for the synchronous channel to carry out the messages sent
+/// before it; past that it answers with the status byte as it stands.
+const STATUS_ORDER_WAIT: Duration = Duration::from_secs(2);
+
 /// The sessions of one served instrument: their ids, and who holds the exclusive lock.
 #[derive(Default)]
 pub struct Sessions {
@@ -31,6 +37,9 @@ pub struct Sessions {
     next: AtomicU16,
     holder: Mutex<Option<u16>>,
     released: Notify,
+    /// Per session, the message id after the last one the synchronous channel has dealt with.
+    done: Mutex<HashMap<u16, u32>>,
+    progressed: Notify,
 }
 
 impl Sessions {
@@ -50,7 +59,38 @@ impl Sessions {
         if let Ok(mut open) = self.open.lock() {
             open.remove(&id);
         }
+        if let Ok(mut done) = self.done.lock() {
+            done.remove(&id);
+        }
         self.release(id);
+    }
+
+    /// Records that session `id`'s synchronous channel has dealt with every message before
+    /// `next` (a message id; ids go up by 2 and wrap).
+    fn dealt_with(&self, id: u16, next: u32) {
+        if let Ok(mut done) = self.done.lock() {
+            done.insert(id, next);
+        }
+        self.progressed.notify_waiters();
+    }
+
+    /// Waits up to `wait` until session `id` has dealt with every message before `next`, so a
+    /// status query sent after a message reflects it (the client sends its next message id).
+    async fn caught_up(&self, id: u16, next: u32, wait: Duration) {
+        let deadline = tokio::time::Instant::now() + wait;
+        loop {
+            let notified = self.progressed.notified();
+            tokio::pin!(notified);
+            notified.as_mut().enable();
+            let reached = self.done.lock().is_ok_and(|done| {
+                let at = done.get(&id).copied().unwrap_or(FIRST_MESSAGE_ID);
+                // At or past `next`, modulo the wrap: within half the id space ahead.
+                at.wrapping_sub(next) < 1 << 31
+            });
+            if reached || tokio::time::timeout_at(deadline, notified).await.is_err() {
+                return;
+            }
+        }
     }
 
     async fn lock(&self, id: u16, wait: Duration) -> bool {
@@ -244,9 +284,7 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
                 let end = m.kind() == Some(Kind::DataEnd);
                 if discarding {
                     discarding = !end;
-                    continue;
-                }
-                if pending.len() + m.payload.len() > MAX_PAYLOAD_BYTES as usize {
+                } else if pending.len() + m.payload.len() > MAX_PAYLOAD_BYTES as usize {
                     pending.clear();
                     discarding = !end;
                     send(
@@ -259,43 +297,24 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
                         ),
                     )
                     .await?;
-                    continue;
-                }
-                pending.extend_from_slice(&m.payload);
-                if m.kind() == Some(Kind::DataEnd) {
-                    let program = std::mem::take(&mut pending);
-                    // The exclusive lock keeps other sessions out: their message waits for its
-                    // release, and is refused unrun if that does not come in time.
-                    if !sessions.free_for(id, LOCKED_OUT_WAIT).await {
-                        send(
-                            stream,
-                            Message::new(
-                                Kind::Error,
-                                error::UNIDENTIFIED,
-                                0,
-                                b"locked by another session: the message was not carried out"
-                                    .to_vec(),
-                            ),
-                        )
-                        .await?;
-                        continue;
-                    }
-                    let Some(response) = device.execute(&program).await else {
-                        return Ok(());
-                    };
-                    if !response.is_empty() {
-                        // Synchronized mode: the response bears the id of the DataEND it answers.
-                        send(
-                            stream,
-                            Message::new(Kind::DataEnd, 0, m.parameter, response),
-                        )
-                        .await?;
+                } else {
+                    pending.extend_from_slice(&m.payload);
+                    if end {
+                        let program = std::mem::take(&mut pending);
+                        if !carry_out(stream, &*device, sessions, id, &program, m.parameter).await?
+                        {
+                            return Ok(());
+                        }
                     }
                 }
+                // Status queries wait for this: the client sends its next message id.
+                sessions.dealt_with(id, m.parameter.wrapping_add(2));
             }
             Some(Kind::DeviceClearComplete) => {
                 pending.clear();
                 discarding = false;
+                // After a device clear the client numbers its messages from the first id again.
+                sessions.dealt_with(id, FIRST_MESSAGE_ID);
                 // Synchronized mode is all this server offers: no overlap feature granted.
                 send(
                     stream,
@@ -303,7 +322,7 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
                 )
                 .await?;
             }
-            Some(Kind::Trigger) => {}
+            Some(Kind::Trigger) => sessions.dealt_with(id, m.parameter.wrapping_add(2)),
             _ => {
                 send(
                     stream,
@@ -322,6 +341,40 @@ async fn synchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
             }
         }
     }
+}
+
+/// Carries out one whole message for session `id` and sends its response, if any; `false`
+/// when the device is gone. The exclusive lock keeps other sessions out: their message waits
+/// for its release, and is refused unrun if that does not come in time.
+async fn carry_out<S: AsyncWrite + Unpin, D: MessageDevice>(
+    stream: &mut S,
+    device: &D,
+    sessions: &Sessions,
+    id: u16,
+    program: &[u8],
+    message_id: u32,
+) -> std::io::Result<bool> {
+    if !sessions.free_for(id, LOCKED_OUT_WAIT).await {
+        send(
+            stream,
+            Message::new(
+                Kind::Error,
+                error::UNIDENTIFIED,
+                0,
+                b"locked by another session: the message was not carried out".to_vec(),
+            ),
+        )
+        .await?;
+        return Ok(true);
+    }
+    let Some(response) = device.execute(program).await else {
+        return Ok(false);
+    };
+    if !response.is_empty() {
+        // Synchronized mode: the response bears the id of the DataEND it answers.
+        send(stream, Message::new(Kind::DataEnd, 0, message_id, response)).await?;
+    }
+    Ok(true)
 }
 
 async fn asynchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
@@ -367,12 +420,16 @@ async fn asynchronous<S: AsyncRead + AsyncWrite + Unpin, D: MessageDevice>(
             Some(Kind::AsyncRemoteLocalControl) => {
                 Message::new(Kind::AsyncRemoteLocalResponse, 0, 0, Vec::new())
             }
-            Some(Kind::AsyncStatusQuery) => Message::new(
-                Kind::AsyncStatusResponse,
-                device.status_byte(),
-                0,
-                Vec::new(),
-            ),
+            Some(Kind::AsyncStatusQuery) => {
+                // The status byte as it stands after the messages sent before the query.
+                sessions.caught_up(id, m.parameter, STATUS_ORDER_WAIT).await;
+                Message::new(
+                    Kind::AsyncStatusResponse,
+                    device.status_byte(),
+                    0,
+                    Vec::new(),
+                )
+            }
             _ => Message::new(
                 Kind::Error,
                 error::UNRECOGNIZED_TYPE,
@@ -446,5 +503,70 @@ mod tests {
         assert_eq!(*device.0.lock().expect("recorder"), [b"*IDN?\n".to_vec()]);
         drop(client);
         serving.await.expect("join").expect("served");
+    }
+
+    /// Takes a while over each message; its status byte says a message was carried out.
+    #[derive(Default)]
+    struct Slow(std::sync::atomic::AtomicU8);
+
+    #[async_trait]
+    impl MessageDevice for Slow {
+        async fn execute(&self, _message: &[u8]) -> Option<Vec<u8>> {
+            tokio::time::sleep(Duration::from_millis(300)).await;
+            // Bit 2, the error/event queue (SCPI), as a bad command leaves it.
+            self.0.store(4, Ordering::SeqCst);
+            Some(Vec::new())
+        }
+        fn status_byte(&self) -> u8 {
+            self.0.load(Ordering::SeqCst)
+        }
+    }
+
+    #[tokio::test]
+    async fn a_status_query_reflects_the_messages_sent_before_it() {
+        let device = Arc::new(Slow::default());
+        let sessions = Arc::new(Sessions::default());
+        let permits = Arc::new(Semaphore::new(2));
+        let (mut sync, server) = tokio::io::duplex(1 << 16);
+        let serving = tokio::spawn(serve(
+            server,
+            device.clone(),
+            sessions.clone(),
+            permits.clone(),
+        ));
+        let hello = Message::new(Kind::Initialize, 0, 0, b"hislip0".to_vec());
+        sync.write_all(&hello.encode()).await.expect("init");
+        let session = next(&mut sync).await.parameter as u16;
+        let (mut asynchronous, server) = tokio::io::duplex(1 << 16);
+        let serving_async = tokio::spawn(serve(server, device.clone(), sessions, permits));
+        let hello = Message::new(Kind::AsyncInitialize, 0, u32::from(session), Vec::new());
+        asynchronous
+            .write_all(&hello.encode())
+            .await
+            .expect("async init");
+        assert_eq!(
+            next(&mut asynchronous).await.kind(),
+            Some(Kind::AsyncInitializeResponse)
+        );
+        // The query goes out at once after the message, bearing the next message id (as
+        // pyvisa-py sends it); the device takes 300 ms over the message.
+        let bad = Message::new(Kind::DataEnd, 0, FIRST_MESSAGE_ID, b"BAD:CMD 1\n".to_vec());
+        sync.write_all(&bad.encode()).await.expect("send");
+        let ask = Message::new(
+            Kind::AsyncStatusQuery,
+            0,
+            FIRST_MESSAGE_ID.wrapping_add(2),
+            Vec::new(),
+        );
+        asynchronous.write_all(&ask.encode()).await.expect("ask");
+        let status = next(&mut asynchronous).await;
+        assert_eq!(status.kind(), Some(Kind::AsyncStatusResponse));
+        assert_eq!(
+            status.control, 4,
+            "the status byte before the message was carried out"
+        );
+        drop((sync, asynchronous));
+        serving.await.expect("join").expect("served");
+        serving_async.await.expect("join").expect("served");
     }
 }
