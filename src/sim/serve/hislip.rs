@@ -77,58 +77,37 @@ impl Sessions {
     /// Waits up to `wait` until session `id` has dealt with every message before `next`, so a
     /// status query sent after a message reflects it (the client sends its next message id).
     async fn caught_up(&self, id: u16, next: u32, wait: Duration) {
-        let deadline = tokio::time::Instant::now() + wait;
-        loop {
-            let notified = self.progressed.notified();
-            tokio::pin!(notified);
-            notified.as_mut().enable();
+        until(&self.progressed, wait, || {
             let reached = self.done.lock().is_ok_and(|done| {
                 let at = done.get(&id).copied().unwrap_or(FIRST_MESSAGE_ID);
                 // At or past `next`, modulo the wrap: within half the id space ahead.
                 at.wrapping_sub(next) < 1 << 31
             });
-            if reached || tokio::time::timeout_at(deadline, notified).await.is_err() {
-                return;
-            }
-        }
+            reached.then_some(true)
+        })
+        .await;
     }
 
     async fn lock(&self, id: u16, wait: Duration) -> bool {
-        let deadline = tokio::time::Instant::now() + wait;
-        loop {
-            let notified = self.released.notified();
-            tokio::pin!(notified);
-            notified.as_mut().enable();
-            match self.holder.lock() {
-                Ok(mut h) if h.is_none_or(|h| h == id) => {
-                    *h = Some(id);
-                    return true;
-                }
-                Ok(_) => {}
-                Err(_) => return false,
+        until(&self.released, wait, || match self.holder.lock() {
+            Ok(mut h) if h.is_none_or(|h| h == id) => {
+                *h = Some(id);
+                Some(true)
             }
-            if tokio::time::timeout_at(deadline, notified).await.is_err() {
-                return false;
-            }
-        }
+            Ok(_) => None,
+            Err(_) => Some(false),
+        })
+        .await
     }
 
     /// Waits up to `wait` until no other session holds the exclusive lock; whether none does.
     async fn free_for(&self, id: u16, wait: Duration) -> bool {
-        let deadline = tokio::time::Instant::now() + wait;
-        loop {
-            let notified = self.released.notified();
-            tokio::pin!(notified);
-            notified.as_mut().enable();
-            match self.holder.lock() {
-                Ok(h) if h.is_none_or(|h| h == id) => return true,
-                Ok(_) => {}
-                Err(_) => return false,
-            }
-            if tokio::time::timeout_at(deadline, notified).await.is_err() {
-                return false;
-            }
-        }
+        until(&self.released, wait, || match self.holder.lock() {
+            Ok(h) if h.is_none_or(|h| h == id) => Some(true),
+            Ok(_) => None,
+            Err(_) => Some(false),
+        })
+        .await
     }
 
     fn release(&self, id: u16) -> bool {
@@ -144,6 +123,24 @@ impl Sessions {
 
     fn locked(&self) -> bool {
         self.holder.lock().is_ok_and(|h| h.is_some())
+    }
+}
+
+/// Asks `settled` now and each time `notify` fires, up to `wait`: its answer once it gives
+/// one, `false` at the deadline. Armed before each asking, so a notification between the
+/// asking and the wait is not missed.
+async fn until(notify: &Notify, wait: Duration, mut settled: impl FnMut() -> Option<bool>) -> bool {
+    let deadline = tokio::time::Instant::now() + wait;
+    loop {
+        let notified = notify.notified();
+        tokio::pin!(notified);
+        notified.as_mut().enable();
+        if let Some(answer) = settled() {
+            return answer;
+        }
+        if tokio::time::timeout_at(deadline, notified).await.is_err() {
+            return false;
+        }
     }
 }
 
