@@ -131,14 +131,8 @@ pub struct FleetServeArgs {
     /// the port reads the store's units and tables).
     #[arg(long)]
     pub allow_remote: bool,
-    /// Smallest station offset worth flagging, ps (as `fleet stations`).
-    #[arg(
-        long,
-        value_name = "PS",
-        default_value_t = 20.0,
-        allow_negative_numbers = true
-    )]
-    pub threshold_ps: f64,
+    #[command(flatten)]
+    pub threshold: StationThresholdArg,
 }
 
 /// `taucal fleet plan`.
@@ -187,14 +181,8 @@ pub struct FleetStationsArgs {
     /// Output format.
     #[arg(long, value_enum, default_value = "text")]
     pub format: ListFormat,
-    /// Smallest offset worth flagging, ps.
-    #[arg(
-        long,
-        value_name = "PS",
-        default_value_t = 20.0,
-        allow_negative_numbers = true
-    )]
-    pub threshold_ps: f64,
+    #[command(flatten)]
+    pub threshold: StationThresholdArg,
 }
 
 /// `taucal sim …`.
@@ -374,6 +362,20 @@ pub enum StoreCommand {
         after_help = "Examples:\n  taucal store table SN-0412 --format c > sn0412_k_table.h\n  taucal store table SN-0412 --store postgres://line4@db.lab/cal --format json"
     )]
     Table(StoreTableArgs),
+}
+
+/// The smallest station offset worth flagging: `fleet stations` and the stations page
+/// flag alike.
+#[derive(Debug, Args)]
+pub struct StationThresholdArg {
+    /// Smallest station offset worth flagging, ps.
+    #[arg(
+        long,
+        value_name = "PS",
+        default_value_t = 20.0,
+        allow_negative_numbers = true
+    )]
+    pub threshold_ps: f64,
 }
 
 /// Where store commands read when no URL is given.

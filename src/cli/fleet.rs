@@ -135,9 +135,9 @@ pub(super) fn check_threshold(threshold_ps: f64) -> Result<(), Diagnostic> {
 }
 
 fn stations(args: FleetStationsArgs) -> Result<Exit, Diagnostic> {
-    check_threshold(args.threshold_ps)?;
+    check_threshold(args.threshold.threshold_ps)?;
     let cells = fleet(&args.store)?;
-    let offsets = station_offsets(&deviations(&cells), args.threshold_ps);
+    let offsets = station_offsets(&deviations(&cells), args.threshold.threshold_ps);
     let header = STATIONS_HEADER;
     let text = args.format == ListFormat::Text;
     let rows: Vec<Vec<String>> = offsets.iter().map(|o| station_row(o, text)).collect();
@@ -148,7 +148,7 @@ fn stations(args: FleetStationsArgs) -> Result<Exit, Diagnostic> {
             "taucal: offsets against the median station, cell-centred; flagged when the 95 % \
              interval excludes 0 and |offset| > {} ps ({flagged} flagged). A path e ps longer \
              than declared shows as +2e ps",
-            args.threshold_ps
+            args.threshold.threshold_ps
         ));
     }
     Ok(Exit::Ok)

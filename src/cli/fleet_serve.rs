@@ -11,7 +11,7 @@ use crate::web::{bind, serve, Shutdown};
 
 /// Serves the pages.
 pub fn run(args: FleetServeArgs) -> Result<Exit, Diagnostic> {
-    check_threshold(args.threshold_ps)?;
+    check_threshold(args.threshold.threshold_ps)?;
     let url = read_url(&args.store)?;
     // Opened once now, so a wrong URL is an input error at start rather than a broken page;
     // as every page, without creating or migrating anything.
@@ -25,7 +25,7 @@ pub fn run(args: FleetServeArgs) -> Result<Exit, Diagnostic> {
         .map_err(|e| Diagnostic::plain(format!("--listen: {e}")))?;
     let site = FleetSite {
         url,
-        threshold_ps: args.threshold_ps,
+        threshold_ps: args.threshold.threshold_ps,
     };
     let served = serve(listener, router(site), Shutdown::new())
         .map_err(|e| Diagnostic::plain(e.to_string()))?;

@@ -3,6 +3,7 @@
 
 use super::markup::{cell_link, escaped, pill, table, tabs, Tab};
 use super::units::time_cell;
+use crate::fit::verify::VERIFY_HEADER;
 use crate::fleet::cells::CellStats;
 use crate::fleet::centred::UnitDeviation;
 use crate::fleet::outliers::{Outlier, CUTOFF_Z};
@@ -161,16 +162,8 @@ fn verification(rec: &RunRecord) -> String {
                 </p></section>"
             .into();
     }
-    let header = [
-        "center_mhz",
-        "bw_mhz",
-        "atten_db",
-        "rx_power_dbm",
-        "equiv_distance_m",
-        "n",
-        "range_error_single_m",
-        "range_error_table_m",
-    ];
+    // The columns of the run's verify.csv, as that file names them.
+    let header: Vec<&str> = VERIFY_HEADER.split(',').collect();
     let rows: Vec<Vec<String>> = rec
         .verify
         .iter()
